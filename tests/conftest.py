@@ -1,0 +1,27 @@
+"""Shared helpers for the model tests: run air histories through the one integrator."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from watcher.files.profiles import load_profile
+from watcher.model.integrator import Spec, advance, new_state, outputs
+
+
+@pytest.fixture(scope="session")
+def dairy():
+    return load_profile(None)
+
+
+def run_history(spec: Spec, t_s, air_c, setpoint_c=None, probe_c=None, chunks=None):
+    """Integrate one or more zones (air_c (Z, K) or (K,)) and return (state, outputs)."""
+    t = np.asarray(t_s, dtype=float)
+    air = np.atleast_2d(np.asarray(air_c, dtype=float))
+    probe = None if probe_c is None else np.atleast_2d(np.asarray(probe_c, dtype=float))
+    sp = air[:, 0] if setpoint_c is None else setpoint_c
+    state = new_state(spec, t[0], air[:, 0], sp, None if probe is None else probe[:, 0])
+    bounds = [1, t.size] if chunks is None else chunks
+    for lo, hi in zip(bounds[:-1], bounds[1:]):
+        state, _ = advance(spec, state, t[lo:hi], air[:, lo:hi], None if probe is None else probe[:, lo:hi])
+    return state, outputs(spec, state)

@@ -1,0 +1,253 @@
+"""The `watcher` command: a thin layer of click commands over the library.
+
+Every WatcherError becomes one line on stderr and its exit code (2 for bad input).
+"""
+
+from __future__ import annotations
+
+import json
+import sys
+from datetime import UTC, datetime
+from pathlib import Path
+
+import click
+
+from watcher import __version__
+from watcher.errors import WatcherError
+
+
+class _Group(click.Group):
+    """Turns watcher's own errors into a clear message and exit code, never a traceback."""
+
+    def invoke(self, ctx):
+        try:
+            return super().invoke(ctx)
+        except WatcherError as exc:
+            click.echo(f"watcher: error: {exc}", err=True)
+            sys.exit(exc.exit_code)
+
+
+@click.group(cls=_Group)
+@click.version_option(__version__, prog_name="watcher")
+def main() -> None:
+    """Ice-crystal coarsening watch for frozen-dessert cold stores."""
+
+
+def _stamp(t_s: float) -> str:
+    return datetime.fromtimestamp(t_s, tz=UTC).strftime("%Y-%m-%d %H:%M UTC")
+
+
+def _fmt(value, spec: str, none: str = "-") -> str:
+    return none if value is None else format(value, spec)
+
+
+def _figure_table(rows: dict[str, dict]) -> list[str]:
+    head = f"{'position':<10} {'state':<7} {'product C':>9} {'mean um':>8} {'d90 um':>7} {'>limit vol%':>11} {'budget %':>9} {'um/day':>7} {'days left':>9} {'vs setpoint um':>14}"
+    out = [head, "-" * len(head)]
+    for name, r in rows.items():
+        share = None if r["share_above_limit"] is None else 100 * r["share_above_limit"]
+        out.append(
+            f"{name:<10} {r['state']:<7} {_fmt(r['product_c'], '9.1f'):>9} {_fmt(r['mean_diameter_um'], '8.1f'):>8} "
+            f"{_fmt(r['d90_um'], '7.1f'):>7} {_fmt(share, '11.1f'):>11} {_fmt(r['budget_used_pct'], '9.1f'):>9} "
+            f"{_fmt(r['growth_rate_um_per_day'], '7.3f'):>7} {_fmt(r['days_to_limit'], '9.1f', 'never'):>9} "
+            f"{_fmt(r['excess_growth_um'], '+14.2f'):>14}"
+        )
+    return out
+
+
+@main.command()
+@click.option(
+    "--profile",
+    "profile_name",
+    default=None,
+    help="Shipped profile name or profile TOML file (default: dairy-ice-cream).",
+)
+@click.option(
+    "--series",
+    "series_path",
+    required=True,
+    type=click.Path(dir_okay=False),
+    help="CSV with columns time, air_c and optionally product_c.",
+)
+@click.option(
+    "--setpoint-c",
+    type=float,
+    default=None,
+    help="Setpoint for the excess-growth comparison (default: the series' median air temperature).",
+)
+@click.option("--json", "as_json", is_flag=True, help="Print one JSON object instead of a table.")
+def simulate(profile_name, series_path, setpoint_c, as_json) -> None:
+    """Predict crystal coarsening for one zone's recorded temperature series."""
+    from watcher.files.profiles import load_profile
+    from watcher.files.series import read_series
+    from watcher.simulation import simulate as run
+
+    profile = load_profile(profile_name)
+    series = read_series(series_path)
+    result = run(profile, series, setpoint_c)
+    if as_json:
+        click.echo(json.dumps(result, indent=2))
+        return
+    days = (result["end_s"] - result["start_s"]) / 86400.0
+    click.echo(
+        f"Series   {series_path}: {result['samples']} samples, {_stamp(result['start_s'])} to {_stamp(result['end_s'])} ({days:.1f} days)"
+    )
+    click.echo(
+        f"Profile  {result['profile']}; setpoint {result['setpoint_c']:.1f} C; texture limit {result['limit_mean_diameter_um']:.0f} um mean diameter"
+    )
+    click.echo("")
+    for line in _figure_table(result["positions"]):
+        click.echo(line)
+    w = result["positions"][result["worst_position"]]
+    click.echo("")
+    click.echo(f"Most budget used: {result['worst_position']} ({_fmt(w['budget_used_pct'], '.1f')} %).")
+    click.echo(result["caution"])
+
+
+@main.group()
+def profile() -> None:
+    """Product profiles: list the shipped ones, show resolved parameters."""
+
+
+@profile.command("list")
+def profile_list() -> None:
+    """List the shipped profiles."""
+    from watcher.files.profiles import builtin_names, load_profile
+
+    for name in builtin_names():
+        click.echo(f"{name}: {load_profile(name).description}")
+
+
+@profile.command("show")
+@click.argument("name")
+@click.option("--json", "as_json", is_flag=True, help="Print the resolved parameters as JSON.")
+def profile_show(name, as_json) -> None:
+    """Show a profile's resolved parameters (NAME is a shipped name or a TOML file)."""
+    from watcher.files.profiles import load_profile, profile_to_toml
+
+    prof = load_profile(name)
+    click.echo(json.dumps(prof.as_dict(), indent=2) if as_json else profile_to_toml(prof), nl=as_json)
+
+
+@main.command()
+@click.argument("trial_path", metavar="TRIAL.csv", type=click.Path(dir_okay=False))
+@click.option(
+    "--out",
+    "out_path",
+    required=True,
+    type=click.Path(dir_okay=False),
+    help="Where to write the calibrated profile TOML.",
+)
+@click.option(
+    "--base", default=None, help="Profile whose shape, ice curve, limit and Tg' are kept (default: dairy-ice-cream)."
+)
+@click.option(
+    "--form",
+    type=click.Choice(["arrhenius", "wlf"]),
+    default=None,
+    help="Temperature dependence to fit (default: the base profile's).",
+)
+@click.option("--name", default=None, help="Name of the new profile (default: the output file's stem).")
+@click.option("--json", "as_json", is_flag=True, help="Print the fit as JSON.")
+def calibrate(trial_path, out_path, base, form, name, as_json) -> None:
+    """Fit a profile's kinetics to a storage trial (columns days, temp_c, mean_diameter_um)."""
+    from watcher.files.profiles import load_profile, profile_to_toml
+    from watcher.files.trial import read_trial
+    from watcher.model.calibrate import fit_trial
+
+    trial = read_trial(trial_path)
+    base_profile = load_profile(base)
+    name = name or Path(out_path).stem
+    fit = fit_trial(trial, base_profile, name, form)
+    kin = fit.profile.kinetics
+    header = [
+        f"Calibrated by watcher {__version__} from {Path(trial_path).name} on base profile {base_profile.name}.",
+        f"K_ref = {kin.k_ref_um3_per_day:.4g} +- {fit.sd['k_ref_um3_per_day']:.2g} um^3/day at {kin.ref_temp_c} C"
+        + (
+            f"; Ea = {kin.activation_energy_kj_per_mol:.4g} +- {fit.sd['activation_energy_kj_per_mol']:.2g} kJ/mol"
+            if kin.form == "arrhenius"
+            else f"; WLF with Tg' {kin.tg_prime_c} C"
+        ),
+        f"RMSE {fit.rmse_um:.2f} um over {trial.days.size} measurements.",
+        "Texture-quality parameters only; not a food-safety profile.",
+    ]
+    try:
+        Path(out_path).write_text(profile_to_toml(fit.profile, header), encoding="utf-8")
+    except OSError as exc:
+        raise WatcherError(f"{out_path}: cannot write the profile ({exc})") from exc
+    groups = [
+        {"temp_c": g.temp_c, "k_um3_per_day": g.k_um3_per_day, "k_rel_sd": g.k_rel_sd, "n": g.n} for g in fit.groups
+    ]
+    residuals = [
+        {
+            "days": float(d),
+            "temp_c": float(t),
+            "observed_um": float(o),
+            "predicted_um": float(p),
+            "residual_um": float(r),
+        }
+        for d, t, o, p, r in zip(trial.days, trial.temp_c, trial.mean_diameter_um, fit.predicted_um, fit.residual_um)
+    ]
+    if as_json:
+        click.echo(
+            json.dumps(
+                {
+                    "profile": fit.profile.as_dict(),
+                    "params": fit.params,
+                    "sd": fit.sd,
+                    "rmse_um": fit.rmse_um,
+                    "groups": groups,
+                    "residuals": residuals,
+                    "out": str(out_path),
+                },
+                indent=2,
+            )
+        )
+        return
+    for line in header[:3]:
+        click.echo(line)
+    click.echo("")
+    click.echo("Each temperature on its own (rate K only):")
+    click.echo(f"  {'temp C':>7} {'K um^3/day':>11} {'+- %':>6} {'n':>3}")
+    for g in groups:
+        click.echo(f"  {g['temp_c']:7.1f} {g['k_um3_per_day']:11.4g} {100 * g['k_rel_sd']:6.0f} {g['n']:3d}")
+    click.echo("")
+    click.echo(f"  {'days':>6} {'temp C':>7} {'observed':>9} {'predicted':>9} {'residual':>9}")
+    for r in residuals:
+        click.echo(
+            f"  {r['days']:6.0f} {r['temp_c']:7.1f} {r['observed_um']:9.1f} {r['predicted_um']:9.1f} {r['residual_um']:+9.1f}"
+        )
+    click.echo("")
+    click.echo(f"Wrote {out_path} (use it with --profile {out_path}).")
+
+
+@main.command()
+@click.option(
+    "--days",
+    type=click.FloatRange(1.0, 60.0),
+    default=14.0,
+    show_default=True,
+    help="Days of demo history to simulate.",
+)
+def demo(days) -> None:
+    """Simulate the built-in demo site (a fictional cold store) and print each zone's state."""
+    from watcher import demo as site
+    from watcher.files.profiles import load_profile
+    from watcher.simulation import simulate as run
+
+    profile_ = load_profile(None)
+    zones = site.build(days=days)
+    click.echo(f"Demo site: {site.SITE_NAME} (invented data). Profile {profile_.name}.")
+    click.echo(f"Simulating {days:g} days of 1-minute air readings in {len(zones)} zones ...")
+    click.echo("")
+    for zone in zones:
+        result = run(profile_, zone.series, zone.setpoint_c)
+        click.echo(f"{zone.name} [{zone.zone_id}], setpoint {zone.setpoint_c:.0f} C: {zone.regime}")
+        for line in _figure_table(result["positions"]):
+            click.echo("  " + line)
+        click.echo("")
+    click.echo("'vs setpoint um' is the growth beyond what holding the setpoint would have caused.")
+    from watcher.simulation import CAUTION
+
+    click.echo(CAUTION)
+    click.echo("Next: write a series as CSV (time,air_c) and run `watcher simulate --series FILE.csv`.")

@@ -1,0 +1,52 @@
+"""The one error tree of watcher.
+
+    WatcherError                 base; every error the CLI turns into a message and an exit code
+    +-- InputError               bad input from a person or a file (exit 2)
+    |   +-- ProfileError         a product profile is impossible (names the field, value, range)
+    |   +-- SeriesError          a temperature series cannot be used (names the row and column)
+    |   +-- TrialError           a storage-trial table cannot be fitted
+    |   +-- ConfigError          the service configuration is invalid
+    +-- ModelError               the numerical core met a state it cannot continue from
+
+Library errors are translated at the boundary with ``raise ... from exc``.
+"""
+
+from __future__ import annotations
+
+
+class WatcherError(Exception):
+    """Base of every error watcher raises on purpose."""
+
+    exit_code = 1
+
+
+class InputError(WatcherError):
+    """Bad input: a file, a field or a value that cannot be used as given."""
+
+    exit_code = 2
+
+    def __init__(self, where: str, value: object, expected: str) -> None:
+        self.where = where
+        self.value = value
+        self.expected = expected
+        super().__init__(f"{where}: got {value!r}, expected {expected}")
+
+
+class ProfileError(InputError):
+    """A product profile field is missing, of the wrong type or out of range."""
+
+
+class SeriesError(InputError):
+    """A temperature series has an unusable row or column."""
+
+
+class TrialError(InputError):
+    """A storage-trial table cannot be used for calibration."""
+
+
+class ConfigError(InputError):
+    """A service configuration key is invalid."""
+
+
+class ModelError(WatcherError):
+    """The numerical core reached a state it cannot continue from."""

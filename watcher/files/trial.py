@@ -1,0 +1,25 @@
+"""Storage-trial CSV: columns `days`, `temp_c`, `mean_diameter_um`; a day-0 row is the
+initial size; rows at one temperature form a constant-temperature group."""
+
+from __future__ import annotations
+
+from watcher.errors import TrialError
+from watcher.files.csvtable import number, read_rows
+from watcher.model.calibrate import Trial, make_trial
+
+
+def read_trial(path: str) -> Trial:
+    _, rows = read_rows(path, ("days", "temp_c", "mean_diameter_um"), TrialError)
+    days, temps, sizes = [], [], []
+    for line, row in rows:
+        where = f"{path}: line {line}"
+        d = number(row.get("days"), f"{where}, column days", TrialError)
+        if d < 0:
+            raise TrialError(f"{where}, column days", d, "a storage time of 0 or more days")
+        s = number(row.get("mean_diameter_um"), f"{where}, column mean_diameter_um", TrialError)
+        if s <= 0:
+            raise TrialError(f"{where}, column mean_diameter_um", s, "a positive mean diameter in um")
+        days.append(d)
+        temps.append(number(row.get("temp_c"), f"{where}, column temp_c", TrialError))
+        sizes.append(s)
+    return make_trial(days, temps, sizes)
