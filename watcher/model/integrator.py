@@ -15,7 +15,12 @@ sample by sample gives the same state, because
 
 Rows: each zone has one population per exposure position plus one counterfactual population
 held at the zone's setpoint from the first sample on; excess growth is the difference.
-The texture budget is a running maximum: texture damage does not heal when crystals melt.
+Figures describe the settled population: ice that is melted at the moment (a defrost, an
+open door) is refrozen, on a copy, onto the surviving crystals at the zone's setpoint, which is
+what the product will hold once it is cold again. So a warm spell shows as the lasting damage
+it does, never as a temporary shrinking of the crystals. The texture budget is committed at
+the end of each macro interval (each full hour of data by default) as a running maximum:
+texture damage does not heal, and a figure once reported is never taken back.
 """
 
 from __future__ import annotations
@@ -66,6 +71,13 @@ class Spec:
         for p in self.positions:
             if not p.probe and not (p.tau_s > 0 and math.isfinite(p.tau_s)):
                 raise ModelError(f"position {p.name!r}: tau_s must be a positive number, got {p.tau_s!r}")
+
+    @property
+    def panel_s(self) -> float:
+        """Longest quadrature panel: a twelfth of the fastest lag, so Simpson's rule stays
+        accurate when the sampling is coarse (1-minute data are never subdivided)."""
+        taus = [p.tau_s for p in self.positions if not p.probe]
+        return min(taus) / 12.0 if taus else self.macro_s
 
     @property
     def lag_index(self) -> np.ndarray:
@@ -148,11 +160,14 @@ def new_state(spec: Spec, t0_s: float, air0_c, setpoint_c, probe0_c=None) -> Sta
         product[:, pi] = np.where(np.isnan(probe0), air0, probe0)[:, None]
     ini = spec.profile.initial
     ub0, w = pop.initial_cells(ini.mean_diameter_um, ini.spread_cv, ini.shape, spec.n_classes)
-    ice_rows = np.concatenate([spec.ice(product), spec.ice(sp)[:, None]], axis=1)  # (Z, R)
+    # The fresh distribution is the product as hardened and held at the setpoint; a product
+    # that starts warmer melts down to its own ice fraction in the first macro step.
+    ice_set = np.repeat(spec.ice(sp)[:, None], n_pos + 1, axis=1)  # (Z, R)
+    ice_now = spec.ice(product)
     v_unit = float(pop.volume(ub0[None], w[None])[0])
-    n = (w / v_unit)[None, None, :] * ice_rows[..., None]
-    u = np.broadcast_to(ub0, ice_rows.shape + ub0.shape).copy()
-    gone = ice_rows <= 0
+    n = (w / v_unit)[None, None, :] * ice_set[..., None]
+    u = np.broadcast_to(ub0, ice_set.shape + ub0.shape).copy()
+    gone = np.concatenate([ice_now <= 0, (ice_set[:, -1:] <= 0)], axis=1)
     n[gone] = 0.0
     thawed = np.where(gone[:, :n_pos], float(t0_s), np.nan)
     return State(
@@ -164,7 +179,7 @@ def new_state(spec: Spec, t0_s: float, air0_c, setpoint_c, probe0_c=None) -> Sta
         ub=u,
         nc=n,
         acc_theta=np.zeros((z, n_pos + 1)),
-        acc_ice_min=np.full((z, n_pos), np.inf),
+        acc_ice_min=ice_now.copy(),
         peak_budget=np.zeros((z, n_pos + 1)),
         thawed_at_s=thawed,
         l0_um=float(ini.mean_diameter_um),
@@ -177,12 +192,29 @@ def _budget_fraction(spec: Spec, mean_um: np.ndarray) -> np.ndarray:
     return (mean_um**3 - l0**3) / (lim**3 - l0**3)
 
 
+def _settled(
+    spec: Spec, u: np.ndarray, n: np.ndarray, setpoint_c: np.ndarray, n_pos: int
+) -> tuple[np.ndarray, np.ndarray]:
+    """Copies of the rows with the ice that is melted now refrozen onto the survivors at the
+    zone's setpoint: the crystals a warm spell leaves behind once the product is cold again."""
+    z = setpoint_c.size
+    target = np.repeat(spec.ice(setpoint_c), n_pos + 1)
+    u2, n2 = u.copy(), n.copy()
+    v = pop.volume(u2, n2)
+    warm = (target > v * (1.0 + ICE_TOL)) & (v > 0)
+    warm.reshape(z, n_pos + 1)[:, n_pos] = False  # the counterfactual sits at its setpoint
+    pop.shift_to_volume(u2, n2, target, warm)
+    return u2, n2
+
+
 def _population_step(spec: Spec, u, n, theta, ice_min, ice_end) -> None:
     """One macro step in place on flattened rows: melt, coarsen, refreeze."""
     v = pop.volume(u, n)
-    pop.shift_to_volume(u, n, ice_min, ice_min < v * (1.0 - ICE_TOL))
+    melt = ice_min < v * (1.0 - ICE_TOL)
+    pop.shift_to_volume(u, n, ice_min, melt)
+    # Melting leaves exactly the target volume and coarsening conserves it: no recount needed.
+    v = np.where(melt, np.maximum(ice_min, 0.0), v)
     pop.lsw_advance(u, n, theta, spec.rel_tol)
-    v = pop.volume(u, n)
     pop.shift_to_volume(u, n, ice_end, (ice_end > v * (1.0 + ICE_TOL)) & (v > 0))
 
 
@@ -228,7 +260,7 @@ def advance(spec: Spec, state: State, t_s, air_c, probe_c=None, trace: bool = Fa
     k0 = math.floor(st.t_s / macro) + 1
     k1 = math.ceil(t[-1] / macro)
     bounds = np.arange(k0, k1, dtype=np.float64) * macro
-    grid = np.concatenate(([st.t_s], np.union1d(t, bounds)))
+    grid = _refine(np.concatenate(([st.t_s], np.union1d(t, bounds))), spec.panel_s)
     dt = np.diff(grid)
     idx = np.searchsorted(t, grid[:-1], side="right")  # samples at or before each start
     air = np.concatenate([st.air_c[:, None], air_new], axis=1)[:, idx]
@@ -270,7 +302,7 @@ def advance(spec: Spec, state: State, t_s, air_c, probe_c=None, trace: bool = Fa
         ice_end = np.concatenate([ice_end_seg[..., s], -inf_col], axis=1).reshape(rows)
         _population_step(spec, u, n, theta_seg[..., s].reshape(rows), ice_min, ice_end)
         t_end = grid[ends[s] + 1]
-        mean = pop.mean_diameter(u, n).reshape(z, n_pos + 1)
+        mean = pop.mean_diameter(*_settled(spec, u, n, st.setpoint_c, n_pos)).reshape(z, n_pos + 1)
         st.peak_budget = np.fmax(st.peak_budget, _budget_fraction(spec, mean))
         newly = (pop.count(u, n).reshape(z, n_pos + 1)[:, :n_pos] <= 0) & np.isnan(st.thawed_at_s)
         st.thawed_at_s[newly] = t_end
@@ -300,6 +332,18 @@ def advance(spec: Spec, state: State, t_s, air_c, probe_c=None, trace: bool = Fa
     return st, out_trace
 
 
+def _refine(grid: np.ndarray, panel_s: float) -> np.ndarray:
+    """Subdivide grid intervals longer than panel_s into equal pieces."""
+    dt = np.diff(grid)
+    pieces = np.maximum(np.ceil(dt / panel_s - 1e-9), 1).astype(np.int64)
+    if (pieces == 1).all():
+        return grid
+    start = np.repeat(grid[:-1], pieces)
+    step = np.repeat(dt / pieces, pieces)
+    k = np.arange(pieces.sum()) - np.repeat(np.cumsum(pieces) - pieces, pieces)
+    return np.append(start + k * step, grid[-1])
+
+
 def _ffill(a: np.ndarray) -> np.ndarray:
     """Forward-fill NaN along the last axis."""
     valid = ~np.isnan(a)
@@ -325,8 +369,9 @@ def outputs(spec: Spec, state: State) -> dict[str, np.ndarray]:
     ice_min = np.concatenate([np.minimum(state.acc_ice_min, ice_now), np.full((z, 1), np.inf)], axis=1).reshape(rows)
     ice_end = np.concatenate([ice_now, np.full((z, 1), -np.inf)], axis=1).reshape(rows)
     _population_step(spec, u, n, state.acc_theta.reshape(rows), ice_min, ice_end)
+    u, n = _settled(spec, u, n, state.setpoint_c, n_pos)
     mean = pop.mean_diameter(u, n).reshape(z, n_pos + 1)
-    budget = np.fmax(state.peak_budget, _budget_fraction(spec, mean))
+    budget = np.maximum(state.peak_budget, 0.0)
     shape = (z, n_pos + 1)
     d90 = pop.quantile_diameter(u, n, 0.9).reshape(shape)
     lim = spec.profile.limit_mean_diameter_um

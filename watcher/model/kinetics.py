@@ -9,7 +9,9 @@ um^3/day at a reference temperature. K(T) scales it by either
   (Williams, Landel & Ferry 1955; IUPAC Gold Book).
 
 Below Tg' (the glass transition of the freeze-concentrated matrix) coarsening is taken as
-negligible and the rate is exactly zero for both forms. Above the initial freezing point the
+negligible and the rate is exactly zero for both forms. A linear taper over the first
+TG_TAPER_K above Tg' joins the rate to zero, so it stays continuous in temperature: a hard cut
+would let rounding noise at Tg' switch a finite rate on and off. Above the initial freezing point the
 product is thawed; the rate is held at its value at the freezing point and the population
 model reports the thaw instead.
 """
@@ -26,6 +28,7 @@ WLF_VALID_SPAN_K = 50.0
 #: d = 2r turns dr/dt = (a/r)(1/r* - 1/r) into the same form in diameter with a_d = 8a, and the
 #: LSW asymptote K = (4/9) a_d for the mean diameter [derived from Tadros eq. 10.64, x8 for d=2r].
 LSW_A_OVER_K = 9.0 / 4.0
+TG_TAPER_K = 2.0
 
 
 @dataclass(frozen=True)
@@ -60,4 +63,4 @@ def rate_um3_per_day(kin: Kinetics, temp_c, freezing_point_c: float):
         ea_j = kin.activation_energy_kj_per_mol * 1000.0
         inv = 1.0 / (t + ZERO_C_IN_K) - 1.0 / (kin.ref_temp_c + ZERO_C_IN_K)
         k = kin.k_ref_um3_per_day * np.exp(-ea_j / R_J_PER_MOL_K * inv)
-    return np.where(t < kin.tg_prime_c, 0.0, k)
+    return k * np.clip((t - kin.tg_prime_c) / TG_TAPER_K, 0.0, 1.0)

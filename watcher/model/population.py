@@ -31,7 +31,8 @@ import numpy as np
 
 from watcher.model.lsw import RHO_MAX, lsw_pdf
 
-_NEWTON_STEPS = 3
+_NEWTON_MAX_STEPS = 12
+_NEWTON_RTOL = 1e-10
 _SUB = 64  # quadrature points per cell when seeding a distribution
 
 
@@ -45,18 +46,26 @@ def initial_cells(
     shape "lsw": the LSW self-similar distribution (spread fixed at 0.2151).
     """
     if shape == "lsw":
-        edges = np.linspace(0.0, RHO_MAX, n_classes + 1)
+        hi = RHO_MAX
         pdf = lsw_pdf
     else:
         k = 1.0 / spread_cv**2
         hi = 1.0 + 7.0 * spread_cv
-        # Cells equal in sqrt(rho): fine where crystals dissolve, coarse in the thin tail.
-        edges = np.linspace(0.0, math.sqrt(hi), n_classes + 1) ** 2
 
         def pdf(x):
             x = np.maximum(x, 1e-300)
             return np.exp((k - 1.0) * np.log(x) - k * x - ((k - 1.0) * math.log((k - 1.0) / k) - (k - 1.0)))
 
+    # Cell edges at equal steps of a blend of the number and the volume distribution: the
+    # small crystals (most of the number) and the large ones (most of the ice) both get cells.
+    fine = np.linspace(0.0, hi, 20_001)
+    dens = pdf(0.5 * (fine[:-1] + fine[1:])) * np.diff(fine)
+    mid = 0.5 * (fine[:-1] + fine[1:])
+    cdf_n = np.concatenate(([0.0], np.cumsum(dens)))
+    cdf_v = np.concatenate(([0.0], np.cumsum(dens * mid**3)))
+    blend = 0.5 * cdf_n / cdf_n[-1] + 0.5 * cdf_v / cdf_v[-1]
+    edges = np.interp(np.linspace(0.0, 1.0, n_classes + 1), blend, fine)
+    edges[-1] = min(edges[-1], hi)
     frac = (np.arange(_SUB) + 0.5) / _SUB
     pts = edges[:-1, None] + np.diff(edges)[:, None] * frac[None, :]
     weights = pdf(pts).mean(axis=1) * np.diff(edges)
@@ -70,19 +79,19 @@ def initial_cells(
 def _cell_parts(ub: np.ndarray, nc: np.ndarray, cb: np.ndarray | None = None):
     """Live bounds a <= b (in u), live number and mean diameter of each cell.
 
-    cb, the signed cube root of ub, may be passed when the caller already has it.
+    cb, the signed cube root of ub, may be passed when the caller already has it. The mean
+    diameter over a cell uniform in u on [a, b] is (3/4)(b^(4/3) - a^(4/3)) / (b - a).
     """
     if cb is None:
         cb = np.cbrt(ub)
-    lo, hi = ub[..., :-1], ub[..., 1:]
-    a = np.maximum(lo, 0.0)
-    b = np.maximum(hi, 0.0)
+    live_u = np.maximum(ub, 0.0)
+    moment = live_u * np.maximum(cb, 0.0)  # u^(4/3) of the live part
+    a, b = live_u[..., :-1], live_u[..., 1:]
     span = b - a
-    with np.errstate(invalid="ignore", divide="ignore"):
-        n_eff = nc * (span / (hi - lo))
-        d_mean = 0.75 * (b * np.maximum(cb[..., 1:], 0.0) - a * np.maximum(cb[..., :-1], 0.0)) / span
-    live = span > 0
-    return a, b, np.where(live, n_eff, 0.0), np.where(live, d_mean, 0.0)
+    width = ub[..., 1:] - ub[..., :-1]
+    n_eff = np.divide(nc * span, width, out=np.zeros_like(span), where=width > 0)
+    d_mean = np.divide(0.75 * (moment[..., 1:] - moment[..., :-1]), span, out=np.zeros_like(span), where=span > 0)
+    return a, b, n_eff, d_mean
 
 
 def count(ub: np.ndarray, nc: np.ndarray) -> np.ndarray:
@@ -114,9 +123,10 @@ def _velocity(ub: np.ndarray, nc: np.ndarray) -> np.ndarray:
     return np.where(total > 0, v, 0.0)
 
 
-def _rescale(ub: np.ndarray, nc: np.ndarray, v_target: np.ndarray) -> None:
+def _rescale(ub: np.ndarray, nc: np.ndarray, v_target: np.ndarray, v_now: np.ndarray | None = None) -> None:
     """Scale u so each row holds v_target exactly (volume is linear in that scale)."""
-    v_now = volume(ub, nc)
+    if v_now is None:
+        v_now = volume(ub, nc)
     with np.errstate(invalid="ignore", divide="ignore"):
         scale = np.where(v_now > 0, np.maximum(v_target, 0.0) / v_now, 1.0)
     ub *= scale[..., None]
@@ -199,7 +209,8 @@ def _cut_dissolved(ub: np.ndarray, nc: np.ndarray) -> None:
 def shift_to_volume(ub: np.ndarray, nc: np.ndarray, v_target: np.ndarray, rows: np.ndarray) -> None:
     """Melt (s < 0) or refreeze (s > 0) the selected rows in place by one shell s in diameter.
 
-    Newton's method on V(s) = v_target, using dV/ds = 3 sum n d^2, then an exact rescale.
+    Newton's method on V(s) = v_target, using dV/ds = 3 sum n d^2, until the volume is within
+    1e-10 of the target; an exact rescale then removes the last residual.
     """
     if not rows.any():
         return
@@ -211,16 +222,23 @@ def shift_to_volume(ub: np.ndarray, nc: np.ndarray, v_target: np.ndarray, rows: 
         u, n, vt = ub[rows], nc[rows], np.maximum(v_target[rows], 0.0)
     d = np.cbrt(u)
     s = np.zeros(vt.shape)
-    for _ in range(_NEWTON_STEPS):
+    todo = np.ones(vt.shape, dtype=bool)
+    for _ in range(_NEWTON_MAX_STEPS):
         dd = d + s[:, None]
         a, b, n_eff, d_mean = _cell_parts(dd * dd * dd, n, dd)
         f = np.einsum("rc,rc->r", n_eff, 0.5 * (a + b)) - vt
+        # Each row stops on its own tolerance, so its result never depends on other rows.
+        todo &= np.abs(f) > _NEWTON_RTOL * vt
+        if not todo.any():
+            break
         fp = 3.0 * np.einsum("rc,rc->r", n_eff, d_mean**2)
         with np.errstate(invalid="ignore", divide="ignore"):
-            s = np.where(fp > 0, s - f / fp, s)
+            s = np.where(todo & (fp > 0), s - f / fp, s)
+    else:
+        f = None  # ran out of steps: the volume at the last s is not known yet
     dd = d + s[:, None]
     new_u = dd * dd * dd
-    _rescale(new_u, n, vt)
+    _rescale(new_u, n, vt, None if f is None else f + vt)
     if every:
         ub[...] = new_u
     else:
