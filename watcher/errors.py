@@ -26,6 +26,8 @@ class InputError(WatcherError):
     exit_code = 2
 
     def __init__(self, where: str, value: object, expected: str) -> None:
+        if hasattr(value, "item") and callable(value.item):
+            value = value.item()  # numpy scalars print as plain numbers
         self.where = where
         self.value = value
         self.expected = expected
