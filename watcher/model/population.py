@@ -214,12 +214,11 @@ def shift_to_volume(ub: np.ndarray, nc: np.ndarray, v_target: np.ndarray, rows: 
     """
     if not rows.any():
         return
-    _cut_dissolved(ub, nc)
     every = bool(rows.all())
-    if every:
-        u, n, vt = ub, nc, np.maximum(v_target, 0.0)
-    else:
-        u, n, vt = ub[rows], nc[rows], np.maximum(v_target[rows], 0.0)
+    u = ub if every else ub[rows]
+    n = nc if every else nc[rows]
+    vt = np.maximum(v_target if every else v_target[rows], 0.0)
+    _cut_dissolved(u, n)
     d = np.cbrt(u)
     s = np.zeros(vt.shape)
     todo = np.ones(vt.shape, dtype=bool)
@@ -237,14 +236,12 @@ def shift_to_volume(ub: np.ndarray, nc: np.ndarray, v_target: np.ndarray, rows: 
     else:
         f = None  # ran out of steps: the volume at the last s is not known yet
     dd = d + s[:, None]
-    new_u = dd * dd * dd
-    _rescale(new_u, n, vt, None if f is None else f + vt)
-    if every:
-        ub[...] = new_u
-    else:
-        ub[rows] = new_u
+    u[...] = dd * dd * dd
+    _rescale(u, n, vt, None if f is None else f + vt)
+    refill(u, n)
+    if not every:
+        ub[rows] = u
         nc[rows] = n
-    refill(ub, nc)
 
 
 def quantile_diameter(ub: np.ndarray, nc: np.ndarray, q: float) -> np.ndarray:
