@@ -77,8 +77,10 @@ def main() -> None:
     n_full = int(args.days * 1440)
     secs, _ = run_vectorised(spec, args.zones, n_full)
     full_rate = args.zones * (n_full - 1) / secs
-    print(f"vectorised, {args.zones} zones x {args.days:g} days of 1-min samples: "
-          f"{args.zones * (n_full - 1) / 1e6:.1f} M zone-samples in {secs:.1f} s = {full_rate / 1e6:.2f} M zone-samples/s")
+    print(
+        f"vectorised, {args.zones} zones x {args.days:g} days of 1-min samples: "
+        f"{args.zones * (n_full - 1) / 1e6:.1f} M zone-samples in {secs:.1f} s = {full_rate / 1e6:.2f} M zone-samples/s"
+    )
 
     n_slice = int(args.slice_days * 1440)
     ref_rates, vec_rates = [], []
@@ -91,10 +93,14 @@ def main() -> None:
     vec_mean = np.array([[float(x) for x in row] for row in _means(state)])
     worst = float(np.max(np.abs(ref_mean - vec_mean) / vec_mean))
     ref_rate = statistics.median(ref_rates)
-    print(f"pure-Python reference, {args.slice_zones} zones x {args.slice_days:g} days: "
-          f"median {ref_rate:,.0f} zone-samples/s over {args.repeats} runs")
-    print(f"vectorised on the same slice: median {statistics.median(vec_rates):,.0f} zone-samples/s "
-          f"(small slices pay fixed per-call costs)")
+    print(
+        f"pure-Python reference, {args.slice_zones} zones x {args.slice_days:g} days: "
+        f"median {ref_rate:,.0f} zone-samples/s over {args.repeats} runs"
+    )
+    print(
+        f"vectorised on the same slice: median {statistics.median(vec_rates):,.0f} zone-samples/s "
+        f"(small slices pay fixed per-call costs)"
+    )
     print(f"ratio, full-year vectorised rate / reference rate: {full_rate / ref_rate:,.0f}x")
     print(f"agreement on the slice (mean diameter, all rows): max relative difference {worst:.2e}")
     if worst > 1e-6:

@@ -10,8 +10,10 @@ from __future__ import annotations
 
 import math
 
+from watcher.model.integrator import ICE_TOL as TOL_ICE  # the same tolerances as the vectorised code
+from watcher.model.population import _NEWTON_RTOL as NEWTON_RTOL
+
 R = 8.314462618
-TOL_ICE = 1e-4
 
 
 def cbrt(x: float) -> float:
@@ -27,7 +29,9 @@ class Model:
         self.macro = macro_s
         self.rel_tol = rel_tol
         self.panel = min(self.taus) / 12.0
-        ub, w = initial_cells(profile.initial.mean_diameter_um, profile.initial.spread_cv, profile.initial.shape, n_classes)
+        ub, w = initial_cells(
+            profile.initial.mean_diameter_um, profile.initial.spread_cv, profile.initial.shape, n_classes
+        )
         self.ub0 = [float(x) for x in ub]
         self.w0 = [float(x) for x in w]
 
@@ -35,7 +39,9 @@ class Model:
     def rate(self, t_c: float) -> float:
         k = self.p.kinetics
         t = min(t_c, self.p.ice.initial_freezing_point_c)
-        val = k.k_ref_um3_per_day * math.exp(-k.activation_energy_kj_per_mol * 1000.0 / R * (1.0 / (t + 273.15) - 1.0 / (k.ref_temp_c + 273.15)))
+        val = k.k_ref_um3_per_day * math.exp(
+            -k.activation_energy_kj_per_mol * 1000.0 / R * (1.0 / (t + 273.15) - 1.0 / (k.ref_temp_c + 273.15))
+        )
         taper = min(max((t - k.tg_prime_c) / 2.0, 0.0), 1.0)
         return 2.25 * val * taper / 86400.0
 
@@ -133,7 +139,7 @@ class Model:
             trial = [(x + s) ** 3 for x in d]
             parts = self.parts(trial, nc)
             f = sum(n * 0.5 * (a + b) for a, b, n, _ in parts) - target
-            if abs(f) <= 1e-10 * target:
+            if abs(f) <= NEWTON_RTOL * target:
                 break
             fp = 3.0 * sum(n * dm * dm for _, _, n, dm in parts)
             if fp > 0:
@@ -149,10 +155,15 @@ class Model:
         v_unit = self.volume(self.ub0, self.w0)
         ice_set = self.ice(setpoint)
         return {
-            "t": t0, "air": air0, "sp": setpoint, "temp": [air0] * len(self.taus),
+            "t": t0,
+            "air": air0,
+            "sp": setpoint,
+            "temp": [air0] * len(self.taus),
             "ub": [list(self.ub0) for _ in range(rows)],
             "nc": [[w / v_unit * ice_set for w in self.w0] for _ in range(rows)],
-            "acc_theta": [0.0] * rows, "acc_ice": [self.ice(air0)] * len(self.taus), "peak": [0.0] * rows,
+            "acc_theta": [0.0] * rows,
+            "acc_ice": [self.ice(air0)] * len(self.taus),
+            "peak": [0.0] * rows,
         }
 
     def _macro_step(self, z):

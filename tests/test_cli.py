@@ -3,7 +3,7 @@
 import json
 import subprocess
 import sys
-from datetime import datetime, timedelta, timezone
+from datetime import UTC, datetime, timedelta
 from importlib import resources
 
 import numpy as np
@@ -17,12 +17,16 @@ FIGURE_KEYS = {"mean_diameter_um", "d90_um", "budget_used_pct", "days_to_limit",
 
 
 def write_series(path, days=3.0, step_min=10.0, base=-22.0, probe=False, iso=True, uneven=False):
-    start = datetime(2026, 11, 23, tzinfo=timezone.utc)
+    start = datetime(2026, 11, 23, tzinfo=UTC)
     rng = np.random.default_rng(3)
     lines = ["time,air_c" + (",product_c" if probe else "")]
     t = 0.0
     while t <= days * 1440:
-        stamp = (start + timedelta(minutes=t)).isoformat().replace("+00:00", "Z") if iso else f"{start.timestamp() + 60 * t:.0f}"
+        stamp = (
+            (start + timedelta(minutes=t)).isoformat().replace("+00:00", "Z")
+            if iso
+            else f"{start.timestamp() + 60 * t:.0f}"
+        )
         air = base + (6.0 if (t % 360) < 30 else 0.0)
         row = f"{stamp},{air:.2f}"
         if probe:
@@ -58,7 +62,11 @@ def test_simulate_json_contract(tmp_path):
     for row in data["positions"].values():
         assert FIGURE_KEYS <= set(row)
     worst = data["positions"][data["worst_position"]]
-    assert data["budget_used_pct"] == worst["budget_used_pct"] == max(r["budget_used_pct"] for r in data["positions"].values())
+    assert (
+        data["budget_used_pct"]
+        == worst["budget_used_pct"]
+        == max(r["budget_used_pct"] for r in data["positions"].values())
+    )
     assert data["setpoint_c"] == pytest.approx(-22.0)  # the series' median air temperature
     assert data["excess_growth_um"] > 0  # defrost peaks above the median cost growth
 
@@ -85,7 +93,10 @@ def test_simulate_same_history_same_answer_in_any_time_format(tmp_path):
     ("body", "message"),
     [
         ("time,air_c\n2026-11-01T00:00Z,-20\n2026-11-01T00:10Z,-20\n2026-11-01T00:05Z,-20\n", "line 4, column time"),
-        ("time,air_c\n2026-11-01T00:00Z,-20\n2026-11-01T00:10Z,nan\n", "line 3, column air_c: got 'nan', expected a finite number"),
+        (
+            "time,air_c\n2026-11-01T00:00Z,-20\n2026-11-01T00:10Z,nan\n",
+            "line 3, column air_c: got 'nan', expected a finite number",
+        ),
         ("time,air_c\n2026-11-01T00:00Z,-20\nyesterday,-20\n", "line 3, column time: got 'yesterday'"),
         ("time,temp\n2026-11-01T00:00Z,-20\n2026-11-01T00:10Z,-20\n", "columns time, air_c"),
         ("time,air_c\n2026-11-01T00:00Z,-20\n2026-11-01T00:10Z,-400\n", "line 3, column air_c: got -400.0"),
@@ -104,10 +115,17 @@ def test_bad_series_exits_2_naming_the_row(tmp_path, body, message):
 def test_impossible_profile_exits_2_naming_the_field(tmp_path):
     """A profile with a limit below the initial size is refused with the field and value."""
     prof = tmp_path / "p.toml"
-    prof.write_text('name = "x"\n[texture]\nlimit_mean_diameter_um = 20.0\n[kinetics]\nk_ref_um3_per_day = 10.0\nactivation_energy_kj_per_mol = 50.0\n')
-    result = CliRunner().invoke(main, ["simulate", "--profile", str(prof), "--series", str(write_series(tmp_path / "s.csv"))])
+    prof.write_text(
+        'name = "x"\n[texture]\nlimit_mean_diameter_um = 20.0\n[kinetics]\nk_ref_um3_per_day = 10.0\nactivation_energy_kj_per_mol = 50.0\n'
+    )
+    result = CliRunner().invoke(
+        main, ["simulate", "--profile", str(prof), "--series", str(write_series(tmp_path / "s.csv"))]
+    )
     assert result.exit_code == 2
-    assert "texture.limit_mean_diameter_um: got 20.0, expected a limit above the initial mean diameter (35.0 um)" in result.output
+    assert (
+        "texture.limit_mean_diameter_um: got 20.0, expected a limit above the initial mean diameter (35.0 um)"
+        in result.output
+    )
 
 
 def test_profile_show_json_prints_resolved_parameters():
@@ -149,18 +167,27 @@ def test_demo_runs_the_built_in_site():
 
 def test_console_script_is_a_real_process(tmp_path):
     """The installed `watcher` entry point runs as a process with the documented exit codes."""
-    ok = subprocess.run([sys.executable, "-m", "watcher", "simulate", "--series", str(write_series(tmp_path / "s.csv")), "--json"],
-                        capture_output=True, text=True, timeout=120)
+    ok = subprocess.run(
+        [sys.executable, "-m", "watcher", "simulate", "--series", str(write_series(tmp_path / "s.csv")), "--json"],
+        capture_output=True,
+        text=True,
+        timeout=120,
+    )
     assert ok.returncode == 0, ok.stderr
     assert FIGURE_KEYS <= set(json.loads(ok.stdout))
-    bad = subprocess.run([sys.executable, "-m", "watcher", "simulate", "--series", str(tmp_path / "missing.csv")],
-                         capture_output=True, text=True, timeout=120)
+    bad = subprocess.run(
+        [sys.executable, "-m", "watcher", "simulate", "--series", str(tmp_path / "missing.csv")],
+        capture_output=True,
+        text=True,
+        timeout=120,
+    )
     assert bad.returncode == 2
     assert "missing.csv" in bad.stderr and "Traceback" not in bad.stderr
 
 
 def test_every_command_has_help_text():
     """Every command and group says what it does in --help."""
+
     def walk(cmd, path):
         yield path, cmd
         for name, sub in getattr(cmd, "commands", {}).items():

@@ -21,13 +21,21 @@ def with_(section, **values):
     ("data", "field", "hint"),
     [
         (with_("initial", mean_diameter_um=-5.0), "profile.initial.mean_diameter_um", "(0.0, 1000.0]"),
-        (with_("texture", limit_mean_diameter_um=30.0), "profile.texture.limit_mean_diameter_um", "above the initial mean"),
+        (
+            with_("texture", limit_mean_diameter_um=30.0),
+            "profile.texture.limit_mean_diameter_um",
+            "above the initial mean",
+        ),
         (with_("initial", shape="square"), "profile.initial.shape", "one of gamma, lsw"),
         (with_("kinetics", k_ref_um3_per_day="fast"), "profile.kinetics.k_ref_um3_per_day", "a number"),
         (with_("kinetics", ref_temp_c=-40.0), "profile.kinetics.ref_temp_c", "between tg_prime_c"),
         (with_("ice", bound_water_fraction=0.7), "profile.ice.bound_water_fraction", "less than water_fraction"),
         (with_("ice", colour="blue"), "profile.ice.colour", "no such key"),
-        (with_("kinetics", form="wlf", tg_prime_c=-60.0, ref_temp_c=-25.0), "profile.kinetics.tg_prime_c", "validity range"),
+        (
+            with_("kinetics", form="wlf", tg_prime_c=-60.0, ref_temp_c=-25.0),
+            "profile.kinetics.tg_prime_c",
+            "validity range",
+        ),
         (with_("initial", mean_diameter_um=float("nan")), "profile.initial.mean_diameter_um", "finite"),
     ],
 )

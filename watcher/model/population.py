@@ -32,7 +32,7 @@ import numpy as np
 from watcher.model.lsw import RHO_MAX, lsw_pdf
 
 _NEWTON_MAX_STEPS = 12
-_NEWTON_RTOL = 1e-10
+_NEWTON_RTOL = 1e-7
 _SUB = 64  # quadrature points per cell when seeding a distribution
 
 
@@ -210,7 +210,7 @@ def shift_to_volume(ub: np.ndarray, nc: np.ndarray, v_target: np.ndarray, rows: 
     """Melt (s < 0) or refreeze (s > 0) the selected rows in place by one shell s in diameter.
 
     Newton's method on V(s) = v_target, using dV/ds = 3 sum n d^2, until the volume is within
-    1e-10 of the target; an exact rescale then removes the last residual.
+    1e-7 of the target; an exact rescale then removes the last residual.
     """
     if not rows.any():
         return
