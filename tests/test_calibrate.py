@@ -35,7 +35,7 @@ def test_master_curve_matches_the_integrator(dairy):
     Both solve the same equations with different step patterns (geometric steps in reduced
     time against hourly steps), so they agree to the model's own discretisation, about 0.5 %.
     """
-    master = master_curve(dairy.initial)
+    master = master_curve(dairy.initial.shape, dairy.initial.spread_cv)
     trial = synthetic_trial(dairy, [-15.0], [10.0, 40.0, 90.0])
     k = rate_um3_per_day(dairy.kinetics, -15.0, -2.5)
     pred = predict_isothermal(master, dairy.initial.mean_diameter_um, k, trial.days)

@@ -19,12 +19,9 @@ from dataclasses import dataclass, replace
 import numpy as np
 
 from watcher.errors import TrialError
-from watcher.model import population as pop
 from watcher.model.kinetics import LSW_A_OVER_K, rate_um3_per_day
-from watcher.model.profiles import Initial, Profile
-
-_MASTER_POINTS = 400
-_MASTER_MAX_RATIO = 12.0  # master curve runs until L = 12 L0; beyond that the cube law extends it
+from watcher.model.population import master_curve
+from watcher.model.profiles import Profile
 
 
 @dataclass(frozen=True)
@@ -66,24 +63,6 @@ def make_trial(days, temp_c, mean_diameter_um) -> Trial:
     if later.sum() < 2:
         raise TrialError("trial", int(later.sum()), "at least two measurements after day 0")
     return Trial(days[later], temp[later], size[later], float(size[start].mean()))
-
-
-def master_curve(initial: Initial, n_classes: int = 64, rel_tol: float = 0.02) -> tuple[np.ndarray, np.ndarray]:
-    """(theta / L0^3, L / L0) for an isothermal run from a unit-mean population."""
-    ub, w = pop.initial_cells(1.0, initial.spread_cv, initial.shape, n_classes)
-    u = ub[None].copy()
-    n = w[None].copy()
-    thetas = [0.0]
-    ratios = [1.0]
-    # Geometric steps in theta resolve the fast start and reach L = 12 L0 in _MASTER_POINTS.
-    grid = np.geomspace(1e-4, _MASTER_MAX_RATIO**3, _MASTER_POINTS)
-    last = 0.0
-    for theta in grid:
-        pop.lsw_advance(u, n, np.array([theta - last]), rel_tol)
-        last = theta
-        thetas.append(theta)
-        ratios.append(float(pop.mean_diameter(u, n)[0]))
-    return np.array(thetas), np.array(ratios)
 
 
 def predict_isothermal(master: tuple[np.ndarray, np.ndarray], l0_um: float, k_um3_per_day, days) -> np.ndarray:
@@ -156,7 +135,7 @@ def fit_trial(trial: Trial, base: Profile, name: str, form: str | None = None) -
         raise TrialError(
             "trial.day0.mean_diameter_um", trial.initial_um, f"below the texture limit {base.limit_mean_diameter_um} um"
         )
-    master = master_curve(initial)
+    master = master_curve(initial.shape, initial.spread_cv)
     fp = base.ice.initial_freezing_point_c
     if np.any(trial.temp_c >= fp):
         bad = float(trial.temp_c[trial.temp_c >= fp][0])

@@ -27,6 +27,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field, fields, replace
+from functools import cached_property
 
 import numpy as np
 
@@ -73,6 +74,12 @@ class Spec:
         for p in self.positions:
             if not p.probe and not (p.tau_s > 0 and math.isfinite(p.tau_s)):
                 raise ModelError(f"position {p.name!r}: tau_s must be a positive number, got {p.tau_s!r}")
+
+    @cached_property
+    def master(self) -> tuple[np.ndarray, np.ndarray]:
+        """The profile's isothermal master curve (theta / L0^3, L / L0), computed once."""
+        ini = self.profile.initial
+        return pop.master_curve(ini.shape, ini.spread_cv, self.n_classes, self.rel_tol)
 
     @property
     def panel_s(self) -> float:
@@ -354,13 +361,38 @@ def _ffill(a: np.ndarray) -> np.ndarray:
     return np.take_along_axis(a, idx, axis=-1)
 
 
+def _ahead(spec: Spec, mean_um: np.ndarray, product_c: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Growth rate (um/day) and days to the limit if each product temperature held.
+
+    Read off the profile's isothermal master curve at the current settled size: the model's
+    own prediction at constant temperature, including the faster start of a broad size
+    distribution (the LSW transient), without re-running the population.
+    """
+    l0 = spec.profile.initial.mean_diameter_um
+    lim = spec.profile.limit_mean_diameter_um
+    th, ratio = spec.master
+    mono = np.maximum.accumulate(ratio)  # the number-mean may dip at the very start
+
+    def theta_at(x):
+        inside = np.interp(x, mono, th)
+        return np.where(x <= mono[-1], inside, th[-1] + LSW_A_OVER_K * (x**3 - mono[-1] ** 3))
+
+    x = np.maximum(mean_um / l0, 1.0)
+    a_day = spec.rate_um3_per_s(product_c) * SECONDS_PER_DAY / l0**3  # reduced time per day
+    with np.errstate(invalid="ignore", divide="ignore"):
+        days = np.where(a_day > 0, (theta_at(lim / l0) - theta_at(x)) / a_day, np.inf)
+        x_next = x * 1.1 ** (1.0 / 3.0)  # L^3 up by 10 %
+        growth = np.where(a_day > 0, (x_next - x) * l0 * a_day / (theta_at(x_next) - theta_at(x)), 0.0)
+    return growth, np.where(mean_um >= lim, 0.0, np.maximum(days, 0.0))
+
+
 def outputs(spec: Spec, state: State) -> dict[str, np.ndarray]:
     """The figures of section 5 per zone and position at state.t_s, open macro included.
 
     Keys (arrays of shape (Z, P) unless noted): mean_diameter_um, d90_um,
     share_above_limit (volume share of crystals above the limit), budget_used_pct,
-    growth_rate_um_per_day and days_to_limit (cube-law rate K(T) at the current product
-    temperature), excess_growth_um (versus the setpoint counterfactual), product_c, thawed
+    growth_rate_um_per_day and days_to_limit (from the isothermal master curve at the current
+    size and product temperature), excess_growth_um (versus the setpoint counterfactual), product_c, thawed
     (bool), setpoint_mean_diameter_um (Z,).
     """
     z, n_pos = state.product_c.shape
@@ -378,12 +410,9 @@ def outputs(spec: Spec, state: State) -> dict[str, np.ndarray]:
     d90 = pop.quantile_diameter(u, n, 0.9).reshape(shape)
     lim = spec.profile.limit_mean_diameter_um
     share = pop.volume_share_above(u, n, lim).reshape(shape)
-    k_day = rate_um3_per_day(spec.profile.kinetics, state.product_c, spec.profile.ice.initial_freezing_point_c)
     lm = mean[:, :n_pos]
+    growth, days = _ahead(spec, lm, state.product_c)
     thawed = ~np.isnan(state.thawed_at_s) | (state.product_c >= spec.profile.ice.initial_freezing_point_c)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        growth = np.where(k_day > 0, k_day / (3.0 * lm**2), 0.0)
-        days = np.where(lm >= lim, 0.0, np.where(k_day > 0, (lim**3 - lm**3) / k_day, np.inf))
     nan = np.nan
     return {
         "mean_diameter_um": np.where(thawed, nan, lm),
