@@ -251,3 +251,124 @@ def demo(days) -> None:
 
     click.echo(CAUTION)
     click.echo("Next: write a series as CSV (time,air_c) and run `watcher simulate --series FILE.csv`.")
+
+
+def _config_option(required: bool = True):
+    return click.option(
+        "--config",
+        "config_path",
+        required=required,
+        type=click.Path(dir_okay=False),
+        help="Service configuration TOML (see config.example.toml).",
+    )
+
+
+@main.command("check-config")
+@click.argument("config_path", metavar="FILE", type=click.Path(dir_okay=False))
+def check_config(config_path) -> None:
+    """Validate a configuration file and show what would be subscribed and how topics map."""
+    from watcher.config import load_config
+
+    cfg = load_config(config_path)
+    click.echo(f"{config_path}: valid.")
+    click.echo(
+        f"Broker   {cfg.broker.host}:{cfg.broker.port} as {cfg.broker.client_id!r}"
+        f"{' with TLS' if cfg.broker.tls else ''}{', user ' + cfg.broker.username if cfg.broker.username else ''}; "
+        f"status on {cfg.broker.status_topic} (retained)"
+    )
+    click.echo(f"Database {cfg.storage.path}; raw readings kept {cfg.storage.raw_retention_days} days")
+    click.echo("")
+    click.echo("Subscriptions (QoS 1) and how each topic maps:")
+    for s in cfg.sources:
+        zone = "{zone} level" if "zone" in s.pattern.placeholders else f"zone {s.zone}"
+        sensor = "{sensor} level" if "sensor" in s.pattern.placeholders else f"sensor {s.sensor or s.signal}"
+        value = "plain number" if s.fmt == "number" else f"JSON field {'.'.join(s.value_path)}"
+        when = "receive time" if s.time_path is None else f"JSON field {'.'.join(s.time_path)} ({s.time_format})"
+        unit = f" in {s.unit}" if s.signal in ("air_c", "product_c") else ""
+        click.echo(f"  {s.pattern.filter:<32} {s.signal:<9} {zone}; {sensor}; value: {value}{unit}; time: {when}")
+    click.echo("")
+    click.echo("Zones:")
+    for z in cfg.zones:
+        pos = ", ".join(p.name + (" (probe)" if p.probe else f" (tau {p.tau_s / 3600:g} h)") for p in z.positions)
+        click.echo(
+            f"  {z.id:<12} {z.name} @ {z.site}: setpoint {z.setpoint_c:g} C, profile {z.profile.name}, positions {pos}"
+        )
+
+
+@main.command()
+@_config_option()
+@click.option("--log-level", default="INFO", show_default=True, help="DEBUG, INFO, WARNING or ERROR.")
+def run(config_path, log_level) -> None:
+    """Run the service in the foreground (systemd runs it as Type=notify)."""
+    from watcher.config import load_config
+    from watcher.service import Service, setup_logging
+
+    setup_logging(log_level)
+    cfg = load_config(config_path)
+    sys.exit(Service(cfg).run_forever())
+
+
+@main.command()
+@click.option(
+    "--config",
+    "config_path",
+    default=None,
+    type=click.Path(dir_okay=False),
+    help="Take the database path from this configuration.",
+)
+@click.option(
+    "--db",
+    "db_path",
+    default=None,
+    type=click.Path(dir_okay=False),
+    help="Database file (default: from --config, else $STATE_DIRECTORY/watcher.db or ./watcher.db).",
+)
+@click.option("--json", "as_json", is_flag=True, help="Print JSON.")
+def status(config_path, db_path, as_json) -> None:
+    """Show each zone's temperatures, crystal size, budget and data freshness (read-only)."""
+    from watcher.status import read_status
+
+    report = read_status(config_path, db_path)
+    if as_json:
+        click.echo(json.dumps(report, indent=2))
+        return
+    click.echo(f"Database {report['database']} (read-only), as of {_stamp(report['now_s'])}")
+    head = f"{'zone':<12} {'air C':>6} {'product C':>9} {'mean um':>8} {'budget %':>9} {'days left':>9} {'last reading':>13} {'readings':>9}  data"
+    click.echo(head)
+    click.echo("-" * len(head))
+    for z in report["zones"]:
+        age = z["last_reading_age_s"]
+        age_txt = (
+            "-"
+            if age is None
+            else (
+                f"{age:.0f} s ago"
+                if age < 120
+                else f"{age / 60:.0f} min ago"
+                if age < 7200
+                else f"{age / 3600:.1f} h ago"
+            )
+        )
+        data = "gap open" if z["open_gap"] else "ok"
+        click.echo(
+            f"{z['id']:<12} {_fmt(z['air_c'], '6.1f'):>6} {_fmt(z['product_c'], '9.1f'):>9} {_fmt(z['mean_diameter_um'], '8.1f'):>8} "
+            f"{_fmt(z['budget_used_pct'], '9.1f'):>9} {_fmt(z['days_to_limit'], '9.1f', 'never'):>9} {age_txt:>13} {z['readings_total']:>9}  {data}"
+        )
+    click.echo(f"Rejected messages stored: {report['rejections_total']}; data gaps recorded: {report['gaps_total']}.")
+    from watcher.simulation import CAUTION
+
+    click.echo(CAUTION)
+
+
+@main.command()
+@_config_option()
+@click.argument("readings_path", metavar="READINGS.csv", type=click.Path(dir_okay=False))
+def replay(config_path, readings_path) -> None:
+    """Run recorded readings (CSV: time,zone,signal,value[,sensor]) through the service's engine."""
+    from watcher.config import load_config
+    from watcher.replay import replay_file
+
+    cfg = load_config(config_path)
+    counts = replay_file(cfg, readings_path, progress=click.progressbar)
+    click.echo(", ".join(f"{k}: {v}" for k, v in sorted(counts.items())) or "nothing to replay")
+    click.echo(f"Database {cfg.storage.path}; see `watcher status --config {config_path}`.")

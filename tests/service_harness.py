@@ -1,0 +1,205 @@
+"""Helpers for tests that run `watcher run` as a real process against a real broker."""
+
+from __future__ import annotations
+
+import json
+import os
+import signal
+import subprocess
+import sys
+import time
+import urllib.request
+from pathlib import Path
+
+import paho.mqtt.client as mqtt
+
+from tests.broker import Broker, free_port
+
+T0 = 1_795_000_000.0  # 2026-11-18T...Z; readings are stamped from here, a minute apart
+
+
+def write_config(
+    folder: Path,
+    broker: Broker,
+    zones=("bulk-a", "dispatch"),
+    extra: str = "",
+    tls: bool = False,
+    health_port: int | None = None,
+    reorder_s: float = 120.0,
+) -> Path:
+    port = broker.tls_port if tls else broker.port
+    tls_block = f'\n[broker.tls]\nca_file = "{broker.tls["ca"]}"\n' if tls else ""
+    zone_blocks = "".join(f'\n[[zones]]\nid = "{z}"\nsetpoint_c = -25.0\n' for z in zones)
+    health_port = free_port() if health_port is None else health_port
+    text = f"""
+[broker]
+host = "{"localhost" if tls else "127.0.0.1"}"
+port = {port}
+client_id = "watcher-test-{folder.name[-12:]}"
+username = "{broker.USER}"
+password_file = "{folder / "watcher-password"}"
+keepalive_s = 5
+reconnect_min_s = 0.1
+reconnect_max_s = 1.0
+{tls_block}
+[storage]
+path = "{folder / "watcher.db"}"
+
+[ingest]
+reorder_window_s = {reorder_s}
+max_gap_s = 900.0
+past_limit_days = 3650.0
+
+[health]
+port = {health_port}
+
+[[sites]]
+id = "kp"
+name = "Kestrel Point (test)"
+timezone = "Europe/London"
+{zone_blocks}
+[[sources]]
+pattern = "kp/{{zone}}/{{sensor}}/air"
+signal = "air_c"
+value = "temp_c"
+time = "ts"
+time_format = "epoch_s"
+
+[[sources]]
+pattern = "kp/{{zone}}/door"
+signal = "door"
+format = "number"
+{extra}
+"""
+    (folder / "watcher-password").write_text(broker.PASSWORD + "\n")
+    path = folder / "watcher.toml"
+    path.write_text(text)
+    return path
+
+
+def air_value(zone_index: int, k: int) -> float:
+    """A deterministic air history: -25 C with a 30-min defrost every 6 h (+6 K)."""
+    return -25.0 + (6.0 if ((k + 37 * zone_index) % 360) < 30 else 0.0)
+
+
+def messages(zones, first: int, count: int) -> list[tuple[str, bytes]]:
+    out = []
+    for k in range(first, first + count):
+        for i, z in enumerate(zones):
+            out.append((f"kp/{z}/s1/air", json.dumps({"temp_c": air_value(i, k), "ts": T0 + 60 * k}).encode()))
+    return out
+
+
+class Publisher:
+    """A QoS 1 publisher that waits for every PUBACK and caps what is in flight."""
+
+    def __init__(self, broker: Broker, client_id: str = "test-sensors"):
+        self.client = mqtt.Client(mqtt.CallbackAPIVersion.VERSION2, client_id=client_id, protocol=mqtt.MQTTv311)
+        self.client.username_pw_set("sensor", "sensor-pw")
+        self.client.max_inflight_messages_set(1000)
+        self.client.connect("127.0.0.1", broker.port)
+        self.client.loop_start()
+
+    def send(self, items, retain=False) -> None:
+        infos = []
+        for topic, payload in items:
+            infos.append(self.client.publish(topic, payload, qos=1, retain=retain))
+            if len(infos) >= 2000:
+                for i in infos:
+                    i.wait_for_publish(30)
+                infos = []
+        for i in infos:
+            i.wait_for_publish(30)
+            assert i.is_published()
+
+    def close(self) -> None:
+        self.client.loop_stop()
+        self.client.disconnect()
+
+
+RUNNING: list = []
+
+
+class WatcherProcess:
+    def __init__(self, config: Path, env: dict | None = None):
+        self.config = config
+        self.log = config.parent / "watcher.log"
+        self.health_port = int(
+            next(
+                line.split("=")[1]
+                for line in config.read_text().splitlines()
+                if line.startswith("port =") and "health" in _section_of(config, line)
+            )
+        )
+        full_env = dict(os.environ)
+        full_env.update(env or {})
+        self._log_fh = self.log.open("ab")
+        self.proc = subprocess.Popen(
+            [sys.executable, "-m", "watcher", "run", "--config", str(config)],
+            stdout=self._log_fh,
+            stderr=subprocess.STDOUT,
+            env=full_env,
+        )
+        self._log_fh.close()  # the child has its own copy
+        RUNNING.append(self.proc)
+
+    def url(self, path: str) -> str:
+        return f"http://127.0.0.1:{self.health_port}{path}"
+
+    def get(self, path: str) -> tuple[int, bytes]:
+        try:
+            with urllib.request.urlopen(self.url(path), timeout=2) as r:
+                return r.status, r.read()
+        except urllib.error.HTTPError as e:
+            return e.code, e.read()
+
+    def wait_ready(self, timeout: float = 30.0) -> None:
+        deadline = time.time() + timeout
+        while time.time() < deadline:
+            if self.proc.poll() is not None:
+                raise RuntimeError("watcher exited early:\n" + self.log.read_text()[-3000:])
+            try:
+                code, _ = self.get("/readyz")
+                if code == 200:
+                    return
+            except OSError:
+                pass
+            time.sleep(0.1)
+        raise RuntimeError("watcher not ready:\n" + self.log.read_text()[-3000:])
+
+    def stop(self, timeout: float = 60.0) -> int:
+        self.proc.send_signal(signal.SIGTERM)
+        return self.proc.wait(timeout)
+
+    def kill(self) -> None:
+        self.proc.send_signal(signal.SIGKILL)
+        self.proc.wait(10)
+
+
+def _section_of(config: Path, wanted: str) -> str:
+    section = ""
+    for line in config.read_text().splitlines():
+        if line.startswith("["):
+            section = line
+        if line == wanted:
+            return section
+    return ""
+
+
+def readings_count(db: Path) -> int:
+    import sqlite3
+
+    conn = sqlite3.connect(f"file:{db}?mode=ro", uri=True)
+    try:
+        return conn.execute("SELECT count(*) FROM readings").fetchone()[0]
+    finally:
+        conn.close()
+
+
+def wait_for(predicate, timeout: float = 60.0, what: str = "condition") -> None:
+    deadline = time.time() + timeout
+    while time.time() < deadline:
+        if predicate():
+            return
+        time.sleep(0.1)
+    raise AssertionError(f"timed out waiting for {what}")

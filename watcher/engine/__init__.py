@@ -1,0 +1,1 @@
+"""Zone and lot state between the store and the model: ordering, dedup, gaps, checkpoints."""

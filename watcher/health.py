@@ -1,0 +1,103 @@
+"""Health and metrics over HTTP on loopback: /healthz, /readyz and /metrics (Prometheus text).
+
+prometheus-client with a private registry; the server binds to the configured host (127.0.0.1
+by default; prometheus-client's own default would be every interface). Label sets are bounded:
+result kinds, reason classes, and configured zone ids.
+"""
+
+from __future__ import annotations
+
+import json
+import threading
+import time
+from http.server import BaseHTTPRequestHandler, ThreadingHTTPServer
+
+from prometheus_client import CollectorRegistry, Counter, Gauge, Histogram, generate_latest
+from prometheus_client.core import GaugeMetricFamily
+
+CONTENT_TYPE = "text/plain; version=0.0.4; charset=utf-8"
+
+
+class Metrics:
+    def __init__(self) -> None:
+        self.registry = CollectorRegistry()
+        r = self.registry
+        self.readings = Counter("watcher_readings", "Messages by result", ["result"], registry=r)
+        self.rejections = Counter("watcher_rejections", "Rejected messages by reason class", ["reason"], registry=r)
+        self.reconnects = Counter(
+            "watcher_mqtt_connects", "Successful MQTT connections (first one included)", registry=r
+        )
+        self.commit_seconds = Histogram(
+            "watcher_commit_seconds",
+            "Time to store, feed and commit one batch",
+            registry=r,
+            buckets=(0.001, 0.0025, 0.005, 0.01, 0.025, 0.05, 0.1, 0.25, 0.5, 1.0, 2.5, 10.0),
+        )
+        self.commit_failures = Counter(
+            "watcher_commit_failures", "Batches whose commit failed and will be retried", registry=r
+        )
+        self.queue_depth = Gauge("watcher_queue_depth", "Messages received but not yet committed", registry=r)
+        self.zone_figures: dict[str, dict] = {}
+        self.zone_last_ts: dict[str, float] = {}
+        r.register(_ZoneCollector(self))
+
+
+class _ZoneCollector:
+    """Per-zone gauges computed at scrape time."""
+
+    def __init__(self, metrics: Metrics):
+        self.m = metrics
+
+    def collect(self):
+        age = GaugeMetricFamily(
+            "watcher_zone_last_reading_age_seconds", "Seconds since the zone's newest reading", labels=["zone"]
+        )
+        budget = GaugeMetricFamily(
+            "watcher_zone_budget_used_ratio", "Texture budget used (worst position), 0..1+", labels=["zone"]
+        )
+        now = time.time()
+        for zone, ts in sorted(self.m.zone_last_ts.items()):
+            age.add_metric([zone], max(0.0, now - ts))
+        for zone, fig in sorted(self.m.zone_figures.items()):
+            if fig.get("budget_used_pct") is not None:
+                budget.add_metric([zone], fig["budget_used_pct"] / 100.0)
+        yield age
+        yield budget
+
+
+class HealthServer:
+    """Serves /healthz, /readyz and /metrics from a daemon thread."""
+
+    def __init__(self, host: str, port: int, metrics: Metrics, health_fn, ready_fn):
+        metrics_ref, health, ready = metrics, health_fn, ready_fn
+
+        class Handler(BaseHTTPRequestHandler):
+            def do_GET(self):  # noqa: N802 (http.server's name)
+                if self.path == "/metrics":
+                    self._send(200, generate_latest(metrics_ref.registry), CONTENT_TYPE)
+                elif self.path in ("/healthz", "/readyz"):
+                    ok, detail = (health if self.path == "/healthz" else ready)()
+                    self._send(200 if ok else 503, json.dumps(detail).encode(), "application/json")
+                else:
+                    self._send(404, b"not found\n", "text/plain")
+
+            def _send(self, code, body, ctype):
+                self.send_response(code)
+                self.send_header("Content-Type", ctype)
+                self.send_header("Content-Length", str(len(body)))
+                self.end_headers()
+                self.wfile.write(body)
+
+            def log_message(self, *args):
+                pass
+
+        self.httpd = ThreadingHTTPServer((host, port), Handler)
+        self.port = self.httpd.server_address[1]
+        self.thread = threading.Thread(target=self.httpd.serve_forever, name="health", daemon=True)
+
+    def start(self) -> None:
+        self.thread.start()
+
+    def stop(self) -> None:
+        self.httpd.shutdown()
+        self.httpd.server_close()

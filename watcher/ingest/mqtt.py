@@ -1,0 +1,186 @@
+"""The MQTT edge: the only module that imports paho-mqtt.
+
+MQTT 5 with a persistent session (clean_start false, a session expiry, a stable client id),
+QoS 1 subscriptions made again on every connect, and manual acknowledgement: a message is
+acked only when the writer says its reading (or rejection) is committed. Callbacks only put
+work on a queue and never raise. Reconnects use capped exponential backoff with full jitter,
+run by our own network thread, so a TLS rejection surfaces as a clear logged error instead of
+a silent loop. A retained online/offline status with a Last Will on the same topic.
+"""
+
+from __future__ import annotations
+
+import logging
+import queue
+import random
+import ssl
+import threading
+import time
+
+import paho.mqtt.client as mqtt
+from paho.mqtt.packettypes import PacketTypes
+from paho.mqtt.properties import Properties
+
+from watcher.config import Broker
+from watcher.engine.batch import Message
+
+log = logging.getLogger("watcher.mqtt")
+
+
+class MqttLink:
+    def __init__(self, broker: Broker, filters: list[str], inbox: queue.Queue, on_state=None):
+        self.broker = broker
+        self.filters = filters
+        self.inbox = inbox
+        self.on_state = on_state or (lambda event, detail: None)
+        self.connected = threading.Event()
+        self.stopping = threading.Event()
+        self.last_error: str | None = None
+        self.connects = 0
+        self.disconnected_since: float | None = time.time()
+        self.callback_errors = 0
+        c = mqtt.Client(
+            mqtt.CallbackAPIVersion.VERSION2, client_id=broker.client_id, protocol=mqtt.MQTTv5, manual_ack=True
+        )
+        if broker.username:
+            c.username_pw_set(broker.username, broker.password)
+        if broker.tls:
+            c.tls_set(
+                ca_certs=broker.tls.ca_file,
+                certfile=broker.tls.cert_file,
+                keyfile=broker.tls.key_file,
+                cert_reqs=ssl.CERT_REQUIRED,
+                tls_version=ssl.PROTOCOL_TLS_CLIENT,
+            )
+        c.will_set(broker.status_topic, b"offline", qos=1, retain=True)
+        c.on_connect = self._on_connect
+        c.on_disconnect = self._on_disconnect
+        c.on_message = self._on_message
+        self.client = c
+        self._thread = threading.Thread(target=self._run, name="mqtt", daemon=True)
+
+    # --- callbacks (network thread): never block, never raise --------------------------------
+    def _on_connect(self, client, userdata, flags, reason_code, properties):
+        try:
+            if reason_code.is_failure:
+                self.last_error = f"broker refused the connection: {reason_code}"
+                log.error("mqtt: %s", self.last_error)
+                return
+            client.subscribe([(f, mqtt.SubscribeOptions(qos=1)) for f in self.filters])
+            client.publish(self.broker.status_topic, b"online", qos=1, retain=True)
+            self.connects += 1
+            self.last_error = None
+            self.disconnected_since = None
+            self.connected.set()
+            log.info(
+                "mqtt: connected to %s:%s (session present: %s)",
+                self.broker.host,
+                self.broker.port,
+                flags.session_present,
+            )
+            self.on_state("connected", flags.session_present)
+        except Exception:  # a dying callback would silently end the network loop
+            self.callback_errors += 1
+            log.exception("mqtt: on_connect failed")
+
+    def _on_disconnect(self, client, userdata, flags, reason_code, properties):
+        try:
+            self.connected.clear()
+            self.disconnected_since = self.disconnected_since or time.time()
+            if not self.stopping.is_set():
+                log.warning("mqtt: disconnected (%s)", reason_code)
+                self.on_state("disconnected", str(reason_code))
+        except Exception:
+            self.callback_errors += 1
+
+    def _on_message(self, client, userdata, msg):
+        try:
+            self.inbox.put(Message(msg.topic, bytes(msg.payload), time.time(), msg.mid, msg.qos))
+        except Exception:
+            self.callback_errors += 1
+            log.exception("mqtt: on_message failed")
+
+    # --- network thread ----------------------------------------------------------------------
+    def start(self) -> None:
+        self._thread.start()
+
+    def alive(self) -> bool:
+        return self._thread.is_alive()
+
+    def _connect_properties(self) -> Properties:
+        props = Properties(PacketTypes.CONNECT)
+        props.SessionExpiryInterval = self.broker.session_expiry_s
+        props.ReceiveMaximum = self.broker.receive_maximum
+        return props
+
+    def _run(self) -> None:
+        delay = self.broker.reconnect_min_s
+        first = True
+        while not self.stopping.is_set():
+            try:
+                if first:
+                    self.client.connect(
+                        self.broker.host,
+                        self.broker.port,
+                        keepalive=self.broker.keepalive_s,
+                        clean_start=False,
+                        properties=self._connect_properties(),
+                    )
+                    first = False
+                else:
+                    self.client.reconnect()
+                delay = self.broker.reconnect_min_s
+                while not self.stopping.is_set():
+                    rc = self.client.loop(timeout=0.05)
+                    if rc != mqtt.MQTT_ERR_SUCCESS:
+                        break
+            except ssl.SSLError as exc:
+                self.last_error = (
+                    f"TLS handshake with {self.broker.host}:{self.broker.port} failed: {exc.reason or exc}"
+                )
+                log.error("mqtt: %s (check the CA, client certificate and key)", self.last_error)
+            except (OSError, mqtt.WebsocketConnectionError, ValueError) as exc:
+                self.last_error = f"cannot reach {self.broker.host}:{self.broker.port}: {exc}"
+                log.warning("mqtt: %s", self.last_error)
+            except Exception:  # keep the thread alive whatever paho raises
+                self.callback_errors += 1
+                log.exception("mqtt: network loop error")
+            self.connected.clear()
+            self.disconnected_since = self.disconnected_since or time.time()
+            if self.stopping.is_set():
+                break
+            sleep = random.uniform(0.0, delay)  # full jitter
+            delay = min(self.broker.reconnect_max_s, delay * 2.0)
+            self.stopping.wait(sleep)
+
+    # --- writer thread -----------------------------------------------------------------------
+    def ack(self, messages: list[Message]) -> None:
+        """Acknowledge committed messages, in arrival order, from the writer thread only."""
+        for m in messages:
+            if m.qos > 0:
+                self.client.ack(m.mid, m.qos)
+
+    def stop(self, timeout_s: float = 5.0) -> None:
+        """Publish the retained offline status ourselves (a clean disconnect sends no Will),
+        wait for it to go out, then disconnect and end the network thread."""
+        if self.connected.is_set():
+            info = self.client.publish(self.broker.status_topic, b"offline", qos=1, retain=True)
+            deadline = time.time() + timeout_s
+            while not info.is_published() and time.time() < deadline and self._thread.is_alive():
+                time.sleep(0.01)
+            self.client.disconnect()
+            deadline = time.time() + 1.0
+            while self.connected.is_set() and time.time() < deadline:
+                time.sleep(0.01)
+        self.stopping.set()
+        self._thread.join(timeout_s)
+
+    def resubscribe(self, filters: list[str]) -> None:
+        """Switch to a new set of subscription filters (after a configuration reload)."""
+        old = set(self.filters)
+        self.filters = list(filters)
+        if self.connected.is_set():
+            gone = sorted(old - set(filters))
+            if gone:
+                self.client.unsubscribe(gone)
+            self.client.subscribe([(f, mqtt.SubscribeOptions(qos=1)) for f in self.filters])

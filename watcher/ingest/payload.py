@@ -1,0 +1,155 @@
+"""Turn one MQTT message into a normalised reading, or a rejection with its reason. Pure.
+
+A reading is (zone, sensor, signal, ts, value): ts in UTC epoch seconds, temperatures in °C,
+door and defrost states as 1.0 (open / on) or 0.0 (closed / off).
+"""
+
+from __future__ import annotations
+
+import json
+import math
+from dataclasses import dataclass
+from datetime import UTC, datetime
+
+SIGNALS = ("air_c", "product_c", "door", "defrost")
+TEMPERATURE_SIGNALS = ("air_c", "product_c")
+_STATE_WORDS = {"open": 1.0, "on": 1.0, "true": 1.0, "closed": 0.0, "close": 0.0, "off": 0.0, "false": 0.0}
+
+
+@dataclass(frozen=True)
+class Source:
+    """How one topic pattern's messages are read (validated by watcher.config)."""
+
+    pattern: object  # TopicPattern
+    signal: str
+    fmt: str = "json"  # "json" or "number"
+    value_path: tuple[str, ...] = ("value",)
+    unit: str = "C"  # "C", "F" or "K"
+    time_path: tuple[str, ...] | None = None
+    time_format: str = "iso"  # "iso", "epoch_s" or "epoch_ms"
+    zone: str | None = None  # fixed zone when the pattern has no {zone}
+    sensor: str | None = None  # fixed sensor when the pattern has no {sensor}
+
+
+@dataclass(frozen=True)
+class Reading:
+    zone: str
+    sensor: str
+    signal: str
+    ts: float
+    value: float
+
+
+@dataclass(frozen=True)
+class Limits:
+    max_payload_bytes: int = 65536
+    future_skew_s: float = 300.0
+    past_limit_s: float = 400 * 86400.0
+    temp_range_c: tuple[float, float] = (-60.0, 40.0)
+
+
+class Rejected(Exception):
+    """A message that cannot become a reading; the reason is short and stored with it."""
+
+
+def _dig(obj, path: tuple[str, ...], what: str):
+    for key in path:
+        if isinstance(obj, dict) and key in obj:
+            obj = obj[key]
+        elif isinstance(obj, list) and key.isdigit() and int(key) < len(obj):
+            obj = obj[int(key)]
+        else:
+            raise Rejected(f"missing field {'.'.join(path)} ({what})")
+    return obj
+
+
+def _to_celsius(value: float, unit: str) -> float:
+    if unit == "F":
+        return (value - 32.0) * 5.0 / 9.0
+    if unit == "K":
+        return value - 273.15
+    return value
+
+
+def _number(raw, what: str) -> float:
+    if isinstance(raw, bool) or not isinstance(raw, (int, float)):
+        raise Rejected(f"{what} is {type(raw).__name__}, expected a number")
+    value = float(raw)
+    if not math.isfinite(value):
+        raise Rejected(f"{what} is not finite")
+    return value
+
+
+def _state(raw) -> float:
+    if isinstance(raw, bool):
+        return 1.0 if raw else 0.0
+    if isinstance(raw, (int, float)) and raw in (0, 1):
+        return float(raw)
+    if isinstance(raw, str) and raw.strip().lower() in _STATE_WORDS:
+        return _STATE_WORDS[raw.strip().lower()]
+    raise Rejected(f"state {raw!r} is not open/closed, on/off, true/false or 1/0")
+
+
+def _timestamp(raw, fmt: str) -> float:
+    if fmt == "iso":
+        if not isinstance(raw, str):
+            raise Rejected("timestamp is not an ISO 8601 string")
+        try:
+            stamp = datetime.fromisoformat(raw[:-1] + "+00:00" if raw.endswith("Z") else raw)
+        except ValueError:
+            raise Rejected(f"timestamp {raw[:40]!r} is not ISO 8601") from None
+        if stamp.tzinfo is None:
+            stamp = stamp.replace(tzinfo=UTC)
+        return stamp.timestamp()
+    value = _number(raw, "timestamp")
+    return value / 1000.0 if fmt == "epoch_ms" else value
+
+
+def parse_message(source: Source, names: dict[str, str], payload: bytes, received_ts: float, limits: Limits) -> Reading:
+    """One reading from one message, or Rejected with the reason."""
+    if len(payload) > limits.max_payload_bytes:
+        raise Rejected(f"payload of {len(payload)} bytes exceeds {limits.max_payload_bytes}")
+    try:
+        text = payload.decode("utf-8")
+    except UnicodeDecodeError:
+        raise Rejected("payload is not UTF-8") from None
+    ts = received_ts
+    if source.fmt == "number":
+        try:
+            raw = float(text.strip())
+        except ValueError:
+            raise Rejected(f"payload {text[:40]!r} is not a number") from None
+        if source.signal in TEMPERATURE_SIGNALS and not math.isfinite(raw):
+            raise Rejected("value is not finite")
+        value_raw = raw
+    else:
+        try:
+            doc = json.loads(text, parse_constant=_reject_constant)
+        except RecursionError:
+            raise Rejected("JSON nested too deeply") from None
+        except ValueError as exc:
+            raise Rejected(f"invalid JSON ({str(exc)[:60]})") from None
+        value_raw = _dig(doc, source.value_path, "value")
+        if source.time_path is not None:
+            ts = _timestamp(_dig(doc, source.time_path, "timestamp"), source.time_format)
+    if source.signal in TEMPERATURE_SIGNALS:
+        value = _to_celsius(_number(value_raw, "value"), source.unit)
+        lo, hi = limits.temp_range_c
+        if not lo <= value <= hi:
+            raise Rejected(f"temperature {value:.2f} C outside the plausible range [{lo}, {hi}] (sensor fault?)")
+    else:
+        value = _state(value_raw)
+    if not math.isfinite(ts):
+        raise Rejected("timestamp is not finite")
+    if ts > received_ts + limits.future_skew_s:
+        raise Rejected(f"timestamp {ts - received_ts:.0f} s in the future (tolerance {limits.future_skew_s:.0f} s)")
+    if ts < received_ts - limits.past_limit_s:
+        raise Rejected(f"timestamp {(received_ts - ts) / 86400:.0f} days in the past")
+    zone = names.get("zone") or source.zone
+    sensor = names.get("sensor") or source.sensor or source.signal
+    # Microseconds: readings stamped with the receive time must not collide in the natural key.
+    return Reading(zone=zone, sensor=sensor, signal=source.signal, ts=round(ts, 6), value=value)
+
+
+def _reject_constant(name: str):
+    raise ValueError(f"{name} is not valid JSON")

@@ -1,0 +1,248 @@
+"""The long-running service: wiring of threads, signals, systemd notification and health.
+
+Threads: the MQTT network thread (watcher.ingest.mqtt) puts messages on a queue; the writer
+thread owns the database, processes batches (parse, dedup, store, feed the model, commit) and
+only then acknowledges them; the health thread serves HTTP. The main thread waits for signals,
+pings the systemd watchdog while the worker threads are alive, and stops everything cleanly.
+A broker outage keeps the service up (and the watchdog fed): it reconnects by itself.
+"""
+
+from __future__ import annotations
+
+import logging
+import os
+import queue
+import signal
+import socket
+import threading
+import time
+
+from watcher.config import Config, load_config
+from watcher.engine.batch import Engine, Message
+from watcher.errors import WatcherError
+from watcher.health import HealthServer, Metrics
+from watcher.ingest.mqtt import MqttLink
+from watcher.store.db import Store
+
+log = logging.getLogger("watcher.service")
+
+
+def sd_notify(message: str) -> bool:
+    """Send one datagram to $NOTIFY_SOCKET (systemd Type=notify); False when there is none."""
+    addr = os.environ.get("NOTIFY_SOCKET")
+    if not addr:
+        return False
+    if addr.startswith("@"):
+        addr = "\0" + addr[1:]
+    try:
+        with socket.socket(socket.AF_UNIX, socket.SOCK_DGRAM) as sock:
+            sock.connect(addr)
+            sock.sendall(message.encode())
+        return True
+    except OSError as exc:
+        log.warning("sd_notify failed: %s", exc)
+        return False
+
+
+def setup_logging(level: str = "INFO") -> None:
+    """One structured line per event on stdout, for journald."""
+    logging.basicConfig(
+        level=getattr(logging, level.upper(), logging.INFO),
+        format="%(asctime)s level=%(levelname)s logger=%(name)s %(message)s",
+        datefmt="%Y-%m-%dT%H:%M:%S%z",
+        force=True,
+    )
+
+
+class Service:
+    def __init__(self, config: Config, checkpoint_s: float = 10.0):
+        self.config = config
+        self.checkpoint_s = checkpoint_s
+        self.metrics = Metrics()
+        self.inbox: queue.Queue[Message] = queue.Queue()
+        self.stopping = threading.Event()
+        self.db_ok = False
+        self.last_commit_error: str | None = None
+        self._pending_config: Config | None = None
+        self._config_lock = threading.Lock()
+        self.store = Store(config.storage.path)
+        self.engine = Engine(config, self.store, checkpoint_s)
+        self.db_ok = True
+        self._publish_zone_metrics()
+        self.mqtt = MqttLink(config.broker, self._filters(config), self.inbox, self._on_link)
+        self.writer = threading.Thread(target=self._writer_loop, name="writer", daemon=True)
+        self.health: HealthServer | None = None
+        if config.health.port:
+            self.health = HealthServer(config.health.host, config.health.port, self.metrics, self.healthz, self.readyz)
+
+    @staticmethod
+    def _filters(config: Config) -> list[str]:
+        return sorted({s.pattern.filter for s in config.sources})
+
+    def _on_link(self, event: str, detail) -> None:
+        if event == "connected":
+            self.metrics.reconnects.inc()
+
+    # --- health --------------------------------------------------------------------------
+    def healthz(self):
+        threads = {"writer": self.writer.is_alive(), "mqtt": self.mqtt.alive()}
+        return all(threads.values()), {"threads": threads}
+
+    def readyz(self):
+        detail = {
+            "config": self.config.path,
+            "database": self.db_ok,
+            "broker": self.mqtt.connected.is_set(),
+            "broker_error": self.mqtt.last_error,
+            "commit_error": self.last_commit_error,
+        }
+        return bool(self.db_ok and self.mqtt.connected.is_set()), detail
+
+    # --- writer thread ---------------------------------------------------------------------
+    def _next_batch(self) -> list[Message]:
+        try:
+            first = self.inbox.get(timeout=0.2)
+        except queue.Empty:
+            return []
+        batch = [first]
+        deadline = time.monotonic() + self.config.ingest.batch_wait_s
+        while len(batch) < self.config.ingest.batch_max:
+            try:
+                batch.append(self.inbox.get(timeout=max(0.0, deadline - time.monotonic())))
+            except queue.Empty:
+                break
+        return batch
+
+    def _commit(self, batch: list[Message]) -> None:
+        """Process until the batch is committed (retrying with backoff), then ack it."""
+        delay = 0.1
+        while True:
+            started = time.perf_counter()
+            try:
+                result = self.engine.process(batch)
+            except Exception as exc:  # disk full, database locked for too long, ...
+                self.db_ok = False
+                self.last_commit_error = f"{type(exc).__name__}: {exc}"
+                self.metrics.commit_failures.inc()
+                if self.stopping.is_set():
+                    log.error(
+                        "stopping with %d uncommitted messages; they stay unacknowledged and the broker sends them "
+                        "again after the restart: %s",
+                        len(batch),
+                        self.last_commit_error,
+                    )
+                    return
+                log.error("commit failed, nothing acknowledged, retrying in %.1f s: %s", delay, self.last_commit_error)
+                self.stopping.wait(delay)
+                delay = min(delay * 2.0, 30.0)
+                continue
+            break
+        self.db_ok = True
+        self.last_commit_error = None
+        self.metrics.commit_seconds.observe(time.perf_counter() - started)
+        for kind, n in result.counts.items():
+            self.metrics.readings.labels(kind).inc(n)
+        for reason, n in result.rejections.items():
+            self.metrics.rejections.labels(reason).inc(n)
+        self.mqtt.ack(batch)
+        self._publish_zone_metrics()
+
+    def _publish_zone_metrics(self) -> None:
+        for zid, runner in self.engine.runners.items():
+            if runner.last_ts is not None:
+                self.metrics.zone_last_ts[zid] = runner.last_ts
+            figures = self.engine.last_figures.get(zid)
+            if figures is not None:
+                self.metrics.zone_figures[zid] = figures
+
+    def _writer_loop(self) -> None:
+        while True:
+            self._apply_pending_config()
+            batch = self._next_batch()
+            self.metrics.queue_depth.set(self.inbox.qsize())
+            if batch:
+                self._commit(batch)
+            elif self.stopping.is_set():
+                break
+        try:
+            self.engine.checkpoint_all()
+        except Exception as exc:
+            log.error("final checkpoint failed (state will be rebuilt from stored readings): %s", exc)
+
+    # --- reload ----------------------------------------------------------------------------
+    def request_reload(self) -> None:
+        """SIGHUP: validate the new file; swap it in only if it is valid."""
+        try:
+            new = load_config(self.config.path)
+        except WatcherError as exc:
+            log.error("reload refused, keeping the running configuration: %s", exc)
+            return
+        if new.broker != self.config.broker or new.storage != self.config.storage:
+            log.warning("reload: broker and storage settings take effect at the next restart")
+        with self._config_lock:
+            self._pending_config = new
+
+    def _apply_pending_config(self) -> None:
+        with self._config_lock:
+            new, self._pending_config = self._pending_config, None
+        if new is None:
+            return
+        self.engine.checkpoint_all()
+        new = Config(
+            new.path, self.config.broker, self.config.storage, new.ingest, new.health, new.sites, new.zones, new.sources
+        )
+        self.engine = Engine(new, self.store, self.checkpoint_s)
+        self.config = new
+        self.mqtt.resubscribe(self._filters(new))
+        log.info("reload: configuration swapped (%d zones, %d sources)", len(new.zones), len(new.sources))
+
+    # --- lifecycle -------------------------------------------------------------------------
+    def start(self) -> None:
+        self.writer.start()
+        self.mqtt.start()
+        if self.health:
+            self.health.start()
+        log.info(
+            "started: %d zones, subscribing to %s, database %s",
+            len(self.config.zones),
+            ", ".join(self._filters(self.config)),
+            self.config.storage.path,
+        )
+
+    def stop(self) -> None:
+        """Drain what was received, commit, publish offline, disconnect."""
+        sd_notify("STOPPING=1")
+        log.info("stopping: draining %d queued messages", self.inbox.qsize())
+        self.stopping.set()
+        self.writer.join(60.0)
+        self.mqtt.stop()
+        if self.health:
+            self.health.stop()
+        self.store.close()
+        log.info("stopped")
+
+    def run_forever(self) -> int:
+        """Run until SIGTERM/SIGINT; SIGHUP reloads. Returns the exit code."""
+        stop_now = threading.Event()
+        reload_now = threading.Event()
+        signal.signal(signal.SIGTERM, lambda *_: stop_now.set())
+        signal.signal(signal.SIGINT, lambda *_: stop_now.set())
+        signal.signal(signal.SIGHUP, lambda *_: reload_now.set())
+        self.start()
+        sd_notify("READY=1")
+        watchdog_us = int(os.environ.get("WATCHDOG_USEC", "0") or 0)
+        ping_every = watchdog_us / 2e6 if watchdog_us else None
+        last_ping = 0.0
+        while not stop_now.wait(0.2):
+            if reload_now.is_set():
+                reload_now.clear()
+                self.request_reload()
+            ok, _ = self.healthz()
+            if ping_every and ok and time.monotonic() - last_ping >= ping_every:
+                sd_notify("WATCHDOG=1")
+                last_ping = time.monotonic()
+            if not self.writer.is_alive():
+                log.error("the writer thread has died; exiting so systemd restarts the service")
+                return 1
+        self.stop()
+        return 0

@@ -1,0 +1,56 @@
+"""`watcher status`: each zone's latest figures, read from the database without writing."""
+
+from __future__ import annotations
+
+import time
+
+from watcher.config import default_db_path, load_config
+from watcher.store.db import Store
+
+DEFAULT_MAX_GAP_S = 900.0
+
+
+def read_status(config_path: str | None, db_path: str | None, now: float | None = None) -> dict:
+    now = time.time() if now is None else now
+    cfg = load_config(config_path) if config_path else None
+    path = db_path or (cfg.storage.path if cfg else default_db_path())
+    max_gap = cfg.ingest.max_gap_s if cfg else DEFAULT_MAX_GAP_S
+    store = Store(path, readonly=True)
+    try:
+        rows = store.zone_rows()
+        zone_ids = [z.id for z in cfg.zones] if cfg else sorted(rows)
+        zones = []
+        for zid in zone_ids:
+            row = rows.get(zid)
+            total, last_ts = store.zone_summary(zid)
+            fig = row.figures if row else {}
+            age = None if last_ts is None else max(0.0, now - last_ts)
+            zones.append(
+                {
+                    "id": zid,
+                    "air_c": row.last_air_c if row else None,
+                    "product_c": row.last_product_c if row and row.last_product_c is not None else fig.get("product_c"),
+                    "mean_diameter_um": fig.get("mean_diameter_um"),
+                    "budget_used_pct": fig.get("budget_used_pct"),
+                    "days_to_limit": fig.get("days_to_limit"),
+                    "excess_growth_um": fig.get("excess_growth_um"),
+                    "state": fig.get("state", "waiting"),
+                    "worst_position": fig.get("worst_position"),
+                    "positions": fig.get("positions", {}),
+                    "model_time_s": fig.get("model_time_s"),
+                    "last_reading_age_s": age,
+                    "readings_total": total,
+                    "open_gap": age is None or age > max_gap,
+                    "gaps": [{"start_s": g[1], "end_s": g[2], "seconds": g[3]} for g in store.gaps(zid)[-5:]],
+                    "figures_updated_s": row.updated_ts if row else None,
+                }
+            )
+        return {
+            "database": path,
+            "now_s": now,
+            "zones": zones,
+            "rejections_total": store.count("rejections"),
+            "gaps_total": store.count("gaps"),
+        }
+    finally:
+        store.close()

@@ -1,0 +1,1 @@
+"""Storage: the only package that imports sqlite-utils."""

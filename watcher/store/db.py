@@ -1,0 +1,216 @@
+"""SQLite storage through sqlite-utils: schema migrations, the batch writer, read-only readers.
+
+WAL mode with synchronous=FULL on every connection, so a committed batch survives power loss
+before its MQTT acknowledgement goes out. One writer connection (owned by the writer thread);
+readers (status, reports) open their own read-only connections. A busy timeout lets the writer
+wait out an online backup instead of failing.
+"""
+
+from __future__ import annotations
+
+import io
+import json
+import sqlite3
+from collections.abc import Iterable, Iterator
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import sqlite_utils
+from sqlite_utils.migrations import Migrations
+
+from watcher.errors import WatcherError
+
+BUSY_TIMEOUT_MS = 30_000
+PAYLOAD_KEEP_BYTES = 512
+migrations = Migrations("watcher")
+
+
+class StoreError(WatcherError):
+    """The database could not be opened or written."""
+
+
+@migrations()
+def m001_core(db: sqlite_utils.Database) -> None:
+    db.executescript(
+        """
+        CREATE TABLE readings (
+            id INTEGER PRIMARY KEY,
+            zone TEXT NOT NULL, sensor TEXT NOT NULL, signal TEXT NOT NULL,
+            ts REAL NOT NULL, value REAL NOT NULL,
+            received_ts REAL NOT NULL, topic TEXT NOT NULL,
+            late INTEGER NOT NULL DEFAULT 0
+        );
+        CREATE UNIQUE INDEX readings_natural ON readings(zone, sensor, signal, ts);
+        CREATE INDEX readings_zone_ts ON readings(zone, ts);
+        CREATE TABLE rejections (
+            id INTEGER PRIMARY KEY, received_ts REAL NOT NULL, topic TEXT NOT NULL,
+            reason TEXT NOT NULL, payload TEXT NOT NULL
+        );
+        CREATE INDEX rejections_received ON rejections(received_ts);
+        CREATE TABLE gaps (
+            id INTEGER PRIMARY KEY, zone TEXT NOT NULL, start_ts REAL NOT NULL,
+            end_ts REAL NOT NULL, seconds REAL NOT NULL
+        );
+        CREATE UNIQUE INDEX gaps_zone_start ON gaps(zone, start_ts);
+        CREATE TABLE zone_state (
+            zone TEXT PRIMARY KEY, spec_key TEXT NOT NULL, fed_ts REAL, state BLOB,
+            sensors TEXT NOT NULL, figures TEXT NOT NULL, readings_total INTEGER NOT NULL,
+            last_ts REAL, last_air_c REAL, last_product_c REAL, updated_ts REAL NOT NULL
+        );
+        CREATE TABLE events (
+            id INTEGER PRIMARY KEY, zone TEXT NOT NULL, kind TEXT NOT NULL,
+            start_ts REAL NOT NULL, end_ts REAL, detail TEXT NOT NULL DEFAULT '{}'
+        );
+        """
+    )
+
+
+@dataclass
+class ZoneRow:
+    zone: str
+    spec_key: str
+    fed_ts: float | None
+    state: dict | None
+    sensors: dict
+    figures: dict
+    readings_total: int
+    last_ts: float | None
+    last_air_c: float | None
+    last_product_c: float | None
+    updated_ts: float
+
+
+def pack_state(arrays: dict[str, np.ndarray]) -> bytes:
+    buf = io.BytesIO()
+    np.savez(buf, **arrays)
+    return buf.getvalue()
+
+
+def unpack_state(blob: bytes) -> dict[str, np.ndarray]:
+    with np.load(io.BytesIO(blob)) as data:
+        return {k: data[k] for k in data.files}
+
+
+def _connect(path: str, readonly: bool) -> sqlite3.Connection:
+    if readonly:
+        uri = Path(path).resolve().as_uri() + "?mode=ro"
+        conn = sqlite3.connect(uri, uri=True, timeout=BUSY_TIMEOUT_MS / 1000, check_same_thread=False)
+    else:
+        # Built by the main thread, then used only by the writer thread that owns it.
+        conn = sqlite3.connect(path, timeout=BUSY_TIMEOUT_MS / 1000, isolation_level=None, check_same_thread=False)
+    conn.execute(f"PRAGMA busy_timeout = {BUSY_TIMEOUT_MS}")
+    return conn
+
+
+class Store:
+    """The writer's handle (or, with readonly=True, a reader's)."""
+
+    def __init__(self, path: str, readonly: bool = False):
+        self.path = path
+        try:
+            if not readonly:
+                Path(path).parent.mkdir(parents=True, exist_ok=True)
+            elif not Path(path).is_file():
+                raise StoreError(f"{path}: no database here yet (has `watcher run` or `watcher replay` written one?)")
+            self.conn = _connect(path, readonly)
+            self.db = sqlite_utils.Database(self.conn)
+            if not readonly:
+                self.conn.execute("PRAGMA journal_mode = WAL")
+                self.conn.execute("PRAGMA synchronous = FULL")
+                migrations.apply(self.db)
+        except sqlite3.Error as exc:
+            raise StoreError(f"{path}: cannot open the database ({exc})") from exc
+
+    def close(self) -> None:
+        self.conn.close()
+
+    # --- writing -------------------------------------------------------------------------
+    def atomic(self):
+        return self.db.atomic()
+
+    def insert_reading(self, reading, received_ts: float, topic: str, late: bool) -> bool:
+        """Insert one reading; False when its natural key is already stored (a duplicate)."""
+        cur = self.conn.execute(
+            "INSERT OR IGNORE INTO readings (zone, sensor, signal, ts, value, received_ts, topic, late) VALUES (?,?,?,?,?,?,?,?)",
+            (reading.zone, reading.sensor, reading.signal, reading.ts, reading.value, received_ts, topic, int(late)),
+        )
+        return cur.rowcount == 1
+
+    def insert_rejection(self, received_ts: float, topic: str, reason: str, payload: bytes) -> None:
+        text = payload[:PAYLOAD_KEEP_BYTES].decode("utf-8", errors="backslashreplace")
+        self.conn.execute(
+            "INSERT INTO rejections (received_ts, topic, reason, payload) VALUES (?,?,?,?)",
+            (received_ts, topic[:512], reason, text),
+        )
+
+    def insert_gap(self, zone: str, start_ts: float, end_ts: float) -> None:
+        self.conn.execute(
+            "INSERT OR IGNORE INTO gaps (zone, start_ts, end_ts, seconds) VALUES (?,?,?,?)",
+            (zone, start_ts, end_ts, end_ts - start_ts),
+        )
+
+    def save_zone(self, row: ZoneRow) -> None:
+        self.conn.execute(
+            "INSERT OR REPLACE INTO zone_state (zone, spec_key, fed_ts, state, sensors, figures, readings_total, last_ts, "
+            "last_air_c, last_product_c, updated_ts) VALUES (?,?,?,?,?,?,?,?,?,?,?)",
+            (
+                row.zone,
+                row.spec_key,
+                row.fed_ts,
+                None if row.state is None else pack_state(row.state),
+                json.dumps(row.sensors),
+                json.dumps(row.figures),
+                row.readings_total,
+                row.last_ts,
+                row.last_air_c,
+                row.last_product_c,
+                row.updated_ts,
+            ),
+        )
+
+    # --- reading -------------------------------------------------------------------------
+    def zone_rows(self) -> dict[str, ZoneRow]:
+        out = {}
+        for r in self.conn.execute(
+            "SELECT zone, spec_key, fed_ts, state, sensors, figures, readings_total, last_ts, last_air_c, last_product_c, updated_ts "
+            "FROM zone_state"
+        ):
+            out[r[0]] = ZoneRow(
+                r[0],
+                r[1],
+                r[2],
+                None if r[3] is None else unpack_state(r[3]),
+                json.loads(r[4]),
+                json.loads(r[5]),
+                r[6],
+                r[7],
+                r[8],
+                r[9],
+                r[10],
+            )
+        return out
+
+    def readings_for(self, zone: str, after_ts: float | None = None) -> Iterator[tuple]:
+        """(sensor, signal, ts, value) of a zone's model signals in time order."""
+        sql = "SELECT sensor, signal, ts, value FROM readings WHERE zone = ? AND signal IN ('air_c', 'product_c')"
+        args: list = [zone]
+        if after_ts is not None:
+            sql += " AND ts > ?"
+            args.append(after_ts)
+        yield from self.conn.execute(sql + " ORDER BY ts, sensor, signal", args)
+
+    def zone_summary(self, zone: str) -> tuple[int, float | None]:
+        count, last = self.conn.execute("SELECT count(*), max(ts) FROM readings WHERE zone = ?", (zone,)).fetchone()
+        return count, last
+
+    def count(self, table: str) -> int:
+        return self.conn.execute(f"SELECT count(*) FROM {table}").fetchone()[0]
+
+    def gaps(self, zone: str | None = None) -> list[tuple]:
+        sql = "SELECT zone, start_ts, end_ts, seconds FROM gaps"
+        args: Iterable = ()
+        if zone:
+            sql += " WHERE zone = ?"
+            args = (zone,)
+        return list(self.conn.execute(sql + " ORDER BY start_ts", args))
