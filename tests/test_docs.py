@@ -53,3 +53,20 @@ def test_version_option_works():
 
     result = CliRunner().invoke(main, ["--version"])
     assert result.exit_code == 0 and __version__ in result.output
+
+
+def test_config_example_is_valid(tmp_path):
+    """config.example.toml passes validation once its secret and CA paths point at real files."""
+    import tomllib
+
+    from tests.broker import make_ca
+    from watcher.config import config_from_dict
+
+    data = tomllib.loads((ROOT / "config.example.toml").read_text())
+    (tmp_path / "pw").write_text("pw\n")
+    data["broker"]["password_file"] = str(tmp_path / "pw")
+    data["broker"]["tls"]["ca_file"] = str(make_ca(tmp_path)["ca"])
+    data["storage"]["path"] = str(tmp_path / "w.db")
+    cfg = config_from_dict(data, "config.example.toml")
+    assert [z.id for z in cfg.zones] == ["hardening", "bulk-a", "dispatch"]
+    assert {s.signal for s in cfg.sources} == {"air_c", "product_c", "door", "defrost"}

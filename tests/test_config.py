@@ -1,0 +1,131 @@
+"""Configuration validation: exit code 2, and the message names file, key path, value, expectation."""
+
+import subprocess
+import sys
+
+import pytest
+from click.testing import CliRunner
+
+from watcher.cli import main
+from watcher.config import config_from_dict
+from watcher.errors import ConfigError
+
+
+def base(tmp_path):
+    (tmp_path / "pw").write_text("secret\n")
+    return {
+        "broker": {"password_file": str(tmp_path / "pw"), "username": "watcher"},
+        "storage": {"path": str(tmp_path / "w.db")},
+        "sites": [{"id": "kp", "timezone": "Europe/London"}],
+        "zones": [{"id": "bulk-a", "setpoint_c": -25.0}],
+        "sources": [{"pattern": "kp/{zone}/{sensor}/air", "signal": "air_c", "value": "temp_c"}],
+    }
+
+
+def test_valid_config_reads_secret_from_file(tmp_path):
+    """The password comes from its file; defaults fill the rest."""
+    cfg = config_from_dict(base(tmp_path), "c.toml")
+    assert cfg.broker.password == "secret"
+    assert cfg.ingest.reorder_window_s == 120.0
+    assert cfg.sources[0].pattern.filter == "kp/+/+/air"
+
+
+def test_password_from_systemd_credentials(tmp_path, monkeypatch):
+    """password_credential reads $CREDENTIALS_DIRECTORY/NAME; without the variable it is refused."""
+    data = base(tmp_path)
+    del data["broker"]["password_file"]
+    data["broker"]["password_credential"] = "broker-password"
+    monkeypatch.delenv("CREDENTIALS_DIRECTORY", raising=False)
+    with pytest.raises(ConfigError, match="CREDENTIALS_DIRECTORY"):
+        config_from_dict(data, "c.toml")
+    (tmp_path / "broker-password").write_text("from-credential")
+    monkeypatch.setenv("CREDENTIALS_DIRECTORY", str(tmp_path))
+    assert config_from_dict(data, "c.toml").broker.password == "from-credential"
+
+
+@pytest.mark.parametrize(
+    ("change", "message"),
+    [
+        (
+            lambda d: d["broker"].update(port=70000),
+            "c.toml: broker.port: got 70000, expected a whole number in [1, 65535]",
+        ),
+        (lambda d: d["broker"].update(colour="red"), "c.toml: broker.colour: got 'red', expected no such key"),
+        (
+            lambda d: d["broker"].update(password_file="/nope/pw"),
+            "broker.password_file: got '/nope/pw', expected a readable file",
+        ),
+        (lambda d: d["broker"].update(keepalive_s="30"), "broker.keepalive_s: got '30', expected a whole number"),
+        (lambda d: d["broker"].update(status_topic="watcher/#"), "broker.status_topic: got 'watcher/#'"),
+        (
+            lambda d: d["sites"][0].update(timezone="Mars/Olympus"),
+            "sites[0].timezone: got 'Mars/Olympus', expected an IANA time zone",
+        ),
+        (
+            lambda d: d["zones"][0].update(setpoint_c=5.0),
+            "zones[0].setpoint_c: got 5.0, expected a number in [-60.0, 0.0]",
+        ),
+        (
+            lambda d: d["zones"][0].pop("setpoint_c"),
+            "zones[0].setpoint_c: got None, expected a number in [-60.0, 0.0] (required)",
+        ),
+        (lambda d: d["zones"][0].update(profile="nope"), "zones[0].profile: got 'nope', expected a usable profile"),
+        (lambda d: d["zones"][0].update(positions=[{"name": "core"}]), "zones[0].positions[0].tau_h: got None"),
+        (
+            lambda d: d["zones"].append({"id": "bulk-a", "setpoint_c": -20.0}),
+            "zones: got ['bulk-a', 'bulk-a'], expected unique zone ids",
+        ),
+        (lambda d: d["sources"][0].update(pattern="kp/+/air"), "sources[0].pattern: got 'kp/+/air'"),
+        (
+            lambda d: d["sources"][0].update(signal="humidity"),
+            "sources[0].signal: got 'humidity', expected one of air_c",
+        ),
+        (
+            lambda d: d["sources"][0].update(pattern="kp/{sensor}/air"),
+            "sources[0].zone: got None, expected a zone id, or a {zone} placeholder",
+        ),
+        (lambda d: d["sources"][0].update(unit="R"), "sources[0].unit: got 'R', expected C, F or K"),
+        (
+            lambda d: d["storage"].update(raw_retention_days=30),
+            "storage.raw_retention_days: got 30, expected a whole number in [366",
+        ),
+        (lambda d: d.update(ingest={"temperature_range_c": [10, -10]}), "ingest.temperature_range_c"),
+        (lambda d: d.pop("zones"), "zones: got None, expected a list of [[zones]] tables (required)"),
+    ],
+)
+def test_invalid_values_name_the_key(tmp_path, change, message):
+    """Each invalid key is refused with its path, the value and what was expected."""
+    data = base(tmp_path)
+    change(data)
+    with pytest.raises(ConfigError) as info:
+        config_from_dict(data, "c.toml")
+    assert message in str(info.value)
+
+
+def test_check_config_prints_subscriptions(tmp_path):
+    """check-config shows the filter and how a topic maps to zone, sensor, value and time."""
+    path = tmp_path / "c.toml"
+    path.write_text(
+        f'[broker]\npassword_file = "{tmp_path / "pw"}"\n[storage]\npath = "{tmp_path / "w.db"}"\n'
+        '[[zones]]\nid = "bulk-a"\nsetpoint_c = -25.0\n[[sites]]\nid = "kp"\n'
+        '[[sources]]\npattern = "kp/{zone}/{sensor}/air"\nsignal = "air_c"\nvalue = "reading.temp"\nunit = "F"\n'
+    )
+    (tmp_path / "pw").write_text("x")
+    result = CliRunner().invoke(main, ["check-config", str(path)])
+    assert result.exit_code == 0, result.output
+    assert (
+        "kp/+/+/air" in result.output
+        and "JSON field reading.temp in F" in result.output
+        and "{zone} level" in result.output
+    )
+
+
+def test_run_with_invalid_config_exits_2(tmp_path):
+    """`watcher run` refuses an invalid file before starting anything: exit 2, one line, no traceback."""
+    path = tmp_path / "c.toml"
+    path.write_text('[broker]\nport = "many"\n')
+    out = subprocess.run(
+        [sys.executable, "-m", "watcher", "run", "--config", str(path)], capture_output=True, text=True, timeout=60
+    )
+    assert out.returncode == 2
+    assert "broker.port: got 'many'" in out.stderr and "Traceback" not in out.stderr
