@@ -8,6 +8,7 @@ import signal
 import subprocess
 import sys
 import time
+import urllib.error
 import urllib.request
 from pathlib import Path
 
@@ -152,18 +153,16 @@ class WatcherProcess:
                 return r.status, r.read()
         except urllib.error.HTTPError as e:
             return e.code, e.read()
+        except OSError:  # not listening yet
+            return 0, b"{}"
 
     def wait_ready(self, timeout: float = 30.0) -> None:
         deadline = time.time() + timeout
         while time.time() < deadline:
             if self.proc.poll() is not None:
                 raise RuntimeError("watcher exited early:\n" + self.log.read_text()[-3000:])
-            try:
-                code, _ = self.get("/readyz")
-                if code == 200:
-                    return
-            except OSError:
-                pass
+            if self.get("/readyz")[0] == 200:
+                return
             time.sleep(0.1)
         raise RuntimeError("watcher not ready:\n" + self.log.read_text()[-3000:])
 

@@ -4,11 +4,14 @@ from __future__ import annotations
 
 import json
 import random
+import signal
+import socket
 import subprocess
 import sys
 import time
 
 import numpy as np
+import paho.mqtt.client as mqtt
 import pytest
 
 from tests.broker import Broker
@@ -132,3 +135,143 @@ def test_sigkill_at_random_moments_loses_no_acknowledged_reading(tmp_path, broke
     assert readings_count(tmp_path / "watcher.db") == len(ZONES) * sent
     assert_state_equals_recomputation(config)
     pub.close()
+
+
+def test_broker_restart_mid_stream_loses_nothing(tmp_path, broker):
+    """The broker stops and starts again (persistence on) in mid-stream; watcher reconnects and
+    every reading published before and after arrives."""
+    config = write_config(tmp_path, broker, reorder_s=0.0)
+    w = WatcherProcess(config)
+    w.wait_ready()
+    pub = Publisher(broker)
+    pub.send(messages(ZONES, 0, 300))
+    broker.stop()
+    time.sleep(0.5)
+    broker.start()
+    wait_for(pub.client.is_connected, timeout=30, what="the sensors' publisher to reconnect")
+    pub.send(messages(ZONES, 300, 300))
+    wait_for(lambda: readings_count(tmp_path / "watcher.db") == 2 * 600, what="readings from both sides of the restart")
+    wait_for(lambda: w.get("/readyz")[0] == 200, what="watcher connected again")
+    assert "connected" in w.log.read_text().split("disconnected")[-1]
+    assert w.stop() == 0
+    assert_state_equals_recomputation(config)
+    pub.close()
+
+
+def test_readings_sent_while_watcher_is_down_arrive_after_restart(tmp_path, broker):
+    """The persistent session keeps QoS 1 readings queued at the broker while watcher is stopped."""
+    config = write_config(tmp_path, broker, reorder_s=0.0)
+    w = WatcherProcess(config)
+    w.wait_ready()
+    pub = Publisher(broker)
+    pub.send(messages(ZONES, 0, 100))
+    wait_for(lambda: readings_count(tmp_path / "watcher.db") == 200, what="first readings")
+    assert w.stop() == 0
+    pub.send(messages(ZONES, 100, 400))  # nobody is listening now
+    w = WatcherProcess(config)
+    w.wait_ready()
+    wait_for(lambda: readings_count(tmp_path / "watcher.db") == 1000, what="queued readings")
+    assert w.stop() == 0
+    pub.close()
+
+
+def retained_status(broker: Broker) -> str:
+    got = []
+    c = mqtt.Client(mqtt.CallbackAPIVersion.VERSION2, client_id="status-reader", protocol=mqtt.MQTTv311)
+    c.username_pw_set("sensor", "sensor-pw")
+    c.on_message = lambda cl, ud, m: got.append(m.payload.decode())
+    c.connect("127.0.0.1", broker.port)
+    c.subscribe("watcher/status", qos=1)
+    c.loop_start()
+    wait_for(lambda: got, timeout=10, what="retained status")
+    c.loop_stop()
+    c.disconnect()
+    return got[0]
+
+
+def test_tls_health_metrics_and_status_topic(tmp_path, broker):
+    """Over TLS with a test CA and a password: ready, /healthz and /metrics answer, the retained
+    status says online while running and offline after SIGTERM."""
+    config = write_config(tmp_path, broker, tls=True, reorder_s=0.0)
+    w = WatcherProcess(config)
+    w.wait_ready()
+    assert retained_status(broker) == "online"
+    Publisher(broker).send(messages(ZONES, 0, 50) + [("kp/bulk-a/s1/air", b"{oops")])
+    wait_for(lambda: readings_count(tmp_path / "watcher.db") == 100, what="readings over TLS")
+    code, body = w.get("/healthz")
+    assert code == 200 and json.loads(body)["threads"] == {"writer": True, "mqtt": True}
+    wait_for(lambda: b"invalid_JSON" in w.get("/metrics")[1], timeout=20, what="the rejection in the metrics")
+    code, body = w.get("/metrics")
+    text = body.decode()
+    assert code == 200
+    assert 'watcher_readings_total{result="accepted"} 100.0' in text
+    assert 'watcher_rejections_total{reason="invalid_JSON"} 1.0' in text
+    assert "watcher_commit_seconds_bucket" in text and "watcher_queue_depth" in text
+    assert w.stop() == 0
+    assert retained_status(broker) == "offline"
+
+
+def test_wrong_password_keeps_running_and_says_why(tmp_path, broker):
+    """A refused login does not crash the service: /healthz stays 200, /readyz is 503 with the reason."""
+    config = write_config(tmp_path, broker)
+    (tmp_path / "watcher-password").write_text("wrong\n")
+    w = WatcherProcess(config)
+    wait_for(
+        lambda: w.get("/readyz")[0] == 503 and json.loads(w.get("/readyz")[1])["broker_error"],
+        timeout=30,
+        what="refusal",
+    )
+    detail = json.loads(w.get("/readyz")[1])
+    assert "refused" in detail["broker_error"] and detail["database"] is True
+    assert w.get("/healthz")[0] == 200
+    assert w.proc.poll() is None
+    assert w.stop() == 0
+
+
+def test_sighup_swaps_a_valid_config_and_keeps_the_old_on_error(tmp_path, broker):
+    """SIGHUP with a broken file keeps the running configuration; a valid one with a new zone is swapped in."""
+    config = write_config(tmp_path, broker, reorder_s=0.0)
+    w = WatcherProcess(config)
+    w.wait_ready()
+    good = config.read_text()
+    config.write_text(good.replace("reorder_window_s", "reorder_window_seconds"))
+    w.proc.send_signal(signal.SIGHUP)
+    wait_for(lambda: "reload refused" in w.log.read_text(), timeout=20, what="refused reload")
+    assert "reorder_window_seconds" in w.log.read_text()
+    pub = Publisher(broker)
+    pub.send(messages(["bulk-a"], 0, 10) + messages(["cold-2"], 0, 10))
+    wait_for(lambda: readings_count(tmp_path / "watcher.db") == 10, what="bulk-a readings")
+    config.write_text(good + '\n[[zones]]\nid = "cold-2"\nsetpoint_c = -28.0\n')
+    w.proc.send_signal(signal.SIGHUP)
+    wait_for(lambda: "configuration swapped (3 zones" in w.log.read_text(), timeout=20, what="swap")
+    pub.send(messages(["cold-2"], 10, 10))
+    wait_for(lambda: readings_count(tmp_path / "watcher.db") == 20, what="cold-2 readings after reload")
+    assert w.proc.poll() is None
+    assert w.stop() == 0
+    pub.close()
+
+
+def test_systemd_notifications(tmp_path, broker):
+    """With NOTIFY_SOCKET set: READY=1 once up, WATCHDOG=1 while threads live, STOPPING=1 on SIGTERM."""
+    sock_path = tmp_path / "notify.sock"
+    sock = socket.socket(socket.AF_UNIX, socket.SOCK_DGRAM)
+    sock.bind(str(sock_path))
+    sock.settimeout(0.2)
+    config = write_config(tmp_path, broker)
+    w = WatcherProcess(config, env={"NOTIFY_SOCKET": str(sock_path), "WATCHDOG_USEC": "400000"})
+    got: list[str] = []
+
+    def drain():
+        try:
+            while True:
+                got.append(sock.recv(256).decode())
+        except OSError:
+            pass
+        return got
+
+    wait_for(
+        lambda: "READY=1" in drain() and drain().count("WATCHDOG=1") >= 3, timeout=30, what="READY and watchdog pings"
+    )
+    assert w.stop() == 0
+    wait_for(lambda: "STOPPING=1" in drain(), timeout=10, what="STOPPING")
+    sock.close()
