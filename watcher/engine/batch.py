@@ -19,6 +19,7 @@ from watcher.ingest.payload import Reading, Rejected, parse_message
 from watcher.store.db import Store, ZoneRow
 
 log = logging.getLogger("watcher.engine")
+FEED_AT_PENDING = 5000  # readings waiting in a zone before it is fed between checkpoints
 
 
 @dataclass(frozen=True)
@@ -144,8 +145,8 @@ class Engine:
                 for item, msg in parsed:
                     if isinstance(item, str):
                         self.store.insert_rejection(msg.received_ts, msg.topic, item, msg.payload)
-                        continue
-                    self._store_reading(item, msg.received_ts, msg.topic, result, touched)
+                good = [(item, msg.received_ts, msg.topic) for item, msg in parsed if not isinstance(item, str)]
+                self._store_readings(good, result, touched)
                 self._finish(touched, result, now)
         except Exception:
             self._load(touched)  # memory must not run ahead of the record
@@ -159,13 +160,28 @@ class Engine:
         touched: set[str] = set()
         try:
             with self.store.atomic():
-                for reading, received_ts, topic in items:
-                    self._store_reading(reading, received_ts, topic, result, touched)
+                self._store_readings(items, result, touched)
                 self._finish(touched, result, now)
         except Exception:
             self._load(touched)
             raise
         return result
+
+    def _store_readings(self, items: list[tuple[Reading, float, str]], result: BatchResult, touched: set) -> None:
+        """One bulk insert when no reading is late or repeated (the usual case); row by row
+        otherwise, to tell duplicates and late readings apart."""
+        if not items:
+            return
+        keys = {(r.zone, r.sensor, r.signal, r.ts) for r, _, _ in items}
+        if len(keys) == len(items) and not any(self.runners[r.zone].is_late(r) for r, _, _ in items):
+            if self.store.insert_readings_all_new(items):
+                for r, _, _ in items:
+                    self.runners[r.zone].accept(r)
+                    touched.add(r.zone)
+                result.counts["accepted"] += len(items)
+                return
+        for reading, received_ts, topic in items:
+            self._store_reading(reading, received_ts, topic, result, touched)
 
     def _store_reading(
         self, reading: Reading, received_ts: float, topic: str, result: BatchResult, touched: set
@@ -189,15 +205,24 @@ class Engine:
                 self.runners[zid] = self.recompute(zid)
                 log.info("zone %s: late reading stored and flagged; zone recomputed from stored readings", zid)
             runner = self.runners[zid]
-            runner.advance()
-            for start, end in runner.new_gaps:
-                self.store.insert_gap(zid, start, end)
-            runner.new_gaps.clear()
-            if now - self._last_checkpoint.get(zid, 0.0) >= self.checkpoint_s or zid in result.recomputed:
+            due = now - self._last_checkpoint.get(zid, 0.0) >= self.checkpoint_s or zid in result.recomputed
+            # The integrator gives the same state however the readings are chunked, so feeding
+            # waits for the checkpoint (or a long queue): one model call per zone, not per batch.
+            if due:
                 self.checkpoint(zid, now)
+            elif len(runner.pending) >= FEED_AT_PENDING:
+                self._feed(runner)
+
+    def _feed(self, runner: ZoneRunner) -> None:
+        runner.advance()
+        for start, end in runner.new_gaps:
+            self.store.insert_gap(runner.zone.id, start, end)
+        runner.new_gaps.clear()
 
     def checkpoint(self, zid: str, now: float) -> None:
+        """Feed the zone what its reorder window has released, then save state and figures."""
         runner = self.runners[zid]
+        self._feed(runner)
         figures = runner.figures()
         self.last_figures[zid] = figures
         self.store.save_zone(

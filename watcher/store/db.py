@@ -137,6 +137,22 @@ class Store:
         )
         return cur.rowcount == 1
 
+    def insert_readings_all_new(self, items) -> bool:
+        """Insert (reading, received_ts, topic) rows in one statement if none is stored yet;
+        otherwise insert nothing and return False (the caller goes row by row)."""
+        self.conn.execute("SAVEPOINT bulk")
+        before = self.conn.total_changes
+        self.conn.executemany(
+            "INSERT OR IGNORE INTO readings (zone, sensor, signal, ts, value, received_ts, topic, late) VALUES (?,?,?,?,?,?,?,0)",
+            [(r.zone, r.sensor, r.signal, r.ts, r.value, rts, topic) for r, rts, topic in items],
+        )
+        if self.conn.total_changes - before == len(items):
+            self.conn.execute("RELEASE SAVEPOINT bulk")
+            return True
+        self.conn.execute("ROLLBACK TO SAVEPOINT bulk")
+        self.conn.execute("RELEASE SAVEPOINT bulk")
+        return False
+
     def insert_rejection(self, received_ts: float, topic: str, reason: str, payload: bytes) -> None:
         text = payload[:PAYLOAD_KEEP_BYTES].decode("utf-8", errors="backslashreplace")
         self.conn.execute(
