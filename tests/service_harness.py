@@ -49,7 +49,6 @@ path = "{folder / "watcher.db"}"
 [ingest]
 reorder_window_s = {reorder_s}
 max_gap_s = 900.0
-past_limit_days = 3650.0
 
 [health]
 port = {health_port}

@@ -254,6 +254,12 @@ def config_from_dict(data: dict, path: str = "config") -> Config:
         ),
     )
     i.done()
+    if ingest.limits.past_limit_s > storage.raw_retention_days * 86400.0:
+        root.fail(
+            "ingest.past_limit_days",
+            ingest.limits.past_limit_s / 86400.0,
+            f"at most storage.raw_retention_days ({storage.raw_retention_days}): older readings could no longer be merged in order",
+        )
 
     h = root.sub("health")
     health = Health(host=h.text("host", "127.0.0.1"), port=int(h.integer("port", 9108, 0, 65535)))

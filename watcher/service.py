@@ -9,9 +9,9 @@ A broker outage keeps the service up (and the watchdog fed): it reconnects by it
 
 from __future__ import annotations
 
+import collections
 import logging
 import os
-import queue
 import signal
 import socket
 import threading
@@ -25,6 +25,7 @@ from watcher.ingest.mqtt import MqttLink
 from watcher.store.db import Store
 
 log = logging.getLogger("watcher.service")
+RETENTION_EVERY_S = 6 * 3600.0
 
 
 def sd_notify(message: str) -> bool:
@@ -59,7 +60,9 @@ class Service:
         self.config = config
         self.checkpoint_s = checkpoint_s
         self.metrics = Metrics()
-        self.inbox: queue.Queue[Message] = queue.Queue()
+        # A deque, not queue.Queue: appends from the network thread take no lock and wake
+        # nobody; the writer polls it, so a busy stream costs no thread hand-off per message.
+        self.inbox: collections.deque[Message] = collections.deque()
         self.stopping = threading.Event()
         self.db_ok = False
         self.last_commit_error: str | None = None
@@ -100,17 +103,18 @@ class Service:
 
     # --- writer thread ---------------------------------------------------------------------
     def _next_batch(self) -> list[Message]:
-        try:
-            first = self.inbox.get(timeout=0.2)
-        except queue.Empty:
+        limit = self.config.ingest.batch_max
+        deadline = time.monotonic() + 0.2
+        while not self.inbox and time.monotonic() < deadline:
+            time.sleep(0.002)
+        if not self.inbox:
             return []
-        batch = [first]
-        deadline = time.monotonic() + self.config.ingest.batch_wait_s
-        while len(batch) < self.config.ingest.batch_max:
-            try:
-                batch.append(self.inbox.get(timeout=max(0.0, deadline - time.monotonic())))
-            except queue.Empty:
-                break
+        fill_until = time.monotonic() + self.config.ingest.batch_wait_s
+        while len(self.inbox) < limit and time.monotonic() < fill_until:
+            time.sleep(0.001)
+        batch = []
+        while self.inbox and len(batch) < limit:
+            batch.append(self.inbox.popleft())
         return batch
 
     def _commit(self, batch: list[Message]) -> None:
@@ -155,11 +159,28 @@ class Service:
             if figures is not None:
                 self.metrics.zone_figures[zid] = figures
 
+    def _retention(self) -> None:
+        """Fold raw readings older than the retention period into hourly aggregates."""
+        try:
+            folded = self.engine.apply_retention(time.time())
+            if folded:
+                log.info(
+                    "retention: %d raw readings older than %d days folded into hourly aggregates",
+                    folded,
+                    self.config.storage.raw_retention_days,
+                )
+        except Exception as exc:
+            log.error("retention step failed (it runs again later): %s", exc)
+
     def _writer_loop(self) -> None:
+        next_retention = 0.0
         while True:
+            if time.monotonic() >= next_retention:
+                self._retention()
+                next_retention = time.monotonic() + RETENTION_EVERY_S
             self._apply_pending_config()
             batch = self._next_batch()
-            self.metrics.queue_depth.set(self.inbox.qsize())
+            self.metrics.queue_depth.set(len(self.inbox))
             if batch:
                 self._commit(batch)
             elif self.stopping.is_set():
@@ -212,7 +233,7 @@ class Service:
     def stop(self) -> None:
         """Drain what was received, commit, publish offline, disconnect."""
         sd_notify("STOPPING=1")
-        log.info("stopping: draining %d queued messages", self.inbox.qsize())
+        log.info("stopping: draining %d queued messages", len(self.inbox))
         self.stopping.set()
         self.writer.join(60.0)
         self.mqtt.stop()

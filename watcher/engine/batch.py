@@ -105,10 +105,28 @@ class Engine:
             self.store.insert_gap(runner.zone.id, start, end)
         runner.new_gaps.clear()
 
-    def recompute(self, zone_id: str) -> ZoneRunner:
-        """Rebuild one zone from all its stored readings."""
+    def _from_anchor(self, zone_id: str) -> tuple[ZoneRunner, float | None]:
+        """A runner at the zone's retention anchor (the exact state at the last downsampling
+        cut-off), or a fresh one when the zone has none."""
         runner = self._new_runner(zone_id)
-        for sensor, signal, ts, value in self.store.readings_for(zone_id):
+        anchor = self.store.anchor(zone_id)
+        if anchor is None:
+            return runner, None
+        key, fed_ts, state, sensors = anchor
+        if key != spec_key(runner.zone):
+            log.warning(
+                "zone %s: settings changed since raw readings were downsampled; recomputing from the "
+                "remaining raw readings only",
+                zone_id,
+            )
+            return runner, None
+        runner.restore(fed_ts, state, sensors)
+        return runner, fed_ts
+
+    def recompute(self, zone_id: str) -> ZoneRunner:
+        """Rebuild one zone from its anchor and every raw reading stored after it."""
+        runner, after = self._from_anchor(zone_id)
+        for sensor, signal, ts, value in self.store.readings_for(zone_id, after):
             runner.accept(Reading(zone_id, sensor, signal, ts, value))
         total, last = self.store.zone_summary(zone_id)
         runner.readings_total, runner.last_ts = total, last
@@ -241,6 +259,33 @@ class Engine:
             )
         )
         self._last_checkpoint[zid] = now
+
+    def apply_retention(self, now: float) -> int:
+        """Move each zone's anchor to the retention cut-off, then fold older raw readings into
+        hourly aggregates. Returns the number of raw readings folded."""
+        cutoff = now - self.config.storage.raw_retention_days * 86400.0
+        folded = 0
+        for zid in self.runners:
+            runner, after = self._from_anchor(zid)
+            if after is not None and after >= cutoff:
+                continue
+            rows = list(self.store.readings_for(zid, after, cutoff))
+            if not rows:
+                continue
+            for sensor, signal, ts, value in rows:
+                runner.accept(Reading(zid, sensor, signal, ts, value))
+            runner.max_ts = max(runner.max_ts, cutoff + runner.window)  # release everything up to the cut-off
+            runner.advance()
+            with self.store.atomic():
+                self.store.save_anchor(
+                    zid,
+                    spec_key(runner.zone),
+                    None if runner.fed_ts == float("-inf") else runner.fed_ts,
+                    None if runner.state is None else runner.state.arrays(),
+                    runner.sensors_blob(),
+                )
+                folded += self.store.downsample(zid, runner.fed_ts)
+        return folded
 
     def checkpoint_all(self, now: float | None = None) -> None:
         now = time.time() if now is None else now

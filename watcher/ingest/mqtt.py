@@ -10,8 +10,8 @@ a silent loop. A retained online/offline status with a Last Will on the same top
 
 from __future__ import annotations
 
+import collections
 import logging
-import queue
 import random
 import ssl
 import threading
@@ -28,7 +28,7 @@ log = logging.getLogger("watcher.mqtt")
 
 
 class MqttLink:
-    def __init__(self, broker: Broker, filters: list[str], inbox: queue.Queue, on_state=None):
+    def __init__(self, broker: Broker, filters: list[str], inbox: collections.deque, on_state=None):
         self.broker = broker
         self.filters = filters
         self.inbox = inbox
@@ -39,6 +39,7 @@ class MqttLink:
         self.connects = 0
         self.disconnected_since: float | None = time.time()
         self.callback_errors = 0
+        self._acks: collections.deque[list[Message]] = collections.deque()
         c = mqtt.Client(
             mqtt.CallbackAPIVersion.VERSION2, client_id=broker.client_id, protocol=mqtt.MQTTv5, manual_ack=True
         )
@@ -95,7 +96,7 @@ class MqttLink:
 
     def _on_message(self, client, userdata, msg):
         try:
-            self.inbox.put(Message(msg.topic, bytes(msg.payload), time.time(), msg.mid, msg.qos))
+            self.inbox.append(Message(msg.topic, bytes(msg.payload), time.time(), msg.mid, msg.qos))
         except Exception:
             self.callback_errors += 1
             log.exception("mqtt: on_message failed")
@@ -131,7 +132,8 @@ class MqttLink:
                     self.client.reconnect()
                 delay = self.broker.reconnect_min_s
                 while not self.stopping.is_set():
-                    rc = self.client.loop(timeout=0.05)
+                    self._send_acks()
+                    rc = self.client.loop(timeout=0.01)
                     if rc != mqtt.MQTT_ERR_SUCCESS:
                         break
             except ssl.SSLError as exc:
@@ -155,10 +157,15 @@ class MqttLink:
 
     # --- writer thread -----------------------------------------------------------------------
     def ack(self, messages: list[Message]) -> None:
-        """Acknowledge committed messages, in arrival order, from the writer thread only."""
-        for m in messages:
-            if m.qos > 0:
-                self.client.ack(m.mid, m.qos)
+        """Hand committed messages over for acknowledgement. The network thread sends the
+        PUBACKs in arrival order, so every paho call stays on that one thread."""
+        self._acks.append(messages)
+
+    def _send_acks(self) -> None:
+        while self._acks:
+            for m in self._acks.popleft():
+                if m.qos > 0:
+                    self.client.ack(m.mid, m.qos)
 
     def stop(self, timeout_s: float = 5.0) -> None:
         """Publish the retained offline status ourselves (a clean disconnect sends no Will),

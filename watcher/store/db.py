@@ -66,6 +66,22 @@ def m001_core(db: sqlite_utils.Database) -> None:
     )
 
 
+@migrations()
+def m002_retention(db: sqlite_utils.Database) -> None:
+    db.executescript(
+        """
+        CREATE TABLE readings_hourly (
+            zone TEXT NOT NULL, sensor TEXT NOT NULL, signal TEXT NOT NULL, hour_ts REAL NOT NULL,
+            mean REAL NOT NULL, min REAL NOT NULL, max REAL NOT NULL, n INTEGER NOT NULL
+        );
+        CREATE UNIQUE INDEX readings_hourly_key ON readings_hourly(zone, sensor, signal, hour_ts);
+        CREATE TABLE zone_anchor (
+            zone TEXT PRIMARY KEY, spec_key TEXT NOT NULL, fed_ts REAL, state BLOB, sensors TEXT NOT NULL
+        );
+        """
+    )
+
+
 @dataclass
 class ZoneRow:
     zone: str
@@ -185,7 +201,34 @@ class Store:
             ),
         )
 
+    def save_anchor(self, zone: str, spec_key: str, fed_ts: float | None, state: dict | None, sensors: dict) -> None:
+        self.conn.execute(
+            "INSERT OR REPLACE INTO zone_anchor (zone, spec_key, fed_ts, state, sensors) VALUES (?,?,?,?,?)",
+            (zone, spec_key, fed_ts, None if state is None else pack_state(state), json.dumps(sensors)),
+        )
+
+    def downsample(self, zone: str, upto_ts: float) -> int:
+        """Fold a zone's raw readings with ts <= upto_ts into hourly aggregates; return how many."""
+        self.conn.execute(
+            "INSERT INTO readings_hourly (zone, sensor, signal, hour_ts, mean, min, max, n) "
+            "SELECT zone, sensor, signal, CAST(ts / 3600 AS INTEGER) * 3600.0, avg(value), min(value), max(value), count(*) "
+            "FROM readings WHERE zone = ? AND ts <= ? GROUP BY zone, sensor, signal, CAST(ts / 3600 AS INTEGER) "
+            "ON CONFLICT(zone, sensor, signal, hour_ts) DO UPDATE SET "
+            "mean = (mean * n + excluded.mean * excluded.n) / (n + excluded.n), min = min(min, excluded.min), "
+            "max = max(max, excluded.max), n = n + excluded.n",
+            (zone, upto_ts),
+        )
+        return self.conn.execute("DELETE FROM readings WHERE zone = ? AND ts <= ?", (zone, upto_ts)).rowcount
+
     # --- reading -------------------------------------------------------------------------
+    def anchor(self, zone: str) -> tuple | None:
+        row = self.conn.execute(
+            "SELECT spec_key, fed_ts, state, sensors FROM zone_anchor WHERE zone = ?", (zone,)
+        ).fetchone()
+        if row is None:
+            return None
+        return row[0], row[1], None if row[2] is None else unpack_state(row[2]), json.loads(row[3])
+
     def zone_rows(self) -> dict[str, ZoneRow]:
         out = {}
         for r in self.conn.execute(
@@ -207,18 +250,25 @@ class Store:
             )
         return out
 
-    def readings_for(self, zone: str, after_ts: float | None = None) -> Iterator[tuple]:
-        """(sensor, signal, ts, value) of a zone's model signals in time order."""
+    def readings_for(self, zone: str, after_ts: float | None = None, upto_ts: float | None = None) -> Iterator[tuple]:
+        """(sensor, signal, ts, value) of a zone's raw model readings in time order."""
         sql = "SELECT sensor, signal, ts, value FROM readings WHERE zone = ? AND signal IN ('air_c', 'product_c')"
         args: list = [zone]
         if after_ts is not None:
             sql += " AND ts > ?"
             args.append(after_ts)
+        if upto_ts is not None:
+            sql += " AND ts <= ?"
+            args.append(upto_ts)
         yield from self.conn.execute(sql + " ORDER BY ts, sensor, signal", args)
 
     def zone_summary(self, zone: str) -> tuple[int, float | None]:
+        """Readings stored for the zone (raw, plus those folded into hourly rows) and the newest time."""
         count, last = self.conn.execute("SELECT count(*), max(ts) FROM readings WHERE zone = ?", (zone,)).fetchone()
-        return count, last
+        folded = self.conn.execute(
+            "SELECT coalesce(sum(n), 0) FROM readings_hourly WHERE zone = ?", (zone,)
+        ).fetchone()[0]
+        return count + folded, last
 
     def count(self, table: str) -> int:
         return self.conn.execute(f"SELECT count(*) FROM {table}").fetchone()[0]
