@@ -14,15 +14,16 @@ T0 = 1_795_000_000.0
 NOW = T0 + 30 * 86400
 
 
-def make(tmp_path, reorder=600.0, name="w.db"):
+def make(tmp_path, reorder=600.0, name="w.db", storage=None, ingest=None, zones=None):
+    """A configuration, a real SQLite store and an engine in tmp_path."""
     (tmp_path / "pw").write_text("x")
     cfg = config_from_dict(
         {
             "broker": {"password_file": str(tmp_path / "pw")},
-            "storage": {"path": str(tmp_path / name)},
-            "ingest": {"reorder_window_s": reorder, "max_gap_s": 900.0},
+            "storage": {"path": str(tmp_path / name), **(storage or {})},
+            "ingest": {"reorder_window_s": reorder, "max_gap_s": 900.0, **(ingest or {})},
             "sites": [{"id": "kp"}],
-            "zones": [{"id": "bulk-a", "setpoint_c": -25.0}, {"id": "dispatch", "setpoint_c": -22.0}],
+            "zones": zones or [{"id": "bulk-a", "setpoint_c": -25.0}, {"id": "dispatch", "setpoint_c": -22.0}],
             "sources": [
                 {
                     "pattern": "kp/{zone}/{sensor}/air",
@@ -183,28 +184,14 @@ def test_rejections_are_stored_with_reason_and_payload(tmp_path):
 def test_retention_folds_old_readings_and_keeps_recomputation_exact(tmp_path):
     """Raw readings older than raw_retention_days become hourly aggregates; the zone's anchor
     keeps recomputation exact, and a late reading after that still merges in order."""
-    (tmp_path / "pw").write_text("x")
-    cfg = config_from_dict(
-        {
-            "broker": {"password_file": str(tmp_path / "pw")},
-            "storage": {"path": str(tmp_path / "r.db"), "raw_retention_days": 366},
-            "ingest": {"reorder_window_s": 0.0, "past_limit_days": 366.0},
-            "sites": [{"id": "kp"}],
-            "zones": [{"id": "bulk-a", "setpoint_c": -25.0}],
-            "sources": [
-                {
-                    "pattern": "kp/{zone}/{sensor}/air",
-                    "signal": "air_c",
-                    "value": "t",
-                    "time": "ts",
-                    "time_format": "epoch_s",
-                }
-            ],
-        },
-        "r.toml",
+    _, store, eng = make(
+        tmp_path,
+        reorder=0.0,
+        name="r.db",
+        storage={"raw_retention_days": 366},
+        ingest={"past_limit_days": 366.0},
+        zones=[{"id": "bulk-a", "setpoint_c": -25.0}],
     )
-    store = Store(cfg.storage.path)
-    eng = Engine(cfg, store, checkpoint_s=0.0)
     hours = 400 * 24
     now = T0 + 3600 * hours
     # Each reading is received a few seconds after it was taken, as in the field.

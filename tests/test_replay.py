@@ -10,8 +10,7 @@ from watcher.cli import main
 T0 = 1_795_000_000
 
 
-def test_replay_then_status(tmp_path):
-    """Replayed readings are stored once (a second replay only finds duplicates) and status shows them."""
+def write_config(tmp_path):
     (tmp_path / "pw").write_text("x")
     cfg = tmp_path / "c.toml"
     cfg.write_text(
@@ -19,6 +18,12 @@ def test_replay_then_status(tmp_path):
         '[[sites]]\nid = "kp"\n[[zones]]\nid = "bulk-a"\nsetpoint_c = -25.0\n'
         '[[sources]]\npattern = "kp/{zone}/{sensor}/air"\nsignal = "air_c"\n'
     )
+    return cfg
+
+
+def test_replay_then_status(tmp_path):
+    """Replayed readings are stored once (a second replay only finds duplicates) and status shows them."""
+    cfg = write_config(tmp_path)
     rows = ["time,zone,signal,value,sensor"]
     for k in range(2 * 1440):
         rows.append(f"{T0 + 60 * k},bulk-a,air_c,{-25.0 + (5.0 if k % 360 < 30 else 0.0)},s1")
@@ -39,13 +44,7 @@ def test_replay_then_status(tmp_path):
 
 def test_replay_bad_row_exits_2(tmp_path):
     """A row with an unknown zone stops the replay with exit 2 naming the line."""
-    (tmp_path / "pw").write_text("x")
-    cfg = tmp_path / "c.toml"
-    cfg.write_text(
-        f'[broker]\npassword_file = "{tmp_path / "pw"}"\n[storage]\npath = "{tmp_path / "w.db"}"\n'
-        '[[sites]]\nid = "kp"\n[[zones]]\nid = "bulk-a"\nsetpoint_c = -25.0\n'
-        '[[sources]]\npattern = "kp/{zone}/{sensor}/air"\nsignal = "air_c"\n'
-    )
+    cfg = write_config(tmp_path)
     (tmp_path / "r.csv").write_text("time,zone,signal,value\n2026-11-30T00:00:00Z,bulk-b,air_c,-20\n")
     result = CliRunner().invoke(main, ["replay", "--config", str(cfg), str(tmp_path / "r.csv")])
     assert result.exit_code == 2

@@ -1,6 +1,7 @@
 """The long-running service: wiring of threads, signals, systemd notification and health.
 
-Threads: the MQTT network thread (watcher.ingest.mqtt) puts messages on a queue; the writer
+Threads: the MQTT edge runs in a child process (watcher.ingest.mqtt_process, so paho and the
+writer do not share one interpreter lock) and relays messages into a queue; the writer
 thread owns the database, processes batches (parse, dedup, store, feed the model, commit) and
 only then acknowledges them; the health thread serves HTTP. The main thread waits for signals,
 pings the systemd watchdog while the worker threads are alive, and stops everything cleanly.
@@ -21,7 +22,7 @@ from watcher.config import Config, load_config
 from watcher.engine.batch import Engine, Message
 from watcher.errors import WatcherError
 from watcher.health import HealthServer, Metrics
-from watcher.ingest.mqtt import MqttLink
+from watcher.ingest.mqtt_process import MqttProcess
 from watcher.store.db import Store
 
 log = logging.getLogger("watcher.service")
@@ -72,7 +73,7 @@ class Service:
         self.engine = Engine(config, self.store, checkpoint_s)
         self.db_ok = True
         self._publish_zone_metrics()
-        self.mqtt = MqttLink(config.broker, self._filters(config), self.inbox, self._on_link)
+        self.mqtt = MqttProcess(config.broker, self._filters(config), self.inbox, self._on_link)
         self.writer = threading.Thread(target=self._writer_loop, name="writer", daemon=True)
         self.health: HealthServer | None = None
         if config.health.port:

@@ -3,7 +3,8 @@
 MQTT 5 with a persistent session (clean_start false, a session expiry, a stable client id),
 QoS 1 subscriptions made again on every connect, and manual acknowledgement: a message is
 acked only when the writer says its reading (or rejection) is committed. Callbacks only put
-work on a queue and never raise. Reconnects use capped exponential backoff with full jitter,
+(topic, payload, received_ts, mid, qos) tuples on a queue and never raise. It runs inside the
+network process (watcher.ingest.mqtt_process). Reconnects use capped exponential backoff with full jitter,
 run by our own network thread, so a TLS rejection surfaces as a clear logged error instead of
 a silent loop. A retained online/offline status with a Last Will on the same topic.
 """
@@ -22,7 +23,6 @@ from paho.mqtt.packettypes import PacketTypes
 from paho.mqtt.properties import Properties
 
 from watcher.config import Broker
-from watcher.engine.batch import Message
 
 log = logging.getLogger("watcher.mqtt")
 
@@ -39,7 +39,7 @@ class MqttLink:
         self.connects = 0
         self.disconnected_since: float | None = time.time()
         self.callback_errors = 0
-        self._acks: collections.deque[list[Message]] = collections.deque()
+        self._acks: collections.deque[list[tuple[int, int]]] = collections.deque()
         c = mqtt.Client(
             mqtt.CallbackAPIVersion.VERSION2, client_id=broker.client_id, protocol=mqtt.MQTTv5, manual_ack=True
         )
@@ -96,7 +96,7 @@ class MqttLink:
 
     def _on_message(self, client, userdata, msg):
         try:
-            self.inbox.append(Message(msg.topic, bytes(msg.payload), time.time(), msg.mid, msg.qos))
+            self.inbox.append((msg.topic, bytes(msg.payload), time.time(), msg.mid, msg.qos))
         except Exception:
             self.callback_errors += 1
             log.exception("mqtt: on_message failed")
@@ -156,16 +156,16 @@ class MqttLink:
             self.stopping.wait(sleep)
 
     # --- writer thread -----------------------------------------------------------------------
-    def ack(self, messages: list[Message]) -> None:
-        """Hand committed messages over for acknowledgement. The network thread sends the
-        PUBACKs in arrival order, so every paho call stays on that one thread."""
-        self._acks.append(messages)
+    def ack(self, pairs: list[tuple[int, int]]) -> None:
+        """Hand (mid, qos) pairs of committed messages over for acknowledgement. The network
+        thread sends the PUBACKs in arrival order, so every paho call stays on that thread."""
+        self._acks.append(pairs)
 
     def _send_acks(self) -> None:
+        ack = self.client.ack
         while self._acks:
-            for m in self._acks.popleft():
-                if m.qos > 0:
-                    self.client.ack(m.mid, m.qos)
+            for mid, qos in self._acks.popleft():
+                ack(mid, qos)
 
     def stop(self, timeout_s: float = 5.0) -> None:
         """Publish the retained offline status ourselves (a clean disconnect sends no Will),

@@ -27,7 +27,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field, fields, replace
-from functools import cached_property
+from functools import lru_cache
 
 import numpy as np
 
@@ -39,6 +39,13 @@ from watcher.model.profiles import Profile
 from watcher.model.thermal import lag_series
 
 SECONDS_PER_DAY = 86400.0
+
+
+@lru_cache(maxsize=64)
+def _master(shape: str, spread_cv: float, n_classes: int, rel_tol: float) -> tuple[np.ndarray, np.ndarray]:
+    return pop.master_curve(shape, spread_cv, n_classes, rel_tol)
+
+
 #: Ice-volume changes smaller than this share are carried to the next macro step instead of
 #: melting or refreezing now: 3e-4 of the volume is a shell of 1e-4 of a diameter (0.004 um at
 #: 40 um). It spares the Newton solves that sensor noise would otherwise cost every hour; the
@@ -75,11 +82,12 @@ class Spec:
             if not p.probe and not (p.tau_s > 0 and math.isfinite(p.tau_s)):
                 raise ModelError(f"position {p.name!r}: tau_s must be a positive number, got {p.tau_s!r}")
 
-    @cached_property
+    @property
     def master(self) -> tuple[np.ndarray, np.ndarray]:
-        """The profile's isothermal master curve (theta / L0^3, L / L0), computed once."""
+        """The profile's isothermal master curve (theta / L0^3, L / L0), computed once per
+        distinct shape (zones sharing a profile share it)."""
         ini = self.profile.initial
-        return pop.master_curve(ini.shape, ini.spread_cv, self.n_classes, self.rel_tol)
+        return _master(ini.shape, ini.spread_cv, self.n_classes, self.rel_tol)
 
     @property
     def panel_s(self) -> float:
