@@ -107,7 +107,7 @@ persistence true
 persistence_location {folder / "persist"}/
 autosave_interval 1
 max_queued_messages 1000000
-max_inflight_messages 1000
+max_inflight_messages 20000
 log_dest file {folder / "mosquitto.log"}
 listener {self.port} 127.0.0.1
 listener {self.tls_port} 127.0.0.1

@@ -169,9 +169,28 @@ class WatcherProcess:
         self.proc.send_signal(signal.SIGTERM)
         return self.proc.wait(timeout)
 
+    def children(self) -> list[int]:
+        try:
+            return [int(x) for x in Path(f"/proc/{self.proc.pid}/task/{self.proc.pid}/children").read_text().split()]
+        except OSError:
+            return []
+
     def kill(self) -> None:
+        """SIGKILL the service; its network process must not outlive it (it would hold the client id)."""
+        kids = self.children()
         self.proc.send_signal(signal.SIGKILL)
         self.proc.wait(10)
+        deadline = time.time() + 10
+        while any(Path(f"/proc/{k}").exists() and "zombie" not in _state(k) for k in kids):
+            assert time.time() < deadline, f"orphaned network process(es) {kids} after SIGKILL"
+            time.sleep(0.05)
+
+
+def _state(pid: int) -> str:
+    try:
+        return Path(f"/proc/{pid}/status").read_text().split("State:")[1].split("\n")[0].lower()
+    except (OSError, IndexError):
+        return "gone"
 
 
 def _section_of(config: Path, wanted: str) -> str:

@@ -90,7 +90,7 @@ class Service:
     # --- health --------------------------------------------------------------------------
     def healthz(self):
         threads = {"writer": self.writer.is_alive(), "mqtt": self.mqtt.alive()}
-        return all(threads.values()), {"threads": threads}
+        return all(threads.values()), {"threads": threads, "mqtt_callback_errors": self.mqtt.callback_errors}
 
     def readyz(self):
         detail = {
