@@ -129,3 +129,13 @@ def test_run_with_invalid_config_exits_2(tmp_path):
     )
     assert out.returncode == 2
     assert "broker.port: got 'many'" in out.stderr and "Traceback" not in out.stderr
+
+
+def test_database_defaults_to_the_systemd_state_directory(tmp_path, monkeypatch):
+    """Without storage.path the database is $STATE_DIRECTORY/watcher.db, else ./watcher.db."""
+    data = base(tmp_path)
+    del data["storage"]
+    monkeypatch.setenv("STATE_DIRECTORY", "/var/lib/watcher")
+    assert config_from_dict(data, "c.toml").storage.path == "/var/lib/watcher/watcher.db"
+    monkeypatch.delenv("STATE_DIRECTORY")
+    assert config_from_dict(data, "c.toml").storage.path == "watcher.db"

@@ -349,10 +349,11 @@ def status(config_path, db_path, as_json) -> None:
                 else f"{age / 3600:.1f} h ago"
             )
         )
-        data = "gap open" if z["open_gap"] else "ok"
+        data = "no data" if age is None else "gap open" if z["open_gap"] else "ok"
+        days_none = "never" if z["state"] == "frozen" else "-"  # 'never': no coarsening below Tg'; '-': no figures yet
         click.echo(
             f"{z['id']:<12} {_fmt(z['air_c'], '6.1f'):>6} {_fmt(z['product_c'], '9.1f'):>9} {_fmt(z['mean_diameter_um'], '8.1f'):>8} "
-            f"{_fmt(z['budget_used_pct'], '9.1f'):>9} {_fmt(z['days_to_limit'], '9.1f', 'never'):>9} {age_txt:>13} {z['readings_total']:>9}  {data}"
+            f"{_fmt(z['budget_used_pct'], '9.1f'):>9} {_fmt(z['days_to_limit'], '9.1f', days_none):>9} {age_txt:>13} {z['readings_total']:>9}  {data}"
         )
     click.echo(f"Rejected messages stored: {report['rejections_total']}; data gaps recorded: {report['gaps_total']}.")
     from watcher.simulation import CAUTION
