@@ -27,7 +27,7 @@ sys.path.insert(0, str(ROOT))
 import paho.mqtt.client as mqtt  # noqa: E402
 
 from tests.broker import Broker, free_port  # noqa: E402
-from tests.service_harness import WatcherProcess  # noqa: E402
+from tests.service_harness import AIR_SOURCE_TOML, WatcherProcess  # noqa: E402
 
 T0 = 1_795_000_000.0
 
@@ -51,13 +51,7 @@ port = {free_port()}
 [[sites]]
 id = "kp"
 {zone_blocks}
-[[sources]]
-pattern = "kp/{{zone}}/{{sensor}}/air"
-signal = "air_c"
-value = "temp_c"
-time = "ts"
-time_format = "epoch_s"
-"""
+{AIR_SOURCE_TOML}"""
 
 
 def _publish_part(port: int, part: int, parts: int, sensors: int, minutes: int, zones: int) -> None:

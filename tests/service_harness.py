@@ -17,6 +17,13 @@ import paho.mqtt.client as mqtt
 from tests.broker import Broker, free_port
 
 T0 = 1_795_000_000.0  # 2026-11-18T...Z; readings are stamped from here, a minute apart
+AIR_SOURCE_TOML = """[[sources]]
+pattern = "kp/{zone}/{sensor}/air"
+signal = "air_c"
+value = "temp_c"
+time = "ts"
+time_format = "epoch_s"
+"""
 
 
 def write_config(
@@ -58,13 +65,7 @@ id = "kp"
 name = "Kestrel Point (test)"
 timezone = "Europe/London"
 {zone_blocks}
-[[sources]]
-pattern = "kp/{{zone}}/{{sensor}}/air"
-signal = "air_c"
-value = "temp_c"
-time = "ts"
-time_format = "epoch_s"
-
+{AIR_SOURCE_TOML}
 [[sources]]
 pattern = "kp/{{zone}}/door"
 signal = "door"
