@@ -25,3 +25,18 @@ def run_history(spec: Spec, t_s, air_c, setpoint_c=None, probe_c=None, chunks=No
     for lo, hi in zip(bounds[:-1], bounds[1:]):
         state, _ = advance(spec, state, t[lo:hi], air[:, lo:hi], None if probe is None else probe[:, lo:hi])
     return state, outputs(spec, state)
+
+
+_RATES: list[tuple[str, float, float]] = []
+
+
+def record_rate(label: str, detection: float, false_per_day: float) -> None:
+    """Keep a detector's measured rates for the summary printed at the end of the run."""
+    _RATES.append((label, detection, false_per_day))
+
+
+def pytest_terminal_summary(terminalreporter):
+    if _RATES:
+        terminalreporter.section("event detection rates (synthetic series, tests/test_events.py)")
+        for label, det, false in _RATES:
+            terminalreporter.write_line(f"{label}: detection {100 * det:.0f} %, false alarms {false:.2f} per day")

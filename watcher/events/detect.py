@@ -1,0 +1,179 @@
+"""Find door openings, defrost cycles and excursions in a zone's readings. Pure: numpy only.
+
+- Door openings come from contact signals: each open (1) to closed (0) pair is one opening.
+- Defrosts come from defrost-state signals where a site has them. Where it does not, they are
+  inferred from the air temperature: a defrost is a bounded rise and recovery that repeats at a
+  regular interval. The detector finds warm episodes (air more than `rise_k` above a running
+  baseline), keeps those whose duration and peak lie within the configured bounds and that
+  overlap no door opening, and then keeps only episodes locked to the dominant repeat interval
+  of all episodes (a one-off warm spell, or a door spike at a random time, is not a defrost).
+- Excursions are the remaining warm episodes: air more than `excursion_k` above the setpoint
+  for at least `excursion_min_s`, explained by neither a door opening nor a defrost (a
+  refrigeration fault, a loading operation).
+
+Limits: the detector needs a few cycles before it can see regularity, misses defrosts that
+coincide with door openings, and cannot tell a defrost from a fault that happens to recur at
+the defrost interval. Its rates on synthetic series are measured in tests/test_events.py and
+quoted in docs/events.md.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+
+@dataclass(frozen=True)
+class Event:
+    kind: str  # "door", "defrost" or "excursion"
+    start_s: float
+    end_s: float | None  # None: still going on at the end of the data
+    peak_c: float | None = None
+    source: str = "signal"  # "signal" or "inferred"
+
+    @property
+    def duration_s(self) -> float | None:
+        return None if self.end_s is None else self.end_s - self.start_s
+
+
+@dataclass(frozen=True)
+class DefrostShape:
+    """What an inferred defrost looks like (defaults: 15-45 min, a rise of a few K [from memory, low confidence])."""
+
+    rise_k: float = 1.5  # air above the baseline by more than this starts an episode
+    min_s: float = 10 * 60.0
+    max_s: float = 90 * 60.0
+    min_peak_k: float = 2.0
+    max_peak_k: float = 15.0
+    baseline_window_s: float = 6 * 3600.0
+    min_peak_position: float = 0.25  # peak at least a quarter of the way through the episode
+    period_tolerance: float = 0.03  # timer-driven: starts repeat within 3 % of the period (at least 10 min)
+    min_period_s: float = 3 * 3600.0
+    max_period_s: float = 24 * 3600.0
+
+
+def state_intervals(t_s: np.ndarray, state: np.ndarray, kind: str) -> list[Event]:
+    """Open/closed (or on/off) readings to intervals; repeated states are ignored."""
+    events: list[Event] = []
+    start = None
+    for t, s in zip(np.asarray(t_s, float), np.asarray(state, float)):
+        if s >= 0.5 and start is None:
+            start = float(t)
+        elif s < 0.5 and start is not None:
+            events.append(Event(kind, start, float(t)))
+            start = None
+    if start is not None:
+        events.append(Event(kind, start, None))
+    return events
+
+
+def _baseline(t_s: np.ndarray, air_c: np.ndarray, window_s: float, every_s: float = 600.0) -> np.ndarray:
+    """A running low quantile (25 %) of the air over the preceding window: the cold, settled
+    level. Recomputed every `every_s` and held in between, so long series stay cheap."""
+    out = np.empty_like(air_c)
+    lo = 0
+    last_t = -np.inf
+    value = float(air_c[0])
+    for i, t in enumerate(t_s):
+        if t - last_t >= every_s:
+            while t_s[lo] < t - window_s:
+                lo += 1
+            value = float(np.percentile(air_c[lo : i + 1], 25))
+            last_t = t
+        out[i] = value
+    return out
+
+
+def _episodes(t_s: np.ndarray, excess: np.ndarray, threshold: float) -> list[tuple[int, int]]:
+    """Index ranges [i, j] where excess stays above threshold."""
+    above = excess > threshold
+    edges = np.flatnonzero(np.diff(above.astype(np.int8)))
+    starts = list(edges[~above[edges]] + 1)
+    ends = list(edges[above[edges]])
+    if above[0]:
+        starts.insert(0, 0)
+    if above[-1]:
+        ends.append(len(above) - 1)
+    return list(zip(starts, ends))
+
+
+def _overlaps(a0: float, a1: float, events: list[Event]) -> bool:
+    return any(e.start_s <= a1 and (e.end_s is None or e.end_s >= a0) for e in events)
+
+
+def infer_defrosts(t_s, air_c, doors: list[Event] = (), shape: DefrostShape = DefrostShape()) -> list[Event]:
+    """Defrost cycles inferred from the air temperature pattern."""
+    t = np.asarray(t_s, float)
+    air = np.asarray(air_c, float)
+    if t.size < 3:
+        return []
+    base = _baseline(t, air, shape.baseline_window_s)
+    candidates = []
+    for i, j in _episodes(t, air - base, shape.rise_k):
+        start, end = float(t[max(i - 1, 0)]), float(t[min(j + 1, t.size - 1)])
+        rise = air[i : j + 1] - base[i : j + 1]
+        peak = float(np.max(rise))
+        if not (shape.min_s <= end - start <= shape.max_s and shape.min_peak_k <= peak <= shape.max_peak_k):
+            continue
+        # A door opening jumps and then decays (peak at once); a defrost ramps up and back.
+        if (t[i + int(np.argmax(rise))] - start) / (end - start) < shape.min_peak_position:
+            continue
+        if _overlaps(start, end, list(doors)):
+            continue
+        candidates.append(Event("defrost", start, end, float(np.max(air[i : j + 1])), "inferred"))
+    return _regular(candidates, shape)
+
+
+def _regular(candidates: list[Event], shape: DefrostShape) -> list[Event]:
+    """Keep candidates locked to the dominant repeat interval of all candidates.
+
+    Defrosts run on a timer, so their starts repeat at one period P. P is the most common
+    pairwise interval (10-min bins between min_period_s and max_period_s); a candidate is kept
+    when another candidate starts P or 2P before or after it, within max(10 min, 3 % of P).
+    Door spikes come at random times and rarely line up like that.
+    """
+    if len(candidates) < 3:
+        return []
+    starts = np.array([c.start_s for c in candidates])
+    diffs = (starts[None, :] - starts[:, None]).ravel()
+    diffs = diffs[(diffs >= shape.min_period_s) & (diffs <= shape.max_period_s)]
+    if diffs.size == 0:
+        return []
+    bins = np.arange(shape.min_period_s, shape.max_period_s + 600.0, 600.0)
+    counts, edges = np.histogram(diffs, bins=bins)
+    best = int(np.argmax(counts))
+    in_bin = diffs[(diffs >= edges[best]) & (diffs < edges[best + 1])]
+    period = float(np.median(in_bin))
+    tol = max(600.0, shape.period_tolerance * period)
+    kept = []
+    for c in candidates:
+        gaps = np.abs(starts - c.start_s)
+        if np.any((np.abs(gaps - period) <= tol) | (np.abs(gaps - 2 * period) <= tol)):
+            kept.append(c)
+    return kept
+
+
+def excursions(
+    t_s, air_c, setpoint_c: float, explained: list[Event], excursion_k: float = 3.0, min_s: float = 20 * 60.0
+) -> list[Event]:
+    """Warm periods above setpoint + excursion_k for at least min_s, not explained by doors or defrosts."""
+    t = np.asarray(t_s, float)
+    air = np.asarray(air_c, float)
+    if t.size < 2:
+        return []
+    out = []
+    for i, j in _episodes(t, air - setpoint_c, excursion_k):
+        start = float(t[i])
+        end = float(t[j]) if j < t.size - 1 else None
+        if (t[j] - t[i]) < min_s:
+            continue
+        # Explained only if door or defrost intervals cover most of it.
+        covered = 0.0
+        for e in explained:
+            e_end = e.end_s if e.end_s is not None else float(t[-1])
+            covered += max(0.0, min(e_end, float(t[j])) - max(e.start_s, start))
+        if covered >= 0.5 * (t[j] - t[i]):
+            continue
+        out.append(Event("excursion", start, end, float(np.max(air[i : j + 1])), "inferred"))
+    return out
