@@ -48,6 +48,14 @@ def broker(tmp_path):
     b.stop()
 
 
+def start_watcher(tmp_path, broker, **config_kw):
+    """Write a configuration, start `watcher run`, wait until it is ready, open a publisher."""
+    config = write_config(tmp_path, broker, **config_kw)
+    w = WatcherProcess(config)
+    w.wait_ready()
+    return config, w, Publisher(broker)
+
+
 def status_json(config) -> dict:
     out = subprocess.run(
         [sys.executable, "-m", "watcher", "status", "--config", str(config), "--json"],
@@ -79,10 +87,7 @@ def assert_state_equals_recomputation(config_path) -> None:
 
 def test_end_to_end_status_matches_simulate(tmp_path, broker):
     """Publish readings -> `watcher run` -> `watcher status --json` shows the state `watcher simulate` computes."""
-    config = write_config(tmp_path, broker, reorder_s=60.0)
-    w = WatcherProcess(config)
-    w.wait_ready()
-    pub = Publisher(broker)
+    config, w, pub = start_watcher(tmp_path, broker, reorder_s=60.0)
     n = 2 * 1440
     pub.send(messages(ZONES, 0, n))
     pub.send(
@@ -140,10 +145,7 @@ def test_sigkill_at_random_moments_loses_no_acknowledged_reading(tmp_path, broke
 def test_broker_restart_mid_stream_loses_nothing(tmp_path, broker):
     """The broker stops and starts again (persistence on) in mid-stream; watcher reconnects and
     every reading published before and after arrives."""
-    config = write_config(tmp_path, broker, reorder_s=0.0)
-    w = WatcherProcess(config)
-    w.wait_ready()
-    pub = Publisher(broker)
+    config, w, pub = start_watcher(tmp_path, broker, reorder_s=0.0)
     pub.send(messages(ZONES, 0, 300))
     broker.stop()
     time.sleep(0.5)
@@ -160,10 +162,7 @@ def test_broker_restart_mid_stream_loses_nothing(tmp_path, broker):
 
 def test_readings_sent_while_watcher_is_down_arrive_after_restart(tmp_path, broker):
     """The persistent session keeps QoS 1 readings queued at the broker while watcher is stopped."""
-    config = write_config(tmp_path, broker, reorder_s=0.0)
-    w = WatcherProcess(config)
-    w.wait_ready()
-    pub = Publisher(broker)
+    config, w, pub = start_watcher(tmp_path, broker, reorder_s=0.0)
     pub.send(messages(ZONES, 0, 100))
     wait_for(lambda: readings_count(tmp_path / "watcher.db") == 200, what="first readings")
     assert w.stop() == 0
