@@ -163,6 +163,19 @@ class Trace:
     product_c: np.ndarray = field(default_factory=lambda: np.empty((0, 0, 0)))  # (T, Z, P)
 
 
+def tile_state(state: State, rows: int, zone: int = 0) -> State:
+    """A state of `rows` identical zones copied from one zone of another state (for running
+    counterfactual histories side by side; rows never influence each other)."""
+    kw = {}
+    for f in fields(State):
+        value = getattr(state, f.name)
+        if isinstance(value, np.ndarray) and value.ndim >= 1:
+            kw[f.name] = np.repeat(value[zone : zone + 1], rows, axis=0).copy()
+        else:
+            kw[f.name] = value
+    return State(**kw)
+
+
 def new_state(spec: Spec, t0_s: float, air0_c, setpoint_c, probe0_c=None) -> State:
     """A fresh population for each zone at t0_s; the product starts equilibrated with the air
     (or at the probe reading for probe positions)."""
