@@ -1,0 +1,1 @@
+"""Alerts: the policy (pure: rules, hysteresis, lifecycle) and, later, delivery."""

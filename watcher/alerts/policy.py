@@ -1,0 +1,206 @@
+"""Alert rules and lifecycle. Pure: observations and times in, actions out; no clock, no I/O.
+
+One open alert per (zone, rule). An alert is raised when its condition has held for `for_s`,
+notified at once, repeated every `repeat_s` while nobody acknowledges it, escalated once after
+`escalate_s`, and cleared (with a clear notice) when the value is back past the threshold by
+the rule's hysteresis. Latched rules (budget levels: texture damage does not heal) never clear
+by themselves; acknowledging them stops the repeats. Every transition is an Action for the
+caller to store and deliver.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, replace
+
+SEVERITIES = ("info", "warning", "critical")
+
+
+@dataclass(frozen=True)
+class Rule:
+    id: str
+    metric: str  # a key of the observations, e.g. "budget_used_pct", "air_c", "reading_age_s"
+    op: str  # ">=" raises at or above the threshold, "<=" at or below
+    threshold: float
+    severity: str = "warning"
+    for_s: float = 0.0
+    hysteresis: float = 0.0
+    latch: bool = False
+    label: str = ""
+
+    def __post_init__(self) -> None:
+        if self.op not in (">=", "<="):
+            raise ValueError(f"rule {self.id}: op {self.op!r}, expected '>=' or '<='")
+        if self.severity not in SEVERITIES:
+            raise ValueError(f"rule {self.id}: severity {self.severity!r}, expected one of {', '.join(SEVERITIES)}")
+        if self.for_s < 0 or self.hysteresis < 0:
+            raise ValueError(f"rule {self.id}: for_s and hysteresis must be 0 or more")
+
+    def holds(self, value: float) -> bool:
+        return value >= self.threshold if self.op == ">=" else value <= self.threshold
+
+    def cleared(self, value: float) -> bool:
+        if self.op == ">=":
+            return value < self.threshold - self.hysteresis
+        return value > self.threshold + self.hysteresis
+
+
+@dataclass(frozen=True)
+class AlertState:
+    zone: str
+    rule: str
+    status: str = "quiet"  # quiet | pending | open | acknowledged
+    since_s: float | None = None  # when the condition started holding
+    raised_s: float | None = None
+    notified_s: float | None = None
+    escalated: bool = False
+    acked_by: str | None = None
+    acked_s: float | None = None
+    value: float | None = None
+
+
+@dataclass(frozen=True)
+class Action:
+    kind: str  # raise | repeat | escalate | clear
+    zone: str
+    rule: str
+    severity: str
+    value: float | None
+    at_s: float
+
+
+def evaluate(
+    rules: list[Rule], zone: str, observations: dict, now_s: float, states: dict, repeat_s: float, escalate_s: float
+) -> tuple[dict, list[Action]]:
+    """Advance every (zone, rule) state by one observation; return new states and actions.
+
+    A missing or None observation leaves a rule unchanged (it cannot be judged).
+    """
+    states = dict(states)
+    actions: list[Action] = []
+    for rule in rules:
+        key = (zone, rule.id)
+        st = states.get(key, AlertState(zone, rule.id))
+        value = observations.get(rule.metric)
+        if value is None:
+            continue
+        value = float(value)
+        if st.status in ("quiet", "pending"):
+            if rule.holds(value):
+                since = st.since_s if st.status == "pending" else now_s
+                if now_s - since >= rule.for_s:
+                    st = replace(
+                        st,
+                        status="open",
+                        since_s=since,
+                        raised_s=now_s,
+                        notified_s=now_s,
+                        escalated=False,
+                        acked_by=None,
+                        acked_s=None,
+                        value=value,
+                    )
+                    actions.append(Action("raise", zone, rule.id, rule.severity, value, now_s))
+                else:
+                    st = replace(st, status="pending", since_s=since, value=value)
+            elif st.status == "pending":
+                st = AlertState(zone, rule.id)
+        else:  # open or acknowledged
+            st = replace(st, value=value)
+            if not rule.latch and rule.cleared(value):
+                actions.append(Action("clear", zone, rule.id, rule.severity, value, now_s))
+                st = AlertState(zone, rule.id)
+            elif st.status == "open":
+                if not st.escalated and now_s - st.raised_s >= escalate_s:
+                    st = replace(st, escalated=True, notified_s=now_s)
+                    actions.append(Action("escalate", zone, rule.id, rule.severity, value, now_s))
+                elif now_s - st.notified_s >= repeat_s:
+                    st = replace(st, notified_s=now_s)
+                    actions.append(Action("repeat", zone, rule.id, rule.severity, value, now_s))
+        states[key] = st
+    return states, actions
+
+
+def acknowledge(states: dict, zone: str, rule_id: str, by: str, now_s: float) -> dict:
+    """Mark an open alert acknowledged (stops repeats and escalation); raise KeyError if none."""
+    key = (zone, rule_id)
+    st = states.get(key)
+    if st is None or st.status != "open":
+        raise KeyError(f"no open alert for zone {zone!r}, rule {rule_id!r}")
+    states = dict(states)
+    states[key] = replace(st, status="acknowledged", acked_by=by, acked_s=now_s)
+    return states
+
+
+def default_rules() -> list[Rule]:
+    """Sensible defaults; every one is a setting. The -18 C rules are benchmarks, not legal limits."""
+    return [
+        Rule("budget-50", "budget_used_pct", ">=", 50.0, "info", latch=True, label="half the texture budget used"),
+        Rule(
+            "budget-80", "budget_used_pct", ">=", 80.0, "warning", latch=True, label="80 % of the texture budget used"
+        ),
+        Rule("budget-100", "budget_used_pct", ">=", 100.0, "critical", latch=True, label="texture limit reached"),
+        Rule(
+            "days-left",
+            "days_to_limit",
+            "<=",
+            14.0,
+            "warning",
+            hysteresis=2.0,
+            label="under two weeks to the texture limit",
+        ),
+        Rule(
+            "event-cost", "event_budget_share_pct", ">=", 2.0, "warning", label="one event used over 2 % of the budget"
+        ),
+        Rule(
+            "air-benchmark",
+            "air_c",
+            ">=",
+            -18.0,
+            "warning",
+            for_s=1800.0,
+            hysteresis=1.0,
+            label="air above -18 C for 30 min (a benchmark for quick-frozen foods, not a legal limit for ice cream)",
+        ),
+        Rule(
+            "product-benchmark",
+            "product_c",
+            ">=",
+            -18.0,
+            "critical",
+            for_s=900.0,
+            hysteresis=0.5,
+            label="product above -18 C (a benchmark, not a legal limit for ice cream)",
+        ),
+        Rule("door-open", "door_open_s", ">=", 600.0, "warning", hysteresis=599.0, label="door open over 10 min"),
+        Rule("defrost-long", "defrost_s", ">=", 3600.0, "warning", hysteresis=3599.0, label="defrost over an hour"),
+        Rule(
+            "defrosts-per-day",
+            "defrosts_today",
+            ">=",
+            7.0,
+            "warning",
+            hysteresis=1.0,
+            label="more than 6 defrosts today",
+        ),
+        Rule("sensor-stale", "reading_age_s", ">=", 900.0, "warning", hysteresis=300.0, label="no reading for 15 min"),
+        Rule(
+            "sensors-disagree",
+            "sensor_spread_k",
+            ">=",
+            3.0,
+            "warning",
+            for_s=900.0,
+            hysteresis=1.0,
+            label="air sensors disagree by over 3 K",
+        ),
+        Rule("rejections", "rejections_per_h", ">=", 60.0, "warning", hysteresis=30.0, label="many rejected messages"),
+        Rule(
+            "broker-down",
+            "broker_down_s",
+            ">=",
+            300.0,
+            "critical",
+            hysteresis=299.0,
+            label="no broker connection for 5 min",
+        ),
+    ]
