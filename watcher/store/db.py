@@ -82,6 +82,20 @@ def m002_retention(db: sqlite_utils.Database) -> None:
     )
 
 
+@migrations()
+def m003_outbox(db: sqlite_utils.Database) -> None:
+    db.executescript(
+        """
+        CREATE TABLE outbox (
+            id INTEGER PRIMARY KEY, created_s REAL NOT NULL, tags TEXT NOT NULL, title TEXT NOT NULL,
+            body TEXT NOT NULL, status TEXT NOT NULL DEFAULT 'pending', attempts INTEGER NOT NULL DEFAULT 0,
+            next_try_s REAL NOT NULL, last_result TEXT, last_log TEXT, sent_s REAL
+        );
+        CREATE INDEX outbox_due ON outbox(status, next_try_s);
+        """
+    )
+
+
 @dataclass
 class ZoneRow:
     zone: str
@@ -219,6 +233,28 @@ class Store:
             (zone, upto_ts),
         )
         return self.conn.execute("DELETE FROM readings WHERE zone = ? AND ts <= ?", (zone, upto_ts)).rowcount
+
+    def outbox_add(self, title: str, body: str, tags: list[str], now_s: float) -> int:
+        cur = self.conn.execute(
+            "INSERT INTO outbox (created_s, tags, title, body, next_try_s) VALUES (?,?,?,?,?)",
+            (now_s, json.dumps(sorted(tags)), title, body, now_s),
+        )
+        return int(cur.lastrowid)
+
+    def outbox_due(self, now_s: float, limit: int = 50) -> list[tuple]:
+        """(id, title, body, tags, attempts) of pending messages due now, oldest first."""
+        rows = self.conn.execute(
+            "SELECT id, title, body, tags, attempts FROM outbox WHERE status = 'pending' AND next_try_s <= ? ORDER BY id LIMIT ?",
+            (now_s, limit),
+        ).fetchall()
+        return [(r[0], r[1], r[2], json.loads(r[3]), r[4]) for r in rows]
+
+    def outbox_record(self, row_id: int, status: str, result: str, log: str, now_s: float, next_try_s: float) -> None:
+        self.conn.execute(
+            "UPDATE outbox SET status = ?, attempts = attempts + 1, last_result = ?, last_log = ?, next_try_s = ?, "
+            "sent_s = CASE WHEN ? = 'sent' THEN ? ELSE sent_s END WHERE id = ?",
+            (status, result, log, next_try_s, status, now_s, row_id),
+        )
 
     # --- reading -------------------------------------------------------------------------
     def anchor(self, zone: str) -> tuple | None:
