@@ -201,3 +201,20 @@ def test_times_must_increase(dairy):
         advance(spec, state, np.array([2000.0, 1500.0]), np.array([[-25.0, -25.0]]))
     with pytest.raises(ModelError, match="finite"):
         advance(spec, state, np.array([2000.0]), np.array([[np.nan]]))
+
+
+def test_trace_records_every_completed_hour(dairy):
+    """trace=True returns the settled mean, committed budget and product temperature at each
+    completed UTC hour (for charts); the last entry matches the state's committed budget."""
+    spec = Spec(dairy)
+    t0 = 1_795_003_200.0  # a whole UTC hour
+    state = new_state(spec, t0, -25.0, -25.0)
+    t = t0 + np.arange(60.0, DAY + 1, 60.0)
+    air = np.where((t - t0) % 21600 < 1800, -19.0, -25.0)
+    state, trace = advance(spec, state, t, air[None, :], trace=True)
+    assert trace.t_s.size == 24 and np.all(np.diff(trace.t_s) == 3600.0) and trace.t_s[0] == t0 + 3600
+    assert trace.mean_diameter_um.shape == (24, 1, 3) and trace.product_c.shape == (24, 1, 2)
+    np.testing.assert_array_equal(trace.budget_fraction[-1], state.peak_budget)
+    assert np.all(np.diff(trace.budget_fraction[:, 0, 0]) >= 0)
+    _, none = advance(spec, state, t[-1:] + 60.0, air[None, -1:])
+    assert none is None

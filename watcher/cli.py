@@ -253,11 +253,11 @@ def demo(days) -> None:
     click.echo("Next: write a series as CSV (time,air_c) and run `watcher simulate --series FILE.csv`.")
 
 
-def _config_option(required: bool = True):
+def _config_option():
     return click.option(
         "--config",
         "config_path",
-        required=required,
+        required=True,
         type=click.Path(dir_okay=False),
         help="Service configuration TOML (see config.example.toml).",
     )

@@ -97,10 +97,6 @@ class Spec:
         return min(taus) / 12.0 if taus else self.macro_s
 
     @property
-    def lag_index(self) -> np.ndarray:
-        return np.array([i for i, p in enumerate(self.positions) if not p.probe], dtype=int)
-
-    @property
     def probe_index(self) -> np.ndarray:
         return np.array([i for i, p in enumerate(self.positions) if p.probe], dtype=int)
 
