@@ -73,6 +73,7 @@ format = "number"
 {extra}
 """
     (folder / "watcher-password").write_text(broker.PASSWORD + "\n")
+    (folder / "watcher-password").chmod(0o600)
     path = folder / "watcher.toml"
     path.write_text(text)
     return path

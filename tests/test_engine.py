@@ -17,6 +17,7 @@ NOW = T0 + 30 * 86400
 def make(tmp_path, reorder=600.0, name="w.db", storage=None, ingest=None, zones=None):
     """A configuration, a real SQLite store and an engine in tmp_path."""
     (tmp_path / "pw").write_text("x")
+    (tmp_path / "pw").chmod(0o600)
     cfg = config_from_dict(
         {
             "broker": {"password_file": str(tmp_path / "pw")},

@@ -7,6 +7,7 @@ password comes from a file or from systemd's credentials directory.
 
 from __future__ import annotations
 
+import logging
 import math
 import os
 import tomllib
@@ -14,11 +15,16 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
+from watcher.alerts.delivery import Channel, usable
+from watcher.alerts.policy import METRICS, SEVERITIES, Rule, default_rules
 from watcher.errors import ConfigError, ProfileError
+from watcher.events.detect import DefrostShape
 from watcher.ingest.payload import SIGNALS, Limits, Source
 from watcher.ingest.topics import parse_pattern, topic_is_clean
 from watcher.model.integrator import DEFAULT_POSITIONS, Position
 from watcher.model.profiles import Profile
+
+log = logging.getLogger("watcher.config")
 
 
 @dataclass(frozen=True)
@@ -84,6 +90,22 @@ class Zone:
 
 
 @dataclass(frozen=True)
+class Alerting:
+    repeat_s: float = 3600.0
+    escalate_s: float = 1800.0
+    rules: tuple[Rule, ...] = tuple(default_rules())
+
+
+@dataclass(frozen=True)
+class Events:
+    infer_defrosts: bool = True
+    defrost: DefrostShape = DefrostShape()
+    excursion_k: float = 3.0
+    excursion_min_s: float = 20 * 60.0
+    analyse_every_s: float = 15 * 60.0
+
+
+@dataclass(frozen=True)
 class Config:
     path: str
     broker: Broker
@@ -93,9 +115,17 @@ class Config:
     sites: tuple[Site, ...]
     zones: tuple[Zone, ...]
     sources: tuple[Source, ...]
+    alerting: Alerting = Alerting()
+    events: Events = Events()
+    channels: tuple[Channel, ...] = ()
 
     def zone(self, zone_id: str) -> Zone | None:
         return next((z for z in self.zones if z.id == zone_id), None)
+
+    def site_of(self, zone_id: str) -> Site:
+        z = self.zone(zone_id)
+        site = next((s for s in self.sites if z is not None and s.id == z.site), None)
+        return site or Site("site", "", "UTC")
 
 
 class _Reader:
@@ -161,6 +191,8 @@ def _secret(file: str, r: _Reader, file_key: str, cred_key: str) -> str | None:
     if not path:
         return None
     try:
+        if Path(path).stat().st_mode & 0o004:
+            log.warning("%s: %s is readable by every user; make it 0600 (it holds a secret)", file, path)
         return Path(path).read_text(encoding="utf-8").strip()
     except OSError as exc:
         r.fail(file_key if not cred else cred_key, path, f"a readable file ({exc.strerror})")
@@ -315,8 +347,106 @@ def config_from_dict(data: dict, path: str = "config") -> Config:
         r.done()
     if not sources:
         root.fail("sources", [], "at least one [[sources]] table")
+    alerting = _alerting(root.sub("alerts"), set(zone_ids))
+    events = _events(root.sub("events"))
+    channels = _channels(root)
     root.done()
-    return Config(path, broker, storage, ingest, health, tuple(sites), tuple(zones), tuple(sources))
+    return Config(
+        path, broker, storage, ingest, health, tuple(sites), tuple(zones), tuple(sources), alerting, events, channels
+    )
+
+
+RULE_KEYS = ("metric", "above", "below", "severity", "for_min", "hysteresis", "zones", "label")
+
+
+def _alerting(r: _Reader, zone_ids: set[str]) -> Alerting:
+    rules = {rule.id: rule for rule in default_rules()}
+    off = r.get("disable", (list,), [], "a list of rule ids")
+    for rule_id in off:
+        if rule_id not in rules:
+            r.fail("disable", rule_id, "ids of default rules: " + ", ".join(rules))
+    for k, raw in enumerate(r.get("rules", (list,), [], "a list of [[alerts.rules]] tables")):
+        rr = _Reader(r.file, raw if isinstance(raw, dict) else {}, f"alerts.rules[{k}]")
+        rid = _ident(rr, "id")
+        base = rules.get(rid)
+        if base is None and not {"metric"} <= set(rr.table) or base is None and not {"above", "below"} & set(rr.table):
+            rr.fail("id", rid, "a default rule id to change, or a new rule with metric and above or below")
+        metric = rr.text("metric", base.metric if base else None)
+        if metric not in METRICS:
+            rr.fail("metric", metric, "one of " + ", ".join(METRICS))
+        above, below = rr.number("above"), rr.number("below")
+        if above is not None and below is not None:
+            rr.fail("below", below, "either above or below, not both")
+        op, threshold = (">=", above) if above is not None else ("<=", below) if below is not None else (None, None)
+        severity = rr.text("severity", base.severity if base else "warning")
+        if severity not in SEVERITIES:
+            rr.fail("severity", severity, "one of " + ", ".join(SEVERITIES))
+        zones = tuple(rr.get("zones", (list,), list(base.zones) if base else [], "a list of zone ids"))
+        for z in zones:
+            if z not in zone_ids:
+                rr.fail("zones", z, "ids of [[zones]]: " + ", ".join(sorted(zone_ids)))
+        for_min = rr.number("for_min", base.for_s / 60.0 if base else 0.0, 0.0, 7 * 1440.0)
+        rules[rid] = Rule(
+            id=rid,
+            metric=metric,
+            op=op or base.op,
+            threshold=threshold if threshold is not None else base.threshold,
+            severity=severity,
+            for_s=for_min * 60.0,
+            hysteresis=rr.number("hysteresis", base.hysteresis if base else 0.0, 0.0),
+            latch=metric == "budget_used_pct",  # texture damage does not heal
+            label=rr.text("label", base.label if base and metric == base.metric else f"{metric} {op} {threshold:g}"),
+            zones=zones,
+        )
+        rr.done()
+    alerting = Alerting(
+        repeat_s=r.number("repeat_min", 60.0, 1.0 / 60.0, 7 * 1440.0) * 60.0,
+        escalate_s=r.number("escalate_min", 30.0, 1.0 / 60.0, 7 * 1440.0) * 60.0,
+        rules=tuple(rule for rid, rule in rules.items() if rid not in off),
+    )
+    r.done()
+    return alerting
+
+
+def _events(r: _Reader) -> Events:
+    d = DefrostShape()
+    shape = DefrostShape(
+        rise_k=r.number("defrost_rise_k", d.rise_k, 0.1, 30.0),
+        min_s=r.number("defrost_min_min", d.min_s / 60.0, 1.0, 600.0) * 60.0,
+        max_s=r.number("defrost_max_min", d.max_s / 60.0, 1.0, 600.0) * 60.0,
+    )
+    if shape.min_s >= shape.max_s:
+        r.fail("defrost_max_min", shape.max_s / 60.0, "more than defrost_min_min")
+    events = Events(
+        infer_defrosts=r.get("infer_defrosts", (bool,), True, "true or false"),
+        defrost=shape,
+        excursion_k=r.number("excursion_k", 3.0, 0.5, 40.0),
+        excursion_min_s=r.number("excursion_min_min", 20.0, 1.0, 1440.0) * 60.0,
+        analyse_every_s=r.number("analyse_every_min", 15.0, 1.0, 1440.0) * 60.0,
+    )
+    r.done()
+    return events
+
+
+def _channels(root: _Reader) -> tuple[Channel, ...]:
+    out = []
+    for k, raw in enumerate(root.get("notify", (list,), [], "a list of [[notify]] tables")):
+        r = _Reader(root.file, raw if isinstance(raw, dict) else {}, f"notify[{k}]")
+        name = _ident(r, "name")
+        url = _secret(root.file, r, "url_file", "url_credential")
+        if not url:
+            r.fail("url_file", None, "url_file or url_credential: a file holding one apprise URL")
+        tags = r.get("tags", (list,), ["alerts"], "a list of tags such as alerts, critical, escalation, reports")
+        if not tags or not all(isinstance(t, str) and t for t in tags):
+            r.fail("tags", tags, "a non-empty list of tag names")
+        if not usable(url):
+            r.fail("url_file", "(not shown)", "a file holding one URL that apprise can use")
+        out.append(Channel(name, url, tuple(tags)))
+        r.done()
+    names = [c.name for c in out]
+    if len(set(names)) != len(names):
+        root.fail("notify", names, "unique channel names")
+    return tuple(out)
 
 
 def _ident(r: _Reader, key: str) -> str:

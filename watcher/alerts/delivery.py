@@ -4,14 +4,15 @@ A notification is first stored in the outbox table (in the same transaction as w
 it), then sent by a deliverer that runs apart from ingestion, so a slow or dead receiver never
 holds up readings. Each attempt keeps apprise's result and its log lines with the row; a failed
 send is retried with a doubling delay (30 s up to an hour) and given up after `max_attempts`,
-when the row stays in the table as `failed` for the record. Channel URLs carry credentials: only
-their privacy-masked form is ever logged.
+when the row stays in the table as `failed` for the record. Each row names one channel, so a
+retry reaches only the channel that failed. Channel URLs carry credentials: only their
+privacy-masked form is ever logged.
 """
 
 from __future__ import annotations
 
 import logging
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import apprise
 
@@ -24,8 +25,17 @@ RETRY_MAX_S = 3600.0
 
 @dataclass(frozen=True)
 class Channel:
-    url: str
+    name: str
+    url: str = field(repr=False)
     tags: tuple[str, ...] = ("alerts",)
+
+
+def route(channels: list[Channel], tags: list[str], exclude: set[str] = frozenset()) -> list[str | None]:
+    """Names of the channels that carry any of `tags` ("all" reaches every channel), minus
+    `exclude`; [None] when none does, so the message is still recorded (as unrouted)."""
+    wanted = set(tags)
+    names = [c.name for c in channels if c.name not in exclude and ("all" in wanted or wanted & set(c.tags))]
+    return names or [None]
 
 
 @dataclass(frozen=True)
@@ -35,41 +45,65 @@ class Delivery:
     log: str
 
 
+def usable(url: str) -> bool:
+    return apprise.Apprise.instantiate(url, suppress_exceptions=True) is not None
+
+
+def masked(url: str) -> str:
+    plugin = apprise.Apprise.instantiate(url, suppress_exceptions=True)
+    return plugin.url(privacy=True) if plugin else "(an unreadable URL)"
+
+
 class Notifier:
+    """One apprise object per channel, so each outbox row reaches exactly its channel."""
+
     def __init__(self, channels: list[Channel]):
-        self._apprise = apprise.Apprise()
+        self.channels = {c.name: c for c in channels}
+        self._apprise: dict[str, apprise.Apprise] = {}
         for ch in channels:
-            if not self._apprise.add(ch.url, tag=list(ch.tags)):
-                masked = apprise.Apprise.instantiate(ch.url, suppress_exceptions=True)
-                shown = masked.url(privacy=True) if masked else "(an unreadable URL)"
-                raise ValueError(f"notification channel {shown}: apprise cannot use this URL")
+            a = apprise.Apprise()
+            if not a.add(ch.url):
+                raise ValueError(f"notification channel {ch.name} ({masked(ch.url)}): apprise cannot use this URL")
+            self._apprise[ch.name] = a
 
-    def describe(self) -> list[str]:
-        return [s.url(privacy=True) for s in self._apprise]
+    def describe(self) -> dict[str, str]:
+        """Channel name -> privacy-masked URL (safe to log and print)."""
+        return {name: a[0].url(privacy=True) for name, a in self._apprise.items()}
 
-    def send(self, title: str, body: str, tags: list[str]) -> Delivery:
-        result = self._apprise.notify(body=body, title=title, tag=list(tags) if tags else "all")
+    def send(self, channel: str, title: str, body: str, attach: str | None = None) -> Delivery:
+        a = self._apprise.get(channel)
+        if a is None:
+            return Delivery(False, "nochannel", f"no channel named {channel!r} in the configuration")
+        result = a.notify(body=body, title=title, attach=attach)
         lines = [f"{e.level} {e.message}" for e in result.logs()]
         return Delivery(bool(result), result.status.name.lower(), "\n".join(lines)[-4000:])
+
+
+REPEAT_NOTE = "(This message may repeat one sent just before a restart.)\n\n"
 
 
 def deliver_due(store: Store, notifier: Notifier, now_s: float, max_attempts: int = 60) -> dict[str, int]:
     """Send what is due; record each attempt. Returns counts of sent, retried and failed."""
     counts = {"sent": 0, "retried": 0, "failed": 0}
-    for row_id, title, body, tags, attempts in store.outbox_due(now_s):
-        d = notifier.send(title, body, tags)
-        if d.ok:
-            store.outbox_record(row_id, "sent", d.result, d.log, now_s, now_s)
-            counts["sent"] += 1
-            continue
-        tries = attempts + 1
-        if tries >= max_attempts:
-            store.outbox_record(row_id, "failed", d.result, d.log, now_s, now_s)
-            counts["failed"] += 1
-            log.error("notification %d given up after %d attempts: %s", row_id, tries, d.result)
-        else:
-            delay = min(RETRY_FIRST_S * 2 ** (tries - 1), RETRY_MAX_S)
-            store.outbox_record(row_id, "pending", d.result, d.log, now_s, now_s + delay)
-            counts["retried"] += 1
-            log.warning("notification %d not delivered (%s); retrying in %.0f s", row_id, d.result, delay)
+    for row_id, channel, title, body, attempts, attach, maybe_repeat in store.outbox_due(now_s):
+        with store.atomic():
+            store.outbox_mark_sending(row_id)
+        d = notifier.send(channel, title, (REPEAT_NOTE if maybe_repeat else "") + body, attach)
+        with store.atomic():
+            if d.ok:
+                store.outbox_record(row_id, "sent", d.result, d.log, now_s, now_s)
+                counts["sent"] += 1
+                continue
+            tries = attempts + 1
+            if tries >= max_attempts:
+                store.outbox_record(row_id, "failed", d.result, d.log, now_s, now_s)
+                counts["failed"] += 1
+                log.error("notification %d to %s given up after %d attempts: %s", row_id, channel, tries, d.result)
+            else:
+                delay = min(RETRY_FIRST_S * 2 ** (tries - 1), RETRY_MAX_S)
+                store.outbox_record(row_id, "pending", d.result, d.log, now_s, now_s + delay)
+                counts["retried"] += 1
+                log.warning(
+                    "notification %d to %s not delivered (%s); retrying in %.0f s", row_id, channel, d.result, delay
+                )
     return counts

@@ -13,6 +13,21 @@ from __future__ import annotations
 from dataclasses import dataclass, replace
 
 SEVERITIES = ("info", "warning", "critical")
+# Judged on the service's own clock (the rest on the zone's data time, so a replay or a sensor
+# clock that runs late still gives the right durations).
+WALL_CLOCK_METRICS = ("reading_age_s", "broker_down_s", "rejections_per_h", "undelivered_s", "commit_failing_s")
+METRICS = (
+    "budget_used_pct",
+    "days_to_limit",
+    "event_budget_share_pct",
+    "event_excess_um",
+    "air_c",
+    "product_c",
+    "door_open_s",
+    "defrost_s",
+    "defrosts_today",
+    "sensor_spread_k",
+) + WALL_CLOCK_METRICS
 
 
 @dataclass(frozen=True)
@@ -26,6 +41,10 @@ class Rule:
     hysteresis: float = 0.0
     latch: bool = False
     label: str = ""
+    zones: tuple[str, ...] = ()  # empty: every zone
+
+    def applies_to(self, zone: str) -> bool:
+        return not self.zones or zone in self.zones
 
     def __post_init__(self) -> None:
         if self.op not in (">=", "<="):
@@ -56,6 +75,7 @@ class AlertState:
     acked_by: str | None = None
     acked_s: float | None = None
     value: float | None = None
+    alert_id: int | None = None  # the stored alert row, once raised
 
 
 @dataclass(frozen=True)
@@ -78,6 +98,8 @@ def evaluate(
     states = dict(states)
     actions: list[Action] = []
     for rule in rules:
+        if not rule.applies_to(zone):
+            continue
         key = (zone, rule.id)
         st = states.get(key, AlertState(zone, rule.id))
         value = observations.get(rule.metric)
@@ -98,6 +120,7 @@ def evaluate(
                         acked_by=None,
                         acked_s=None,
                         value=value,
+                        alert_id=None,
                     )
                     actions.append(Action("raise", zone, rule.id, rule.severity, value, now_s))
                 else:
@@ -151,6 +174,7 @@ def default_rules() -> list[Rule]:
         Rule(
             "event-cost", "event_budget_share_pct", ">=", 2.0, "warning", label="one event used over 2 % of the budget"
         ),
+        Rule("event-um", "event_excess_um", ">=", 1.0, "warning", label="one event added over 1 um of crystal growth"),
         Rule(
             "air-benchmark",
             "air_c",
@@ -202,5 +226,23 @@ def default_rules() -> list[Rule]:
             "critical",
             hysteresis=299.0,
             label="no broker connection for 5 min",
+        ),
+        Rule(
+            "undelivered",
+            "undelivered_s",
+            ">=",
+            600.0,
+            "warning",
+            hysteresis=599.0,
+            label="a notification channel has failed for 10 min",
+        ),
+        Rule(
+            "storage-failing",
+            "commit_failing_s",
+            ">=",
+            60.0,
+            "critical",
+            hysteresis=59.0,
+            label="readings cannot be stored (disk full or database locked); nothing is acknowledged",
         ),
     ]

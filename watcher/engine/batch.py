@@ -14,7 +14,9 @@ from collections import Counter
 from dataclasses import dataclass, field
 
 from watcher.config import Config
+from watcher.engine.monitor import Monitor
 from watcher.engine.zones import ZoneRunner, spec_key
+from watcher.errors import InputError
 from watcher.ingest.payload import Reading, Rejected, parse_message
 from watcher.store.db import Store, ZoneRow
 
@@ -36,6 +38,7 @@ class BatchResult:
     counts: Counter = field(default_factory=Counter)
     rejections: Counter = field(default_factory=Counter)
     recomputed: set = field(default_factory=set)
+    late_from: dict = field(default_factory=dict)  # zone -> earliest late reading time
 
 
 def _reason_class(reason: str) -> str:
@@ -71,6 +74,7 @@ class Engine:
         self._last_checkpoint: dict[str, float] = {}
         self.last_figures: dict[str, dict] = {}
         self._load(z.id for z in config.zones)
+        self.monitor = Monitor(config, store)
 
     # --- loading -------------------------------------------------------------------------
     def _new_runner(self, zone_id: str) -> ZoneRunner:
@@ -149,8 +153,11 @@ class Engine:
         """Store and feed a batch in one transaction; raise if the commit fails."""
         now = time.time() if now is None else now
         result = BatchResult()
-        parsed: list[tuple[Reading | str, Message]] = []
+        parsed: list[tuple[Reading | str | None, Message]] = []
         for msg in messages:
+            if msg.topic == self.config.broker.ack_topic:
+                parsed.append((None, msg))
+                continue
             try:
                 parsed.append((self.parse(msg), msg))
             except Rejected as exc:
@@ -161,15 +168,31 @@ class Engine:
         try:
             with self.store.atomic():
                 for item, msg in parsed:
-                    if isinstance(item, str):
+                    if item is None:
+                        self._command(msg, result)
+                    elif isinstance(item, str):
                         self.store.insert_rejection(msg.received_ts, msg.topic, item, msg.payload)
-                good = [(item, msg.received_ts, msg.topic) for item, msg in parsed if not isinstance(item, str)]
+                good = [(item, msg.received_ts, msg.topic) for item, msg in parsed if isinstance(item, Reading)]
                 self._store_readings(good, result, touched)
                 self._finish(touched, result, now)
         except Exception:
-            self._load(touched)  # memory must not run ahead of the record
+            self._reload(touched)
             raise
         return result
+
+    def _reload(self, touched: set[str]) -> None:
+        """After a failed commit: memory must not run ahead of the record."""
+        self._load(touched)
+        self.monitor = Monitor(self.config, self.store)
+
+    def _command(self, msg: Message, result: BatchResult) -> None:
+        try:
+            self.monitor.command(msg.payload, msg.received_ts)
+            result.counts["command"] += 1
+        except InputError as exc:
+            self.store.insert_rejection(msg.received_ts, msg.topic, str(exc), msg.payload)
+            result.rejections["ack_command"] += 1
+            result.counts["rejected"] += 1
 
     def process_readings(self, items: list[tuple[Reading, float, str]], now: float | None = None) -> BatchResult:
         """Store and feed already-parsed readings (replay): (reading, received_ts, topic)."""
@@ -181,7 +204,7 @@ class Engine:
                 self._store_readings(items, result, touched)
                 self._finish(touched, result, now)
         except Exception:
-            self._load(touched)
+            self._reload(touched)
             raise
         return result
 
@@ -193,8 +216,9 @@ class Engine:
         keys = {(r.zone, r.sensor, r.signal, r.ts) for r, _, _ in items}
         if len(keys) == len(items) and not any(self.runners[r.zone].is_late(r) for r, _, _ in items):
             if self.store.insert_readings_all_new(items):
-                for r, _, _ in items:
+                for r, received_ts, _ in items:
                     self.runners[r.zone].accept(r)
+                    self.monitor.observe(r, received_ts)
                     touched.add(r.zone)
                 result.counts["accepted"] += len(items)
                 return
@@ -210,9 +234,11 @@ class Engine:
             result.counts["duplicate"] += 1
             return
         touched.add(reading.zone)
+        self.monitor.observe(reading, received_ts)
         if late:
             result.counts["late"] += 1
             result.recomputed.add(reading.zone)
+            result.late_from[reading.zone] = min(reading.ts, result.late_from.get(reading.zone, reading.ts))
         else:
             result.counts["accepted"] += 1
             runner.accept(reading)
@@ -221,6 +247,7 @@ class Engine:
         for zid in touched:
             if zid in result.recomputed:
                 self.runners[zid] = self.recompute(zid)
+                self.monitor.forget_after(zid, result.late_from[zid])
                 log.info("zone %s: late reading stored and flagged; zone recomputed from stored readings", zid)
             runner = self.runners[zid]
             due = now - self._last_checkpoint.get(zid, 0.0) >= self.checkpoint_s or zid in result.recomputed
@@ -230,6 +257,8 @@ class Engine:
                 self.checkpoint(zid, now)
             elif len(runner.pending) >= FEED_AT_PENDING:
                 self._feed(runner)
+            self.monitor.zone_step(self.runners[zid], self.last_figures.get(zid), due, now)
+        self.monitor.apply_commands(now)
 
     def _feed(self, runner: ZoneRunner) -> None:
         runner.advance()

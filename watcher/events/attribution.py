@@ -29,6 +29,94 @@ class EventCost:
     settled: bool  # False when the window ends before the event's recovery tail
 
 
+def _without(events, t, air, t0_s: float, setpoint_c: float, first_row: int) -> np.ndarray:
+    """Air rows: row 0 as recorded, rows before first_row also as recorded (the caller edits
+    them), then one row per event with the air held at the setpoint while the event lasted. A
+    sample at t_k holds until t_{k+1}: every sample whose hold overlaps the event is replaced."""
+    rows = np.repeat(air[None, :], first_row + len(events), axis=0)
+    prev = np.concatenate(([t0_s], t[:-1]))
+    for k, e in enumerate(events, start=first_row):
+        end = e.end_s if e.end_s is not None else t[-1]
+        rows[k, (t > e.start_s) & (prev < end)] = setpoint_c
+    return rows
+
+
+def _costs(spec: Spec, mean: np.ndarray, events, first_row: int, window_end_s: float, tail_s: float):
+    """Per-event costs from settled mean diameters (rows, P): row 0 against each event's row."""
+    l0, lim = spec.profile.initial.mean_diameter_um, spec.profile.limit_mean_diameter_um
+    span = lim**3 - l0**3
+    costs = []
+    for k, e in enumerate(events, start=first_row):
+        diff = mean[0] - mean[k]
+        share = 100.0 * (mean[0] ** 3 - mean[k] ** 3) / span
+        worst = int(np.nanargmax(share))
+        end = e.end_s if e.end_s is not None else window_end_s
+        costs.append(
+            EventCost(
+                e,
+                float(diff[worst]),
+                float(share[worst]),
+                {p.name: float(d) for p, d in zip(spec.positions, diff)},
+                bool(end + tail_s <= window_end_s),
+            )
+        )
+    return costs
+
+
+@dataclass(frozen=True)
+class DayGrowth:
+    position: str  # the position with the most excess (the one reported)
+    baseline_um: float  # growth over the day had the air held the setpoint all day
+    excess_um: float  # recorded day against the all-setpoint day, at the window end
+    by_cause_um: dict[str, float]  # summed event costs per kind
+    unattributed_um: float
+    costs: list[EventCost]
+
+
+def day_growth(
+    spec: Spec, start: State, t_s, air_c, setpoint_c: float, day_start_s: float, day_end_s: float, events: list[Event]
+) -> DayGrowth:
+    """One day's growth split into the baseline at setpoint and the excess by cause.
+
+    `start` lies at or before day_start_s; the history runs past day_end_s into the recovery
+    tail. Rows: 0 as recorded; 1 with the air at the setpoint for the whole day; then one row per
+    event of the day with only that event removed. The baseline is row 1's growth over the day;
+    the excess and the event costs are compared at the end of the history.
+    """
+    t = np.asarray(t_s, float)
+    air = np.asarray(air_c, float)
+    before, during = t <= day_start_s, t > day_start_s
+    state = start
+    if before.any():
+        state, _ = advance(spec, start, t[before], air[None, before])
+    mean_start = outputs(spec, state)["mean_diameter_um"][0]
+    t, air = t[during], air[during]
+    rows = _without(events, t, air, state.t_s, setpoint_c, first_row=2)
+    prev = np.concatenate(([state.t_s], t[:-1]))
+    rows[1, (t > day_start_s) & (prev < day_end_s)] = setpoint_c
+    state = tile_state(state, rows.shape[0])
+    first = t <= day_end_s
+    state, _ = advance(spec, state, t[first], rows[:, first])
+    mean_day_end = outputs(spec, state)["mean_diameter_um"]
+    if (~first).any():
+        state, _ = advance(spec, state, t[~first], rows[:, ~first])
+    mean = outputs(spec, state)["mean_diameter_um"]
+    excess = mean[0] - mean[1]
+    worst = int(np.nanargmax(excess))
+    costs = _costs(spec, np.delete(mean, 1, axis=0), events, 1, t[-1], 0.0)
+    by_cause: dict[str, float] = {}
+    for c in costs:
+        by_cause[c.event.kind] = by_cause.get(c.event.kind, 0.0) + c.excess_by_position_um[spec.positions[worst].name]
+    return DayGrowth(
+        position=spec.positions[worst].name,
+        baseline_um=float(mean_day_end[1, worst] - mean_start[worst]),
+        excess_um=float(excess[worst]),
+        by_cause_um=by_cause,
+        unattributed_um=float(excess[worst] - sum(by_cause.values())),
+        costs=costs,
+    )
+
+
 def default_tail_s(spec: Spec) -> float:
     taus = [p.tau_s for p in spec.positions if not p.probe]
     return 3.0 * max(taus) if taus else 3600.0
@@ -47,33 +135,10 @@ def attribute(
     t = np.asarray(t_s, float)
     air = np.asarray(air_c, float)
     tail = default_tail_s(spec) if tail_s is None else tail_s
-    rows = len(events) + 1
-    air_rows = np.repeat(air[None, :], rows, axis=0)
-    # A sample at t_k holds until t_{k+1}: replace every sample whose hold overlaps the event.
-    prev = np.concatenate(([start.t_s], t[:-1]))
-    for k, e in enumerate(events, start=1):
-        end = e.end_s if e.end_s is not None else t[-1]
-        air_rows[k, (t > e.start_s) & (prev < end)] = setpoint_c
-    state, _ = advance(spec, tile_state(start, rows), t, air_rows)
+    air_rows = _without(events, t, air, start.t_s, setpoint_c, first_row=1)
+    state, _ = advance(spec, tile_state(start, len(events) + 1), t, air_rows)
     out = outputs(spec, state)
-    mean = out["mean_diameter_um"]  # (rows, P), settled
-    l0, lim = spec.profile.initial.mean_diameter_um, spec.profile.limit_mean_diameter_um
-    span = lim**3 - l0**3
-    costs = []
-    for k, e in enumerate(events, start=1):
-        diff = mean[0] - mean[k]
-        share = 100.0 * (mean[0] ** 3 - mean[k] ** 3) / span
-        worst = int(np.nanargmax(share))
-        end = e.end_s if e.end_s is not None else t[-1]
-        costs.append(
-            EventCost(
-                e,
-                float(diff[worst]),
-                float(share[worst]),
-                {p.name: float(d) for p, d in zip(spec.positions, diff)},
-                bool(end + tail <= t[-1]),
-            )
-        )
+    costs = _costs(spec, out["mean_diameter_um"], events, 1, t[-1], tail)
     worst = int(np.nanargmax(out["excess_growth_um"][0]))
     total = float(out["excess_growth_um"][0, worst])
     attributed = float(sum(c.excess_by_position_um[spec.positions[worst].name] for c in costs))

@@ -20,6 +20,8 @@ import sqlite_utils
 from sqlite_utils.migrations import Migrations
 
 from watcher.errors import WatcherError
+from watcher.store.alert_rows import AlertRows, EventRows
+from watcher.store.outbox import OutboxRows
 
 BUSY_TIMEOUT_MS = 30_000
 PAYLOAD_KEEP_BYTES = 512
@@ -96,6 +98,48 @@ def m003_outbox(db: sqlite_utils.Database) -> None:
     )
 
 
+@migrations()
+def m004_alerts(db: sqlite_utils.Database) -> None:
+    db.executescript(
+        """
+        ALTER TABLE outbox ADD COLUMN channel TEXT;
+        ALTER TABLE outbox ADD COLUMN dedupe TEXT;
+        ALTER TABLE outbox ADD COLUMN alert_id INTEGER;
+        ALTER TABLE outbox ADD COLUMN attach TEXT;
+        ALTER TABLE outbox ADD COLUMN maybe_repeat INTEGER NOT NULL DEFAULT 0;
+        CREATE UNIQUE INDEX outbox_dedupe ON outbox(dedupe);
+        CREATE UNIQUE INDEX events_key ON events(zone, kind, start_ts);
+        CREATE TABLE alerts (
+            id INTEGER PRIMARY KEY, zone TEXT NOT NULL, rule TEXT NOT NULL, severity TEXT NOT NULL,
+            label TEXT NOT NULL, metric TEXT NOT NULL, threshold REAL NOT NULL, status TEXT NOT NULL,
+            since_s REAL, raised_s REAL NOT NULL, value REAL, worst_value REAL, acked_s REAL, acked_by TEXT,
+            ack_note TEXT, cleared_s REAL, escalated_s REAL, repeats INTEGER NOT NULL DEFAULT 0
+        );
+        CREATE INDEX alerts_status ON alerts(status);
+        CREATE TABLE alert_log (
+            id INTEGER PRIMARY KEY, alert_id INTEGER NOT NULL, step TEXT NOT NULL, at_s REAL NOT NULL,
+            wall_s REAL NOT NULL, value REAL, by TEXT, note TEXT
+        );
+        CREATE INDEX alert_log_alert ON alert_log(alert_id);
+        CREATE TABLE alert_state (zone TEXT NOT NULL, rule TEXT NOT NULL, state TEXT NOT NULL, PRIMARY KEY (zone, rule));
+        CREATE TABLE alert_commands (
+            id INTEGER PRIMARY KEY, alert_id INTEGER NOT NULL, by TEXT NOT NULL, note TEXT, source TEXT NOT NULL,
+            sender TEXT, received_s REAL NOT NULL, done_s REAL, result TEXT
+        );
+        CREATE TABLE zone_snapshots (
+            zone TEXT NOT NULL, t_s REAL NOT NULL, spec_key TEXT NOT NULL, state BLOB NOT NULL, PRIMARY KEY (zone, t_s)
+        );
+        CREATE TABLE zone_marks (zone TEXT NOT NULL, mark TEXT NOT NULL, value REAL, PRIMARY KEY (zone, mark));
+        CREATE TABLE daily_growth (
+            zone TEXT NOT NULL, day TEXT NOT NULL, position TEXT NOT NULL, start_s REAL NOT NULL, end_s REAL NOT NULL,
+            baseline_um REAL NOT NULL, defrost_um REAL NOT NULL, door_um REAL NOT NULL, excursion_um REAL NOT NULL,
+            unattributed_um REAL NOT NULL, total_excess_um REAL NOT NULL, events INTEGER NOT NULL,
+            PRIMARY KEY (zone, day)
+        );
+        """
+    )
+
+
 @dataclass
 class ZoneRow:
     zone: str
@@ -133,7 +177,7 @@ def _connect(path: str, readonly: bool) -> sqlite3.Connection:
     return conn
 
 
-class Store:
+class Store(OutboxRows, AlertRows, EventRows):
     """The writer's handle (or, with readonly=True, a reader's)."""
 
     def __init__(self, path: str, readonly: bool = False):
@@ -233,28 +277,6 @@ class Store:
             (zone, upto_ts),
         )
         return self.conn.execute("DELETE FROM readings WHERE zone = ? AND ts <= ?", (zone, upto_ts)).rowcount
-
-    def outbox_add(self, title: str, body: str, tags: list[str], now_s: float) -> int:
-        cur = self.conn.execute(
-            "INSERT INTO outbox (created_s, tags, title, body, next_try_s) VALUES (?,?,?,?,?)",
-            (now_s, json.dumps(sorted(tags)), title, body, now_s),
-        )
-        return int(cur.lastrowid)
-
-    def outbox_due(self, now_s: float, limit: int = 50) -> list[tuple]:
-        """(id, title, body, tags, attempts) of pending messages due now, oldest first."""
-        rows = self.conn.execute(
-            "SELECT id, title, body, tags, attempts FROM outbox WHERE status = 'pending' AND next_try_s <= ? ORDER BY id LIMIT ?",
-            (now_s, limit),
-        ).fetchall()
-        return [(r[0], r[1], r[2], json.loads(r[3]), r[4]) for r in rows]
-
-    def outbox_record(self, row_id: int, status: str, result: str, log: str, now_s: float, next_try_s: float) -> None:
-        self.conn.execute(
-            "UPDATE outbox SET status = ?, attempts = attempts + 1, last_result = ?, last_log = ?, next_try_s = ?, "
-            "sent_s = CASE WHEN ? = 'sent' THEN ? ELSE sent_s END WHERE id = ?",
-            (status, result, log, next_try_s, status, now_s, row_id),
-        )
 
     # --- reading -------------------------------------------------------------------------
     def anchor(self, zone: str) -> tuple | None:

@@ -1,0 +1,325 @@
+"""Events, observations and alerts for the engine's zones.
+
+Runs inside the writer's transactions, so an alert, its log entry and its outbox messages are
+committed together with the readings that caused them, or not at all. Zone rules are judged on
+the zone's data time (its newest reading), so durations are right in a replay and with sensor
+clocks that lag; data rules (staleness, broker, rejections, delivery, storage) on the service's
+own clock, from `tick`, which runs even when no message arrives.
+"""
+
+from __future__ import annotations
+
+import json
+import logging
+import math
+from dataclasses import asdict, dataclass, field, replace
+
+from watcher.alerts import messages
+from watcher.alerts.delivery import route
+from watcher.alerts.policy import WALL_CLOCK_METRICS, AlertState, Rule, acknowledge, evaluate
+from watcher.config import Config
+from watcher.engine.analysis import CONTEXT_S, analyse, take_snapshot
+from watcher.engine.zones import ZoneRunner, spec_key
+from watcher.errors import InputError
+from watcher.store.db import Store
+
+log = logging.getLogger("watcher.alerts")
+SERVICE = "service"  # the zone id of service-wide alerts
+FORGET_SENSOR_S = 2 * 86400.0  # a sensor silent this long no longer counts for staleness
+MAX_NAME = 64
+MAX_NOTE = 500
+
+
+@dataclass
+class Live:
+    """What a zone's rules need between analyses: switches, receive times, last costs."""
+
+    switches: dict = field(default_factory=dict)  # (signal, sensor) -> [last_ts, value, since_ts]
+    received: dict = field(default_factory=dict)  # sensor -> wall time of its newest reading
+    figures: dict | None = None
+    defrosts_today: int | None = None
+    event_cost: tuple[float, float] | None = None  # (budget share %, excess um) of the latest costed event
+    snapshot_ts: float = -math.inf
+    analysed_ts: float = -math.inf
+
+    def switch(self, signal: str, sensor: str, ts: float, value: float) -> None:
+        cur = self.switches.get((signal, sensor))
+        if cur is not None and ts < cur[0]:
+            return  # an older reading; the analysis sorts the record out
+        was_on = cur is not None and cur[1] >= 0.5
+        since = cur[2] if was_on and value >= 0.5 else ts
+        self.switches[(signal, sensor)] = [ts, value, since]
+
+    def on_for(self, signal: str, now_s: float) -> float | None:
+        """Seconds the longest-running 'on' switch of this signal has been on; None without sensors."""
+        states = [v for (sig, _), v in self.switches.items() if sig == signal]
+        if not states:
+            return None
+        return max((now_s - since for _, value, since in states if value >= 0.5), default=0.0)
+
+
+def _state_from(d: dict) -> AlertState:
+    return AlertState(**{k: v for k, v in d.items() if k in AlertState.__dataclass_fields__})
+
+
+def _comparable(st: AlertState) -> AlertState:
+    return replace(st, value=None)
+
+
+def parse_ack(payload: bytes) -> tuple[int, str, str | None]:
+    """An acknowledgement command: {"alert": 12, "by": "name", "note": "optional"}."""
+    try:
+        data = json.loads(payload.decode("utf-8"))
+    except (UnicodeDecodeError, json.JSONDecodeError) as exc:
+        raise InputError("ack command", payload[:80], f'JSON like {{"alert": 12, "by": "name"}} ({exc})') from None
+    if not isinstance(data, dict):
+        raise InputError("ack command", data, "a JSON object")
+    alert, by, note = data.get("alert"), data.get("by"), data.get("note")
+    if not isinstance(alert, int) or isinstance(alert, bool) or alert < 1:
+        raise InputError("ack command: alert", alert, "a positive alert id")
+    if not isinstance(by, str) or not by.strip() or len(by) > MAX_NAME:
+        raise InputError("ack command: by", by, f"the name of who acknowledges (1-{MAX_NAME} characters)")
+    if note is not None and (not isinstance(note, str) or len(note) > MAX_NOTE):
+        raise InputError("ack command: note", note, f"text of at most {MAX_NOTE} characters")
+    return alert, by.strip(), note
+
+
+class Monitor:
+    def __init__(self, config: Config, store: Store):
+        self.config = config
+        self.store = store
+        self.rules = list(config.alerting.rules)
+        ids = {r.id for r in self.rules}
+        self.states = {k: _state_from(d) for k, d in store.alert_states().items() if k[1] in ids}
+        self.live = {z.id: Live() for z in config.zones}
+        marks = store.marks()
+        for zid, lz in self.live.items():
+            for sensor, signal, ts, value, since in store.switch_state(zid):
+                lz.switches[(signal, sensor)] = [ts, value, since]
+            lz.received = store.last_received(zid)
+            lz.analysed_ts = marks.get((zid, "analysed_ts"), -math.inf)
+            lz.snapshot_ts = marks.get((zid, "snapshot_ts"), -math.inf)
+        self.broker_down_since: float | None = None
+        self.commit_failing_since: float | None = None
+
+    # --- intake ---------------------------------------------------------------------------
+    def observe(self, reading, received_ts: float) -> None:
+        lz = self.live[reading.zone]
+        lz.received[reading.sensor] = max(received_ts, lz.received.get(reading.sensor, -math.inf))
+        if reading.signal in ("door", "defrost"):
+            lz.switch(reading.signal, reading.sensor, reading.ts, reading.value)
+
+    def command(self, payload: bytes, received_s: float, source: str = "mqtt", sender: str | None = None) -> None:
+        """Queue an acknowledgement (applied by apply_commands); raises InputError if malformed."""
+        alert_id, by, note = parse_ack(payload)
+        self.store.command_add(alert_id, by, note, source, sender, received_s)
+
+    # --- per zone, after each batch that touched it -------------------------------------------
+    def zone_step(self, runner: ZoneRunner, figures: dict | None, checkpointed: bool, wall_s: float) -> None:
+        zid = runner.zone.id
+        lz = self.live[zid]
+        if figures is not None:
+            lz.figures = figures
+        if checkpointed and runner.state is not None:
+            self._analyse(runner, lz)
+        if runner.last_ts is None:
+            return
+        rules = [r for r in self.rules if r.metric not in WALL_CLOCK_METRICS]
+        self._evaluate(rules, zid, self.zone_observations(runner, lz), runner.last_ts, wall_s)
+
+    def _analyse(self, runner: ZoneRunner, lz: Live) -> None:
+        zid, key = runner.zone.id, spec_key(runner.zone)
+        snap = take_snapshot(self.store, zid, key, runner.state, lz.snapshot_ts)
+        if snap != lz.snapshot_ts:
+            lz.snapshot_ts = snap
+            self.store.set_mark(zid, "snapshot_ts", snap)
+        fed = runner.fed_ts
+        if fed - lz.analysed_ts < self.config.events.analyse_every_s:
+            return
+        start = lz.analysed_ts - CONTEXT_S if math.isfinite(lz.analysed_ts) else fed - 400 * 86400.0
+        found = analyse(
+            self.store,
+            runner.zone,
+            runner.spec,
+            key,
+            self.config.site_of(zid).timezone,
+            self.config.events,
+            start,
+            fed,
+        )
+        lz.analysed_ts = fed
+        self.store.set_mark(zid, "analysed_ts", fed)
+        lz.defrosts_today = found.defrosts_today
+        if found.costed:
+            lz.event_cost = (
+                max(e["budget_share_pct"] for e in found.costed),
+                max(e["excess_um"] for e in found.costed),
+            )
+
+    def forget_after(self, zone_id: str, ts: float) -> None:
+        """A late reading at ts changed the zone's past: snapshots from then on no longer hold."""
+        self.store.snapshots_drop(zone_id, after_ts=ts)
+        lz = self.live[zone_id]
+        lz.snapshot_ts = min(lz.snapshot_ts, ts - 1.0)
+        lz.analysed_ts = min(lz.analysed_ts, ts - 1.0)
+
+    def zone_observations(self, runner: ZoneRunner, lz: Live) -> dict:
+        now = runner.last_ts
+        f = lz.figures or {}
+        fresh = [v for t, v in runner.air.values() if runner.air and now - t <= runner.max_gap]
+        return {
+            "budget_used_pct": f.get("budget_used_pct"),
+            "days_to_limit": f.get("days_to_limit"),
+            "product_c": f.get("product_c"),
+            "air_c": runner.last_air_c,
+            "door_open_s": lz.on_for("door", now),
+            "defrost_s": lz.on_for("defrost", now),
+            "defrosts_today": lz.defrosts_today,
+            "sensor_spread_k": max(fresh) - min(fresh) if len(fresh) >= 2 else None,
+            "event_budget_share_pct": None if lz.event_cost is None else lz.event_cost[0],
+            "event_excess_um": None if lz.event_cost is None else lz.event_cost[1],
+        }
+
+    # --- on the service's clock ------------------------------------------------------------------
+    def tick(self, wall_s: float, broker_connected: bool, commit_ok: bool) -> None:
+        """Apply queued acknowledgements; judge the data rules. Call inside a transaction."""
+        self.apply_commands(wall_s)
+        if broker_connected:
+            self.broker_down_since = None
+        elif self.broker_down_since is None:
+            self.broker_down_since = wall_s
+        if commit_ok:
+            self.commit_failing_since = None
+        elif self.commit_failing_since is None:
+            self.commit_failing_since = wall_s
+        rules = [r for r in self.rules if r.metric in WALL_CLOCK_METRICS]
+        for zid, lz in self.live.items():
+            ages = [wall_s - t for t in lz.received.values() if wall_s - t < FORGET_SENSOR_S]
+            self._evaluate(rules, zid, {"reading_age_s": max(ages) if ages else None}, wall_s, wall_s)
+        failing = self.store.failing_channels()
+        service = {
+            "broker_down_s": 0.0 if self.broker_down_since is None else wall_s - self.broker_down_since,
+            "commit_failing_s": 0.0 if self.commit_failing_since is None else wall_s - self.commit_failing_since,
+            "rejections_per_h": float(self.store.rejections_since(wall_s - 3600.0)),
+            "undelivered_s": max((wall_s - t for t in failing.values()), default=0.0),
+        }
+        self._evaluate(rules, SERVICE, service, wall_s, wall_s)
+
+    # --- lifecycle ---------------------------------------------------------------------------------
+    def _evaluate(self, rules: list[Rule], zone: str, obs: dict, now_s: float, wall_s: float) -> None:
+        a = self.config.alerting
+        new, actions = evaluate(rules, zone, obs, now_s, self.states, a.repeat_s, a.escalate_s)
+        for key, st in new.items():
+            if _comparable(st) != _comparable(self.states.get(key, AlertState(*key))):
+                self.states[key] = st
+                self.store.save_alert_state(*key, asdict(st))
+        by_id = {r.id: r for r in rules}
+        for act in actions:
+            self._act(act, by_id[act.rule], obs, wall_s)
+
+    def _act(self, act, rule: Rule, obs: dict, wall_s: float) -> None:
+        key = (act.zone, act.rule)
+        st = self.states[key]
+        if act.kind == "raise":
+            alert_id = self.store.alert_insert(
+                zone=act.zone,
+                rule=rule.id,
+                severity=rule.severity,
+                label=rule.label,
+                metric=rule.metric,
+                threshold=rule.threshold,
+                status="open",
+                since_s=st.since_s,
+                raised_s=act.at_s,
+                value=act.value,
+                worst_value=act.value,
+            )
+            st = replace(st, alert_id=alert_id)
+            self.states[key] = st
+            self.store.save_alert_state(*key, asdict(st))
+            log.warning("alert %d raised: zone %s, %s (%s)", alert_id, act.zone, rule.label, act.value)
+        alert_id = st.alert_id if act.kind != "clear" else self._cleared_id(key)
+        if alert_id is None:
+            return
+        alert = self.store.alert_get(alert_id)
+        worst = alert["worst_value"] if alert["worst_value"] is not None else act.value
+        worst = max(worst, act.value) if rule.op == ">=" else min(worst, act.value)
+        fields = {"value": act.value, "worst_value": worst}
+        n = 0
+        if act.kind == "repeat":
+            n = alert["repeats"] + 1
+            fields["repeats"] = n
+        elif act.kind == "escalate":
+            fields["escalated_s"] = act.at_s
+        elif act.kind == "clear":
+            fields.update(status="cleared", cleared_s=act.at_s)
+            log.info("alert %d cleared: zone %s, %s", alert_id, act.zone, rule.label)
+        self.store.alert_update(alert_id, **fields)
+        self.store.alert_log_add(alert_id, act.kind, act.at_s, wall_s, act.value)
+        self._notify(act.kind, {**alert, **fields, "op": rule.op}, wall_s, n)
+
+    def _cleared_id(self, key) -> int | None:
+        """The alert id a clear refers to (the policy has already reset the state)."""
+        row = self.store.conn.execute(
+            "SELECT id FROM alerts WHERE zone = ? AND rule = ? AND status IN ('open', 'acknowledged') "
+            "ORDER BY id DESC LIMIT 1",
+            key,
+        ).fetchone()
+        return None if row is None else row[0]
+
+    def _notify(self, kind: str, alert: dict, wall_s: float, n: int = 0, by=None, note=None) -> None:
+        zone = self.config.zone(alert["zone"])
+        zone_name = zone.name if zone else "watcher service"
+        site = self.config.site_of(alert["zone"]) if zone else (self.config.sites[0] if self.config.sites else None)
+        tz = site.timezone if site else "UTC"
+        place = f"{site.name or site.id} - {zone_name}" if site else zone_name
+        lz = self.live.get(alert["zone"])
+        events = []
+        if zone is not None and lz is not None:
+            events = self.store.events_for(zone.id, (lz.figures or {}).get("model_time_s", wall_s) - 86400.0)
+        tags = ["escalation"] if kind == "escalate" else ["alerts", alert["severity"], f"zone:{alert['zone']}"]
+        exclude = set(self.store.failing_channels()) if alert["metric"] == "undelivered_s" else set()
+        self.store.outbox_add(
+            messages.title(kind, alert, zone_name, n),
+            messages.body(
+                kind,
+                alert,
+                place,
+                tz,
+                lz.figures if lz else None,
+                events,
+                self.config.broker.ack_topic,
+                zone.profile.limit_mean_diameter_um if zone else None,
+                by,
+                note,
+            ),
+            tags,
+            wall_s,
+            route(list(self.config.channels), tags, exclude),
+            dedupe=f"alert:{alert['id']}:{kind}:{n}",
+            alert_id=alert["id"],
+        )
+
+    # --- acknowledgements --------------------------------------------------------------------------
+    def apply_commands(self, wall_s: float) -> None:
+        for cmd_id, alert_id, by, note, source, sender in self.store.commands_pending():
+            self.store.command_done(cmd_id, wall_s, self._ack(alert_id, by, note, source, sender, wall_s))
+
+    def _ack(self, alert_id: int, by: str, note, source: str, sender, wall_s: float) -> str:
+        alert = self.store.alert_get(alert_id)
+        if alert is None:
+            return f"refused: no alert {alert_id}"
+        if alert["status"] != "open":
+            return f"refused: alert {alert_id} is {alert['status']}"
+        key = (alert["zone"], alert["rule"])
+        try:
+            self.states = acknowledge(self.states, *key, by, wall_s)
+        except KeyError:
+            return f"refused: alert {alert_id} is not open in the running service"
+        self.store.save_alert_state(*key, asdict(self.states[key]))
+        self.store.alert_update(alert_id, status="acknowledged", acked_s=wall_s, acked_by=by, ack_note=note)
+        via = f"via {source}" + (f" from {sender}" if sender else "")
+        self.store.alert_log_add(alert_id, "ack", wall_s, wall_s, None, by, f"{via}: {note}" if note else via)
+        log.info("alert %d acknowledged by %s (%s)", alert_id, by, via)
+        self._notify("ack", {**alert, "acked_s": wall_s}, wall_s, by=by, note=note)
+        return "acknowledged"

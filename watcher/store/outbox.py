@@ -1,0 +1,86 @@
+"""Outbox rows: one row per (notification, channel), so a retry reaches only the channel that
+failed. A dedupe key (unique) makes enqueueing idempotent: whatever re-runs after a crash, the
+same notification is stored once. A row is marked `sending` (committed) before the send; a row
+found `sending` at start-up was cut off mid-send and goes out again, marked as a possible repeat.
+"""
+
+from __future__ import annotations
+
+import json
+
+
+class OutboxRows:
+    conn = None  # set by Store
+
+    def outbox_add(
+        self,
+        title: str,
+        body: str,
+        tags: list[str],
+        now_s: float,
+        channels: list[str | None] = (None,),
+        dedupe: str | None = None,
+        alert_id: int | None = None,
+        attach: str | None = None,
+    ) -> int:
+        """Store the message once per channel (None: no channel takes it, kept as `unrouted`).
+        Returns the number of rows added (0 when the dedupe key was seen before)."""
+        added = 0
+        for ch in channels:
+            key = None if dedupe is None else f"{dedupe}@{ch or '-'}"
+            cur = self.conn.execute(
+                "INSERT OR IGNORE INTO outbox (created_s, tags, title, body, next_try_s, channel, dedupe, alert_id, "
+                "attach, status) VALUES (?,?,?,?,?,?,?,?,?,?)",
+                (
+                    now_s,
+                    json.dumps(sorted(tags)),
+                    title,
+                    body,
+                    now_s,
+                    ch,
+                    key,
+                    alert_id,
+                    attach,
+                    "pending" if ch else "unrouted",
+                ),
+            )
+            added += cur.rowcount
+        return added
+
+    def outbox_due(self, now_s: float, limit: int = 50) -> list[tuple]:
+        """(id, channel, title, body, attempts, attach, maybe_repeat) of pending rows due now, oldest first."""
+        return self.conn.execute(
+            "SELECT id, channel, title, body, attempts, attach, maybe_repeat FROM outbox "
+            "WHERE status = 'pending' AND next_try_s <= ? ORDER BY id LIMIT ?",
+            (now_s, limit),
+        ).fetchall()
+
+    def outbox_mark_sending(self, row_id: int) -> None:
+        self.conn.execute("UPDATE outbox SET status = 'sending' WHERE id = ?", (row_id,))
+
+    def outbox_recover(self) -> int:
+        """Rows cut off mid-send by a crash go out again, flagged as possible repeats."""
+        return self.conn.execute(
+            "UPDATE outbox SET status = 'pending', maybe_repeat = 1 WHERE status = 'sending'"
+        ).rowcount
+
+    def outbox_record(self, row_id: int, status: str, result: str, log: str, now_s: float, next_try_s: float) -> None:
+        self.conn.execute(
+            "UPDATE outbox SET status = ?, attempts = attempts + 1, last_result = ?, last_log = ?, next_try_s = ?, "
+            "sent_s = CASE WHEN ? = 'sent' THEN ? ELSE sent_s END WHERE id = ?",
+            (status, result, log, next_try_s, status, now_s, row_id),
+        )
+        if status == "sent":  # the alert's own record shows each channel it reached
+            self.conn.execute(
+                "INSERT INTO alert_log (alert_id, step, at_s, wall_s, note) SELECT alert_id, 'sent', ?, ?, channel "
+                "FROM outbox WHERE id = ? AND alert_id IS NOT NULL",
+                (now_s, now_s, row_id),
+            )
+
+    def failing_channels(self) -> dict[str, float]:
+        """Channels with a message still pending after a failed attempt: name -> oldest created_s."""
+        rows = self.conn.execute(
+            "SELECT channel, min(created_s) FROM outbox WHERE status = 'pending' AND attempts > 0 "
+            "AND channel IS NOT NULL GROUP BY channel"
+        )
+        return {r[0]: r[1] for r in rows}
