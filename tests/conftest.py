@@ -1,10 +1,12 @@
-"""Shared helpers for the model tests: run air histories through the one integrator."""
+"""Shared fixtures: the shipped profile, model histories, and a real broker per test."""
 
 from __future__ import annotations
 
 import numpy as np
 import pytest
 
+from tests.broker import Broker
+from tests.service_harness import RUNNING
 from watcher.files.profiles import load_profile
 from watcher.model.integrator import Spec, advance, new_state, outputs
 
@@ -40,3 +42,16 @@ def pytest_terminal_summary(terminalreporter):
         terminalreporter.section("event detection rates (synthetic series, tests/test_events.py)")
         for label, det, false in _RATES:
             terminalreporter.write_line(f"{label}: detection {100 * det:.0f} %, false alarms {false:.2f} per day")
+
+
+@pytest.fixture()
+def broker(tmp_path):
+    b = Broker(tmp_path)
+    b.start()
+    yield b
+    for proc in RUNNING:  # never leave a watcher behind, whatever the test did
+        if proc.poll() is None:
+            proc.kill()
+            proc.wait(10)
+    RUNNING.clear()
+    b.stop()

@@ -67,6 +67,13 @@ def test_config_example_is_valid(tmp_path):
     data["broker"]["password_file"] = str(tmp_path / "pw")
     data["broker"]["tls"]["ca_file"] = str(make_ca(tmp_path)["ca"])
     data["storage"]["path"] = str(tmp_path / "w.db")
+    (tmp_path / "mail.url").write_text("mailto://user:pw@smtp.kestrel.example/?to=qa@kestrel.example\n")
+    data["notify"][0]["url_file"] = str(tmp_path / "mail.url")
+    data["notify"][1] = {k: v for k, v in data["notify"][1].items() if k != "url_credential"}
+    data["notify"][1]["url_file"] = str(tmp_path / "mail.url")
     cfg = config_from_dict(data, "config.example.toml")
+    assert [c.name for c in cfg.channels] == ["qa-mail", "night-chat"]
+    assert {r.id for r in cfg.alerting.rules} >= {"door-open", "core-benchmark", "budget-80"}
+    assert "defrosts-per-day" not in {r.id for r in cfg.alerting.rules}
     assert [z.id for z in cfg.zones] == ["hardening", "bulk-a", "dispatch"]
     assert {s.signal for s in cfg.sources} == {"air_c", "product_c", "door", "defrost"}

@@ -16,7 +16,6 @@ import pytest
 
 from tests.broker import Broker
 from tests.service_harness import (
-    RUNNING,
     T0,
     Publisher,
     WatcherProcess,
@@ -33,19 +32,6 @@ from watcher.simulation import simulate
 from watcher.store.db import Store
 
 ZONES = ("bulk-a", "dispatch")
-
-
-@pytest.fixture()
-def broker(tmp_path):
-    b = Broker(tmp_path)
-    b.start()
-    yield b
-    for proc in RUNNING:  # never leave a watcher behind, whatever the test did
-        if proc.poll() is None:
-            proc.kill()
-            proc.wait(10)
-    RUNNING.clear()
-    b.stop()
 
 
 def start_watcher(tmp_path, broker, **config_kw):
@@ -198,7 +184,7 @@ def test_tls_health_metrics_and_status_topic(tmp_path, broker):
     Publisher(broker).send(messages(ZONES, 0, 50) + [("kp/bulk-a/s1/air", b"{oops")])
     wait_for(lambda: readings_count(tmp_path / "watcher.db") == 100, what="readings over TLS")
     code, body = w.get("/healthz")
-    assert code == 200 and json.loads(body)["threads"] == {"writer": True, "mqtt": True}
+    assert code == 200 and json.loads(body)["threads"] == {"writer": True, "mqtt": True, "deliverer": True}
     wait_for(lambda: b"invalid_JSON" in w.get("/metrics")[1], timeout=20, what="the rejection in the metrics")
     code, body = w.get("/metrics")
     text = body.decode()

@@ -308,21 +308,26 @@ def run(config_path, log_level) -> None:
     sys.exit(Service(cfg).run_forever())
 
 
+def db_options(func):
+    """--config / --db for the commands that read (or queue into) the service's database."""
+    func = click.option(
+        "--db",
+        "db_path",
+        default=None,
+        type=click.Path(dir_okay=False),
+        help="Database file (default: from --config, else $STATE_DIRECTORY/watcher.db or ./watcher.db).",
+    )(func)
+    return click.option(
+        "--config",
+        "config_path",
+        default=None,
+        type=click.Path(dir_okay=False),
+        help="Take the database path from this configuration.",
+    )(func)
+
+
 @main.command()
-@click.option(
-    "--config",
-    "config_path",
-    default=None,
-    type=click.Path(dir_okay=False),
-    help="Take the database path from this configuration.",
-)
-@click.option(
-    "--db",
-    "db_path",
-    default=None,
-    type=click.Path(dir_okay=False),
-    help="Database file (default: from --config, else $STATE_DIRECTORY/watcher.db or ./watcher.db).",
-)
+@db_options
 @click.option("--json", "as_json", is_flag=True, help="Print JSON.")
 def status(config_path, db_path, as_json) -> None:
     """Show each zone's temperatures, crystal size, budget and data freshness (read-only)."""
@@ -356,6 +361,14 @@ def status(config_path, db_path, as_json) -> None:
             f"{_fmt(z['budget_used_pct'], '9.1f'):>9} {_fmt(z['days_to_limit'], '9.1f', days_none):>9} {age_txt:>13} {z['readings_total']:>9}  {data}"
         )
     click.echo(f"Rejected messages stored: {report['rejections_total']}; data gaps recorded: {report['gaps_total']}.")
+    alerts = report["open_alerts"]
+    if alerts:
+        click.echo(f"Open alerts ({len(alerts)}; `watcher alerts --open` for more):")
+        for a in alerts[:10]:
+            ack = f", acknowledged by {a['acked_by']}" if a["acked_by"] else ""
+            click.echo(f"  {a['id']:>5} {a['severity']:<8} {a['zone']:<12} {a['label']}{ack}")
+    else:
+        click.echo("No open alerts.")
     from watcher.simulation import CAUTION
 
     click.echo(CAUTION)
@@ -373,3 +386,6 @@ def replay(config_path, readings_path) -> None:
     counts = replay_file(cfg, readings_path, progress=click.progressbar)
     click.echo(", ".join(f"{k}: {v}" for k, v in sorted(counts.items())) or "nothing to replay")
     click.echo(f"Database {cfg.storage.path}; see `watcher status --config {config_path}`.")
+
+
+from watcher import cli_alerts  # noqa: E402,F401  (registers ack, alerts, test-notify)

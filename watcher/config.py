@@ -16,6 +16,7 @@ from pathlib import Path
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
 from watcher.alerts.delivery import Channel, usable
+from watcher.alerts.messages import auto_label
 from watcher.alerts.policy import METRICS, SEVERITIES, Rule, default_rules
 from watcher.errors import ConfigError, ProfileError
 from watcher.events.detect import DefrostShape
@@ -93,6 +94,7 @@ class Zone:
 class Alerting:
     repeat_s: float = 3600.0
     escalate_s: float = 1800.0
+    retry_first_s: float = 30.0
     rules: tuple[Rule, ...] = tuple(default_rules())
 
 
@@ -386,22 +388,34 @@ def _alerting(r: _Reader, zone_ids: set[str]) -> Alerting:
             if z not in zone_ids:
                 rr.fail("zones", z, "ids of [[zones]]: " + ", ".join(sorted(zone_ids)))
         for_min = rr.number("for_min", base.for_s / 60.0 if base else 0.0, 0.0, 7 * 1440.0)
+        hysteresis = rr.number("hysteresis", base.hysteresis if base else 0.0, 0.0)
+        op = op or base.op
+        threshold = threshold if threshold is not None else base.threshold
+        if op == ">=" and metric not in ("air_c", "product_c") and hysteresis >= threshold:
+            rr.fail("hysteresis", hysteresis, f"less than the threshold {threshold:g}, or the alert could never clear")
+        unchanged = base is not None and (metric, op, threshold, for_min * 60.0) == (
+            base.metric,
+            base.op,
+            base.threshold,
+            base.for_s,
+        )
         rules[rid] = Rule(
             id=rid,
             metric=metric,
-            op=op or base.op,
-            threshold=threshold if threshold is not None else base.threshold,
+            op=op,
+            threshold=threshold,
             severity=severity,
             for_s=for_min * 60.0,
-            hysteresis=rr.number("hysteresis", base.hysteresis if base else 0.0, 0.0),
+            hysteresis=hysteresis,
             latch=metric == "budget_used_pct",  # texture damage does not heal
-            label=rr.text("label", base.label if base and metric == base.metric else f"{metric} {op} {threshold:g}"),
+            label=rr.text("label", base.label if unchanged else auto_label(metric, op, threshold, for_min * 60.0)),
             zones=zones,
         )
         rr.done()
     alerting = Alerting(
         repeat_s=r.number("repeat_min", 60.0, 1.0 / 60.0, 7 * 1440.0) * 60.0,
         escalate_s=r.number("escalate_min", 30.0, 1.0 / 60.0, 7 * 1440.0) * 60.0,
+        retry_first_s=r.number("retry_first_s", 30.0, 0.1, 3600.0),
         rules=tuple(rule for rid, rule in rules.items() if rid not in off),
     )
     r.done()
@@ -441,7 +455,7 @@ def _channels(root: _Reader) -> tuple[Channel, ...]:
             r.fail("tags", tags, "a non-empty list of tag names")
         if not usable(url):
             r.fail("url_file", "(not shown)", "a file holding one URL that apprise can use")
-        out.append(Channel(name, url, tuple(tags)))
+        out.append(Channel(name, url, tuple(tags), r.number("min_interval_s", None, 0.0, 3600.0)))
         r.done()
     names = [c.name for c in out]
     if len(set(names)) != len(names):

@@ -37,6 +37,9 @@ class Metrics:
             "watcher_commit_failures", "Batches whose commit failed and will be retried", registry=r
         )
         self.queue_depth = Gauge("watcher_queue_depth", "Messages received but not yet committed", registry=r)
+        self.notifications = Counter(
+            "watcher_notifications", "Notification attempts by outcome (sent, retried, failed)", ["outcome"], registry=r
+        )
         self.zone_figures: dict[str, dict] = {}
         self.zone_last_ts: dict[str, float] = {}
         r.register(_ZoneCollector(self))

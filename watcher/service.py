@@ -17,7 +17,9 @@ import signal
 import socket
 import threading
 import time
+from dataclasses import replace
 
+from watcher.alerts.delivery import Notifier, deliver_due
 from watcher.config import Config, load_config
 from watcher.engine.batch import Engine, Message
 from watcher.errors import WatcherError
@@ -27,6 +29,8 @@ from watcher.store.db import Store
 
 log = logging.getLogger("watcher.service")
 RETENTION_EVERY_S = 6 * 3600.0
+TICK_S = 1.0
+DELIVER_EVERY_S = 0.5
 
 
 def sd_notify(message: str) -> bool:
@@ -75,13 +79,14 @@ class Service:
         self._publish_zone_metrics()
         self.mqtt = MqttProcess(config.broker, self._filters(config), self.inbox, self._on_link)
         self.writer = threading.Thread(target=self._writer_loop, name="writer", daemon=True)
+        self.deliverer = threading.Thread(target=self._deliver_loop, name="deliverer", daemon=True)
         self.health: HealthServer | None = None
         if config.health.port:
             self.health = HealthServer(config.health.host, config.health.port, self.metrics, self.healthz, self.readyz)
 
     @staticmethod
     def _filters(config: Config) -> list[str]:
-        return sorted({s.pattern.filter for s in config.sources})
+        return sorted({s.pattern.filter for s in config.sources} | {config.broker.ack_topic})
 
     def _on_link(self, event: str, detail) -> None:
         if event == "connected":
@@ -89,7 +94,7 @@ class Service:
 
     # --- health --------------------------------------------------------------------------
     def healthz(self):
-        threads = {"writer": self.writer.is_alive(), "mqtt": self.mqtt.alive()}
+        threads = {"writer": self.writer.is_alive(), "mqtt": self.mqtt.alive(), "deliverer": self.deliverer.is_alive()}
         return all(threads.values()), {"threads": threads, "mqtt_callback_errors": self.mqtt.callback_errors}
 
     def readyz(self):
@@ -173,12 +178,24 @@ class Service:
         except Exception as exc:
             log.error("retention step failed (it runs again later): %s", exc)
 
+    def _tick(self) -> None:
+        """Acknowledgements and the data rules, on the service's clock."""
+        try:
+            with self.store.atomic():
+                self.engine.monitor.tick(time.time(), self.mqtt.connected.is_set(), self.db_ok)
+        except Exception as exc:
+            log.error("alert tick failed (it runs again in a second): %s", exc)
+
     def _writer_loop(self) -> None:
         next_retention = 0.0
+        next_tick = 0.0
         while True:
             if time.monotonic() >= next_retention:
                 self._retention()
                 next_retention = time.monotonic() + RETENTION_EVERY_S
+            if time.monotonic() >= next_tick:
+                self._tick()
+                next_tick = time.monotonic() + TICK_S
             self._apply_pending_config()
             batch = self._next_batch()
             self.metrics.queue_depth.set(len(self.inbox))
@@ -190,6 +207,31 @@ class Service:
             self.engine.checkpoint_all()
         except Exception as exc:
             log.error("final checkpoint failed (state will be rebuilt from stored readings): %s", exc)
+
+    # --- deliverer thread ------------------------------------------------------------------
+    def _deliver_loop(self) -> None:
+        """Send the outbox on its own database connection, apart from ingestion: a receiver
+        that hangs delays only other notifications, never readings."""
+        store = Store(self.config.storage.path)
+        with store.atomic():
+            again = store.outbox_recover()
+        if again:
+            log.warning("%d notifications were cut off by a restart mid-send; sending them again", again)
+        channels, notifier = None, None
+        while not self.stopping.is_set():
+            if self.config.channels != channels:
+                channels = self.config.channels
+                notifier = Notifier(list(channels))
+                for name, url in notifier.describe().items():
+                    log.info("notification channel %s: %s", name, url)
+            try:
+                counts = deliver_due(store, notifier, time.time(), retry_first_s=self.config.alerting.retry_first_s)
+                for kind, n in counts.items():
+                    self.metrics.notifications.labels(kind).inc(n)
+            except Exception as exc:
+                log.error("delivery step failed (retrying): %s", exc)
+            self.stopping.wait(DELIVER_EVERY_S)
+        store.close()
 
     # --- reload ----------------------------------------------------------------------------
     def request_reload(self) -> None:
@@ -210,9 +252,7 @@ class Service:
         if new is None:
             return
         self.engine.checkpoint_all()
-        new = Config(
-            new.path, self.config.broker, self.config.storage, new.ingest, new.health, new.sites, new.zones, new.sources
-        )
+        new = replace(new, broker=self.config.broker, storage=self.config.storage)
         self.engine = Engine(new, self.store, self.checkpoint_s)
         self.config = new
         self.mqtt.resubscribe(self._filters(new))
@@ -221,6 +261,7 @@ class Service:
     # --- lifecycle -------------------------------------------------------------------------
     def start(self) -> None:
         self.writer.start()
+        self.deliverer.start()
         self.mqtt.start()
         if self.health:
             self.health.start()
@@ -237,6 +278,7 @@ class Service:
         log.info("stopping: draining %d queued messages", len(self.inbox))
         self.stopping.set()
         self.writer.join(60.0)
+        self.deliverer.join(30.0)
         self.mqtt.stop()
         if self.health:
             self.health.stop()

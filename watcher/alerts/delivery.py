@@ -28,6 +28,7 @@ class Channel:
     name: str
     url: str = field(repr=False)
     tags: tuple[str, ...] = ("alerts",)
+    min_interval_s: float | None = None  # None: apprise's own spacing for the service (about 5.5 s)
 
 
 def route(channels: list[Channel], tags: list[str], exclude: set[str] = frozenset()) -> list[str | None]:
@@ -64,6 +65,9 @@ class Notifier:
             a = apprise.Apprise()
             if not a.add(ch.url):
                 raise ValueError(f"notification channel {ch.name} ({masked(ch.url)}): apprise cannot use this URL")
+            if ch.min_interval_s is not None:
+                for plugin in a:
+                    plugin.request_rate_per_sec = ch.min_interval_s  # apprise's name; it is seconds between sends
             self._apprise[ch.name] = a
 
     def describe(self) -> dict[str, str]:
@@ -82,7 +86,9 @@ class Notifier:
 REPEAT_NOTE = "(This message may repeat one sent just before a restart.)\n\n"
 
 
-def deliver_due(store: Store, notifier: Notifier, now_s: float, max_attempts: int = 60) -> dict[str, int]:
+def deliver_due(
+    store: Store, notifier: Notifier, now_s: float, max_attempts: int = 60, retry_first_s: float = RETRY_FIRST_S
+) -> dict[str, int]:
     """Send what is due; record each attempt. Returns counts of sent, retried and failed."""
     counts = {"sent": 0, "retried": 0, "failed": 0}
     for row_id, channel, title, body, attempts, attach, maybe_repeat in store.outbox_due(now_s):
@@ -100,7 +106,7 @@ def deliver_due(store: Store, notifier: Notifier, now_s: float, max_attempts: in
                 counts["failed"] += 1
                 log.error("notification %d to %s given up after %d attempts: %s", row_id, channel, tries, d.result)
             else:
-                delay = min(RETRY_FIRST_S * 2 ** (tries - 1), RETRY_MAX_S)
+                delay = min(retry_first_s * 2 ** (tries - 1), RETRY_MAX_S)
                 store.outbox_record(row_id, "pending", d.result, d.log, now_s, now_s + delay)
                 counts["retried"] += 1
                 log.warning(

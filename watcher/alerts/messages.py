@@ -32,6 +32,32 @@ CHECK = {
     "commit_failing_s": "Free disk space for the database, or a process holding it locked.",
 }
 
+WORDS = {
+    "budget_used_pct": "texture budget used",
+    "days_to_limit": "days to the texture limit",
+    "event_budget_share_pct": "one event's share of the budget",
+    "event_excess_um": "one event's extra crystal growth",
+    "air_c": "air temperature",
+    "product_c": "estimated product temperature",
+    "door_open_s": "door open",
+    "defrost_s": "defrost running",
+    "defrosts_today": "defrosts today",
+    "sensor_spread_k": "air sensors disagree",
+    "reading_age_s": "no reading",
+    "broker_down_s": "no broker connection",
+    "rejections_per_h": "rejected messages in the last hour",
+    "undelivered_s": "a notification channel failing",
+    "commit_failing_s": "readings not stored",
+}
+
+
+def auto_label(metric: str, op: str, threshold: float, for_s: float = 0.0) -> str:
+    side = "at or above" if op == ">=" else "at or below"
+    held = f" for {duration(for_s)}" if for_s else ""
+    note = " (a benchmark, not a legal limit for ice cream)" if metric in ("air_c", "product_c") else ""
+    return f"{WORDS.get(metric, metric)} {side} {fmt_value(metric, threshold)}{held}{note}"
+
+
 UNITS = {"_pct": " %", "_um": " um", "_c": " C", "_k": " K", "_per_h": " per hour"}
 
 

@@ -232,7 +232,9 @@ def defrosts_on_day(store: Store, zone_id: str, tz: str, at_s: float) -> int:
     return sum(1 for e in store.events_for(zone_id, t0) if e["kind"] == "defrost" and e["start_ts"] >= t0)
 
 
-def analyse(store: Store, zone, spec: Spec, key: str, tz: str, events_cfg, span_start: float, fed_ts: float) -> Findings:
+def analyse(
+    store: Store, zone, spec: Spec, key: str, tz: str, events_cfg, span_start: float, fed_ts: float
+) -> Findings:
     found = detect(store, zone, events_cfg, span_start, fed_ts)
     merge_events(store, zone.id, found, span_start, fed_ts)
     return Findings(

@@ -321,3 +321,4 @@ class Engine:
         with self.store.atomic():
             for zid in self.runners:
                 self.checkpoint(zid, now)
+                self.monitor.zone_step(self.runners[zid], self.last_figures.get(zid), True, now)

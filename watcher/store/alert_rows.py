@@ -125,7 +125,9 @@ class EventRows:
         ).fetchall()
 
     def last_received(self, zone: str) -> dict[str, float]:
-        rows = self.conn.execute("SELECT sensor, max(received_ts) FROM readings WHERE zone = ? GROUP BY sensor", (zone,))
+        rows = self.conn.execute(
+            "SELECT sensor, max(received_ts) FROM readings WHERE zone = ? GROUP BY sensor", (zone,)
+        )
         return dict(rows.fetchall())
 
     def marks(self) -> dict[tuple[str, str], float]:

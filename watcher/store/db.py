@@ -107,6 +107,7 @@ def m004_alerts(db: sqlite_utils.Database) -> None:
         ALTER TABLE outbox ADD COLUMN alert_id INTEGER;
         ALTER TABLE outbox ADD COLUMN attach TEXT;
         ALTER TABLE outbox ADD COLUMN maybe_repeat INTEGER NOT NULL DEFAULT 0;
+        ALTER TABLE outbox ADD COLUMN last_failure TEXT;
         CREATE UNIQUE INDEX outbox_dedupe ON outbox(dedupe);
         CREATE UNIQUE INDEX events_key ON events(zone, kind, start_ts);
         CREATE TABLE alerts (

@@ -67,8 +67,9 @@ class OutboxRows:
     def outbox_record(self, row_id: int, status: str, result: str, log: str, now_s: float, next_try_s: float) -> None:
         self.conn.execute(
             "UPDATE outbox SET status = ?, attempts = attempts + 1, last_result = ?, last_log = ?, next_try_s = ?, "
-            "sent_s = CASE WHEN ? = 'sent' THEN ? ELSE sent_s END WHERE id = ?",
-            (status, result, log, next_try_s, status, now_s, row_id),
+            "sent_s = CASE WHEN ? = 'sent' THEN ? ELSE sent_s END, "
+            "last_failure = CASE WHEN ? = 'sent' THEN last_failure ELSE ? END WHERE id = ?",
+            (status, result, log, next_try_s, status, now_s, status, f"{result}: {log}", row_id),
         )
         if status == "sent":  # the alert's own record shows each channel it reached
             self.conn.execute(

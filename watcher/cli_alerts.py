@@ -1,0 +1,131 @@
+"""`watcher ack`, `watcher alerts` and `watcher test-notify`."""
+
+from __future__ import annotations
+
+import getpass
+import json
+import sys
+import time
+
+import click
+
+from watcher.cli import _stamp, db_options, main
+from watcher.errors import InputError
+
+
+def _db(config_path: str | None, db_path: str | None) -> str:
+    from watcher.config import default_db_path, load_config
+
+    if db_path:
+        return db_path
+    return load_config(config_path).storage.path if config_path else default_db_path()
+
+
+@main.command()
+@click.argument("alert_id", type=int)
+@click.option("--by", required=True, help="Who acknowledges (recorded with the time).")
+@click.option("--note", default=None, help="A note kept with the acknowledgement.")
+@click.option("--wait", "wait_s", default=10.0, show_default=True, help="Seconds to wait for the service to apply it.")
+@db_options
+def ack(alert_id, by, note, wait_s, config_path, db_path) -> None:
+    """Acknowledge an open alert: stops its reminders and escalation.
+
+    The running service applies the acknowledgement (it owns the alert state); when it is not
+    running, the acknowledgement waits in the database and is applied at its next start.
+    """
+    from watcher.engine.monitor import MAX_NAME, MAX_NOTE
+    from watcher.store.db import Store
+
+    if not by.strip() or len(by) > MAX_NAME:
+        raise InputError("--by", by, f"a name of 1-{MAX_NAME} characters")
+    if note is not None and len(note) > MAX_NOTE:
+        raise InputError("--note", f"{len(note)} characters", f"at most {MAX_NOTE}")
+    store = Store(_db(config_path, db_path))
+    try:
+        alert = store.alert_get(alert_id)
+        if alert is None:
+            click.echo(f"watcher: no alert {alert_id} (see `watcher alerts`)", err=True)
+            sys.exit(1)
+        if alert["status"] != "open":
+            click.echo(f"watcher: alert {alert_id} is {alert['status']}; nothing to acknowledge", err=True)
+            sys.exit(1)
+        with store.atomic():
+            cmd = store.command_add(alert_id, by.strip(), note, "cli", getpass.getuser(), time.time())
+        deadline = time.monotonic() + wait_s
+        result = store.command_result(cmd)
+        while result is None and time.monotonic() < deadline:
+            time.sleep(0.2)
+            result = store.command_result(cmd)
+    finally:
+        store.close()
+    if result is None:
+        click.echo(f"Alert {alert_id}: acknowledgement queued; the service applies it when it runs.")
+    elif result == "acknowledged":
+        click.echo(f"Alert {alert_id} acknowledged by {by.strip()}.")
+    else:
+        click.echo(f"watcher: alert {alert_id}: {result}", err=True)
+        sys.exit(1)
+
+
+@main.command()
+@click.option("--open", "open_only", is_flag=True, help="Only alerts not yet cleared.")
+@click.option("--json", "as_json", is_flag=True, help="Print JSON, with each alert's full log.")
+@db_options
+def alerts(open_only, as_json, config_path, db_path) -> None:
+    """List alerts, newest first (read-only)."""
+    from watcher.store.db import Store
+
+    store = Store(_db(config_path, db_path), readonly=True)
+    try:
+        rows = store.alerts_list(open_only)
+        if as_json:
+            for r in rows:
+                r["log"] = [
+                    dict(zip(("step", "at_s", "wall_s", "value", "by", "note"), x)) for x in store.alert_log(r["id"])
+                ]
+            click.echo(json.dumps(rows, indent=2))
+            return
+    finally:
+        store.close()
+    if not rows:
+        click.echo("No open alerts." if open_only else "No alerts recorded.")
+        return
+    head = f"{'id':>5} {'status':<12} {'severity':<8} {'zone':<12} {'raised':<20} {'value':>10}  what"
+    click.echo(head)
+    click.echo("-" * len(head))
+    for r in rows:
+        who = f" (ack: {r['acked_by']})" if r["acked_by"] else ""
+        click.echo(
+            f"{r['id']:>5} {r['status']:<12} {r['severity']:<8} {r['zone']:<12} {_stamp(r['raised_s']):<20} "
+            f"{r['value'] if r['value'] is None else format(r['value'], '.4g'):>10}  {r['label']}{who}"
+        )
+
+
+@main.command("test-notify")
+@click.option("--config", "config_path", required=True, type=click.Path(dir_okay=False), help="Service configuration.")
+@click.option("--tag", default=None, help="Only channels with this tag.")
+def test_notify(config_path, tag) -> None:
+    """Send a test message to each notification channel now, and report each result."""
+    from watcher.alerts.delivery import Notifier
+    from watcher.config import load_config
+
+    cfg = load_config(config_path)
+    channels = [c for c in cfg.channels if tag is None or tag in c.tags]
+    if not channels:
+        click.echo("watcher: no notification channel" + (f" tagged {tag!r}" if tag else "") + " in the configuration")
+        sys.exit(1)
+    notifier = Notifier(channels)
+    shown = notifier.describe()
+    failed = 0
+    for c in channels:
+        d = notifier.send(
+            c.name,
+            "watcher test message",
+            f"A test from watcher at {_stamp(time.time())} to channel {c.name} (tags: {', '.join(c.tags)}). "
+            "No action needed.",
+        )
+        failed += not d.ok
+        click.echo(f"{c.name:<16} {shown[c.name]:<48} {'sent' if d.ok else 'FAILED: ' + d.result}")
+        if not d.ok and d.log:
+            click.echo("    " + d.log.replace("\n", "\n    "))
+    sys.exit(1 if failed else 0)
