@@ -122,7 +122,9 @@ def _start_state(store: Store, zone_id: str, key: str, at_s: float) -> State | N
 
 
 def cost_events(store: Store, zone, spec: Spec, key: str, fed_ts: float) -> list[dict]:
-    """Forecast or final costs for closed events that need one; returns what was costed."""
+    """Forecast or final costs for closed events that need one; returns what was costed, each
+    with `first_cost` True when the event had no cost before (the alert rules judge only those,
+    so a final cost does not raise a second alert for the same event)."""
     tail = default_tail_s(spec)
     todo = []
     for s in store.events_for(zone.id, fed_ts - SNAPSHOT_KEEP_S):
@@ -158,7 +160,7 @@ def cost_events(store: Store, zone, spec: Spec, key: str, fed_ts: float) -> list
                 "budget_share_pct": round(c.budget_share_pct, 4),
             }
             store.event_upsert(zone.id, s["kind"], s["start_ts"], s["end_ts"], detail)
-            done.append({**s, **detail})
+            done.append({**s, **detail, "first_cost": s.get("cost") is None})
     return done
 
 
@@ -190,10 +192,12 @@ def daily_figures(store: Store, zone, spec: Spec, key: str, tz: str, fed_ts: flo
         t, air = _history(store, zone.id, start.t_s, end_s + tail)
         if t.size == 0 or t[-1] <= end_s:
             continue
+        # Events overlapping the day, clipped to it: a day carries only its own part of an
+        # event that spans midnight (the event's whole cost is on the event's row).
         events = [
-            Event(s["kind"], s["start_ts"], s["end_ts"])
+            Event(s["kind"], max(s["start_ts"], start_s), min(s["end_ts"], end_s))
             for s in store.events_for(zone.id, start_s, end_s)
-            if start_s <= s["start_ts"] < end_s and s["end_ts"] is not None
+            if s["end_ts"] is not None
         ]
         g = day_growth(spec, start, t, air, zone.setpoint_c, start_s, end_s, events)
         store.daily_save(

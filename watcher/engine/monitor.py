@@ -150,11 +150,9 @@ class Monitor:
         lz.analysed_ts = fed
         self.store.set_mark(zid, "analysed_ts", fed)
         lz.defrosts_today = found.defrosts_today
-        if found.costed:
-            lz.event_cost = (
-                max(e["budget_share_pct"] for e in found.costed),
-                max(e["excess_um"] for e in found.costed),
-            )
+        new = [e for e in found.costed if e["first_cost"]]
+        if new:
+            lz.event_cost = (max(e["budget_share_pct"] for e in new), max(e["excess_um"] for e in new))
 
     def forget_after(self, zone_id: str, ts: float) -> None:
         """A late reading at ts changed the zone's past: snapshots from then on no longer hold."""

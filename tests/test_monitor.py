@@ -1,0 +1,232 @@
+"""Events, costs, daily figures and alert rules inside the engine, on a real SQLite file.
+
+The multi-day history is invented (demo-style) data with known events; the expectations are
+derived from how it was built, not from the code under test.
+"""
+
+import json
+import sqlite3
+
+import numpy as np
+import pytest
+
+from tests.test_engine import NOW, T0
+from watcher.alerts.policy import default_rules
+from watcher.config import config_from_dict
+from watcher.engine.batch import Engine, Message
+from watcher.store.db import Store
+
+DAY = 86400.0
+EXCURSION = (T0 + 1.5 * DAY, T0 + 1.5 * DAY + 4 * 3600)  # a 4-hour fault, +8 K
+
+
+def make(tmp_path, rules=(), keep=(), channels=(), zones=None):
+    (tmp_path / "pw").write_text("x")
+    (tmp_path / "pw").chmod(0o600)
+    notify = []
+    for name, url, tags in channels:
+        (tmp_path / f"{name}.url").write_text(url)
+        notify.append({"name": name, "url_file": str(tmp_path / f"{name}.url"), "tags": list(tags)})
+    cfg = config_from_dict(
+        {
+            "broker": {"password_file": str(tmp_path / "pw")},
+            "storage": {"path": str(tmp_path / "w.db")},
+            "ingest": {"reorder_window_s": 0.0, "max_gap_s": 900.0},
+            "sites": [{"id": "kp", "timezone": "UTC"}],
+            "zones": zones or [{"id": "bulk-a", "setpoint_c": -25.0}],
+            "sources": [
+                {"pattern": "kp/{zone}/{sensor}/air", "signal": "air_c", "value": "t", "time": "ts"},
+                {"pattern": "kp/{zone}/{sensor}/door", "signal": "door", "value": "open", "time": "ts"},
+            ],
+            "alerts": {
+                "disable": [r.id for r in default_rules() if r.id not in keep and r.id not in {x["id"] for x in rules}],
+                "rules": list(rules),
+            },
+            "notify": notify,
+        },
+        "test.toml",
+    )
+    for source in cfg.sources:  # epoch seconds in these tests
+        object.__setattr__(source, "time_format", "epoch_s")
+    store = Store(cfg.storage.path)
+    return cfg, store, Engine(cfg, store, checkpoint_s=0.0)
+
+
+def air(k: int) -> float:
+    """-25 C; a 30-min defrost every 6 h (a ramp up to +6 K and back); the 4-hour excursion."""
+    t = T0 + 60 * k
+    if EXCURSION[0] <= t < EXCURSION[1]:
+        return -17.0
+    m = k % 360
+    return -25.0 + (6.0 * (1.0 - abs(m - 15) / 15.0) if m < 30 else 0.0)
+
+
+def msg(k, value=None, sensor="s1", zone="bulk-a", received=NOW):
+    v = air(k) if value is None else value
+    return Message(f"kp/{zone}/{sensor}/air", json.dumps({"t": v, "ts": T0 + 60 * k}).encode(), received, k, 1)
+
+
+def play(engine, first, last, hour_batches=True, now=NOW, **kw):
+    step = 60 if hour_batches else 1
+    for k0 in range(first, last, step):
+        engine.process([msg(k, **kw) for k in range(k0, min(k0 + step, last))], now=now)
+
+
+def rows(store, sql, *args):
+    return store.conn.execute(sql, args).fetchall()
+
+
+@pytest.fixture(scope="module")
+def four_days(tmp_path_factory):
+    """Four days played hour by hour, with an event-cost rule at 0.5 % of the budget."""
+    tmp = tmp_path_factory.mktemp("four_days")
+    rules = [
+        {"id": "event-cost", "above": 0.5},
+        {"id": "defrosts-per-day", "above": 3, "hysteresis": 1},
+    ]
+    cfg, store, engine = make(tmp, rules=rules)
+    play(engine, 0, 4 * 1440)
+    engine.checkpoint_all(NOW)
+    return cfg, store, engine
+
+
+def test_events_are_found_once_with_costs(four_days):
+    """Inferred defrosts every 6 h and the excursion are stored once each, however often the
+    span was re-analysed (hour by hour here), and the excursion costs more than any defrost."""
+    _, store, _ = four_days
+    events = rows(store, "SELECT kind, start_ts, end_ts, detail FROM events ORDER BY start_ts")
+    defrosts = [e for e in events if e[0] == "defrost"]
+    assert 12 <= len(defrosts) <= 16  # 16 built; the first cycles are needed to see the regularity
+    starts = np.array([e[1] for e in defrosts])
+    assert len(set(np.round(starts))) == len(starts)
+    assert np.all(np.abs(((starts - T0) / 60.0 + 1) % 360 - 1) <= 3)  # on the 6-hourly schedule
+    excursion = [e for e in events if e[0] == "excursion"]
+    assert len(excursion) == 1 and abs(excursion[0][1] - EXCURSION[0]) <= 120
+    detail = json.loads(excursion[0][3])
+    assert detail["cost"] == "final" and detail["source"] == "inferred"
+    first_snapshot = rows(store, "SELECT min(t_s) FROM zone_snapshots")[0][0]
+    costs = [json.loads(e[3]).get("budget_share_pct") for e in defrosts if e[1] >= first_snapshot]
+    assert all(c is not None for c in costs)  # each event after the first snapshot has a cost
+    assert detail["budget_share_pct"] > 5 * max(costs)
+
+
+def test_daily_growth_by_cause(four_days):
+    """Days covered by data and their 24-h tail get baseline and excess by cause; the excursion
+    day carries excursion cost; causes plus remainder add up to the day's excess."""
+    _, store, _ = four_days
+    days = {r["day"]: r for r in store.daily_rows("bulk-a")}
+    # The excursion runs 2026-11-19 23:06 to 2026-11-20 03:06 UTC: both days carry their part.
+    assert {"2026-11-19", "2026-11-20"} <= set(days)
+    for r in days.values():
+        assert r["baseline_um"] > 0
+        parts = r["defrost_um"] + r["door_um"] + r["excursion_um"] + r["unattributed_um"]
+        assert parts == pytest.approx(r["total_excess_um"], abs=1e-9)
+    for day in ("2026-11-19", "2026-11-20"):
+        assert days[day]["excursion_um"] > 0 and days[day]["defrost_um"] > 0
+        assert abs(days[day]["unattributed_um"]) < 0.2 * days[day]["total_excess_um"]
+    assert days["2026-11-20"]["excursion_um"] > days["2026-11-19"]["excursion_um"]  # 3 h of 4 against 1
+    quiet = [r for d, r in days.items() if d not in ("2026-11-19", "2026-11-20")]
+    assert all(r["excursion_um"] == 0.0 for r in quiet)
+
+
+def test_event_and_defrost_rules_fire(four_days):
+    """The excursion's cost crosses 0.5 % of the budget; four defrosts a day cross 3."""
+    _, store, _ = four_days
+    fired = {r[0] for r in rows(store, "SELECT rule FROM alerts")}
+    assert {"event-cost", "defrosts-per-day"} <= fired
+    # One alert for the excursion: its forecast raised it; the final cost did not raise it again.
+    assert [v >= 0.5 for (v,) in rows(store, "SELECT worst_value FROM alerts WHERE rule = 'event-cost'")] == [True]
+    # Nothing is routed (no channels): messages are kept, as unrouted, for the record.
+    assert rows(store, "SELECT DISTINCT status FROM outbox") == [("unrouted",)]
+
+
+def test_reanalysis_after_a_restart_adds_nothing(four_days, tmp_path):
+    """A new engine on the same database (a restart) finds the same events and writes no new
+    daily rows or alerts."""
+    cfg, store, _ = four_days
+    before = (store.count("events"), store.count("daily_growth"), store.count("alerts"))
+    engine = Engine(cfg, store, checkpoint_s=0.0)
+    engine.checkpoint_all(NOW + 10)
+    assert (store.count("events"), store.count("daily_growth"), store.count("alerts")) == before
+
+
+def test_stale_sensor_and_broker_down_on_the_service_clock(tmp_path):
+    """Data rules judge the wall clock: a sensor silent for 15 min, a broker down for 5."""
+    cfg, store, engine = make(tmp_path, keep=("sensor-stale", "broker-down"))
+    play(engine, 0, 30, now=NOW, received=NOW)
+    with store.atomic():
+        engine.monitor.tick(NOW + 600, True, True)
+    assert store.count("alerts") == 0
+    with store.atomic():
+        engine.monitor.tick(NOW + 901, True, True)
+        engine.monitor.tick(NOW + 1000, False, True)
+        engine.monitor.tick(NOW + 1301, False, True)
+    alerts = {a["rule"]: a for a in store.alerts_list()}
+    assert alerts["sensor-stale"]["zone"] == "bulk-a" and alerts["sensor-stale"]["value"] == 901.0
+    assert alerts["broker-down"]["zone"] == "service" and alerts["broker-down"]["status"] == "open"
+    with store.atomic():
+        engine.monitor.tick(NOW + 1302, True, True)
+    assert store.alert_get(alerts["broker-down"]["id"])["status"] == "cleared"
+    # A reading arriving clears the stale alert (judged at the next tick).
+    play(engine, 30, 31, received=NOW + 1400)
+    with store.atomic():
+        engine.monitor.tick(NOW + 1401, True, True)
+    assert store.alert_get(alerts["sensor-stale"]["id"])["status"] == "cleared"
+
+
+def test_two_sensors_that_disagree(tmp_path):
+    """Two air sensors 4 K apart for 15 min raise sensors-disagree (data time)."""
+    cfg, store, engine = make(tmp_path, keep=("sensors-disagree",))
+    for k in range(40):
+        engine.process([msg(k, -25.0, "s1"), msg(k, -21.0, "s2")], now=NOW)
+    (alert,) = store.alerts_list()
+    assert alert["rule"] == "sensors-disagree" and alert["value"] == pytest.approx(4.0)
+    assert alert["raised_s"] - alert["since_s"] >= 900.0
+
+
+def test_failing_channel_raises_undelivered_through_the_others(tmp_path):
+    """A channel with a failing message for 10 min raises `undelivered`; its notice goes to the
+    other channel only."""
+    channels = [("chat", "json://127.0.0.1:9/a", ("alerts",)), ("mail", "json://127.0.0.1:9/b", ("alerts",))]
+    cfg, store, engine = make(tmp_path, keep=("undelivered",), channels=channels)
+    with store.atomic():
+        store.outbox_add("t", "b", ["alerts"], NOW, ["chat"])
+        (row_id,) = rows(store, "SELECT id FROM outbox")[0]
+        store.outbox_record(row_id, "pending", "failure", "Connection refused", NOW, NOW + 30)
+        engine.monitor.tick(NOW + 601, True, True)
+    (alert,) = store.alerts_list()
+    assert alert["rule"] == "undelivered" and alert["zone"] == "service"
+    assert rows(store, "SELECT channel FROM outbox WHERE alert_id = ?", alert["id"]) == [("mail",)]
+
+
+def test_latched_budget_alert_stays_quiet_after_ack(tmp_path):
+    """A budget level latches: acknowledged, it neither clears nor re-raises."""
+    rules = [{"id": "budget-50", "above": 0.001}]  # reached at once on a fresh zone
+    cfg, store, engine = make(tmp_path, rules=rules)
+    play(engine, 0, 120)
+    (alert,) = store.alerts_list()
+    with store.atomic():
+        store.command_add(alert["id"], "QA", None, "cli", None, NOW)
+    play(engine, 120, 600)
+    assert [a["status"] for a in store.alerts_list()] == ["acknowledged"]
+    assert rows(store, "SELECT result FROM alert_commands") == [("acknowledged",)]
+
+
+def test_door_contact_events_and_live_duration(tmp_path):
+    """A door opened and closed is one event; while open, door_open_s grows with data time."""
+    cfg, store, engine = make(tmp_path, keep=("door-open",))
+
+    def door(k, state):
+        return Message("kp/bulk-a/d1/door", json.dumps({"open": state, "ts": T0 + 60 * k}).encode(), NOW, 0, 1)
+
+    play(engine, 0, 10)
+    engine.process([door(10, 1)], now=NOW)
+    play(engine, 10, 21, hour_batches=False)
+    assert store.count("alerts") == 1  # open 10 min at minute 20
+    engine.process([door(25, 0)], now=NOW)
+    play(engine, 21, 40, hour_batches=False)
+    engine.checkpoint_all(NOW)
+    assert rows(store, "SELECT kind, start_ts, end_ts FROM events") == [("door", T0 + 600, T0 + 1500)]
+    assert store.alerts_list()[0]["status"] == "cleared"
+    db = sqlite3.connect(store.path)
+    assert [r[0] for r in db.execute("SELECT step FROM alert_log ORDER BY id")] == ["raise", "clear"]
