@@ -121,7 +121,7 @@ def body(
     lines = [place, ""]
     now_value = fmt_value(metric, alert.get("value"))
     if kind == "clear":
-        lines.append(f"Cleared at {local(alert.get('cleared_s'), tz)}: {metric} is {now_value} again.")
+        lines.append(f"Cleared at {local(alert.get('cleared_s'), tz)}: {WORDS.get(metric, metric)} now {now_value}.")
     elif kind == "ack":
         lines.append(f"Acknowledged by {by} at {local(alert.get('acked_s'), tz)}." + (f" Note: {note}" if note else ""))
     else:
@@ -130,6 +130,13 @@ def body(
             f"What happened: {alert['label']}. Now {now_value} ({op} {fmt_value(metric, alert['threshold'])}), "
             f"since {local(alert.get('since_s') or alert['raised_s'], tz)} ({tz})."
         )
+    temps = []
+    if figures and figures.get("air_c") is not None:
+        temps.append(f"air {figures['air_c']:.1f} C")
+    if figures and figures.get("product_c") is not None:
+        temps.append(f"product (estimated, warmest position) {figures['product_c']:.1f} C")
+    if temps:
+        lines.append("Now: " + ", ".join(temps) + ".")
     if figures and figures.get("budget_used_pct") is not None:
         days = figures.get("days_to_limit")
         days_text = "no limit in sight" if days is None else f"{days:.0f} days to the limit at current conditions"

@@ -37,6 +37,7 @@ class Live:
     switches: dict = field(default_factory=dict)  # (signal, sensor) -> [last_ts, value, since_ts]
     received: dict = field(default_factory=dict)  # sensor -> wall time of its newest reading
     figures: dict | None = None
+    air_c: float | None = None
     defrosts_today: int | None = None
     event_cost: tuple[float, float] | None = None  # (budget share %, excess um) of the latest costed event
     snapshot_ts: float = -math.inf
@@ -120,6 +121,7 @@ class Monitor:
         lz = self.live[zid]
         if figures is not None:
             lz.figures = figures
+        lz.air_c = runner.last_air_c
         if checkpointed and runner.state is not None:
             self._analyse(runner, lz)
         if runner.last_ts is None:
@@ -227,7 +229,8 @@ class Monitor:
                 metric=rule.metric,
                 threshold=rule.threshold,
                 status="open",
-                since_s=st.since_s,
+                # For a duration, the condition began `value` seconds ago (the door opened then).
+                since_s=act.at_s - act.value if rule.metric.endswith("_s") else st.since_s,
                 raised_s=act.at_s,
                 value=act.value,
                 worst_value=act.value,
@@ -284,7 +287,7 @@ class Monitor:
                 alert,
                 place,
                 tz,
-                lz.figures if lz else None,
+                {**(lz.figures or {}), "air_c": lz.air_c} if lz else None,
                 events,
                 self.config.broker.ack_topic,
                 zone.profile.limit_mean_diameter_um if zone else None,

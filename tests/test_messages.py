@@ -1,0 +1,86 @@
+"""Notification text: what happened, what it cost, what to check, the caution; phone-sized."""
+
+from watcher.alerts import messages
+
+ALERT = {
+    "id": 7,
+    "zone": "dispatch",
+    "severity": "warning",
+    "label": "door open over 10 min",
+    "metric": "door_open_s",
+    "threshold": 600.0,
+    "value": 840.0,
+    "since_s": 1_795_000_000.0,
+    "raised_s": 1_795_000_600.0,
+    "op": ">=",
+}
+FIGURES = {"budget_used_pct": 41.3, "worst_position": "surface", "mean_diameter_um": 42.2, "days_to_limit": 61.0}
+EVENTS = [
+    {
+        "kind": "defrost",
+        "start_ts": 1_794_990_000.0,
+        "end_ts": 1_794_991_800.0,
+        "peak_c": -14.2,
+        "excess_um": 0.021,
+        "budget_share_pct": 0.09,
+        "cost": "final",
+    },
+    {"kind": "door", "start_ts": 1_795_000_000.0, "end_ts": None, "peak_c": None},
+]
+
+
+def test_raise_message_says_what_happened_cost_and_checks():
+    body = messages.body(
+        "raise",
+        ALERT,
+        "Kestrel Point - Dispatch freezer",
+        "Europe/London",
+        {**FIGURES, "air_c": -16.5, "product_c": -20.1},
+        EVENTS,
+        "watcher/ack",
+        50.0,
+    )
+    assert "door open over 10 min. Now 14 min (at or above 10 min), since 2026-11-18 11:06" in body
+    assert "Now: air -16.5 C, product (estimated, warmest position) -20.1 C." in body
+    assert "41.3 % of the budget used" in body and "42.2 um of the 50 um limit" in body and "61 days" in body
+    assert (
+        "defrost 2026-11-18 08:20 to 2026-11-18 08:50, peak -14.2 C, cost 0.02 um (0.09 % of the budget, final)" in body
+    )
+    assert "door 2026-11-18 11:06 to now (still on)" in body
+    assert "failed closer" in body and "watcher ack 7 --by NAME" in body and "not a food-safety verdict" in body
+    assert len(body) < 1200  # readable on a phone
+    assert messages.title("raise", ALERT, "Dispatch freezer") == "[WARNING] Dispatch freezer: door open over 10 min"
+    assert messages.title("repeat", ALERT, "Dispatch freezer", 2).startswith("[WARNING, reminder 2]")
+
+
+def test_clear_and_ack_notices_are_short():
+    clear = messages.body(
+        "clear",
+        {**ALERT, "value": 0.0, "cleared_s": 1_795_001_500.0},
+        "Kestrel Point - Dispatch",
+        "UTC",
+        None,
+        [],
+        "watcher/ack",
+    )
+    assert "Cleared at 2026-11-18 11:31: door open now 0 s." in clear and "watcher ack" not in clear
+    ack = messages.body(
+        "ack",
+        {**ALERT, "acked_s": 1_795_000_700.0},
+        "Kestrel Point",
+        "UTC",
+        None,
+        [],
+        "watcher/ack",
+        by="Dana",
+        note="wedge removed",
+    )
+    assert "Acknowledged by Dana at 2026-11-18 11:18. Note: wedge removed" in ack
+
+
+def test_values_carry_units():
+    assert messages.fmt_value("air_c", -17.96) == "-18.0 C"
+    assert messages.fmt_value("budget_used_pct", 80.04) == "80.0 %"
+    assert messages.fmt_value("event_excess_um", 1.234) == "1.23 um"
+    assert messages.fmt_value("reading_age_s", 5400) == "1.5 h"
+    assert messages.fmt_value("days_to_limit", 13.6) == "14 days"
