@@ -34,6 +34,7 @@ def write_config(
     tls: bool = False,
     health_port: int | None = None,
     reorder_s: float = 120.0,
+    reports: bool = False,
 ) -> Path:
     port = broker.tls_port if tls else broker.port
     tls_block = f'\n[broker.tls]\nca_file = "{broker.tls["ca"]}"\n' if tls else ""
@@ -59,6 +60,10 @@ max_gap_s = 900.0
 
 [health]
 port = {health_port}
+
+[reports]
+enabled = {"true" if reports else "false"}
+dir = "{folder / "reports"}"
 
 [[sites]]
 id = "kp"

@@ -305,3 +305,40 @@ def test_test_notify_reports_each_channel(tmp_path, broker):
     finally:
         smtp.close()
         hook.close()
+
+
+def test_service_sends_the_weekly_summary_once(tmp_path, broker):
+    """With the schedule due, `watcher run` writes the last complete week's summary, mails it
+    with the HTML attached, and does not produce that week again after a restart."""
+    smtp = SmtpReceiver()
+    (tmp_path / "mail.url").write_text(smtp.url())
+    (tmp_path / "mail.url").chmod(0o600)
+    extra = f"""
+[[notify]]
+name = "qa-mail"
+url_file = "{tmp_path / "mail.url"}"
+tags = ["reports"]
+min_interval_s = 0
+"""
+    config = write_config(tmp_path, broker, zones=(ZONE,), extra=extra, reports=True)
+    text = config.read_text().replace("[reports]\n", '[reports]\nweekday = "monday"\nat = "00:00"\n')
+    config.write_text(text)
+    w = WatcherProcess(config)
+    try:
+        w.wait_ready()
+        wait_for(lambda: any("Weekly texture summary" in s for s in smtp.subjects()), timeout=60, what="summary mail")
+        msg = smtp.messages()[0]
+        attached = [p.get_filename() for p in msg.iter_attachments()]
+        assert len(attached) == 1 and attached[0].startswith("kp-") and attached[0].endswith(".html")
+        assert (tmp_path / "reports" / attached[0]).is_file()
+        assert w.stop() == 0
+        w = WatcherProcess(config)
+        w.wait_ready()
+        time.sleep(4)  # the schedule is checked at start: nothing is due any more
+        assert len(smtp.subjects()) == 1
+        with sqlite3.connect(tmp_path / "watcher.db") as db:
+            assert db.execute("SELECT count(*) FROM reports").fetchone()[0] == 1
+        assert w.stop() == 0
+    finally:
+        w.kill()
+        smtp.close()

@@ -55,7 +55,7 @@ def test_version_option_works():
     assert result.exit_code == 0 and __version__ in result.output
 
 
-def test_config_example_is_valid(tmp_path):
+def test_config_example_is_valid(tmp_path, monkeypatch):
     """config.example.toml passes validation once its secret and CA paths point at real files."""
     import tomllib
 
@@ -63,14 +63,14 @@ def test_config_example_is_valid(tmp_path):
     from watcher.config import config_from_dict
 
     data = tomllib.loads((ROOT / "config.example.toml").read_text())
-    (tmp_path / "pw").write_text("pw\n")
-    data["broker"]["password_file"] = str(tmp_path / "pw")
+    creds = tmp_path / "credentials"  # as systemd's LoadCredential= would hand them over
+    creds.mkdir()
+    (creds / "broker-password").write_text("pw\n")
+    for name in ("notify-qa-mail", "notify-night-chat"):
+        (creds / name).write_text("mailto://user:pw@smtp.kestrel.example/?to=qa@kestrel.example\n")
+    monkeypatch.setenv("CREDENTIALS_DIRECTORY", str(creds))
     data["broker"]["tls"]["ca_file"] = str(make_ca(tmp_path)["ca"])
     data["storage"]["path"] = str(tmp_path / "w.db")
-    (tmp_path / "mail.url").write_text("mailto://user:pw@smtp.kestrel.example/?to=qa@kestrel.example\n")
-    data["notify"][0]["url_file"] = str(tmp_path / "mail.url")
-    data["notify"][1] = {k: v for k, v in data["notify"][1].items() if k != "url_credential"}
-    data["notify"][1]["url_file"] = str(tmp_path / "mail.url")
     cfg = config_from_dict(data, "config.example.toml")
     assert [c.name for c in cfg.channels] == ["qa-mail", "night-chat"]
     assert {r.id for r in cfg.alerting.rules} >= {"door-open", "core-benchmark", "budget-80"}

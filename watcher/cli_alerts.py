@@ -1,4 +1,4 @@
-"""`watcher ack`, `watcher alerts` and `watcher test-notify`."""
+"""`watcher ack`, `watcher alerts`, `watcher test-notify` and `watcher verify`."""
 
 from __future__ import annotations
 
@@ -129,3 +129,73 @@ def test_notify(config_path, tag) -> None:
         if not d.ok and d.log:
             click.echo("    " + d.log.replace("\n", "\n    "))
     sys.exit(1 if failed else 0)
+
+
+@main.command()
+@click.option("--since", default=None, help="Check from this date (YYYY-MM-DD, UTC) on; default: everything.")
+@db_options
+def verify(since, config_path, db_path) -> None:
+    """Recompute the record's hash chains and name the first row that no longer matches."""
+    import datetime as dt
+
+    from watcher.store import chain
+    from watcher.store.db import Store
+
+    since_ts = None
+    if since:
+        try:
+            since_ts = dt.datetime.fromisoformat(since).replace(tzinfo=dt.UTC).timestamp()
+        except ValueError:
+            raise InputError("--since", since, "a date such as 2026-11-23") from None
+    store = Store(_db(config_path, db_path), readonly=True)
+    try:
+        findings, counts = chain.verify(store.conn, since_ts)
+        findings += chain.check_reports(store.conn)
+    finally:
+        store.close()
+    for name, n in sorted(counts.items()):
+        click.echo(f"{name:<32} {n:>10} rows checked")
+    if not findings:
+        click.echo(
+            "Record intact: every chain recomputes to its stored hashes" + (f" (from {since})." if since else ".")
+        )
+        return
+    for f in findings:
+        click.echo(f"MISMATCH {f.chain} row {f.row_id}: {f.what}")
+    sys.exit(1)
+
+
+@main.command()
+@click.option("--config", "config_path", required=True, type=click.Path(dir_okay=False), help="Service configuration.")
+@click.option("--week", "week_label", default=None, help="ISO week such as 2026-W48 (default: the last complete week).")
+@click.option("--site", "site_id", default=None, help="One site (default: every site).")
+@click.option("--out", "out_dir", default=None, help="Folder for the files (default: [reports] dir).")
+@click.option("--format", "formats", default="html,csv,json", show_default=True, help="Any of html, csv, json.")
+@click.option("--send", is_flag=True, help="Also queue it for channels tagged `reports` (the service sends it).")
+def report(config_path, week_label, site_id, out_dir, formats, send) -> None:
+    """Write the weekly texture summary for audits and QA."""
+    from watcher.config import Site, load_config
+    from watcher.report.produce import produce
+    from watcher.report.week import last_complete_week, week_of
+    from watcher.store.db import Store
+
+    cfg = load_config(config_path)
+    chosen = [f.strip() for f in formats.split(",") if f.strip()]
+    if not chosen or any(f not in ("html", "csv", "json") for f in chosen):
+        raise InputError("--format", formats, "a comma-separated list among html, csv, json")
+    sites = list(cfg.sites) or [Site("site", "", "UTC")]
+    if site_id:
+        sites = [s for s in sites if s.id == site_id]
+        if not sites:
+            raise InputError("--site", site_id, "one of " + ", ".join(s.id for s in cfg.sites))
+    store = Store(cfg.storage.path)
+    try:
+        for site in sites:
+            week = week_of(week_label, site.timezone) if week_label else last_complete_week(time.time(), site.timezone)
+            paths = produce(store, cfg, site, week, time.time(), out_dir or cfg.reports.dir, chosen, send, auto=False)
+            click.echo(f"{site.id} {week.label}: " + ", ".join(str(p) for p in paths if p.suffix != ".csv"))
+            n_csv = sum(p.suffix == ".csv" for p in paths)
+            if n_csv:
+                click.echo(f"  and {n_csv} CSV tables in {paths[-1].parent}")
+    finally:
+        store.close()

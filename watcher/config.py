@@ -108,6 +108,23 @@ class Events:
 
 
 @dataclass(frozen=True)
+class Reports:
+    dir: str
+    enabled: bool = True
+    weekday: int = 0  # Monday
+    at_minutes: int = 6 * 60  # 06:00 site time
+    formats: tuple[str, ...] = ("html", "csv", "json")
+
+
+WEEKDAYS = ("monday", "tuesday", "wednesday", "thursday", "friday", "saturday", "sunday")
+
+
+def default_reports_dir() -> str:
+    state = os.environ.get("STATE_DIRECTORY")
+    return str(Path(state.split(":")[0]) / "reports") if state else "reports"
+
+
+@dataclass(frozen=True)
 class Config:
     path: str
     broker: Broker
@@ -120,6 +137,7 @@ class Config:
     alerting: Alerting = Alerting()
     events: Events = Events()
     channels: tuple[Channel, ...] = ()
+    reports: Reports = field(default_factory=lambda: Reports(default_reports_dir()))
 
     def zone(self, zone_id: str) -> Zone | None:
         return next((z for z in self.zones if z.id == zone_id), None)
@@ -352,10 +370,47 @@ def config_from_dict(data: dict, path: str = "config") -> Config:
     alerting = _alerting(root.sub("alerts"), set(zone_ids))
     events = _events(root.sub("events"))
     channels = _channels(root)
+    reports = _reports(root.sub("reports"))
     root.done()
     return Config(
-        path, broker, storage, ingest, health, tuple(sites), tuple(zones), tuple(sources), alerting, events, channels
+        path,
+        broker,
+        storage,
+        ingest,
+        health,
+        tuple(sites),
+        tuple(zones),
+        tuple(sources),
+        alerting,
+        events,
+        channels,
+        reports,
     )
+
+
+def _reports(r: _Reader) -> Reports:
+    day = r.text("weekday", "monday")
+    if day not in WEEKDAYS:
+        r.fail("weekday", day, "a weekday name: " + ", ".join(WEEKDAYS))
+    at = r.text("at", "06:00")
+    try:
+        hh, mm = (int(x) for x in at.split(":"))
+        if not (0 <= hh < 24 and 0 <= mm < 60):
+            raise ValueError
+    except ValueError:
+        r.fail("at", at, "a site-local time HH:MM")
+    formats = r.get("formats", (list,), ["html", "csv", "json"], "a list among html, csv, json")
+    if not formats or any(f not in ("html", "csv", "json") for f in formats):
+        r.fail("formats", formats, "a non-empty list among html, csv, json")
+    reports = Reports(
+        dir=r.text("dir", default_reports_dir()),
+        enabled=r.get("enabled", (bool,), True, "true or false"),
+        weekday=WEEKDAYS.index(day),
+        at_minutes=hh * 60 + mm,
+        formats=tuple(formats),
+    )
+    r.done()
+    return reports
 
 
 RULE_KEYS = ("metric", "above", "below", "severity", "for_min", "hysteresis", "zones", "label")

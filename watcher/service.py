@@ -31,6 +31,7 @@ log = logging.getLogger("watcher.service")
 RETENTION_EVERY_S = 6 * 3600.0
 TICK_S = 1.0
 DELIVER_EVERY_S = 0.5
+REPORT_CHECK_S = 60.0
 
 
 def sd_notify(message: str) -> bool:
@@ -80,6 +81,7 @@ class Service:
         self.mqtt = MqttProcess(config.broker, self._filters(config), self.inbox, self._on_link)
         self.writer = threading.Thread(target=self._writer_loop, name="writer", daemon=True)
         self.deliverer = threading.Thread(target=self._deliver_loop, name="deliverer", daemon=True)
+        self.reporter = threading.Thread(target=self._report_loop, name="reporter", daemon=True)
         self.health: HealthServer | None = None
         if config.health.port:
             self.health = HealthServer(config.health.host, config.health.port, self.metrics, self.healthz, self.readyz)
@@ -233,6 +235,32 @@ class Service:
             self.stopping.wait(DELIVER_EVERY_S)
         store.close()
 
+    # --- reporter thread -------------------------------------------------------------------
+    def _report_loop(self) -> None:
+        """Produce each site's weekly summary once it is due ([reports] weekday and time, in the
+        site's zone); recorded in the database, so a restart never produces a week twice."""
+        from watcher.report.produce import due_weeks, produce  # pandas and matplotlib load here only
+
+        store = Store(self.config.storage.path)
+        while not self.stopping.is_set():
+            try:
+                for site, week in due_weeks(store, self.config, time.time()):
+                    produce(
+                        store,
+                        self.config,
+                        site,
+                        week,
+                        time.time(),
+                        self.config.reports.dir,
+                        self.config.reports.formats,
+                        send=True,
+                        auto=True,
+                    )
+            except Exception as exc:
+                log.error("weekly summary failed (trying again in a minute): %s", exc)
+            self.stopping.wait(REPORT_CHECK_S)
+        store.close()
+
     # --- reload ----------------------------------------------------------------------------
     def request_reload(self) -> None:
         """SIGHUP: validate the new file; swap it in only if it is valid."""
@@ -262,6 +290,7 @@ class Service:
     def start(self) -> None:
         self.writer.start()
         self.deliverer.start()
+        self.reporter.start()
         self.mqtt.start()
         if self.health:
             self.health.start()
@@ -279,6 +308,7 @@ class Service:
         self.stopping.set()
         self.writer.join(60.0)
         self.deliverer.join(30.0)
+        self.reporter.join(30.0)
         self.mqtt.stop()
         if self.health:
             self.health.stop()

@@ -34,6 +34,7 @@ CONTEXT_S = 2 * 86400.0  # air before the span, for the detector's baseline and 
 SNAPSHOT_KEEP_S = 10 * 86400.0
 DAYS_BACK = 8  # daily figures are filled in for at most this many days back
 FORECAST_STEP_S = 600.0
+MAX_LEAD_S = 2 * 86400.0  # a day's figures start from a model state at most this far before it
 
 
 @dataclass
@@ -183,12 +184,17 @@ def daily_figures(store: Store, zone, spec: Spec, key: str, tz: str, fed_ts: flo
     tail = default_tail_s(spec)
     have = store.daily_days(zone.id)
     written = []
+    carried = None  # the previous day's end state, when that day was computed in this pass
     for day, start_s, end_s in local_days(tz, fed_ts - DAYS_BACK * 86400.0, fed_ts - tail):
         if day in have:
+            carried = None
             continue
-        start = _start_state(store, zone.id, key, start_s)
-        if start is None:
-            continue
+        start = (
+            carried if carried is not None and carried.t_s <= start_s else _start_state(store, zone.id, key, start_s)
+        )
+        if start is None or start.t_s < start_s - MAX_LEAD_S:
+            carried = None
+            continue  # no model state near enough: the day is left out rather than replayed at length
         t, air = _history(store, zone.id, start.t_s, end_s + tail)
         if t.size == 0 or t[-1] <= end_s:
             continue
@@ -200,6 +206,7 @@ def daily_figures(store: Store, zone, spec: Spec, key: str, tz: str, fed_ts: flo
             if s["end_ts"] is not None
         ]
         g = day_growth(spec, start, t, air, zone.setpoint_c, start_s, end_s, events)
+        carried = g.end_state
         store.daily_save(
             {
                 "zone": zone.id,

@@ -41,7 +41,7 @@ class BatchResult:
     late_from: dict = field(default_factory=dict)  # zone -> earliest late reading time
 
 
-def _reason_class(reason: str) -> str:
+def reason_class(reason: str) -> str:
     """A bounded label for metrics: the reason's first words, without values."""
     for key in (
         "no source",
@@ -162,7 +162,7 @@ class Engine:
                 parsed.append((self.parse(msg), msg))
             except Rejected as exc:
                 parsed.append((str(exc), msg))
-                result.rejections[_reason_class(str(exc))] += 1
+                result.rejections[reason_class(str(exc))] += 1
                 result.counts["rejected"] += 1
         touched: set[str] = set()
         try:

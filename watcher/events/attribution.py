@@ -71,6 +71,7 @@ class DayGrowth:
     by_cause_um: dict[str, float]  # summed event costs per kind
     unattributed_um: float
     costs: list[EventCost]
+    end_state: State | None = None  # the recorded history's state at the day's end (starts the next day)
 
 
 def day_growth(
@@ -97,6 +98,7 @@ def day_growth(
     state = tile_state(state, rows.shape[0])
     first = t <= day_end_s
     state, _ = advance(spec, state, t[first], rows[:, first])
+    end_state = tile_state(state, 1, 0)
     mean_day_end = outputs(spec, state)["mean_diameter_um"]
     if (~first).any():
         state, _ = advance(spec, state, t[~first], rows[:, ~first])
@@ -114,6 +116,7 @@ def day_growth(
         by_cause_um=by_cause,
         unattributed_um=float(excess[worst] - sum(by_cause.values())),
         costs=costs,
+        end_state=end_state,
     )
 
 

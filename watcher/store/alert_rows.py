@@ -4,6 +4,11 @@ from __future__ import annotations
 
 import json
 
+from watcher.store import chain
+
+ALERT_LOG_INSERT = chain.insert_sql("alert_log", chain.ALERT_LOG_FIELDS, zone_scoped=False)
+EVENT_LOG_INSERT = chain.insert_sql("event_log", chain.EVENT_LOG_FIELDS, zone_scoped=False)
+
 ALERT_COLUMNS = (
     "id",
     "zone",
@@ -49,10 +54,7 @@ class AlertRows:
         self.conn.execute(f"UPDATE alerts SET {sets} WHERE id = ?", (*fields.values(), alert_id))
 
     def alert_log_add(self, alert_id: int, step: str, at_s: float, wall_s: float, value=None, by=None, note=None):
-        self.conn.execute(
-            "INSERT INTO alert_log (alert_id, step, at_s, wall_s, value, by, note) VALUES (?,?,?,?,?,?,?)",
-            (alert_id, step, at_s, wall_s, value, by, note),
-        )
+        self.conn.execute(ALERT_LOG_INSERT, chain.params((alert_id, step, at_s, wall_s, value, by, note)))
 
     def alerts_list(self, open_only: bool = False, limit: int = 500) -> list[dict]:
         sql = f"SELECT {', '.join(ALERT_COLUMNS)} FROM alerts"
@@ -101,6 +103,10 @@ class EventRows:
             "detail = json_patch(events.detail, excluded.detail)",
             (zone, kind, start_ts, end_ts, json.dumps(detail)),
         )
+        row = self.conn.execute(
+            "SELECT id, end_ts, detail FROM events WHERE zone = ? AND kind = ? AND start_ts = ?", (zone, kind, start_ts)
+        ).fetchone()
+        self.conn.execute(EVENT_LOG_INSERT, chain.params((row[0], "set", zone, kind, start_ts, row[1], row[2])))
 
     def events_for(self, zone: str, since_ts: float, until_ts: float | None = None) -> list[dict]:
         """Events of a zone that end after since_ts (or are still open) and start before until_ts."""
@@ -113,6 +119,11 @@ class EventRows:
         return [{"id": r[0], "kind": r[1], "start_ts": r[2], "end_ts": r[3], **json.loads(r[4])} for r in rows]
 
     def event_delete(self, event_id: int) -> None:
+        row = self.conn.execute(
+            "SELECT zone, kind, start_ts, end_ts, detail FROM events WHERE id = ?", (event_id,)
+        ).fetchone()
+        if row is not None:
+            self.conn.execute(EVENT_LOG_INSERT, chain.params((event_id, "delete", *row)))
         self.conn.execute("DELETE FROM events WHERE id = ?", (event_id,))
 
     def signal_rows(self, zone: str, signals: tuple[str, ...], after_ts: float, upto_ts: float) -> list[tuple]:
@@ -168,14 +179,25 @@ class EventRows:
             (zone, spec_key, t_s),
         ).fetchone()
 
+    def snapshot_first_after(self, zone: str, t0_s: float, t1_s: float, spec_key: str) -> tuple[float, bytes] | None:
+        return self.conn.execute(
+            "SELECT t_s, state FROM zone_snapshots WHERE zone = ? AND spec_key = ? AND t_s > ? AND t_s < ? "
+            "ORDER BY t_s LIMIT 1",
+            (zone, spec_key, t0_s, t1_s),
+        ).fetchone()
+
     def snapshot_first_ts(self, zone: str, spec_key: str) -> float | None:
         return self.conn.execute(
             "SELECT min(t_s) FROM zone_snapshots WHERE zone = ? AND spec_key = ?", (zone, spec_key)
         ).fetchone()[0]
 
     def snapshots_drop(self, zone: str, before_ts: float | None = None, after_ts: float | None = None) -> None:
-        if before_ts is not None:
-            self.conn.execute("DELETE FROM zone_snapshots WHERE zone = ? AND t_s < ?", (zone, before_ts))
+        if before_ts is not None:  # older than that, keep the first of each UTC day (for reports)
+            self.conn.execute(
+                "DELETE FROM zone_snapshots WHERE zone = ? AND t_s < ? AND t_s NOT IN ("
+                "SELECT min(t_s) FROM zone_snapshots WHERE zone = ? GROUP BY CAST(t_s / 86400 AS INTEGER))",
+                (zone, before_ts, zone),
+            )
         if after_ts is not None:
             self.conn.execute("DELETE FROM zone_snapshots WHERE zone = ? AND t_s >= ?", (zone, after_ts))
 

@@ -20,10 +20,12 @@ import sqlite_utils
 from sqlite_utils.migrations import Migrations
 
 from watcher.errors import WatcherError
+from watcher.store import chain
 from watcher.store.alert_rows import AlertRows, EventRows
 from watcher.store.outbox import OutboxRows
 
 BUSY_TIMEOUT_MS = 30_000
+READING_INSERT = chain.insert_sql("readings", chain.READING_FIELDS, zone_scoped=True, verb="INSERT OR IGNORE")
 PAYLOAD_KEEP_BYTES = 512
 migrations = Migrations("watcher")
 
@@ -141,6 +143,26 @@ def m004_alerts(db: sqlite_utils.Database) -> None:
     )
 
 
+@migrations()
+def m005_record_chain(db: sqlite_utils.Database) -> None:
+    db.executescript(
+        """
+        ALTER TABLE readings ADD COLUMN chain TEXT;
+        CREATE INDEX readings_zone_id ON readings(zone, id);
+        ALTER TABLE alert_log ADD COLUMN chain TEXT;
+        CREATE TABLE event_log (
+            id INTEGER PRIMARY KEY, event_id INTEGER NOT NULL, op TEXT NOT NULL, zone TEXT NOT NULL,
+            kind TEXT NOT NULL, start_ts REAL NOT NULL, end_ts REAL, detail TEXT NOT NULL, chain TEXT
+        );
+        CREATE TABLE chain_folds (tbl TEXT NOT NULL, zone TEXT NOT NULL, next_id INTEGER NOT NULL, prev_chain TEXT);
+        CREATE TABLE reports (
+            site TEXT NOT NULL, week TEXT NOT NULL, generated_s REAL NOT NULL, heads TEXT NOT NULL,
+            digest TEXT NOT NULL, files TEXT NOT NULL, PRIMARY KEY (site, week, generated_s)
+        );
+        """
+    )
+
+
 @dataclass
 class ZoneRow:
     zone: str
@@ -189,6 +211,7 @@ class Store(OutboxRows, AlertRows, EventRows):
             elif not Path(path).is_file():
                 raise StoreError(f"{path}: no database here yet (has `watcher run` or `watcher replay` written one?)")
             self.conn = _connect(path, readonly)
+            chain.register(self.conn)
             self.db = sqlite_utils.Database(self.conn)
             if not readonly:
                 self.conn.execute("PRAGMA journal_mode = WAL")
@@ -206,10 +229,17 @@ class Store(OutboxRows, AlertRows, EventRows):
 
     def insert_reading(self, reading, received_ts: float, topic: str, late: bool) -> bool:
         """Insert one reading; False when its natural key is already stored (a duplicate)."""
-        cur = self.conn.execute(
-            "INSERT OR IGNORE INTO readings (zone, sensor, signal, ts, value, received_ts, topic, late) VALUES (?,?,?,?,?,?,?,?)",
-            (reading.zone, reading.sensor, reading.signal, reading.ts, reading.value, received_ts, topic, int(late)),
+        values = (
+            reading.zone,
+            reading.sensor,
+            reading.signal,
+            reading.ts,
+            reading.value,
+            received_ts,
+            topic,
+            int(late),
         )
+        cur = self.conn.execute(READING_INSERT, chain.params(values, reading.zone))
         return cur.rowcount == 1
 
     def insert_readings_all_new(self, items) -> bool:
@@ -218,8 +248,11 @@ class Store(OutboxRows, AlertRows, EventRows):
         self.conn.execute("SAVEPOINT bulk")
         before = self.conn.total_changes
         self.conn.executemany(
-            "INSERT OR IGNORE INTO readings (zone, sensor, signal, ts, value, received_ts, topic, late) VALUES (?,?,?,?,?,?,?,0)",
-            [(r.zone, r.sensor, r.signal, r.ts, r.value, rts, topic) for r, rts, topic in items],
+            READING_INSERT,
+            [
+                chain.params((r.zone, r.sensor, r.signal, r.ts, r.value, rts, topic, 0), r.zone)
+                for r, rts, topic in items
+            ],
         )
         if self.conn.total_changes - before == len(items):
             self.conn.execute("RELEASE SAVEPOINT bulk")
@@ -276,6 +309,13 @@ class Store(OutboxRows, AlertRows, EventRows):
             "mean = (mean * n + excluded.mean * excluded.n) / (n + excluded.n), min = min(min, excluded.min), "
             "max = max(max, excluded.max), n = n + excluded.n",
             (zone, upto_ts),
+        )
+        # Keep the chain verifiable across the cut: each surviving row's link to a deleted predecessor.
+        self.conn.execute(
+            "INSERT INTO chain_folds (tbl, zone, next_id, prev_chain) SELECT 'readings', zone, id, prev FROM ("
+            "SELECT id, zone, ts, lag(chain) OVER (ORDER BY id) AS prev, lag(ts) OVER (ORDER BY id) AS prev_ts "
+            "FROM readings WHERE zone = ?) WHERE ts > ? AND prev_ts <= ?",
+            (zone, upto_ts, upto_ts),
         )
         return self.conn.execute("DELETE FROM readings WHERE zone = ? AND ts <= ?", (zone, upto_ts)).rowcount
 

@@ -72,11 +72,11 @@ class OutboxRows:
             (status, result, log, next_try_s, status, now_s, status, f"{result}: {log}", row_id),
         )
         if status == "sent":  # the alert's own record shows each channel it reached
-            self.conn.execute(
-                "INSERT INTO alert_log (alert_id, step, at_s, wall_s, note) SELECT alert_id, 'sent', ?, ?, channel "
-                "FROM outbox WHERE id = ? AND alert_id IS NOT NULL",
-                (now_s, now_s, row_id),
-            )
+            alert_id, channel = self.conn.execute(
+                "SELECT alert_id, channel FROM outbox WHERE id = ?", (row_id,)
+            ).fetchone()
+            if alert_id is not None:
+                self.alert_log_add(alert_id, "sent", now_s, now_s, note=channel)
 
     def failing_channels(self) -> dict[str, float]:
         """Channels with a message still pending after a failed attempt: name -> oldest created_s."""

@@ -1,0 +1,1 @@
+"""Weekly damage summaries: the only place that imports pandas and matplotlib."""

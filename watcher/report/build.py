@@ -1,0 +1,199 @@
+"""One site-week summary: tables (pandas), charts (SVG) and a plain-language paragraph."""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import pandas as pd
+
+from watcher import MODEL_VERSION, __version__
+from watcher.alerts.messages import CAUTION
+from watcher.config import Config, Site
+from watcher.report import charts
+from watcher.report.data import SiteWeek, load
+from watcher.report.figures import (
+    alert_table,
+    completeness,
+    defrost_figures,
+    door_figures,
+    event_list,
+    growth_table,
+    rejection_table,
+    temperature_table,
+)
+from watcher.report.week import Week
+from watcher.store import chain
+from watcher.store.db import Store
+
+
+@dataclass
+class ZoneSection:
+    zone: str
+    name: str
+    setpoint_c: float
+    profile: str
+    model_note: str
+    budget: dict
+    temperatures: pd.DataFrame
+    doors: dict
+    doors_by_hour: pd.DataFrame
+    defrosts: dict
+    excursions: pd.DataFrame
+    growth: pd.DataFrame
+    charts: dict[str, str] = field(default_factory=dict)
+
+
+@dataclass
+class Report:
+    site: Site
+    week: Week
+    generated_s: float
+    summary: str
+    zones: list[ZoneSection]
+    alerts: pd.DataFrame
+    completeness: pd.DataFrame
+    gaps: pd.DataFrame
+    rejections: pd.DataFrame
+    heads: dict
+    digest: str
+    versions: dict
+    cautions: list[str]
+    lots_note: str = "No lot data are recorded for this site yet: lots at risk cannot be listed."
+
+    def tables(self) -> dict[str, pd.DataFrame]:
+        """Every table, by file name stem (the CSV files)."""
+        out = {
+            "alerts": self.alerts,
+            "completeness": self.completeness,
+            "gaps": self.gaps,
+            "rejections": self.rejections,
+        }
+        for z in self.zones:
+            out[f"{z.zone}-temperatures"] = z.temperatures
+            out[f"{z.zone}-growth"] = z.growth
+            out[f"{z.zone}-excursions"] = z.excursions
+            out[f"{z.zone}-doors-by-hour"] = z.doors_by_hour
+        return out
+
+
+def _num(v, fmt=".1f", none="n/a") -> str:
+    return none if v is None or (isinstance(v, float) and math.isnan(v)) else format(v, fmt)
+
+
+def summary_text(
+    site: Site, week: Week, zones: list[ZoneSection], alerts: pd.DataFrame, comp: pd.DataFrame, gaps
+) -> str:
+    """One paragraph: what happened this week and what to look at."""
+    parts = [f"Week {week.label} at {site.name or site.id}:"]
+    used = [(z.name, z.budget["used_in_week_pct"]) for z in zones if z.budget["used_in_week_pct"] is not None]
+    if used:
+        lo, hi = min(u for _, u in used), max(u for _, u in used)
+        worst = max(used, key=lambda x: x[1])[0]
+        parts.append(f"the zones used {lo:.1f} to {hi:.1f} % of their texture budget this week (most: {worst}).")
+    causes = []
+    for z in zones:
+        week_row = z.growth[z.growth["day"] == "week"]
+        if len(week_row):
+            r = week_row.iloc[0]
+            top = max(("defrost_um", "door_um", "excursion_um"), key=lambda c: r[c])
+            if r[top] > 0:
+                causes.append((r[top], z.name, top.split("_")[0]))
+    if causes:
+        amount, name, cause = max(causes)
+        parts.append(f"The largest extra growth came from {cause}s in {name} ({amount:.2f} um).")
+    n_exc = sum(len(z.excursions) for z in zones)
+    if n_exc:
+        parts.append(
+            f"{n_exc} excursion{'s' if n_exc != 1 else ''} (warm periods explained by no door or defrost) occurred."
+        )
+    if len(alerts):
+        acked = alerts["minutes_to_ack"].dropna()
+        still = int((alerts["status"] != "cleared").sum())
+        parts.append(
+            (f"{len(alerts)} alerts were active" if len(alerts) != 1 else "1 alert was active")
+            + f"; {len(acked)} acknowledged"
+            + (f" (median {acked.median():.0f} min)" if len(acked) else "")
+            + f", {still} not cleared at the end of the week."
+        )
+    else:
+        parts.append("No alerts were active.")
+    if len(comp) and comp["complete_pct"].notna().any():
+        parts.append(f"Data: {comp['complete_pct'].min():.1f} % of expected readings from the least complete sensor")
+        parts[-1] += f"; {len(gaps)} gap{'s' if len(gaps) != 1 else ''} recorded." if len(gaps) else "; no gaps."
+    else:
+        parts.append("Data: no readings this week.")
+    look = [z.name for z in zones if (z.budget["end_pct"] or 0) >= 80 or (z.budget["days_to_limit"] or 1e9) < 30]
+    if look:
+        parts.append("Look at: " + ", ".join(look) + " (high budget used or under 30 days to the limit).")
+    return " ".join(parts)
+
+
+def zone_section(sw: SiteWeek, zone) -> ZoneSection:
+    m = sw.models.get(zone.id)
+    ev = sw.events[sw.events["zone"] == zone.id]
+    tz, week = sw.site.timezone, sw.week
+    doors, by_hour = door_figures(ev, tz, week.end_s)
+    start = m.budget_start_pct if m else None
+    end = m.budget_end_pct if m else None
+    budget = {
+        "start_pct": start,
+        "end_pct": end,
+        "used_in_week_pct": None if start is None or end is None else end - start,
+        "days_to_limit": m.days_to_limit_end if m else None,
+        "mean_start_um": m.mean_start_um if m else None,
+        "mean_end_um": m.mean_end_um if m else None,
+        "limit_um": zone.profile.limit_mean_diameter_um,
+        "position": m.position if m else None,
+    }
+    temps = temperature_table(m, zone.setpoint_c, week.end_s) if m else pd.DataFrame()
+    growth = growth_table(sw.daily, zone.id)
+    sec = ZoneSection(
+        zone=zone.id,
+        name=zone.name,
+        setpoint_c=zone.setpoint_c,
+        profile=zone.profile.name,
+        model_note=m.start_note if m else "no model state for this zone in or before this week",
+        budget=budget,
+        temperatures=temps,
+        doors=doors,
+        doors_by_hour=by_hour,
+        defrosts=defrost_figures(ev, sw.readings[sw.readings["zone"] == zone.id], week.end_s),
+        excursions=event_list(ev, "excursion", tz),
+        growth=growth,
+    )
+    sec.charts["trace"] = charts.zone_chart(
+        m, ev, zone.setpoint_c, tz, week.start_s, week.end_s, f"{zone.name}: temperatures and crystal size"
+    )
+    if len(growth):
+        sec.charts["growth"] = charts.growth_bars(growth, f"{zone.name}: growth per day by cause")
+    if doors["count"]:
+        sec.charts["doors"] = charts.hour_bars(by_hour, f"{zone.name}: door openings by hour")
+    return sec
+
+
+def build(store: Store, cfg: Config, site: Site, week: Week, generated_s: float) -> Report:
+    sw = load(store, cfg, site, week)
+    zones = [zone_section(sw, z) for z in sw.zones]
+    alerts = alert_table(sw.alerts, site.timezone)
+    comp = completeness(sw.readings, week.end_s - week.start_s)
+    gaps = sw.gaps.assign(minutes=(sw.gaps["seconds"] / 60.0).round(1)) if len(sw.gaps) else sw.gaps
+    heads = chain.heads(store.conn)
+    return Report(
+        site=site,
+        week=week,
+        generated_s=generated_s,
+        summary=summary_text(site, week, zones, alerts, comp, gaps),
+        zones=zones,
+        alerts=alerts,
+        completeness=comp,
+        gaps=gaps,
+        rejections=rejection_table(sw.rejections),
+        heads=heads,
+        digest=chain.digest(heads),
+        versions={"watcher": __version__, "model": MODEL_VERSION, "profiles": sorted({z.profile for z in zones})},
+        cautions=[
+            CAUTION,
+            "Predictions are only as good as the product profile: calibrate it with your own storage trial.",
+        ],
+    )

@@ -1,0 +1,125 @@
+"""Charts as inline SVG text (matplotlib, Agg; glyphs drawn as paths, so no fonts are needed)."""
+
+from __future__ import annotations
+
+import io
+import re
+
+import matplotlib
+
+matplotlib.use("Agg")
+import matplotlib.dates as mdates  # noqa: E402
+import matplotlib.pyplot as plt  # noqa: E402
+import numpy as np  # noqa: E402
+import pandas as pd  # noqa: E402
+
+matplotlib.rcParams.update(
+    {
+        "svg.fonttype": "path",
+        "svg.hashsalt": "watcher",
+        "font.size": 8,
+        "axes.spines.top": False,
+        "axes.spines.right": False,
+        "axes.grid": True,
+        "grid.color": "#e3e6e8",
+        "grid.linewidth": 0.6,
+    }
+)
+AIR, PRODUCT, SIZE, LIMIT = "#1f6f78", "#8a4f7d", "#3b4a6b", "#b23a3a"
+CAUSES = {
+    "baseline_um": ("at setpoint", "#9aa5b1"),
+    "defrost_um": ("defrosts", "#e0a030"),
+    "door_um": ("doors", "#4f8fbf"),
+    "excursion_um": ("excursions", "#c4573a"),
+}
+
+
+def _svg(fig) -> str:
+    buf = io.StringIO()
+    fig.savefig(buf, format="svg", bbox_inches="tight", metadata={"Date": None})
+    plt.close(fig)
+    text = buf.getvalue()
+    text = re.sub(r"<metadata>.*?</metadata>", "", text, flags=re.S)  # authoring metadata only
+    return text[text.index("<svg") :]
+
+
+def _times(t_s, tz: str):
+    return pd.to_datetime(pd.Series(t_s, dtype="float64"), unit="s", utc=True).dt.tz_convert(tz)
+
+
+def zone_chart(
+    model, events: pd.DataFrame, setpoint_c: float, tz: str, start_s: float, end_s: float, title: str
+) -> str:
+    """Air and estimated product temperature with defrosts and door openings marked; below,
+    the predicted mean crystal diameter against the limit."""
+    fig, (top, bottom) = plt.subplots(2, 1, figsize=(7.0, 3.9), sharex=True, height_ratios=(3, 2))
+    x0, x1 = _times([start_s, end_s], tz)
+    if model is not None and model.t_s.size:
+        step = max(1, model.t_s.size // 2000)  # keep the SVG small: at most ~2000 points a line
+        t = _times(model.t_s[::step], tz)
+        top.plot(t, model.air_c[::step], color=AIR, lw=0.8, label="air")
+        top.plot(t, model.product_c[::step], color=PRODUCT, lw=1.1, label="product (est.)")
+    top.axhline(setpoint_c, color="#555", lw=0.7, ls="--", label=f"setpoint {setpoint_c:g} C")
+    top.axhline(-18.0, color="#999", lw=0.7, ls=":", label="-18 C benchmark")
+    for r in events.itertuples():
+        a, b = _times([max(r.start_ts, start_s), min(r.end_ts if pd.notna(r.end_ts) else end_s, end_s)], tz)
+        if r.kind == "defrost":
+            top.axvspan(a, b, color="#e0a030", alpha=0.25, lw=0)
+        elif r.kind == "excursion":
+            top.axvspan(a, b, color="#c4573a", alpha=0.18, lw=0)
+        elif r.kind == "door":
+            top.axvline(a, ymin=0.0, ymax=0.06, color="#4f8fbf", lw=0.8)
+    top.set_ylabel("C")
+    top.set_title(title, loc="left", fontsize=9)
+    top.legend(loc="upper right", ncol=4, fontsize=6.5, frameon=False)
+    top.text(
+        0.0,
+        -0.02,
+        "shaded: defrosts (amber), excursions (red); ticks at the foot: door openings",
+        transform=top.transAxes,
+        fontsize=6,
+        color="#666",
+        va="top",
+    )
+    if model is not None and model.trace_t_s.size:
+        bottom.plot(
+            _times(model.trace_t_s, tz),
+            model.mean_diameter_um,
+            color=SIZE,
+            lw=1.2,
+            label=f"mean crystal ({model.position})",
+        )
+        bottom.axhline(model.limit_um, color=LIMIT, lw=0.8, ls="--", label=f"limit {model.limit_um:g} um")
+        lo = float(np.nanmin(model.mean_diameter_um))
+        bottom.set_ylim(lo - 1.0, max(model.limit_um, float(np.nanmax(model.mean_diameter_um))) + 1.0)
+        bottom.legend(loc="lower right", fontsize=6.5, frameon=False)
+    bottom.set_ylabel("um")
+    bottom.set_xlim(x0, x1)
+    bottom.xaxis.set_major_locator(mdates.DayLocator(tz=x0.tzinfo))
+    bottom.xaxis.set_major_formatter(mdates.DateFormatter("%a %d", tz=x0.tzinfo))
+    return _svg(fig)
+
+
+def growth_bars(growth: pd.DataFrame, title: str) -> str:
+    """Daily growth stacked by cause (the unattributed remainder is left out of the bars)."""
+    days = growth[growth["day"] != "week"]
+    fig, ax = plt.subplots(figsize=(7.0, 2.2))
+    bottom = np.zeros(len(days))
+    labels = [d[5:] for d in days["day"]]
+    for col, (name, colour) in CAUSES.items():
+        values = days[col].clip(lower=0).to_numpy() if len(days) else np.zeros(0)
+        ax.bar(labels, values, bottom=bottom, color=colour, label=name, width=0.6)
+        bottom += values
+    ax.set_ylabel("um of mean diameter")
+    ax.set_title(title, loc="left", fontsize=9)
+    ax.legend(fontsize=6.5, frameon=False, ncol=4, loc="upper left")
+    return _svg(fig)
+
+
+def hour_bars(by_hour: pd.DataFrame, title: str) -> str:
+    fig, ax = plt.subplots(figsize=(7.0, 1.6))
+    ax.bar(by_hour["hour"], by_hour["openings"], color="#4f8fbf", width=0.7)
+    ax.set_xticks(range(0, 24, 2))
+    ax.set_xlabel("hour of day (site time)")
+    ax.set_title(title, loc="left", fontsize=9)
+    return _svg(fig)

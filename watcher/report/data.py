@@ -1,0 +1,166 @@
+"""Everything one site-week's summary needs, read from the database into pandas frames.
+
+Read-only. The model is re-run over the week from the zone's snapshot at or before the week's
+start (kept one a day for the retention period), on the air averaged into one-minute bins, the
+same input the event costs use; the live figures use the readings themselves, so the two can
+differ in the last decimal.
+"""
+
+from __future__ import annotations
+
+import json
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+
+from watcher.config import Config, Site, Zone
+from watcher.engine.analysis import binned_air
+from watcher.engine.zones import spec_key
+from watcher.model.integrator import Spec, State, advance, outputs
+from watcher.model.thermal import lag_series
+from watcher.report.week import Week
+from watcher.simulation import position_rows, worst_position
+from watcher.store.db import Store, unpack_state
+
+
+@dataclass
+class ZoneModel:
+    start_note: str  # where the week's model run started from
+    t_s: np.ndarray  # air sample times in the week
+    air_c: np.ndarray
+    product_c: np.ndarray  # the warmest exposure position at each sample
+    trace_t_s: np.ndarray  # hourly
+    mean_diameter_um: np.ndarray  # hourly, the worst position at the week's end
+    position: str
+    budget_start_pct: float | None
+    budget_end_pct: float | None
+    days_to_limit_end: float | None
+    mean_start_um: float | None
+    mean_end_um: float | None
+    limit_um: float
+
+
+@dataclass
+class SiteWeek:
+    site: Site
+    week: Week
+    zones: list[Zone]
+    readings: pd.DataFrame
+    events: pd.DataFrame
+    alerts: pd.DataFrame
+    alert_log: pd.DataFrame
+    gaps: pd.DataFrame
+    rejections: pd.DataFrame
+    daily: pd.DataFrame
+    models: dict[str, ZoneModel] = field(default_factory=dict)
+
+
+def _frame(conn, sql: str, args: tuple) -> pd.DataFrame:
+    cur = conn.execute(sql, args)
+    return pd.DataFrame(cur.fetchall(), columns=[d[0] for d in cur.description])
+
+
+def _in(n: int) -> str:
+    return ", ".join("?" * n)
+
+
+def load(store: Store, cfg: Config, site: Site, week: Week) -> SiteWeek:
+    zones = [z for z in cfg.zones if z.site == site.id]
+    ids = tuple(z.id for z in zones)
+    conn = store.conn
+    s, e = week.start_s, week.end_s
+    readings = _frame(
+        conn,
+        f"SELECT zone, sensor, signal, ts, value, received_ts, late FROM readings WHERE zone IN ({_in(len(ids))}) "
+        "AND ts >= ? AND ts < ? ORDER BY zone, ts",
+        (*ids, s, e),
+    )
+    events = _frame(
+        conn,
+        f"SELECT id, zone, kind, start_ts, end_ts, detail FROM events WHERE zone IN ({_in(len(ids))}) "
+        "AND start_ts < ? AND (end_ts IS NULL OR end_ts > ?) ORDER BY start_ts",
+        (*ids, e, s),
+    )
+    details = [json.loads(d) for d in events["detail"]] if len(events) else []
+    for key in ("source", "peak_c", "excess_um", "budget_share_pct", "cost"):
+        events[key] = [d.get(key) for d in details] if len(events) else []
+    events = events.drop(columns=["detail"])
+    alerts = _frame(
+        conn,
+        f"SELECT * FROM alerts WHERE zone IN ({_in(len(ids) + 1)}) AND raised_s < ? "
+        "AND (cleared_s IS NULL OR cleared_s >= ?) ORDER BY raised_s",
+        (*ids, "service", e, s),
+    )
+    alert_log = _frame(
+        conn,
+        f"SELECT alert_id, step, at_s, wall_s, by, note FROM alert_log WHERE alert_id IN ({_in(len(alerts))}) ORDER BY id",
+        tuple(int(a) for a in alerts["id"]),
+    )
+    gaps = _frame(
+        conn,
+        f"SELECT zone, start_ts, end_ts, seconds FROM gaps WHERE zone IN ({_in(len(ids))}) AND start_ts < ? AND end_ts > ? "
+        "ORDER BY start_ts",
+        (*ids, e, s),
+    )
+    rejections = _frame(
+        conn, "SELECT received_ts, topic, reason FROM rejections WHERE received_ts >= ? AND received_ts < ?", (s, e)
+    )
+    days = tuple(d for d, _, _ in week.days())
+    daily = _frame(
+        conn,
+        f"SELECT * FROM daily_growth WHERE zone IN ({_in(len(ids))}) AND day IN ({_in(len(days))}) ORDER BY zone, day",
+        (*ids, *days),
+    )
+    sw = SiteWeek(site, week, zones, readings, events, alerts, alert_log, gaps, rejections, daily)
+    for z in zones:
+        sw.models[z.id] = zone_model(store, z, week)
+    return sw
+
+
+def zone_model(store: Store, zone: Zone, week: Week) -> ZoneModel | None:
+    spec = Spec(zone.profile, zone.positions)
+    key = spec_key(zone)
+    snap = store.snapshot_before(zone.id, week.start_s, key)
+    note = "from the model state saved before the week began"
+    if snap is None:
+        snap = store.snapshot_first_after(zone.id, week.start_s, week.end_s, key)
+        note = "from the first model state saved inside the week (no earlier state: figures cover part of the week)"
+    if snap is None:
+        return None
+    state = State.from_arrays(unpack_state(snap[1]))
+    t, air = binned_air(store.signal_rows(zone.id, ("air_c",), state.t_s, week.end_s))
+    t, air = t[t > state.t_s], air[t > state.t_s]
+    before = t <= week.start_s
+    if before.any():
+        state, _ = advance(spec, state, t[before], air[None, before])
+    t, air = t[~before], air[~before]
+    start_rows = position_rows(spec, outputs(spec, state))
+    start_air, start_t, start_product = float(state.air_c[0]), state.t_s, state.product_c[0].copy()
+    end_state, trace = advance(spec, state, t, air[None, :], trace=True) if t.size else (state, None)
+    end_rows = position_rows(spec, outputs(spec, end_state))
+    worst = worst_position(end_rows)
+    w = [p.name for p in spec.positions].index(worst)
+    lagged = []
+    held = np.concatenate(([start_air], air[:-1])) if t.size else np.empty(0)
+    dt = np.diff(np.concatenate(([start_t], t))) if t.size else np.empty(0)
+    for i, p in enumerate(spec.positions):
+        if p.probe or not t.size:
+            continue
+        lagged.append(lag_series(np.array([start_product[i]]), held[None, :], dt, p.tau_s)[0, 1:])
+    product = np.max(lagged, axis=0) if lagged else np.full(t.size, np.nan)
+    return ZoneModel(
+        start_note=note,
+        t_s=t,
+        air_c=air,
+        product_c=product,
+        trace_t_s=trace.t_s if trace is not None else np.empty(0),
+        mean_diameter_um=trace.mean_diameter_um[:, 0, w] if trace is not None else np.empty(0),
+        position=worst,
+        budget_start_pct=start_rows[worst]["budget_used_pct"],
+        budget_end_pct=end_rows[worst]["budget_used_pct"],
+        days_to_limit_end=end_rows[worst]["days_to_limit"],
+        mean_start_um=start_rows[worst]["mean_diameter_um"],
+        mean_end_um=end_rows[worst]["mean_diameter_um"],
+        limit_um=zone.profile.limit_mean_diameter_um,
+    )

@@ -1,0 +1,165 @@
+"""The summary's figures, computed with pandas from a SiteWeek. Times in the site's zone."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+
+from watcher.engine.batch import reason_class
+from watcher.report.data import ZoneModel
+
+BENCHMARKS_C = (
+    (-18.0, "-18 C (quick-frozen benchmark; not a legal limit for ice cream)"),
+    (-15.0, "-15 C (-18 C plus the 3 K allowed for brief rises in transport, a benchmark)"),
+)
+
+
+def _local(ts, tz: str) -> pd.Series:
+    return pd.to_datetime(pd.Series(ts, dtype="float64"), unit="s", utc=True).dt.tz_convert(tz)
+
+
+def _hours_above(t_s: np.ndarray, v: np.ndarray, level: float, end_s: float) -> float:
+    """Hours a held series spends above level (each sample holds until the next, the last to end_s)."""
+    if t_s.size == 0:
+        return 0.0
+    dt = np.diff(np.concatenate((t_s, [end_s])))
+    return float(dt[v > level].sum() / 3600.0)
+
+
+def temperature_table(m: ZoneModel, setpoint_c: float, end_s: float) -> pd.DataFrame:
+    rows = []
+    for name, values in (("air", m.air_c), ("product (estimated, warmest position)", m.product_c)):
+        s = pd.Series(values, dtype="float64").dropna()
+        row = {"series": name, "samples": int(s.size)}
+        if s.size:
+            q = s.quantile([0.05, 0.5, 0.95])
+            row.update(min_c=s.min(), mean_c=s.mean(), p5_c=q[0.05], median_c=q[0.5], p95_c=q[0.95], max_c=s.max())
+        levels = [(lv, label) for lv, label in BENCHMARKS_C] + [
+            (setpoint_c + 3.0, f"setpoint +3 K ({setpoint_c + 3:g} C)")
+        ]
+        for level, label in levels:
+            row[f"hours above {label}"] = _hours_above(m.t_s, np.asarray(values), level, end_s)
+        rows.append(row)
+    return pd.DataFrame(rows)
+
+
+def door_figures(ev: pd.DataFrame, tz: str, week_end: float) -> tuple[dict, pd.DataFrame]:
+    doors = ev[ev["kind"] == "door"].copy()
+    doors["open_s"] = doors["end_ts"].fillna(week_end) - doors["start_ts"]
+    by_hour = (
+        _local(doors["start_ts"], tz).dt.hour.value_counts().reindex(range(24), fill_value=0).rename("openings")
+        if len(doors)
+        else pd.Series(0, index=range(24), name="openings")
+    )
+    summary = {
+        "count": int(len(doors)),
+        "total_open_min": float(doors["open_s"].sum() / 60.0),
+        "longest_min": float(doors["open_s"].max() / 60.0) if len(doors) else 0.0,
+    }
+    return summary, by_hour.rename_axis("hour").reset_index()
+
+
+def defrost_figures(ev: pd.DataFrame, readings: pd.DataFrame, week_end: float) -> dict:
+    d = ev[ev["kind"] == "defrost"].copy()
+    if d.empty:
+        return {"count": 0, "mean_min": None, "longest_min": None, "peak_air_c": None, "inferred": 0}
+    d["dur_s"] = d["end_ts"].fillna(week_end) - d["start_ts"]
+    air = readings[readings["signal"] == "air_c"]
+    peaks = [
+        air[(air["ts"] >= r.start_ts) & (air["ts"] <= (r.end_ts if pd.notna(r.end_ts) else week_end))]["value"].max()
+        for r in d.itertuples()
+    ]
+    return {
+        "count": int(len(d)),
+        "mean_min": float(d["dur_s"].mean() / 60.0),
+        "longest_min": float(d["dur_s"].max() / 60.0),
+        "peak_air_c": float(np.nanmax(peaks)) if peaks and not all(pd.isna(peaks)) else None,
+        "inferred": int((d["source"] == "inferred").sum()),
+    }
+
+
+def event_list(ev: pd.DataFrame, kind: str, tz: str) -> pd.DataFrame:
+    x = ev[ev["kind"] == kind]
+    return pd.DataFrame(
+        {
+            "start": _local(x["start_ts"], tz).dt.strftime("%a %d %b %H:%M").values,
+            "end": [
+                "still on" if pd.isna(e) else v
+                for e, v in zip(x["end_ts"], _local(x["end_ts"].fillna(0), tz).dt.strftime("%a %H:%M"))
+            ],
+            "minutes": ((x["end_ts"] - x["start_ts"]) / 60.0).round(0).values,
+            "peak_air_c": x["peak_c"].values,
+            "excess_um": x["excess_um"].values,
+            "budget_share_pct": x["budget_share_pct"].values,
+            "cost": x["cost"].values,
+        }
+    )
+
+
+def growth_table(daily: pd.DataFrame, zone: str) -> pd.DataFrame:
+    d = daily[daily["zone"] == zone]
+    cols = ["baseline_um", "defrost_um", "door_um", "excursion_um", "unattributed_um", "total_excess_um"]
+    out = d[["day", *cols]].copy()
+    if len(out):
+        total = out[cols].sum().to_dict()
+        out = pd.concat([out, pd.DataFrame([{"day": "week", **total}])], ignore_index=True)
+    return out
+
+
+def alert_table(alerts: pd.DataFrame, tz: str) -> pd.DataFrame:
+    if alerts.empty:
+        return pd.DataFrame(
+            columns=["id", "zone", "severity", "what", "raised", "acknowledged", "minutes_to_ack", "cleared", "status"]
+        )
+    to_ack = (alerts["acked_s"] - alerts["raised_s"]) / 60.0
+    return pd.DataFrame(
+        {
+            "id": alerts["id"].values,
+            "zone": alerts["zone"].values,
+            "severity": alerts["severity"].values,
+            "what": alerts["label"].values,
+            "raised": _local(alerts["raised_s"], tz).dt.strftime("%a %d %b %H:%M").values,
+            "acknowledged": [
+                "" if pd.isna(by) else f"{by}, {t}"
+                for by, t in zip(alerts["acked_by"], _local(alerts["acked_s"].fillna(0), tz).dt.strftime("%a %H:%M"))
+            ],
+            "minutes_to_ack": to_ack.round(1).values,
+            "cleared": [
+                "" if pd.isna(c) else v
+                for c, v in zip(
+                    alerts["cleared_s"], _local(alerts["cleared_s"].fillna(0), tz).dt.strftime("%a %d %b %H:%M")
+                )
+            ],
+            "status": alerts["status"].values,
+        }
+    )
+
+
+def completeness(readings: pd.DataFrame, week_s: float) -> pd.DataFrame:
+    """Per sensor and signal: readings received against those expected at the sensor's own
+    median interval over the whole week."""
+    rows = []
+    for (zone, sensor, signal), g in readings.groupby(["zone", "sensor", "signal"]):
+        ts = np.sort(g["ts"].to_numpy())
+        periodic = signal in ("air_c", "product_c")  # doors and defrosts report on change only
+        step = float(np.median(np.diff(ts))) if periodic and ts.size > 1 else None
+        expected = int(round(week_s / step)) if step else None
+        rows.append(
+            {
+                "zone": zone,
+                "sensor": sensor,
+                "signal": signal,
+                "received": int(ts.size),
+                "median_interval_s": step,
+                "expected": expected,
+                "complete_pct": min(100.0, 100.0 * ts.size / expected) if expected else None,
+                "late": int(g["late"].sum()),
+            }
+        )
+    return pd.DataFrame(rows)
+
+
+def rejection_table(rej: pd.DataFrame) -> pd.DataFrame:
+    if rej.empty:
+        return pd.DataFrame(columns=["reason", "messages"])
+    return rej["reason"].map(reason_class).value_counts().rename_axis("reason").reset_index(name="messages")

@@ -1,0 +1,73 @@
+"""Produce a site's weekly summary: build, write the files, record it, queue it for channels
+tagged `reports` (the HTML attached). Used by `watcher report` and by the service's schedule."""
+
+from __future__ import annotations
+
+import datetime as dt
+import json
+import logging
+from pathlib import Path
+from zoneinfo import ZoneInfo
+
+from watcher.alerts.delivery import route
+from watcher.config import Config, Site
+from watcher.report.build import build
+from watcher.report.render import write
+from watcher.report.week import Week, last_complete_week
+from watcher.store.db import Store
+
+log = logging.getLogger("watcher.report")
+
+
+def produce(
+    store: Store, cfg: Config, site: Site, week: Week, now_s: float, out_dir: str, formats, send: bool, auto: bool
+) -> list[Path]:
+    report = build(store, cfg, site, week, now_s)
+    paths = write(report, out_dir, formats)
+    html_path = next((p for p in paths if p.suffix == ".html"), None)
+    with store.atomic():
+        store.conn.execute(
+            "INSERT INTO reports (site, week, generated_s, heads, digest, files) VALUES (?,?,?,?,?,?)",
+            (
+                site.id,
+                week.label,
+                now_s,
+                json.dumps(report.heads),
+                report.digest,
+                json.dumps({"paths": [str(p) for p in paths], "auto": auto}),
+            ),
+        )
+        if send:
+            store.outbox_add(
+                f"Weekly texture summary {week.label}: {site.name or site.id}",
+                report.summary
+                + "\n\nThe full summary is attached (HTML; opens in any browser, prints on A4 or Letter).",
+                ["reports"],
+                now_s,
+                route(list(cfg.channels), ["reports"]),
+                dedupe=f"report:{site.id}:{week.label}:{'auto' if auto else now_s}",
+                attach=str(html_path.resolve()) if html_path else None,
+            )
+    log.info("weekly summary %s for %s written: %s", week.label, site.id, ", ".join(str(p) for p in paths[:2]))
+    return paths
+
+
+def due_weeks(store: Store, cfg: Config, now_s: float) -> list[tuple[Site, Week]]:
+    """(site, week) pairs whose scheduled summary is due and not yet produced by the schedule."""
+    if not cfg.reports.enabled:
+        return []
+    out = []
+    for site in cfg.sites or (Site("site", "", "UTC"),):
+        week = last_complete_week(now_s, site.timezone)
+        end_local = dt.datetime.fromtimestamp(week.end_s, ZoneInfo(site.timezone))
+        due_day = end_local.date() + dt.timedelta(days=cfg.reports.weekday)
+        due = dt.datetime.combine(due_day, dt.time(cfg.reports.at_minutes // 60, cfg.reports.at_minutes % 60))
+        if now_s < due.replace(tzinfo=ZoneInfo(site.timezone)).timestamp():
+            continue
+        done = store.conn.execute(
+            "SELECT 1 FROM reports WHERE site = ? AND week = ? AND json_extract(files, '$.auto') = 1",
+            (site.id, week.label),
+        ).fetchone()
+        if not done:
+            out.append((site, week))
+    return out

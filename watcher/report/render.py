@@ -1,0 +1,263 @@
+"""Write a Report as self-contained HTML (inline SVG, print CSS), CSV per table, and JSON."""
+
+from __future__ import annotations
+
+import datetime as dt
+import html
+import json
+import math
+from pathlib import Path
+from zoneinfo import ZoneInfo
+
+import pandas as pd
+
+from watcher.report.build import Report
+
+FORMATS = ("html", "csv", "json")
+
+CSS = """
+:root { --ink:#1d2730; --muted:#5b6770; --rule:#d5dadd; --band:#eef3f4; --accent:#1f6f78; }
+* { box-sizing: border-box; }
+body { font: 14px/1.45 system-ui, -apple-system, "Segoe UI", Roboto, "Helvetica Neue", Arial, sans-serif;
+       color: var(--ink); margin: 0 auto; max-width: 980px; padding: 24px; }
+header { border-bottom: 3px solid var(--accent); margin-bottom: 14px; }
+header h1 { font-size: 22px; margin: 0 0 2px; }
+header p { margin: 0 0 10px; color: var(--muted); }
+h2 { font-size: 17px; margin: 26px 0 8px; border-bottom: 1px solid var(--rule); padding-bottom: 3px; }
+h3 { font-size: 14px; margin: 16px 0 6px; }
+.summary { background: var(--band); padding: 12px 14px; border-left: 4px solid var(--accent); }
+table { border-collapse: collapse; width: 100%; margin: 6px 0 12px; font-size: 12.5px; }
+th, td { padding: 3px 6px; border-bottom: 1px solid var(--rule); text-align: right; vertical-align: top; }
+th { background: var(--band); font-weight: 600; }
+th:first-child, td:first-child, td.text, th.text { text-align: left; }
+.facts { display: grid; grid-template-columns: repeat(auto-fill, minmax(210px, 1fr)); gap: 4px 16px; margin: 6px 0; }
+.facts div { border-bottom: 1px dotted var(--rule); }
+.facts b { font-weight: 600; }
+figure { margin: 8px 0; }
+figure svg { width: 100%; height: auto; }
+.note { color: var(--muted); font-size: 12px; }
+.caution { border: 1px solid #c9a227; background: #fbf6e4; padding: 8px 12px; font-size: 12.5px; }
+code { font-size: 11.5px; word-break: break-all; }
+@media print {
+  @page { margin: 14mm; }          /* A4 and Letter alike: content kept within 180 mm */
+  body { max-width: 180mm; padding: 0; font-size: 10.5pt; }
+  section.zone { break-before: page; }
+  table, figure, .facts, .caution { break-inside: avoid; }
+  .summary { -webkit-print-color-adjust: exact; print-color-adjust: exact; }
+}
+"""
+
+
+def _cell(v) -> str:
+    if v is None or (isinstance(v, float) and math.isnan(v)):
+        return ""
+    if isinstance(v, float):
+        return f"{v:.3f}" if abs(v) < 1 and v != 0 else f"{v:.1f}"
+    return html.escape(str(v))
+
+
+def table_html(df: pd.DataFrame, empty: str = "None this week.") -> str:
+    if df is None or df.empty:
+        return f'<p class="note">{html.escape(empty)}</p>'
+    head = "".join(f"<th>{html.escape(str(c)).replace('_', ' ')}</th>" for c in df.columns)
+    body = "".join(
+        "<tr>" + "".join(f"<td>{_cell(v)}</td>" for v in row) + "</tr>" for row in df.itertuples(index=False)
+    )
+    return f"<table><thead><tr>{head}</tr></thead><tbody>{body}</tbody></table>"
+
+
+def _facts(items: list[tuple[str, str]]) -> str:
+    return (
+        '<div class="facts">'
+        + "".join(f"<div>{html.escape(k)}: <b>{html.escape(v)}</b></div>" for k, v in items)
+        + "</div>"
+    )
+
+
+def _n(v, fmt=".1f", unit="") -> str:
+    return "n/a" if v is None or (isinstance(v, float) and math.isnan(v)) else f"{format(v, fmt)}{unit}"
+
+
+def _local(ts: float, tz: str) -> str:
+    return dt.datetime.fromtimestamp(ts, ZoneInfo(tz)).strftime("%Y-%m-%d %H:%M %Z")
+
+
+def _glance(r: Report) -> pd.DataFrame:
+    rows = []
+    for z in r.zones:
+        week = z.growth[z.growth["day"] == "week"]
+        g = week.iloc[0] if len(week) else None
+        rows.append(
+            {
+                "zone": z.name,
+                "setpoint C": z.setpoint_c,
+                "budget at start %": z.budget["start_pct"],
+                "budget at end %": z.budget["end_pct"],
+                "used this week %": z.budget["used_in_week_pct"],
+                "days to limit": z.budget["days_to_limit"],
+                "mean crystal um": z.budget["mean_end_um"],
+                "baseline um": None if g is None else g["baseline_um"],
+                "excess um": None if g is None else g["total_excess_um"],
+            }
+        )
+    return pd.DataFrame(rows)
+
+
+def zone_html(z, tz: str) -> str:
+    b, d, f = z.budget, z.doors, z.defrosts
+    parts = [
+        f'<section class="zone" id="zone-{html.escape(z.zone)}"><h2>{html.escape(z.name)} '
+        f'<span class="note">({html.escape(z.zone)}, setpoint {z.setpoint_c:g} C, profile {html.escape(z.profile)})</span></h2>',
+        _facts(
+            [
+                ("Texture budget at start", _n(b["start_pct"], ".1f", " %")),
+                ("at end", _n(b["end_pct"], ".1f", " %")),
+                ("Days to the limit (end of week)", _n(b["days_to_limit"], ".0f", " days")),
+                ("Mean crystal", f"{_n(b['mean_start_um'])} to {_n(b['mean_end_um'])} um (limit {b['limit_um']:g} um)"),
+                ("Worst position", str(b["position"])),
+            ]
+        ),
+        f'<p class="note">Model figures {html.escape(z.model_note)}.</p>',
+        f"<figure>{z.charts.get('trace', '')}</figure>",
+        "<h3>Temperatures</h3>",
+        table_html(z.temperatures, "No temperature readings this week."),
+        "<h3>Growth by cause</h3>",
+        '<p class="note">Baseline: growth the week would have had at the setpoint. Causes: extra growth from each '
+        "kind of event, measured after its recovery tail; unattributed: interactions and warm time that is no event. "
+        "Days whose tail is not yet covered by data are not listed.</p>",
+        table_html(z.growth, "No daily figures yet for this week."),
+        f"<figure>{z.charts.get('growth', '')}</figure>" if "growth" in z.charts else "",
+        "<h3>Door openings</h3>",
+        _facts(
+            [
+                ("Openings", str(d["count"])),
+                ("Total open", _n(d["total_open_min"], ".0f", " min")),
+                ("Longest", _n(d["longest_min"], ".1f", " min")),
+            ]
+        ),
+        f"<figure>{z.charts.get('doors', '')}</figure>" if "doors" in z.charts else "",
+        "<h3>Defrosts</h3>",
+        _facts(
+            [
+                ("Defrosts", f"{f['count']} ({f['inferred']} inferred from the air)" if f["count"] else "0"),
+                ("Mean duration", _n(f["mean_min"], ".0f", " min")),
+                ("Longest", _n(f["longest_min"], ".0f", " min")),
+                ("Peak air", _n(f["peak_air_c"], ".1f", " C")),
+            ]
+        ),
+        "<h3>Excursions</h3>",
+        table_html(z.excursions, "No excursions this week."),
+        "</section>",
+    ]
+    return "\n".join(parts)
+
+
+def to_html(r: Report) -> str:
+    tz = r.site.timezone
+    title = f"Texture watch, week {r.week.label}: {r.site.name or r.site.id}"
+    body = [
+        f"<header><h1>{html.escape(title)}</h1><p>{_local(r.week.start_s, tz)} to {_local(r.week.end_s, tz)} "
+        f"({r.week.end_s / 3600 - r.week.start_s / 3600:.0f} h). Generated {_local(r.generated_s, tz)}.</p></header>",
+        f'<p class="summary">{html.escape(r.summary)}</p>',
+        "<h2>At a glance</h2>",
+        table_html(_glance(r)),
+        *[zone_html(z, tz) for z in r.zones],
+        "<section><h2>Lots</h2>",
+        f'<p class="note">{html.escape(r.lots_note)}</p></section>',
+        "<section><h2>Alerts</h2>",
+        table_html(r.alerts, "No alerts were active this week."),
+        "</section><section><h2>Data completeness</h2>",
+        '<p class="note">Expected readings are counted at each sensor\'s own median interval over the whole week.</p>',
+        table_html(r.completeness, "No readings this week."),
+        "<h3>Gaps</h3>",
+        table_html(r.gaps, "No data gaps recorded."),
+        "<h3>Rejected messages by reason</h3>",
+        table_html(r.rejections, "No messages were rejected."),
+        "</section><section><h2>Record integrity</h2>",
+        "<p>Each chain's newest row when this summary was made. <code>watcher verify</code> recomputes the chains "
+        "and checks these values; any later change to the stored record breaks them.</p>",
+        table_html(pd.DataFrame([{"chain": k, "row": v[0], "hash": v[1]} for k, v in sorted(r.heads.items())])),
+        f"<p>Digest of this record: <code>{r.digest}</code></p>",
+        f'<p class="note">watcher {html.escape(r.versions["watcher"])}, model {html.escape(r.versions["model"])}, '
+        f"profiles: {html.escape(', '.join(r.versions['profiles']))}.</p></section>",
+        '<section><h2>Cautions</h2><div class="caution">'
+        + "".join(f"<p>{html.escape(c)}</p>" for c in r.cautions)
+        + "</div></section>",
+    ]
+    return (
+        '<!DOCTYPE html>\n<html lang="en"><head><meta charset="utf-8">'
+        '<meta name="viewport" content="width=device-width, initial-scale=1">'
+        f"<title>{html.escape(title)}</title><style>{CSS}</style></head><body>\n"
+        + "\n".join(body)
+        + "\n</body></html>\n"
+    )
+
+
+def _records(df: pd.DataFrame) -> list[dict]:
+    """Rows as dicts with full float precision (pandas' own JSON writer keeps 15 digits at most)."""
+    if df is None or not len(df):
+        return []
+    return df.astype(object).where(df.notna(), None).to_dict(orient="records")
+
+
+def _plain(o):
+    return o.item() if hasattr(o, "item") else str(o)
+
+
+def to_json(r: Report) -> dict:
+    return {
+        "site": r.site.id,
+        "site_name": r.site.name,
+        "week": r.week.label,
+        "timezone": r.site.timezone,
+        "start_s": r.week.start_s,
+        "end_s": r.week.end_s,
+        "generated_s": r.generated_s,
+        "summary": r.summary,
+        "zones": [
+            {
+                "zone": z.zone,
+                "name": z.name,
+                "setpoint_c": z.setpoint_c,
+                "profile": z.profile,
+                "model_note": z.model_note,
+                "budget": z.budget,
+                "temperatures": _records(z.temperatures),
+                "doors": z.doors,
+                "doors_by_hour": _records(z.doors_by_hour),
+                "defrosts": z.defrosts,
+                "excursions": _records(z.excursions),
+                "growth": _records(z.growth),
+            }
+            for z in r.zones
+        ],
+        "alerts": _records(r.alerts),
+        "completeness": _records(r.completeness),
+        "gaps": _records(r.gaps),
+        "rejections": _records(r.rejections),
+        "lots": r.lots_note,
+        "integrity": {"heads": r.heads, "digest": r.digest},
+        "versions": r.versions,
+        "cautions": r.cautions,
+    }
+
+
+def write(r: Report, out_dir: str | Path, formats=FORMATS) -> list[Path]:
+    out = Path(out_dir)
+    out.mkdir(parents=True, exist_ok=True)
+    stem = f"{r.site.id}-{r.week.label}"
+    paths = []
+    if "html" in formats:
+        p = out / f"{stem}.html"
+        p.write_text(to_html(r), encoding="utf-8")
+        paths.append(p)
+    if "json" in formats:
+        p = out / f"{stem}.json"
+        p.write_text(json.dumps(to_json(r), indent=2, default=_plain), encoding="utf-8")
+        paths.append(p)
+    if "csv" in formats:
+        for name, df in r.tables().items():
+            p = out / f"{stem}-{name}.csv"
+            (df if df is not None else pd.DataFrame()).to_csv(p, index=False)
+            paths.append(p)
+    return paths
