@@ -48,6 +48,8 @@ reorder_window_s = 120.0
 batch_max = 2000
 [health]
 port = {free_port()}
+[reports]
+enabled = false
 [[sites]]
 id = "kp"
 {zone_blocks}

@@ -111,3 +111,16 @@ def test_default_rules_are_valid_and_label_the_benchmark():
     )
     with pytest.raises(ValueError, match="severity"):
         Rule("x", "air_c", ">=", 0.0, "loud")
+
+
+def test_clear_waits_for_the_value_to_stay_back():
+    """With clear_for_s, a value that dips back only briefly (a door spike in the recovery)
+    keeps the alert open; it clears once the value has stayed back that long."""
+    rule = Rule("air", "air_c", ">=", -18.0, hysteresis=1.0, clear_for_s=1800.0)
+    states, acts = evaluate([rule], "z", {"air_c": -17.0}, 0.0, {}, 3600.0, 7200.0)
+    assert [a.kind for a in acts] == ["raise"]
+    for t, v in ((600.0, -20.0), (1200.0, -17.5), (1800.0, -20.0), (3000.0, -20.0)):
+        states, acts = evaluate([rule], "z", {"air_c": v}, t, states, 3600.0, 7200.0)
+        assert acts == []  # back at 600 s, warm again at 1200 s, back since 1800 s: not yet 30 min
+    states, acts = evaluate([rule], "z", {"air_c": -20.0}, 3600.0, states, 3600.0, 7200.0)
+    assert [a.kind for a in acts] == ["clear"]

@@ -123,3 +123,14 @@ def test_shape_bounds_are_respected():
     """Episodes longer than max_s are not defrosts, however regular."""
     t, air, *_ = synthetic(days=3, noise=0.1, door_rate_per_h=0.0, with_fault=False)
     assert infer_defrosts(t, air, shape=DefrostShape(max_s=10 * 60.0)) == []
+
+
+def test_regularity_with_intervals_on_the_last_histogram_edge():
+    """Starts exactly max_period_s apart fall in numpy's closed last bin; they must still give a
+    period (a regression: the bin's members were filtered with an open bound, leaving none)."""
+    from watcher.events.detect import DefrostShape, Event, _regular
+
+    shape = DefrostShape()
+    day = shape.max_period_s
+    found = _regular([Event("defrost", k * day, k * day + 1800.0, source="inferred") for k in range(4)], shape)
+    assert len(found) == 4

@@ -222,35 +222,35 @@ def calibrate(trial_path, out_path, base, form, name, as_json) -> None:
 
 
 @main.command()
-@click.option(
-    "--days",
-    type=click.FloatRange(1.0, 60.0),
-    default=14.0,
-    show_default=True,
-    help="Days of demo history to simulate.",
-)
-def demo(days) -> None:
-    """Simulate the built-in demo site (a fictional cold store) and print each zone's state."""
-    from watcher import demo as site
-    from watcher.files.profiles import load_profile
-    from watcher.simulation import simulate as run
+@click.option("--out", "out_dir", default="watcher-demo", show_default=True, help="Folder for the database and report.")
+@click.option("--no-broker", is_flag=True, help="Feed the engine in this process even when mosquitto is installed.")
+def demo(out_dir, no_broker) -> None:
+    """Run the whole pipeline on a fictional cold store: about two weeks in under a minute."""
+    import logging
+    import time
 
-    profile_ = load_profile(None)
-    zones = site.build(days=days)
-    click.echo(f"Demo site: {site.SITE_NAME} (invented data). Profile {profile_.name}.")
-    click.echo(f"Simulating {days:g} days of 1-minute air readings in {len(zones)} zones ...")
-    click.echo("")
-    for zone in zones:
-        result = run(profile_, zone.series, zone.setpoint_c)
-        click.echo(f"{zone.name} [{zone.zone_id}], setpoint {zone.setpoint_c:.0f} C: {zone.regime}")
-        for line in _figure_table(result["positions"]):
-            click.echo("  " + line)
-        click.echo("")
-    click.echo("'vs setpoint um' is the growth beyond what holding the setpoint would have caused.")
+    from watcher.demo_run import run
     from watcher.simulation import CAUTION
 
+    logging.basicConfig(level=logging.ERROR)  # the demo prints alerts itself
+    shown, began = [0.0], time.monotonic()
+
+    def progress(share: float) -> None:
+        if share - shown[0] >= 0.1 or share >= 1.0 and shown[0] < 1.0:
+            click.echo(f"  ... {share:4.0%} of the messages stored ({time.monotonic() - began:.0f} s)", err=True)
+            shown[0] = share
+
+    result = run(out_dir, not no_broker, click.echo, progress)
+    click.echo("")
+    click.echo(f"Done in {result['seconds']:.0f} s.")
+    click.echo(f"Weekly summary for {result['week']}: {result['report']}")
+    click.echo(f"Database: {result['database']}   Configuration: {result['config']}")
+    click.echo("Try next:")
+    click.echo(f"  watcher status --config {result['config']}")
+    click.echo(f"  watcher alerts --config {result['config']}")
+    click.echo(f"  watcher report --config {result['config']} --week {result['week']}")
+    click.echo(f"  watcher verify --config {result['config']}")
     click.echo(CAUTION)
-    click.echo("Next: write a series as CSV (time,air_c) and run `watcher simulate --series FILE.csv`.")
 
 
 def _config_option():

@@ -161,6 +161,8 @@ class _Reader:
 
     def get(self, key, kinds, default, expected):
         self.used.add(key)
+        if RECORDER is not None:  # the configuration reference (watcher.config_doc) is made from these
+            RECORDER.append((self.where, key, default, expected))
         if key not in self.table:
             if default is _REQUIRED:
                 self.fail(key, None, expected + " (required)")
@@ -196,6 +198,7 @@ class _Reader:
 
 
 _REQUIRED = object()
+RECORDER: list | None = None
 
 
 def _secret(file: str, r: _Reader, file_key: str, cred_key: str) -> str | None:
@@ -413,9 +416,6 @@ def _reports(r: _Reader) -> Reports:
     return reports
 
 
-RULE_KEYS = ("metric", "above", "below", "severity", "for_min", "hysteresis", "zones", "label")
-
-
 def _alerting(r: _Reader, zone_ids: set[str]) -> Alerting:
     rules = {rule.id: rule for rule in default_rules()}
     off = r.get("disable", (list,), [], "a list of rule ids")
@@ -462,14 +462,15 @@ def _alerting(r: _Reader, zone_ids: set[str]) -> Alerting:
             severity=severity,
             for_s=for_min * 60.0,
             hysteresis=hysteresis,
+            clear_for_s=rr.number("clear_after_min", base.clear_for_s / 60.0 if base else 0.0, 0.0, 7 * 1440.0) * 60.0,
             latch=metric == "budget_used_pct",  # texture damage does not heal
             label=rr.text("label", base.label if unchanged else auto_label(metric, op, threshold, for_min * 60.0)),
             zones=zones,
         )
         rr.done()
     alerting = Alerting(
-        repeat_s=r.number("repeat_min", 60.0, 1.0 / 60.0, 7 * 1440.0) * 60.0,
-        escalate_s=r.number("escalate_min", 30.0, 1.0 / 60.0, 7 * 1440.0) * 60.0,
+        repeat_s=r.number("repeat_min", 60.0, 0.1, 7 * 1440.0) * 60.0,
+        escalate_s=r.number("escalate_min", 30.0, 0.1, 7 * 1440.0) * 60.0,
         retry_first_s=r.number("retry_first_s", 30.0, 0.1, 3600.0),
         rules=tuple(rule for rid, rule in rules.items() if rid not in off),
     )

@@ -42,6 +42,7 @@ class Rule:
     latch: bool = False
     label: str = ""
     zones: tuple[str, ...] = ()  # empty: every zone
+    clear_for_s: float = 0.0  # the value must stay past the hysteresis this long before the alert clears
 
     def applies_to(self, zone: str) -> bool:
         return not self.zones or zone in self.zones
@@ -76,6 +77,7 @@ class AlertState:
     acked_s: float | None = None
     value: float | None = None
     alert_id: int | None = None  # the stored alert row, once raised
+    clearing_since_s: float | None = None  # when the value went back past the hysteresis
 
 
 @dataclass(frozen=True)
@@ -129,7 +131,10 @@ def evaluate(
                 st = AlertState(zone, rule.id)
         else:  # open or acknowledged
             st = replace(st, value=value)
-            if not rule.latch and rule.cleared(value):
+            back = not rule.latch and rule.cleared(value)
+            clearing = (st.clearing_since_s if st.clearing_since_s is not None else now_s) if back else None
+            st = replace(st, clearing_since_s=clearing)
+            if back and now_s - clearing >= rule.clear_for_s:
                 actions.append(Action("clear", zone, rule.id, rule.severity, value, now_s))
                 st = AlertState(zone, rule.id)
             elif st.status == "open":
@@ -168,7 +173,8 @@ def default_rules() -> list[Rule]:
             "<=",
             14.0,
             "warning",
-            hysteresis=2.0,
+            for_s=6 * 3600.0,  # days_to_limit follows the product temperature: a defrost is not a trend
+            hysteresis=3.0,
             label="under two weeks to the texture limit",
         ),
         Rule(
@@ -183,6 +189,7 @@ def default_rules() -> list[Rule]:
             "warning",
             for_s=1800.0,
             hysteresis=1.0,
+            clear_for_s=1800.0,  # door spikes during recovery keep it open rather than re-raising
             label="air above -18 C for 30 min (a benchmark for quick-frozen foods, not a legal limit for ice cream)",
         ),
         Rule(
@@ -193,6 +200,7 @@ def default_rules() -> list[Rule]:
             "critical",
             for_s=900.0,
             hysteresis=0.5,
+            clear_for_s=1800.0,
             label="product above -18 C (a benchmark, not a legal limit for ice cream)",
         ),
         Rule("door-open", "door_open_s", ">=", 600.0, "warning", hysteresis=599.0, label="door open over 10 min"),

@@ -23,6 +23,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+RECOVERY_TOLERANCE_K = 0.3  # sensor noise allowed while the air pulls down after a defrost
+
 
 @dataclass(frozen=True)
 class Event:
@@ -70,18 +72,25 @@ def state_intervals(t_s: np.ndarray, state: np.ndarray, kind: str) -> list[Event
 
 def _baseline(t_s: np.ndarray, air_c: np.ndarray, window_s: float, every_s: float = 600.0) -> np.ndarray:
     """A running low quantile (25 %) of the air over the preceding window: the cold, settled
-    level. Recomputed every `every_s` and held in between, so long series stay cheap."""
-    out = np.empty_like(air_c)
-    lo = 0
-    last_t = -np.inf
-    value = float(air_c[0])
-    for i, t in enumerate(t_s):
-        if t - last_t >= every_s:
-            while t_s[lo] < t - window_s:
-                lo += 1
-            value = float(np.percentile(air_c[lo : i + 1], 25))
-            last_t = t
-        out[i] = value
+    level. Recomputed every `every_s` and held in between. The window start is found by time;
+    the quantiles of all refresh points are taken in one vectorised call per window length."""
+    n = t_s.size
+    refresh = [0]
+    for i in range(1, n):  # the samples where the value is recomputed
+        if t_s[i] - t_s[refresh[-1]] >= every_s:
+            refresh.append(i)
+    idx = np.array(refresh)
+    lo = np.searchsorted(t_s, t_s[idx] - window_s, side="left")
+    values = np.empty(idx.size)
+    lengths = idx - lo + 1
+    for length in np.unique(lengths):  # regular data: one or two distinct lengths
+        sel = lengths == length
+        windows = np.lib.stride_tricks.sliding_window_view(air_c, int(length))[lo[sel]]
+        values[sel] = np.percentile(windows, 25, axis=1)
+    out = np.empty_like(air_c, dtype=float)
+    bounds = np.append(idx, n)
+    for k in range(idx.size):
+        out[bounds[k] : bounds[k + 1]] = values[k]
     return out
 
 
@@ -143,7 +152,8 @@ def _regular(candidates: list[Event], shape: DefrostShape) -> list[Event]:
     bins = np.arange(shape.min_period_s, shape.max_period_s + 600.0, 600.0)
     counts, edges = np.histogram(diffs, bins=bins)
     best = int(np.argmax(counts))
-    in_bin = diffs[(diffs >= edges[best]) & (diffs < edges[best + 1])]
+    last = best == counts.size - 1  # numpy's last bin includes its right edge
+    in_bin = diffs[(diffs >= edges[best]) & ((diffs < edges[best + 1]) | (last & (diffs == edges[best + 1])))]
     period = float(np.median(in_bin))
     tol = max(600.0, shape.period_tolerance * period)
     kept = []
@@ -155,9 +165,20 @@ def _regular(candidates: list[Event], shape: DefrostShape) -> list[Event]:
 
 
 def excursions(
-    t_s, air_c, setpoint_c: float, explained: list[Event], excursion_k: float = 3.0, min_s: float = 20 * 60.0
+    t_s,
+    air_c,
+    setpoint_c: float,
+    explained: list[Event],
+    excursion_k: float = 3.0,
+    min_s: float = 20 * 60.0,
+    defrost_recovery_s: float = 45 * 60.0,
 ) -> list[Event]:
-    """Warm periods above setpoint + excursion_k for at least min_s, not explained by doors or defrosts."""
+    """Warm periods above setpoint + excursion_k for at least min_s, not explained by doors or
+    defrosts: explained when door openings and defrosts cover at least half of the period. A
+    defrost also explains the air's pull-down after it ends, for up to defrost_recovery_s while
+    the air is falling (no warmer than when the defrost ended). Door openings explain only the
+    time the door is open: a fault that keeps warming between door openings must not hide
+    behind them, so a burst of openings can show as an excursion (a loading operation)."""
     t = np.asarray(t_s, float)
     air = np.asarray(air_c, float)
     if t.size < 2:
@@ -168,12 +189,17 @@ def excursions(
         end = float(t[j]) if j < t.size - 1 else None
         if (t[j] - t[i]) < min_s:
             continue
-        # Explained only if door or defrost intervals cover most of it.
-        covered = 0.0
+        seg, warm = t[i : j + 1], air[i : j + 1]
+        mask = np.zeros(seg.size, bool)
         for e in explained:
             e_end = e.end_s if e.end_s is not None else float(t[-1])
-            covered += max(0.0, min(e_end, float(t[j])) - max(e.start_s, start))
-        if covered >= 0.5 * (t[j] - t[i]):
+            mask |= (seg >= e.start_s) & (seg <= e_end)
+            if e.kind == "defrost":
+                after = (seg > e_end) & (seg <= e_end + defrost_recovery_s)
+                if after.any():
+                    mask |= after & (warm <= float(np.interp(e_end, t, air)) + RECOVERY_TOLERANCE_K)
+        held = np.diff(np.append(seg, seg[-1]))  # each sample holds until the next
+        if held[mask].sum() >= 0.5 * (t[j] - t[i]):
             continue
-        out.append(Event("excursion", start, end, float(np.max(air[i : j + 1])), "inferred"))
+        out.append(Event("excursion", start, end, float(np.max(warm)), "inferred"))
     return out

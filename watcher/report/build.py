@@ -109,12 +109,12 @@ def summary_text(
         )
     if len(alerts):
         acked = alerts["minutes_to_ack"].dropna()
-        still = int((alerts["status"] != "cleared").sum())
+        still = int(alerts["open_at_week_end"].sum())
         parts.append(
             (f"{len(alerts)} alerts were active" if len(alerts) != 1 else "1 alert was active")
             + f"; {len(acked)} acknowledged"
             + (f" (median {acked.median():.0f} min)" if len(acked) else "")
-            + f", {still} not cleared at the end of the week."
+            + f", {still} still open at the end of the week."
         )
     else:
         parts.append("No alerts were active.")
@@ -175,7 +175,7 @@ def zone_section(sw: SiteWeek, zone) -> ZoneSection:
 def build(store: Store, cfg: Config, site: Site, week: Week, generated_s: float) -> Report:
     sw = load(store, cfg, site, week)
     zones = [zone_section(sw, z) for z in sw.zones]
-    alerts = alert_table(sw.alerts, site.timezone)
+    alerts = alert_table(sw.alerts, site.timezone, week.end_s)
     comp = completeness(sw.readings, week.end_s - week.start_s)
     gaps = sw.gaps.assign(minutes=(sw.gaps["seconds"] / 60.0).round(1)) if len(sw.gaps) else sw.gaps
     heads = chain.heads(store.conn)

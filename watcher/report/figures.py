@@ -106,11 +106,10 @@ def growth_table(daily: pd.DataFrame, zone: str) -> pd.DataFrame:
     return out
 
 
-def alert_table(alerts: pd.DataFrame, tz: str) -> pd.DataFrame:
+def alert_table(alerts: pd.DataFrame, tz: str, week_end_s: float) -> pd.DataFrame:
     if alerts.empty:
-        return pd.DataFrame(
-            columns=["id", "zone", "severity", "what", "raised", "acknowledged", "minutes_to_ack", "cleared", "status"]
-        )
+        columns = ["id", "zone", "severity", "what", "raised", "acknowledged", "minutes_to_ack", "cleared", "status"]
+        return pd.DataFrame(columns=[*columns, "open_at_week_end"])
     to_ack = (alerts["acked_s"] - alerts["raised_s"]) / 60.0
     return pd.DataFrame(
         {
@@ -131,6 +130,7 @@ def alert_table(alerts: pd.DataFrame, tz: str) -> pd.DataFrame:
                 )
             ],
             "status": alerts["status"].values,
+            "open_at_week_end": (alerts["cleared_s"].isna() | (alerts["cleared_s"] >= week_end_s)).values,
         }
     )
 

@@ -1,0 +1,55 @@
+"""`watcher demo`, the README's first command: the real pipeline on the invented site, through
+a real local broker, and the same without one."""
+
+from __future__ import annotations
+
+import sqlite3
+import subprocess
+import sys
+
+
+def demo(folder, *args) -> subprocess.CompletedProcess:
+    return subprocess.run(
+        [sys.executable, "-m", "watcher", "demo", "--out", str(folder), *args],
+        capture_output=True,
+        text=True,
+        timeout=300,
+    )
+
+
+def facts(folder) -> tuple[set, dict, int]:
+    with sqlite3.connect(folder / "watcher.db") as db:
+        alerts = set(db.execute("SELECT zone, rule FROM alerts"))
+        events = dict(db.execute("SELECT zone || '/' || kind, count(*) FROM events GROUP BY zone, kind"))
+        readings = db.execute("SELECT count(*) FROM readings").fetchone()[0]
+    return alerts, events, readings
+
+
+def test_demo_through_a_broker_and_without_one(tmp_path):
+    broker_run = demo(tmp_path / "broker")
+    assert broker_run.returncode == 0, broker_run.stderr[-3000:]
+    out = broker_run.stdout
+    assert "Through a private mosquitto" in out and "Kestrel Point" in out
+    assert "ALERT WARNING    dispatch   air above -18 C" in out  # printed as it fired
+    assert "Weekly summary for 20" in out and "watcher status --config" in out
+    assert "% of the messages stored" in broker_run.stderr  # progress
+    report = next((tmp_path / "broker" / "reports").glob("kestrel-*.html"))
+    assert report.stat().st_size > 50_000 and "<svg" in report.read_text()
+    alerts, events, readings = facts(tmp_path / "broker")
+    published = int(out.split("sensor messages (")[1].split(")")[0].replace(",", ""))
+    assert readings == published  # every message stored
+    assert ("dispatch", "event-cost") in alerts and events["dispatch/excursion"] >= 1
+    assert events["hardening/defrost"] >= 7  # inferred, about one a day
+    verify = subprocess.run(
+        [sys.executable, "-m", "watcher", "verify", "--config", str(tmp_path / "broker" / "watcher.toml")],
+        capture_output=True,
+        text=True,
+        timeout=120,
+    )
+    assert verify.returncode == 0 and "Record intact" in verify.stdout
+
+    local_run = demo(tmp_path / "local", "--no-broker")
+    assert local_run.returncode == 0 and "feeding the engine in this process" in local_run.stdout
+    local_alerts, local_events, local_readings = facts(tmp_path / "local")
+    assert local_readings == published
+    assert local_alerts == alerts and local_events == events  # nothing of the model, alerts or events lost
