@@ -11,6 +11,7 @@ import datetime as dt
 import json
 from pathlib import Path
 
+from tests.service_harness import write_secret
 from watcher.config import config_from_dict
 from watcher.engine.batch import Engine, Message
 from watcher.store.db import Store
@@ -23,8 +24,7 @@ def ts(y, mo, d, h=0, mi=0) -> float:
 
 
 def site_config(folder: Path, tz: str = "Europe/London"):
-    (folder / "pw").write_text("x")
-    (folder / "pw").chmod(0o600)
+    write_secret(folder / "pw", "x")
     return config_from_dict(
         {
             "broker": {"password_file": str(folder / "pw")},

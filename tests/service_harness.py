@@ -26,6 +26,13 @@ time_format = "epoch_s"
 """
 
 
+def write_secret(path: Path, text: str) -> Path:
+    """A file holding a secret, readable by its owner only (as watcher expects)."""
+    path.write_text(text)
+    path.chmod(0o600)
+    return path
+
+
 def write_config(
     folder: Path,
     broker: Broker,
@@ -77,8 +84,7 @@ signal = "door"
 format = "number"
 {extra}
 """
-    (folder / "watcher-password").write_text(broker.PASSWORD + "\n")
-    (folder / "watcher-password").chmod(0o600)
+    write_secret(folder / "watcher-password", broker.PASSWORD + "\n")
     path = folder / "watcher.toml"
     path.write_text(text)
     return path

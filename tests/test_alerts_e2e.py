@@ -13,7 +13,7 @@ import time
 
 from tests.broker import free_port
 from tests.receivers import Receiver, SmtpReceiver
-from tests.service_harness import T0, Publisher, WatcherProcess, wait_for, write_config
+from tests.service_harness import T0, Publisher, WatcherProcess, wait_for, write_config, write_secret
 from watcher.alerts.policy import default_rules
 
 KEEP = ("door-open", "defrost-long", "air-benchmark")
@@ -21,10 +21,8 @@ ZONE = "dispatch"
 
 
 def alert_config(tmp_path, broker, mail_url: str, hook_url: str, retry_s: float = 1.0) -> str:
-    (tmp_path / "mail.url").write_text(mail_url)
-    (tmp_path / "hook.url").write_text(hook_url)
-    for f in ("mail.url", "hook.url"):
-        (tmp_path / f).chmod(0o600)
+    write_secret(tmp_path / "mail.url", mail_url)
+    write_secret(tmp_path / "hook.url", hook_url)
     off = ", ".join(f'"{r.id}"' for r in default_rules() if r.id not in KEEP)
     extra = f"""
 [alerts]
@@ -41,6 +39,7 @@ hysteresis = 2699
 [[alerts.rules]]
 id = "air-benchmark"
 for_min = 10
+clear_after_min = 5
 
 [[notify]]
 name = "qa-mail"
@@ -253,8 +252,7 @@ def test_broker_outage_alert_goes_out_while_mqtt_is_down(tmp_path, broker):
     """The broker stops: the `broker-down` alert reaches the webhook without MQTT, and the
     clear notice follows when the broker is back."""
     hook = Receiver()
-    (tmp_path / "hook.url").write_text(hook.url())
-    (tmp_path / "hook.url").chmod(0o600)
+    write_secret(tmp_path / "hook.url", hook.url())
     off = ", ".join(f'"{r.id}"' for r in default_rules() if r.id != "broker-down")
     extra = f"""
 [alerts]
@@ -311,8 +309,7 @@ def test_service_sends_the_weekly_summary_once(tmp_path, broker):
     """With the schedule due, `watcher run` writes the last complete week's summary, mails it
     with the HTML attached, and does not produce that week again after a restart."""
     smtp = SmtpReceiver()
-    (tmp_path / "mail.url").write_text(smtp.url())
-    (tmp_path / "mail.url").chmod(0o600)
+    write_secret(tmp_path / "mail.url", smtp.url())
     extra = f"""
 [[notify]]
 name = "qa-mail"

@@ -156,15 +156,6 @@ def test_calibrate_writes_a_profile_that_simulate_accepts(tmp_path):
     assert "Each temperature on its own" in text and "residual" in text
 
 
-def test_demo_runs_the_built_in_site():
-    """The demo simulates the three zones of the fictional site and ends with what to try next."""
-    code, out = run("demo", "--days", "3")
-    assert code == 0
-    for zone in ("Hardening room", "Bulk store A", "Dispatch freezer"):
-        assert zone in out
-    assert "invented data" in out and "Next:" in out
-
-
 def test_console_script_is_a_real_process(tmp_path):
     """The installed `watcher` entry point runs as a process with the documented exit codes."""
     ok = subprocess.run(

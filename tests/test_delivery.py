@@ -5,7 +5,8 @@ import time
 import pytest
 
 from tests.receivers import Receiver, SmtpReceiver
-from watcher.alerts.delivery import Channel, Notifier, deliver_due, route
+from watcher.alerts.channels import Channel, route
+from watcher.alerts.delivery import Notifier, deliver_due
 from watcher.store.db import Store
 
 

@@ -6,6 +6,7 @@ import random
 import numpy as np
 import pytest
 
+from tests.service_harness import write_secret
 from watcher.config import config_from_dict
 from watcher.engine.batch import Engine, Message
 from watcher.store.db import Store
@@ -16,8 +17,7 @@ NOW = T0 + 30 * 86400
 
 def make(tmp_path, reorder=600.0, name="w.db", storage=None, ingest=None, zones=None):
     """A configuration, a real SQLite store and an engine in tmp_path."""
-    (tmp_path / "pw").write_text("x")
-    (tmp_path / "pw").chmod(0o600)
+    write_secret(tmp_path / "pw", "x")
     cfg = config_from_dict(
         {
             "broker": {"password_file": str(tmp_path / "pw")},

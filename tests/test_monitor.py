@@ -10,6 +10,7 @@ import sqlite3
 import numpy as np
 import pytest
 
+from tests.service_harness import write_secret
 from tests.test_engine import NOW, T0
 from watcher.alerts.policy import default_rules
 from watcher.config import config_from_dict
@@ -21,8 +22,7 @@ EXCURSION = (T0 + 1.5 * DAY, T0 + 1.5 * DAY + 4 * 3600)  # a 4-hour fault, +8 K
 
 
 def make(tmp_path, rules=(), keep=(), channels=(), zones=None):
-    (tmp_path / "pw").write_text("x")
-    (tmp_path / "pw").chmod(0o600)
+    write_secret(tmp_path / "pw", "x")
     notify = []
     for name, url, tags in channels:
         (tmp_path / f"{name}.url").write_text(url)

@@ -13,7 +13,8 @@ import numpy as np
 import pytest
 
 from tests.report_site import play_site, ts
-from watcher.report.produce import due_weeks, produce
+from watcher.report.produce import produce
+from watcher.report.schedule import due_weeks
 from watcher.report.week import week_of
 from watcher.store import chain
 

@@ -15,7 +15,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
-from watcher.alerts.delivery import Channel, usable
+from watcher.alerts.channels import Channel
 from watcher.alerts.messages import auto_label
 from watcher.alerts.policy import METRICS, SEVERITIES, Rule, default_rules
 from watcher.errors import ConfigError, ProfileError
@@ -509,6 +509,8 @@ def _channels(root: _Reader) -> tuple[Channel, ...]:
         tags = r.get("tags", (list,), ["alerts"], "a list of tags such as alerts, critical, escalation, reports")
         if not tags or not all(isinstance(t, str) and t for t in tags):
             r.fail("tags", tags, "a non-empty list of tag names")
+        from watcher.alerts.delivery import usable  # apprise loads only when channels are configured
+
         if not usable(url):
             r.fail("url_file", "(not shown)", "a file holding one URL that apprise can use")
         out.append(Channel(name, url, tuple(tags), r.number("min_interval_s", None, 0.0, 3600.0)))

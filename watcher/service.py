@@ -239,12 +239,14 @@ class Service:
     def _report_loop(self) -> None:
         """Produce each site's weekly summary once it is due ([reports] weekday and time, in the
         site's zone); recorded in the database, so a restart never produces a week twice."""
-        from watcher.report.produce import due_weeks, produce  # pandas and matplotlib load here only
+        from watcher.report.schedule import due_weeks
 
         store = Store(self.config.storage.path)
         while not self.stopping.is_set():
             try:
                 for site, week in due_weeks(store, self.config, time.time()):
+                    from watcher.report.produce import produce  # pandas and matplotlib load only now
+
                     produce(
                         store,
                         self.config,

@@ -12,31 +12,16 @@ privacy-masked form is ever logged.
 from __future__ import annotations
 
 import logging
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 
 import apprise
 
+from watcher.alerts.channels import Channel
 from watcher.store.db import Store
 
 log = logging.getLogger("watcher.delivery")
 RETRY_FIRST_S = 30.0
 RETRY_MAX_S = 3600.0
-
-
-@dataclass(frozen=True)
-class Channel:
-    name: str
-    url: str = field(repr=False)
-    tags: tuple[str, ...] = ("alerts",)
-    min_interval_s: float | None = None  # None: apprise's own spacing for the service (about 5.5 s)
-
-
-def route(channels: list[Channel], tags: list[str], exclude: set[str] = frozenset()) -> list[str | None]:
-    """Names of the channels that carry any of `tags` ("all" reaches every channel), minus
-    `exclude`; [None] when none does, so the message is still recorded (as unrouted)."""
-    wanted = set(tags)
-    names = [c.name for c in channels if c.name not in exclude and ("all" in wanted or wanted & set(c.tags))]
-    return names or [None]
 
 
 @dataclass(frozen=True)

@@ -17,20 +17,12 @@ from watcher.config import Config
 from watcher.engine.monitor import Monitor
 from watcher.engine.zones import ZoneRunner, spec_key
 from watcher.errors import InputError
+from watcher.ingest.message import Message
 from watcher.ingest.payload import Reading, Rejected, parse_message
 from watcher.store.db import Store, ZoneRow
 
 log = logging.getLogger("watcher.engine")
 FEED_AT_PENDING = 5000  # readings waiting in a zone before it is fed between checkpoints
-
-
-@dataclass(frozen=True)
-class Message:
-    topic: str
-    payload: bytes
-    received_ts: float
-    mid: int = 0
-    qos: int = 0
 
 
 @dataclass
@@ -182,6 +174,7 @@ class Engine:
 
     def _reload(self, touched: set[str]) -> None:
         """After a failed commit: memory must not run ahead of the record."""
+        self.store.forget_heads()
         self._load(touched)
         self.monitor = Monitor(self.config, self.store)
 

@@ -15,7 +15,7 @@ import math
 from dataclasses import asdict, dataclass, field, replace
 
 from watcher.alerts import messages
-from watcher.alerts.delivery import route
+from watcher.alerts.channels import route
 from watcher.alerts.policy import WALL_CLOCK_METRICS, AlertState, Rule, acknowledge, evaluate
 from watcher.config import Config
 from watcher.engine.analysis import CONTEXT_S, analyse, take_snapshot
@@ -63,8 +63,19 @@ def _state_from(d: dict) -> AlertState:
     return AlertState(**{k: v for k, v in d.items() if k in AlertState.__dataclass_fields__})
 
 
-def _comparable(st: AlertState) -> AlertState:
-    return replace(st, value=None)
+def _comparable(st: AlertState) -> tuple:
+    """The fields worth saving when they change (the observed value changes every batch)."""
+    return (
+        st.status,
+        st.since_s,
+        st.raised_s,
+        st.notified_s,
+        st.escalated,
+        st.acked_by,
+        st.acked_s,
+        st.alert_id,
+        st.clearing_since_s,
+    )
 
 
 def parse_ack(payload: bytes) -> tuple[int, str, str | None]:
@@ -208,11 +219,14 @@ class Monitor:
     # --- lifecycle ---------------------------------------------------------------------------------
     def _evaluate(self, rules: list[Rule], zone: str, obs: dict, now_s: float, wall_s: float) -> None:
         a = self.config.alerting
-        new, actions = evaluate(rules, zone, obs, now_s, self.states, a.repeat_s, a.escalate_s)
+        mine = {(zone, r.id): self.states[(zone, r.id)] for r in rules if (zone, r.id) in self.states}
+        new, actions = evaluate(rules, zone, obs, now_s, mine, a.repeat_s, a.escalate_s)
         for key, st in new.items():
-            if _comparable(st) != _comparable(self.states.get(key, AlertState(*key))):
-                self.states[key] = st
-                self.store.save_alert_state(*key, asdict(st))
+            old = self.states.get(key)
+            if old is None or _comparable(st) != _comparable(old):
+                if old is not None or st.status != "quiet":
+                    self.store.save_alert_state(*key, asdict(st))
+            self.states[key] = st
         by_id = {r.id: r for r in rules}
         for act in actions:
             self._act(act, by_id[act.rule], obs, wall_s)

@@ -23,7 +23,7 @@ import threading
 import time
 
 from watcher.config import Broker
-from watcher.engine.batch import Message
+from watcher.ingest.message import Message
 
 log = logging.getLogger("watcher.mqtt")
 _RELAY_EVERY_S = 0.005

@@ -1,19 +1,18 @@
 """Produce a site's weekly summary: build, write the files, record it, queue it for channels
-tagged `reports` (the HTML attached). Used by `watcher report` and by the service's schedule."""
+tagged `reports` (the HTML attached). Used by `watcher report` and by the service's schedule
+(watcher.report.schedule decides when)."""
 
 from __future__ import annotations
 
-import datetime as dt
 import json
 import logging
 from pathlib import Path
-from zoneinfo import ZoneInfo
 
-from watcher.alerts.delivery import route
+from watcher.alerts.channels import route
 from watcher.config import Config, Site
 from watcher.report.build import build
 from watcher.report.render import write
-from watcher.report.week import Week, last_complete_week
+from watcher.report.week import Week
 from watcher.store.db import Store
 
 log = logging.getLogger("watcher.report")
@@ -50,24 +49,3 @@ def produce(
             )
     log.info("weekly summary %s for %s written: %s", week.label, site.id, ", ".join(str(p) for p in paths[:2]))
     return paths
-
-
-def due_weeks(store: Store, cfg: Config, now_s: float) -> list[tuple[Site, Week]]:
-    """(site, week) pairs whose scheduled summary is due and not yet produced by the schedule."""
-    if not cfg.reports.enabled:
-        return []
-    out = []
-    for site in cfg.sites or (Site("site", "", "UTC"),):
-        week = last_complete_week(now_s, site.timezone)
-        end_local = dt.datetime.fromtimestamp(week.end_s, ZoneInfo(site.timezone))
-        due_day = end_local.date() + dt.timedelta(days=cfg.reports.weekday)
-        due = dt.datetime.combine(due_day, dt.time(cfg.reports.at_minutes // 60, cfg.reports.at_minutes % 60))
-        if now_s < due.replace(tzinfo=ZoneInfo(site.timezone)).timestamp():
-            continue
-        done = store.conn.execute(
-            "SELECT 1 FROM reports WHERE site = ? AND week = ? AND json_extract(files, '$.auto') = 1",
-            (site.id, week.label),
-        ).fetchone()
-        if not done:
-            out.append((site, week))
-    return out

@@ -25,10 +25,7 @@ EVENT_LOG_FIELDS = ("event_id", "op", "zone", "kind", "start_ts", "end_ts", "det
 
 def chain_hash(prev, *fields) -> str:
     """SHA-256 over the previous hash and the fields' exact text (repr keeps every float bit)."""
-    h = hashlib.sha256((prev or "").encode())
-    for f in fields:
-        h.update(b"\x1f" + repr(f).encode())
-    return h.hexdigest()
+    return hashlib.sha256(((prev or "") + "".join("\x1f" + repr(f) for f in fields)).encode()).hexdigest()
 
 
 def register(conn) -> None:

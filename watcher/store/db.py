@@ -26,6 +26,10 @@ from watcher.store.outbox import OutboxRows
 
 BUSY_TIMEOUT_MS = 30_000
 READING_INSERT = chain.insert_sql("readings", chain.READING_FIELDS, zone_scoped=True, verb="INSERT OR IGNORE")
+READING_INSERT_CHAINED = (
+    f"INSERT OR IGNORE INTO readings ({', '.join(chain.READING_FIELDS)}, chain) "
+    f"VALUES ({', '.join('?' * (len(chain.READING_FIELDS) + 1))})"
+)
 PAYLOAD_KEEP_BYTES = 512
 migrations = Migrations("watcher")
 
@@ -205,6 +209,8 @@ class Store(OutboxRows, AlertRows, EventRows):
 
     def __init__(self, path: str, readonly: bool = False):
         self.path = path
+        self._heads: dict[str, str | None] = {}  # readings chain heads, valid while data_version holds
+        self._heads_version = None
         try:
             if not readonly:
                 Path(path).parent.mkdir(parents=True, exist_ok=True)
@@ -229,6 +235,7 @@ class Store(OutboxRows, AlertRows, EventRows):
 
     def insert_reading(self, reading, received_ts: float, topic: str, late: bool) -> bool:
         """Insert one reading; False when its natural key is already stored (a duplicate)."""
+        self._heads.pop(reading.zone, None)  # chained in SQL: the cached head moves
         values = (
             reading.zone,
             reading.sensor,
@@ -244,22 +251,40 @@ class Store(OutboxRows, AlertRows, EventRows):
 
     def insert_readings_all_new(self, items) -> bool:
         """Insert (reading, received_ts, topic) rows in one statement if none is stored yet;
-        otherwise insert nothing and return False (the caller goes row by row)."""
+        otherwise insert nothing and return False (the caller goes row by row).
+
+        The chain is computed here in Python from each zone's stored head (a callback from
+        SQLite per row costs more). That is safe with other writers: in WAL mode a write from a
+        stale snapshot fails (SQLITE_BUSY_SNAPSHOT), the batch is retried and re-reads the heads.
+        """
         self.conn.execute("SAVEPOINT bulk")
+        version = self.conn.execute("PRAGMA data_version").fetchone()[0]
+        if version != self._heads_version:  # another connection has committed: heads may have moved
+            self._heads, self._heads_version = {}, version
+        heads = {}
+        for zone in {r.zone for r, _, _ in items}:
+            if zone not in self._heads:
+                row = self.conn.execute("SELECT chain FROM readings WHERE zone = ? ORDER BY id DESC LIMIT 1", (zone,))
+                self._heads[zone] = (row.fetchone() or (None,))[0]
+            heads[zone] = self._heads[zone]
+        rows = []
+        for r, rts, topic in items:
+            values = (r.zone, r.sensor, r.signal, r.ts, r.value, rts, topic, 0)
+            heads[r.zone] = chain.chain_hash(heads[r.zone], *values)
+            rows.append((*values, heads[r.zone]))
         before = self.conn.total_changes
-        self.conn.executemany(
-            READING_INSERT,
-            [
-                chain.params((r.zone, r.sensor, r.signal, r.ts, r.value, rts, topic, 0), r.zone)
-                for r, rts, topic in items
-            ],
-        )
+        self.conn.executemany(READING_INSERT_CHAINED, rows)
         if self.conn.total_changes - before == len(items):
             self.conn.execute("RELEASE SAVEPOINT bulk")
+            self._heads.update(heads)
             return True
         self.conn.execute("ROLLBACK TO SAVEPOINT bulk")
         self.conn.execute("RELEASE SAVEPOINT bulk")
         return False
+
+    def forget_heads(self) -> None:
+        """After a failed transaction: the cached chain heads may name rows that were rolled back."""
+        self._heads, self._heads_version = {}, None
 
     def insert_rejection(self, received_ts: float, topic: str, reason: str, payload: bytes) -> None:
         text = payload[:PAYLOAD_KEEP_BYTES].decode("utf-8", errors="backslashreplace")
@@ -301,6 +326,7 @@ class Store(OutboxRows, AlertRows, EventRows):
 
     def downsample(self, zone: str, upto_ts: float) -> int:
         """Fold a zone's raw readings with ts <= upto_ts into hourly aggregates; return how many."""
+        self.forget_heads()
         self.conn.execute(
             "INSERT INTO readings_hourly (zone, sensor, signal, hour_ts, mean, min, max, n) "
             "SELECT zone, sensor, signal, CAST(ts / 3600 AS INTEGER) * 3600.0, avg(value), min(value), max(value), count(*) "

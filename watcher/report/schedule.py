@@ -1,0 +1,32 @@
+"""When each site's weekly summary is due. Light: no pandas, so the service can ask every
+minute without loading the reporting stack."""
+
+from __future__ import annotations
+
+import datetime as dt
+from zoneinfo import ZoneInfo
+
+from watcher.config import Config, Site
+from watcher.report.week import Week, last_complete_week
+from watcher.store.db import Store
+
+
+def due_weeks(store: Store, cfg: Config, now_s: float) -> list[tuple[Site, Week]]:
+    """(site, week) pairs whose scheduled summary is due and not yet produced by the schedule."""
+    if not cfg.reports.enabled:
+        return []
+    out = []
+    for site in cfg.sites or (Site("site", "", "UTC"),):
+        week = last_complete_week(now_s, site.timezone)
+        end_local = dt.datetime.fromtimestamp(week.end_s, ZoneInfo(site.timezone))
+        due_day = end_local.date() + dt.timedelta(days=cfg.reports.weekday)
+        due = dt.datetime.combine(due_day, dt.time(cfg.reports.at_minutes // 60, cfg.reports.at_minutes % 60))
+        if now_s < due.replace(tzinfo=ZoneInfo(site.timezone)).timestamp():
+            continue
+        done = store.conn.execute(
+            "SELECT 1 FROM reports WHERE site = ? AND week = ? AND json_extract(files, '$.auto') = 1",
+            (site.id, week.label),
+        ).fetchone()
+        if not done:
+            out.append((site, week))
+    return out
