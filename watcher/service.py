@@ -221,12 +221,12 @@ class Service:
             log.warning("%d notifications were cut off by a restart mid-send; sending them again", again)
         channels, notifier = None, None
         while not self.stopping.is_set():
-            if self.config.channels != channels:
-                channels = self.config.channels
-                notifier = Notifier(list(channels))
-                for name, url in notifier.describe().items():
-                    log.info("notification channel %s: %s", name, url)
             try:
+                if self.config.channels != channels:
+                    notifier = Notifier(list(self.config.channels))
+                    channels = self.config.channels
+                    for name, url in notifier.describe().items():
+                        log.info("notification channel %s: %s", name, url)
                 counts = deliver_due(store, notifier, time.time(), retry_first_s=self.config.alerting.retry_first_s)
                 for kind, n in counts.items():
                     self.metrics.notifications.labels(kind).inc(n)
