@@ -6,11 +6,14 @@ from __future__ import annotations
 import sqlite3
 import subprocess
 import sys
+import time
+
+NOW = str(time.time() // 60 * 60)  # both runs end their data at the same moment
 
 
 def demo(folder, *args) -> subprocess.CompletedProcess:
     return subprocess.run(
-        [sys.executable, "-m", "watcher", "demo", "--out", str(folder), *args],
+        [sys.executable, "-m", "watcher", "demo", "--out", str(folder), "--now", NOW, *args],
         capture_output=True,
         text=True,
         timeout=300,

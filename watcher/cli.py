@@ -224,7 +224,8 @@ def calibrate(trial_path, out_path, base, form, name, as_json) -> None:
 @main.command()
 @click.option("--out", "out_dir", default="watcher-demo", show_default=True, help="Folder for the database and report.")
 @click.option("--no-broker", is_flag=True, help="Feed the engine in this process even when mosquitto is installed.")
-def demo(out_dir, no_broker) -> None:
+@click.option("--now", "now_s", type=float, default=None, hidden=True, help="End of the demo data (epoch s; tests).")
+def demo(out_dir, no_broker, now_s) -> None:
     """Run the whole pipeline on a fictional cold store: about two weeks in under a minute."""
     import logging
     import time
@@ -240,7 +241,7 @@ def demo(out_dir, no_broker) -> None:
             click.echo(f"  ... {share:4.0%} of the messages stored ({time.monotonic() - began:.0f} s)", err=True)
             shown[0] = share
 
-    result = run(out_dir, not no_broker, click.echo, progress)
+    result = run(out_dir, not no_broker, click.echo, progress, now_s)
     click.echo("")
     click.echo(f"Done in {result['seconds']:.0f} s.")
     click.echo(f"Weekly summary for {result['week']}: {result['report']}")

@@ -66,12 +66,18 @@ class AlertPrinter:
         return len(rows)
 
 
-def run(out_dir: str, use_broker: bool, say: Callable[[str], None], progress: Callable[[float], None]) -> dict:
+def run(
+    out_dir: str,
+    use_broker: bool,
+    say: Callable[[str], None],
+    progress: Callable[[float], None],
+    now: float | None = None,
+) -> dict:
     folder = Path(out_dir).resolve()
     folder.mkdir(parents=True, exist_ok=True)
     for old in ("watcher.db", "watcher.db-wal", "watcher.db-shm"):
         (folder / old).unlink(missing_ok=True)
-    now = time.time()
+    now = time.time() if now is None else now  # fixed by tests so that two runs see the same data
     week = last_complete_week(now, site.TIMEZONE)
     start = week.start_s - 2 * 86400.0
     days = (now - 300.0 - start) // 60.0 * 60.0 / 86400.0
