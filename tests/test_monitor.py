@@ -230,3 +230,18 @@ def test_door_contact_events_and_live_duration(tmp_path):
     assert store.alerts_list()[0]["status"] == "cleared"
     db = sqlite3.connect(store.path)
     assert [r[0] for r in db.execute("SELECT step FROM alert_log ORDER BY id")] == ["raise", "clear"]
+
+
+def test_an_open_door_survives_a_restart(tmp_path):
+    """After a restart the monitor knows the door has been open since its opening reading, so
+    the 10-minute alert fires on time."""
+    cfg, store, engine = make(tmp_path, keep=("door-open",))
+    play(engine, 0, 5)
+    engine.process([Message("kp/bulk-a/d1/door", json.dumps({"open": 1, "ts": T0 + 300}).encode(), NOW, 0, 1)], now=NOW)
+    play(engine, 5, 9, hour_batches=False)
+    restarted = Engine(cfg, store, checkpoint_s=0.0)
+    play(restarted, 9, 15, hour_batches=False)  # minute 14: the door has been open 9 minutes
+    assert store.count("alerts") == 0
+    play(restarted, 15, 16, hour_batches=False)
+    (alert,) = store.alerts_list()
+    assert alert["rule"] == "door-open" and alert["since_s"] == T0 + 300

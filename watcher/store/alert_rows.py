@@ -135,9 +135,13 @@ class EventRows:
             (zone, *signals, after_ts, upto_ts),
         ).fetchall()
 
-    def last_received(self, zone: str) -> dict[str, float]:
+    def last_received(self, zone: str, recent_s: float = 2 * 86400.0) -> dict[str, float]:
+        """Each sensor's newest receive time, among readings up to recent_s older than the
+        zone's newest (an index range, not a scan of the zone's whole history)."""
         rows = self.conn.execute(
-            "SELECT sensor, max(received_ts) FROM readings WHERE zone = ? GROUP BY sensor", (zone,)
+            "SELECT sensor, max(received_ts) FROM readings WHERE zone = ? AND ts >= "
+            "(SELECT max(ts) FROM readings WHERE zone = ?) - ? GROUP BY sensor",
+            (zone, zone, recent_s),
         )
         return dict(rows.fetchall())
 
@@ -153,8 +157,8 @@ class EventRows:
         out = []
         for sensor, signal, ts, value in self.conn.execute(
             "SELECT sensor, signal, max(ts), value FROM readings WHERE zone = ? AND signal IN ('door', 'defrost') "
-            "GROUP BY sensor, signal",
-            (zone,),
+            "AND ts >= (SELECT max(ts) FROM readings WHERE zone = ?) - 30 * 86400.0 GROUP BY sensor, signal",
+            (zone, zone),
         ).fetchall():
             since = self.conn.execute(
                 "SELECT min(ts) FROM readings WHERE zone = ? AND sensor = ? AND signal = ? AND ts > coalesce("
