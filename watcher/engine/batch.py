@@ -11,6 +11,7 @@ from __future__ import annotations
 import logging
 import time
 from collections import Counter
+from contextlib import contextmanager
 from dataclasses import dataclass, field
 
 from watcher.config import Config
@@ -157,26 +158,28 @@ class Engine:
                 result.rejections[reason_class(str(exc))] += 1
                 result.counts["rejected"] += 1
         touched: set[str] = set()
-        try:
-            with self.store.atomic():
-                for item, msg in parsed:
-                    if item is None:
-                        self._command(msg, result)
-                    elif isinstance(item, str):
-                        self.store.insert_rejection(msg.received_ts, msg.topic, item, msg.payload)
-                good = [(item, msg.received_ts, msg.topic) for item, msg in parsed if isinstance(item, Reading)]
-                self._store_readings(good, result, touched)
-                self._finish(touched, result, now)
-        except Exception:
-            self._reload(touched)
-            raise
+        with self._transaction(touched):
+            for item, msg in parsed:
+                if item is None:
+                    self._command(msg, result)
+                elif isinstance(item, str):
+                    self.store.insert_rejection(msg.received_ts, msg.topic, item, msg.payload)
+            good = [(item, msg.received_ts, msg.topic) for item, msg in parsed if isinstance(item, Reading)]
+            self._store_readings(good, result, touched)
+            self._finish(touched, result, now)
         return result
 
-    def _reload(self, touched: set[str]) -> None:
-        """After a failed commit: memory must not run ahead of the record."""
-        self.store.forget_heads()
-        self._load(touched)
-        self.monitor = Monitor(self.config, self.store)
+    @contextmanager
+    def _transaction(self, touched: set[str]):
+        """One SQLite transaction; if it fails, memory must not run ahead of the record."""
+        try:
+            with self.store.atomic():
+                yield
+        except Exception:
+            self.store.forget_heads()
+            self._load(touched)
+            self.monitor = Monitor(self.config, self.store)
+            raise
 
     def _command(self, msg: Message, result: BatchResult) -> None:
         try:
@@ -192,13 +195,9 @@ class Engine:
         now = time.time() if now is None else now
         result = BatchResult()
         touched: set[str] = set()
-        try:
-            with self.store.atomic():
-                self._store_readings(items, result, touched)
-                self._finish(touched, result, now)
-        except Exception:
-            self._reload(touched)
-            raise
+        with self._transaction(touched):
+            self._store_readings(items, result, touched)
+            self._finish(touched, result, now)
         return result
 
     def _store_readings(self, items: list[tuple[Reading, float, str]], result: BatchResult, touched: set) -> None:
