@@ -9,7 +9,7 @@ import time
 
 import click
 
-from watcher.cli import _stamp, db_options, main
+from watcher.cli import _config_option, _stamp, db_options, main
 from watcher.errors import InputError
 
 
@@ -102,7 +102,7 @@ def alerts(open_only, as_json, config_path, db_path) -> None:
 
 
 @main.command("test-notify")
-@click.option("--config", "config_path", required=True, type=click.Path(dir_okay=False), help="Service configuration.")
+@_config_option()
 @click.option("--tag", default=None, help="Only channels with this tag.")
 def test_notify(config_path, tag) -> None:
     """Send a test message to each notification channel now, and report each result."""
@@ -166,7 +166,7 @@ def verify(since, config_path, db_path) -> None:
 
 
 @main.command()
-@click.option("--config", "config_path", required=True, type=click.Path(dir_okay=False), help="Service configuration.")
+@_config_option()
 @click.option("--week", "week_label", default=None, help="ISO week such as 2026-W48 (default: the last complete week).")
 @click.option("--site", "site_id", default=None, help="One site (default: every site).")
 @click.option("--out", "out_dir", default=None, help="Folder for the files (default: [reports] dir).")
