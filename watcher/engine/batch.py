@@ -309,8 +309,9 @@ class Engine:
         return folded
 
     def checkpoint_all(self, now: float | None = None) -> None:
+        """Checkpoint every zone and bring its events up to the data it has (stop, reload, end of a replay)."""
         now = time.time() if now is None else now
         with self.store.atomic():
             for zid in self.runners:
                 self.checkpoint(zid, now)
-                self.monitor.zone_step(self.runners[zid], self.last_figures.get(zid), True, now)
+                self.monitor.zone_step(self.runners[zid], self.last_figures.get(zid), True, now, final=True)

@@ -18,7 +18,7 @@ from watcher.alerts import messages
 from watcher.alerts.channels import route
 from watcher.alerts.policy import WALL_CLOCK_METRICS, AlertState, Rule, acknowledge, evaluate
 from watcher.config import Config
-from watcher.engine.analysis import CONTEXT_S, analyse, take_snapshot
+from watcher.engine.analysis import CONTEXT_S, analyse, analysis_points, take_snapshot
 from watcher.engine.zones import ZoneRunner, spec_key
 from watcher.errors import InputError
 from watcher.store.db import Store
@@ -127,41 +127,54 @@ class Monitor:
         self.store.command_add(alert_id, by, note, source, sender, received_s)
 
     # --- per zone, after each batch that touched it -------------------------------------------
-    def zone_step(self, runner: ZoneRunner, figures: dict | None, checkpointed: bool, wall_s: float) -> None:
+    def zone_step(
+        self, runner: ZoneRunner, figures: dict | None, checkpointed: bool, wall_s: float, final: bool = False
+    ) -> None:
         zid = runner.zone.id
         lz = self.live[zid]
         if figures is not None:
             lz.figures = figures
         lz.air_c = runner.last_air_c
         if checkpointed and runner.state is not None:
-            self._analyse(runner, lz)
+            self._analyse(runner, lz, final)
         if runner.last_ts is None:
             return
         rules = [r for r in self.rules if r.metric not in WALL_CLOCK_METRICS]
         self._evaluate(rules, zid, self.zone_observations(runner, lz), runner.last_ts, wall_s)
 
-    def _analyse(self, runner: ZoneRunner, lz: Live) -> None:
-        zid, key = runner.zone.id, spec_key(runner.zone)
-        snap = take_snapshot(self.store, zid, key, runner.state, lz.snapshot_ts)
+    def _analyse(self, runner: ZoneRunner, lz: Live, final: bool = False) -> None:
+        """Bring events and costs up to date at the grid points of data time (multiples of
+        analyse_every_s) that the zone has passed, so the same readings give the same events
+        however they were batched; a final pass (stop, reload, end of a replay) also covers the
+        time after the last grid point."""
+        zid = runner.zone.id
+        snap = take_snapshot(self.store, zid, spec_key(runner.zone), runner.state, lz.snapshot_ts)
         if snap != lz.snapshot_ts:
             lz.snapshot_ts = snap
             self.store.set_mark(zid, "snapshot_ts", snap)
-        fed = runner.fed_ts
-        if fed - lz.analysed_ts < self.config.events.analyse_every_s:
-            return
-        start = lz.analysed_ts - CONTEXT_S if math.isfinite(lz.analysed_ts) else fed - 400 * 86400.0
+        every, fed = self.config.events.analyse_every_s, runner.fed_ts
+        points = analysis_points(lz.analysed_ts, fed, every)
+        if final and fed > lz.analysed_ts and (not points or points[-1] < fed):
+            points.append(fed)
+        for at in points:
+            self._analyse_at(runner, lz, at)
+
+    def _analyse_at(self, runner: ZoneRunner, lz: Live, at_s: float) -> None:
+        zid = runner.zone.id
+        # Re-examine the last two days too: an inferred event's edges move as more data arrive.
+        start = lz.analysed_ts - CONTEXT_S if math.isfinite(lz.analysed_ts) else at_s - 400 * 86400.0
         found = analyse(
             self.store,
             runner.zone,
             runner.spec,
-            key,
+            spec_key(runner.zone),
             self.config.site_of(zid).timezone,
             self.config.events,
             start,
-            fed,
+            at_s,
         )
-        lz.analysed_ts = fed
-        self.store.set_mark(zid, "analysed_ts", fed)
+        lz.analysed_ts = at_s
+        self.store.set_mark(zid, "analysed_ts", at_s)
         lz.defrosts_today = found.defrosts_today
         new = [e for e in found.costed if e["first_cost"]]
         if new:
