@@ -19,13 +19,17 @@ class Receiver:
         self.bodies: list[dict] = []
         self.times: list[float] = []
         self.mode = "ok"
+        self.hang_s = 5.0
+        self.hanging = 0  # requests being held right now
         outer = self
 
         class Handler(BaseHTTPRequestHandler):
             def do_POST(self):  # noqa: N802
                 data = self.rfile.read(int(self.headers.get("Content-Length", 0)))
                 if outer.mode == "hang":
-                    time.sleep(5)
+                    outer.hanging += 1
+                    time.sleep(outer.hang_s)
+                    outer.hanging -= 1
                 code = 500 if outer.mode == "fail" else 200
                 if code == 200:
                     outer.bodies.append(json.loads(data))

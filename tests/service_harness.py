@@ -12,9 +12,13 @@ import urllib.error
 import urllib.request
 from pathlib import Path
 
+import numpy as np
 import paho.mqtt.client as mqtt
 
 from tests.broker import Broker, free_port
+from watcher.config import load_config
+from watcher.engine.batch import Engine
+from watcher.store.db import Store
 
 T0 = 1_795_000_000.0  # 2026-11-18T...Z; readings are stamped from here, a minute apart
 AIR_SOURCE_TOML = """[[sources]]
@@ -110,6 +114,8 @@ class Publisher:
         self.client = mqtt.Client(mqtt.CallbackAPIVersion.VERSION2, client_id=client_id, protocol=mqtt.MQTTv311)
         self.client.username_pw_set("sensor", "sensor-pw")
         self.client.max_inflight_messages_set(1000)
+        self.acked: set[int] = set()  # mids the broker has acknowledged (also for ones queued while it was down)
+        self.client.on_publish = lambda client, userdata, mid, rc, props: self.acked.add(mid)
         self.client.connect("127.0.0.1", broker.port)
         self.client.loop_start()
 
@@ -233,3 +239,21 @@ def wait_for(predicate, timeout: float = 60.0, what: str = "condition") -> None:
             return
         time.sleep(0.1)
     raise AssertionError(f"timed out waiting for {what}")
+
+
+def assert_state_equals_recomputation(config_path, zones=("bulk-a", "dispatch")) -> None:
+    """Each zone's stored state equals a full recomputation from its stored readings (1e-9)."""
+    cfg = load_config(str(config_path))
+    store = Store(cfg.storage.path)
+    try:
+        rows = store.zone_rows()
+        engine = Engine(cfg, store)
+        for zid in zones:
+            fresh = engine.recompute(zid).state
+            saved = rows[zid].state
+            assert fresh is not None and saved is not None
+            assert float(saved["t_s"]) == fresh.t_s
+            np.testing.assert_allclose(saved["ub"], fresh.ub, rtol=1e-9, atol=1e-9 * np.abs(fresh.ub).max())
+            np.testing.assert_allclose(saved["nc"], fresh.nc, rtol=1e-9, atol=1e-12 * fresh.nc.max())
+    finally:
+        store.close()

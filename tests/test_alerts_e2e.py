@@ -139,7 +139,7 @@ def test_alert_mail_within_two_seconds_ack_stops_reminders_and_clear_notice(tmp_
         assert out.returncode == 0 and "acknowledged by Dana (night shift)" in out.stdout, out.stdout + out.stderr
         reminders_at_ack = count(smtp.subjects(), "reminder", "door")
         # The air alert is acknowledged from a control panel over MQTT; a malformed command is refused.
-        pub.send([("watcher/ack", json.dumps({"alert": air["id"], "by": "control-panel"}).encode())])
+        pub.send([("watcher/ack/control-panel", json.dumps({"alert": air["id"], "by": "Sam"}).encode())])
         pub.send([("watcher/ack", b'{"alert": "air"}')])
         wait_for(
             lambda: find(alerts_json(config), "air-benchmark")["status"] == "acknowledged",
@@ -175,8 +175,8 @@ def test_alert_mail_within_two_seconds_ack_stops_reminders_and_clear_notice(tmp_
         )
         air = find(alerts, "air-benchmark")
         assert (
-            air["acked_by"] == "control-panel"
-            and "via mqtt" in next(e for e in air["log"] if e["step"] == "ack")["note"]
+            air["acked_by"] == "Sam"
+            and "via mqtt from control-panel" in next(e for e in air["log"] if e["step"] == "ack")["note"]
         )
         assert w.stop() == 0  # the final checkpoint also brings the events up to date
         with sqlite3.connect(tmp_path / "watcher.db") as db:

@@ -21,7 +21,13 @@ DAY = 86400.0
 EXCURSION = (T0 + 1.5 * DAY, T0 + 1.5 * DAY + 4 * 3600)  # a 4-hour fault, +8 K
 
 
-def make(tmp_path, rules=(), keep=(), channels=(), zones=None):
+DEFAULT_SOURCES = [
+    {"pattern": "kp/{zone}/{sensor}/air", "signal": "air_c", "value": "t", "time": "ts"},
+    {"pattern": "kp/{zone}/{sensor}/door", "signal": "door", "value": "open", "time": "ts"},
+]
+
+
+def make(tmp_path, rules=(), keep=(), channels=(), zones=None, sources=None):
     write_secret(tmp_path / "pw", "x")
     notify = []
     for name, url, tags in channels:
@@ -34,10 +40,7 @@ def make(tmp_path, rules=(), keep=(), channels=(), zones=None):
             "ingest": {"reorder_window_s": 0.0, "max_gap_s": 900.0},
             "sites": [{"id": "kp", "timezone": "UTC"}],
             "zones": zones or [{"id": "bulk-a", "setpoint_c": -25.0}],
-            "sources": [
-                {"pattern": "kp/{zone}/{sensor}/air", "signal": "air_c", "value": "t", "time": "ts"},
-                {"pattern": "kp/{zone}/{sensor}/door", "signal": "door", "value": "open", "time": "ts"},
-            ],
+            "sources": sources or DEFAULT_SOURCES,
             "alerts": {
                 "disable": [r.id for r in default_rules() if r.id not in keep and r.id not in {x["id"] for x in rules}],
                 "rules": list(rules),

@@ -20,16 +20,15 @@ from tests.service_harness import (
     Publisher,
     WatcherProcess,
     air_value,
+    assert_state_equals_recomputation,
     messages,
     readings_count,
     wait_for,
     write_config,
 )
 from watcher.config import load_config
-from watcher.engine.batch import Engine
 from watcher.files.series import Series
 from watcher.simulation import simulate
-from watcher.store.db import Store
 
 ZONES = ("bulk-a", "dispatch")
 
@@ -51,24 +50,6 @@ def status_json(config) -> dict:
     )
     assert out.returncode == 0, out.stderr
     return json.loads(out.stdout)
-
-
-def assert_state_equals_recomputation(config_path) -> None:
-    """Each zone's stored state equals a full recomputation from its stored readings (1e-9)."""
-    cfg = load_config(str(config_path))
-    store = Store(cfg.storage.path)
-    try:
-        rows = store.zone_rows()
-        engine = Engine(cfg, store)
-        for zid in ZONES:
-            fresh = engine.recompute(zid).state
-            saved = rows[zid].state
-            assert fresh is not None and saved is not None
-            assert float(saved["t_s"]) == fresh.t_s
-            np.testing.assert_allclose(saved["ub"], fresh.ub, rtol=1e-9, atol=1e-9 * np.abs(fresh.ub).max())
-            np.testing.assert_allclose(saved["nc"], fresh.nc, rtol=1e-9, atol=1e-12 * fresh.nc.max())
-    finally:
-        store.close()
 
 
 def test_end_to_end_status_matches_simulate(tmp_path, broker):

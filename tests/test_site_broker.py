@@ -13,7 +13,7 @@ from tests.broker import MOSQUITTO, MOSQUITTO_PASSWD, free_port, make_ca
 from tests.service_harness import wait_for
 
 DEPLOY = Path(__file__).resolve().parent.parent / "deploy" / "mosquitto"
-USERS = {"watcher": "w-pw", "bulk-a": "b-pw", "dispatch": "d-pw", "control-panel": "c-pw"}
+USERS = {"watcher": "w-pw", "bulk-a": "b-pw", "dispatch": "d-pw", "control-panel": "c-pw", "qa-lead": "q-pw"}
 
 
 def start_site_broker(tmp: Path):
@@ -59,18 +59,23 @@ def test_acl_lets_each_sensor_write_only_its_zone_and_operators_acknowledge(tmp_
     try:
         w = client("watcher", port)
         w.on_message = lambda c, u, m: got.append(m.topic)
-        w.subscribe([("kestrel/#", 1), ("watcher/ack", 1)])
+        w.subscribe([("kestrel/#", 1), ("watcher/ack", 1), ("watcher/ack/+", 1)])
         time.sleep(0.3)
         bulk = client("bulk-a", tls_port, certs)  # a sensor gateway over TLS, verified against the site CA
         bulk.publish("kestrel/bulk-a/s1/air", b'{"temp": -25}', qos=1).wait_for_publish(5)
         bulk.publish("kestrel/dispatch/s1/air", b'{"temp": -25}', qos=1).wait_for_publish(5)  # not its zone
         bulk.publish("watcher/ack", b'{"alert": 1, "by": "a sensor"}', qos=1).wait_for_publish(5)
+        bulk.publish("watcher/ack/bulk-a", b'{"alert": 1, "by": "a sensor"}', qos=1).wait_for_publish(5)
         panel = client("control-panel", port)
-        panel.publish("watcher/ack", b'{"alert": 1, "by": "Dana"}', qos=1).wait_for_publish(5)
-        wait_for(lambda: "watcher/ack" in got, timeout=5, what="the operator's acknowledgement")
+        panel.publish("watcher/ack", b'{"alert": 1, "by": "Dana"}', qos=1).wait_for_publish(5)  # no identity: refused
+        panel.publish("watcher/ack/control-panel", b'{"alert": 1, "by": "Dana"}', qos=1).wait_for_publish(5)
+        qa = client("qa-lead", port)
+        qa.publish("watcher/ack/control-panel", b'{"alert": 1, "by": "posing"}', qos=1).wait_for_publish(5)
+        wait_for(lambda: "watcher/ack/control-panel" in got, timeout=5, what="the operator's acknowledgement")
         time.sleep(0.5)
-        assert sorted(got) == ["kestrel/bulk-a/s1/air", "watcher/ack"]
-        for c in (w, bulk, panel):
+        # Only the panel's own topic got through: the last level is an identity the broker vouches for.
+        assert sorted(got) == ["kestrel/bulk-a/s1/air", "watcher/ack/control-panel"]
+        for c in (w, bulk, panel, qa):
             c.loop_stop()
             c.disconnect()
     finally:

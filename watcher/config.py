@@ -568,6 +568,9 @@ def _source(r: _Reader, zone_ids: set[str]) -> Source:
     unit = r.text("unit", "C")
     if unit not in ("C", "F", "K"):
         r.fail("unit", unit, "C, F or K")
+    unit_path = r.text("unit_field")
+    if unit_path and fmt == "number":
+        r.fail("unit_field", unit_path, "no unit field for plain-number payloads (use unit)")
     time_path = r.text("time")
     time_format = r.text("time_format", "iso")
     if time_format not in ("iso", "epoch_s", "epoch_ms"):
@@ -580,6 +583,7 @@ def _source(r: _Reader, zone_ids: set[str]) -> Source:
         fmt=fmt,
         value_path=tuple(r.text("value", "value").split(".")),
         unit=unit,
+        unit_path=tuple(unit_path.split(".")) if unit_path else None,
         time_path=tuple(time_path.split(".")) if time_path else None,
         time_format=time_format,
         zone=fixed_zone,

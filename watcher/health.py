@@ -37,6 +37,14 @@ class Metrics:
             "watcher_commit_failures", "Batches whose commit failed and will be retried", registry=r
         )
         self.queue_depth = Gauge("watcher_queue_depth", "Messages received but not yet committed", registry=r)
+        self.queue_peak = Gauge("watcher_queue_depth_peak", "Highest queue depth since start", registry=r)
+        self.ack_seconds = Histogram(
+            "watcher_ack_seconds",
+            "From a message's arrival at watcher to its acknowledgement being handed to the broker link "
+            "(after its reading or rejection is committed)",
+            registry=r,
+            buckets=(0.005, 0.01, 0.025, 0.05, 0.1, 0.25, 0.5, 1.0, 2.5, 5.0, 10.0, 30.0, 60.0),
+        )
         self.notifications = Counter(
             "watcher_notifications", "Notification attempts by outcome (sent, retried, failed)", ["outcome"], registry=r
         )

@@ -19,6 +19,7 @@ import threading
 import time
 from dataclasses import replace
 
+from watcher.alerts.bypass import StorageBypass
 from watcher.alerts.delivery import Notifier, deliver_due
 from watcher.config import Config, load_config
 from watcher.engine.batch import Engine, Message
@@ -73,9 +74,11 @@ class Service:
         self.db_ok = False
         self.last_commit_error: str | None = None
         self._pending_config: Config | None = None
+        self._queue_peak = 0
         self._config_lock = threading.Lock()
         self.store = Store(config.storage.path)
         self.engine = Engine(config, self.store, checkpoint_s)
+        self.bypass = StorageBypass(config)
         self.db_ok = True
         self._publish_zone_metrics()
         self.mqtt = MqttProcess(config.broker, self._filters(config), self.inbox, self._on_link)
@@ -88,7 +91,8 @@ class Service:
 
     @staticmethod
     def _filters(config: Config) -> list[str]:
-        return sorted({s.pattern.filter for s in config.sources} | {config.broker.ack_topic})
+        ack = config.broker.ack_topic
+        return sorted({s.pattern.filter for s in config.sources} | {ack, ack + "/+"})
 
     def _on_link(self, event: str, detail) -> None:
         if event == "connected":
@@ -128,6 +132,7 @@ class Service:
     def _commit(self, batch: list[Message]) -> None:
         """Process until the batch is committed (retrying with backoff), then ack it."""
         delay = 0.1
+        failing_since = None
         while True:
             started = time.perf_counter()
             try:
@@ -136,6 +141,8 @@ class Service:
                 self.db_ok = False
                 self.last_commit_error = f"{type(exc).__name__}: {exc}"
                 self.metrics.commit_failures.inc()
+                failing_since = failing_since or time.time()
+                self.bypass.failing(failing_since, time.time(), self.last_commit_error)
                 if self.stopping.is_set():
                     log.error(
                         "stopping with %d uncommitted messages; they stay unacknowledged and the broker sends them "
@@ -146,18 +153,33 @@ class Service:
                     return
                 log.error("commit failed, nothing acknowledged, retrying in %.1f s: %s", delay, self.last_commit_error)
                 self.stopping.wait(delay)
-                delay = min(delay * 2.0, 30.0)
+                delay = min(delay * 2.0, 5.0)  # cheap to retry; resume soon after space is freed
                 continue
             break
         self.db_ok = True
         self.last_commit_error = None
+        if failing_since is not None:
+            self._record_bypass()
         self.metrics.commit_seconds.observe(time.perf_counter() - started)
         for kind, n in result.counts.items():
             self.metrics.readings.labels(kind).inc(n)
         for reason, n in result.rejections.items():
             self.metrics.rejections.labels(reason).inc(n)
         self.mqtt.ack(batch)
+        acked_s = time.time()
+        for m in batch:
+            self.metrics.ack_seconds.observe(acked_s - m.received_ts)
         self._publish_zone_metrics()
+
+    def _record_bypass(self) -> None:
+        episode = self.bypass.recovered()
+        if episode is None:
+            return
+        try:
+            with self.store.atomic():
+                self.engine.monitor.record_bypass(episode, time.time())
+        except Exception as exc:
+            log.error("could not record the storage alert sent around the database: %s", exc)
 
     def _publish_zone_metrics(self) -> None:
         for zid, runner in self.engine.runners.items():
@@ -200,7 +222,11 @@ class Service:
                 next_tick = time.monotonic() + TICK_S
             self._apply_pending_config()
             batch = self._next_batch()
-            self.metrics.queue_depth.set(len(self.inbox))
+            depth = len(self.inbox) + len(batch)
+            self.metrics.queue_depth.set(depth)
+            if depth > self._queue_peak:
+                self._queue_peak = depth
+                self.metrics.queue_peak.set(depth)
             if batch:
                 self._commit(batch)
             elif self.stopping.is_set():
@@ -284,6 +310,7 @@ class Service:
         self.engine.checkpoint_all()
         new = replace(new, broker=self.config.broker, storage=self.config.storage)
         self.engine = Engine(new, self.store, self.checkpoint_s)
+        self.bypass = StorageBypass(new)
         self.config = new
         self.mqtt.resubscribe(self._filters(new))
         log.info("reload: configuration swapped (%d zones, %d sources)", len(new.zones), len(new.sources))

@@ -163,3 +163,21 @@ def body(
         )
     lines += ["", CAUTION]
     return "\n".join(lines)
+
+
+def storage_bypass(rule, since_s: float, now_s: float, error: str, tz: str, repeat: bool) -> tuple[str, str]:
+    """Title and body of the storage alert sent around the database (watcher.alerts.bypass)."""
+    alert = {"severity": rule.severity, "label": rule.label}
+    head = title("repeat" if repeat else "raise", alert, "watcher service", 1 if repeat else 0)
+    lines = [
+        f"What happened: {rule.label}. Readings have not been stored since {local(since_s, tz)} ({tz}), "
+        f"{duration(now_s - since_s)} so far. The last error: {error[:300]}",
+        "Nothing is acknowledged while this lasts, so the broker keeps the readings (up to its queue limit) "
+        "and watcher stores them as soon as the database can be written again.",
+        f"What to check: {CHECK['commit_failing_s']}",
+        "This alert was sent without the database; it is recorded there, with a clear notice, once writing "
+        "works again. It needs no acknowledgement.",
+        "",
+        CAUTION,
+    ]
+    return head, "\n".join(lines)

@@ -20,6 +20,7 @@ from watcher.engine.zones import ZoneRunner, spec_key
 from watcher.errors import InputError
 from watcher.ingest.message import Message
 from watcher.ingest.payload import Reading, Rejected, parse_message
+from watcher.ingest.topics import topic_is_clean
 from watcher.store.db import Store, ZoneRow
 
 log = logging.getLogger("watcher.engine")
@@ -147,8 +148,9 @@ class Engine:
         now = time.time() if now is None else now
         result = BatchResult()
         parsed: list[tuple[Reading | str | None, Message]] = []
+        ack = self.config.broker.ack_topic
         for msg in messages:
-            if msg.topic == self.config.broker.ack_topic:
+            if msg.topic == ack or msg.topic.startswith(ack + "/"):
                 parsed.append((None, msg))
                 continue
             try:
@@ -182,8 +184,14 @@ class Engine:
             raise
 
     def _command(self, msg: Message, result: BatchResult) -> None:
+        """An acknowledgement. On `<ack_topic>/<user>` the last level names the sender: the
+        broker's ACL lets only that user write there (deploy/mosquitto/acl), so it is recorded
+        as the identity the broker vouches for."""
+        sender = msg.topic[len(self.config.broker.ack_topic) + 1 :] or None
         try:
-            self.monitor.command(msg.payload, msg.received_ts)
+            if sender is not None and ("/" in sender or not topic_is_clean(sender)):
+                raise InputError(f"acknowledgement topic {msg.topic!r}: expected {self.config.broker.ack_topic}/<user>")
+            self.monitor.command(msg.payload, msg.received_ts, sender=sender)
             result.counts["command"] += 1
         except InputError as exc:
             self.store.insert_rejection(msg.received_ts, msg.topic, str(exc), msg.payload)

@@ -229,6 +229,32 @@ class Monitor:
         }
         self._evaluate(rules, SERVICE, service, wall_s, wall_s)
 
+    def record_bypass(self, ep, wall_s: float) -> int | None:
+        """Record a storage episode whose alert went out around the database (alerts.bypass):
+        raised, each send, cleared; the clear notice goes through the outbox as usual."""
+        rule = next((r for r in self.rules if r.metric == "commit_failing_s"), None)
+        if rule is None:
+            return None
+        fields = dict(zone=SERVICE, rule=rule.id, severity=rule.severity, label=rule.label, metric=rule.metric)
+        alert_id = self.store.alert_insert(
+            **fields,
+            threshold=rule.threshold,
+            status="cleared",
+            since_s=ep.since_s,
+            raised_s=ep.raised_s,
+            cleared_s=wall_s,
+            value=0.0,
+            worst_value=ep.worst_s,
+        )
+        note = "sent around the database, which could not be written: " + ep.error[:200]
+        self.store.alert_log_add(alert_id, "raise", ep.raised_s, ep.raised_s, ep.worst_s, note=note)
+        for at_s, channel, ok, result in ep.sends:
+            self.store.alert_log_add(alert_id, "sent" if ok else "send-failed", at_s, at_s, note=f"{channel}: {result}")
+        self.store.alert_log_add(alert_id, "clear", wall_s, wall_s, 0.0)
+        log.warning("alert %d recorded after storage came back (readings not stored for %.0f s)", alert_id, ep.worst_s)
+        self._notify("clear", {**self.store.alert_get(alert_id), "op": rule.op}, wall_s)
+        return alert_id
+
     # --- lifecycle ---------------------------------------------------------------------------------
     def _evaluate(self, rules: list[Rule], zone: str, obs: dict, now_s: float, wall_s: float) -> None:
         a = self.config.alerting

@@ -123,7 +123,9 @@ class MqttLink:
                     self.client.connect(
                         self.broker.host,
                         self.broker.port,
-                        keepalive=self.broker.keepalive_s,
+                        # paho pings after one keepalive of silence and gives up one keepalive
+                        # later; half the setting makes a dead (half-open) link show within it.
+                        keepalive=max(2, self.broker.keepalive_s // 2),
                         clean_start=False,
                         properties=self._connect_properties(),
                     )
@@ -137,10 +139,21 @@ class MqttLink:
                     if rc != mqtt.MQTT_ERR_SUCCESS:
                         break
             except ssl.SSLError as exc:
-                self.last_error = (
-                    f"TLS handshake with {self.broker.host}:{self.broker.port} failed: {exc.reason or exc}"
+                why = getattr(exc, "verify_message", None) or exc.reason or str(exc)
+                self.last_error = f"TLS handshake with {self.broker.host}:{self.broker.port} failed: {why}"
+                log.error(
+                    "mqtt: %s (the broker's certificate must be signed by ca_file and name host; check the client "
+                    "certificate and key too)",
+                    self.last_error,
                 )
-                log.error("mqtt: %s (check the CA, client certificate and key)", self.last_error)
+            except (ConnectionResetError, BrokenPipeError) as exc:
+                self.last_error = f"cannot reach {self.broker.host}:{self.broker.port}: {exc}"
+                if self.broker.tls:  # never retried in plain text
+                    self.last_error = (
+                        f"TLS handshake with {self.broker.host}:{self.broker.port} failed: the broker closed the "
+                        "connection (is this port a plain-text listener?)"
+                    )
+                log.error("mqtt: %s", self.last_error)
             except (OSError, mqtt.WebsocketConnectionError, ValueError) as exc:
                 self.last_error = f"cannot reach {self.broker.host}:{self.broker.port}: {exc}"
                 log.warning("mqtt: %s", self.last_error)

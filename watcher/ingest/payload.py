@@ -13,6 +13,8 @@ from datetime import UTC, datetime
 
 SIGNALS = ("air_c", "product_c", "door", "defrost")
 TEMPERATURE_SIGNALS = ("air_c", "product_c")
+_UNIT_WORDS = {"c": "C", "degc": "C", "°c": "C", "celsius": "C", "f": "F", "degf": "F", "°f": "F", "fahrenheit": "F"}
+_UNIT_WORDS |= {"k": "K", "kelvin": "K"}
 _STATE_WORDS = {"open": 1.0, "on": 1.0, "true": 1.0, "closed": 0.0, "close": 0.0, "off": 0.0, "false": 0.0}
 
 
@@ -25,6 +27,7 @@ class Source:
     fmt: str = "json"  # "json" or "number"
     value_path: tuple[str, ...] = ("value",)
     unit: str = "C"  # "C", "F" or "K"
+    unit_path: tuple[str, ...] | None = None  # the payload names its unit here (else `unit` applies)
     time_path: tuple[str, ...] | None = None
     time_format: str = "iso"  # "iso", "epoch_s" or "epoch_ms"
     zone: str | None = None  # fixed zone when the pattern has no {zone}
@@ -80,6 +83,12 @@ def _number(raw, what: str) -> float:
     return value
 
 
+def _unit(raw) -> str:
+    if isinstance(raw, str) and raw.strip().lower() in _UNIT_WORDS:
+        return _UNIT_WORDS[raw.strip().lower()]
+    raise Rejected(f"unit {str(raw)[:20]!r} is not one of C, F, K (or degC, celsius, ...)")
+
+
 def _state(raw) -> float:
     if isinstance(raw, bool):
         return 1.0 if raw else 0.0
@@ -114,6 +123,7 @@ def parse_message(source: Source, names: dict[str, str], payload: bytes, receive
     except UnicodeDecodeError:
         raise Rejected("payload is not UTF-8") from None
     ts = received_ts
+    unit = source.unit
     if source.fmt == "number":
         try:
             raw = float(text.strip())
@@ -130,10 +140,12 @@ def parse_message(source: Source, names: dict[str, str], payload: bytes, receive
         except ValueError as exc:
             raise Rejected(f"invalid JSON ({str(exc)[:60]})") from None
         value_raw = _dig(doc, source.value_path, "value")
+        if source.unit_path is not None:
+            unit = _unit(_dig(doc, source.unit_path, "unit"))
         if source.time_path is not None:
             ts = _timestamp(_dig(doc, source.time_path, "timestamp"), source.time_format)
     if source.signal in TEMPERATURE_SIGNALS:
-        value = _to_celsius(_number(value_raw, "value"), source.unit)
+        value = _to_celsius(_number(value_raw, "value"), unit)
         lo, hi = limits.temp_range_c
         if not lo <= value <= hi:
             raise Rejected(f"temperature {value:.2f} C outside the plausible range [{lo}, {hi}] (sensor fault?)")

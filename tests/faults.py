@@ -1,0 +1,516 @@
+"""Fault scenarios against real processes: a real mosquitto, `watcher run` as a child process,
+real signals, a real TCP proxy, a real size-limited filesystem, a real second SQLite process,
+real notification receivers. Each scenario returns an Outcome (what was tried, what was seen,
+readings lost, recovery times). The test suite runs them with small counts (tests/test_faults.py);
+bench/fault_harness.py runs them with full counts and writes docs/reliability.md.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import os
+import random
+import re
+import signal
+import sqlite3
+import subprocess
+import sys
+import time
+import urllib.request
+from dataclasses import dataclass, field
+from pathlib import Path
+
+from tests.abuse import corpus
+from tests.broker import Broker
+from tests.proxy import Proxy
+from tests.receivers import Receiver, SmtpReceiver
+from tests.service_harness import (
+    Publisher,
+    WatcherProcess,
+    assert_state_equals_recomputation,
+    messages,
+    readings_count,
+    wait_for,
+    write_config,
+    write_secret,
+)
+
+ZONES = ("bulk-a", "dispatch")
+
+
+@dataclass
+class Outcome:
+    name: str
+    tried: int
+    observed: str
+    lost: int
+    recovery_s: list[float] = field(default_factory=list)
+    extra: dict = field(default_factory=dict)
+
+    def recovery(self) -> str:
+        if not self.recovery_s:
+            return "-"
+        r = sorted(self.recovery_s)
+        return f"median {r[len(r) // 2]:.1f} s, max {r[-1]:.1f} s"
+
+
+@contextlib.contextmanager
+def running_broker(folder: Path):
+    folder.mkdir(parents=True, exist_ok=True)
+    b = Broker(folder)
+    b.start()
+    try:
+        yield b
+    finally:
+        b.stop()
+
+
+@contextlib.contextmanager
+def watcher_and_publisher(folder: Path, broker: Broker, **kw):
+    config = write_config(folder, broker, **kw)
+    w = WatcherProcess(config)
+    pub = Publisher(broker, client_id=f"sensors-{folder.name[-10:]}")
+    try:
+        w.wait_ready()
+        yield config, w, pub
+    finally:
+        pub.close()
+        if w.proc.poll() is None:
+            w.kill()
+
+
+def _metric(w: WatcherProcess, name: str) -> float:
+    status, body = w.get("/metrics")
+    total = 0.0
+    for line in body.decode().splitlines():
+        if line.startswith(name) and not line.startswith("#"):
+            total += float(line.rsplit(" ", 1)[1])
+    return total
+
+
+def _ready_flag(w: WatcherProcess) -> bool | None:
+    import json
+
+    status, body = w.get("/readyz")
+    try:
+        return bool(json.loads(body).get("detail", json.loads(body)).get("broker"))
+    except (ValueError, AttributeError):
+        return None
+
+
+def _until_stored(db: Path, n: int, timeout: float = 60.0) -> None:
+    wait_for(lambda: readings_count(db) >= n, timeout=timeout, what=f"{n} readings stored")
+
+
+def _lost(db: Path, expected: int, timeout: float) -> int:
+    with contextlib.suppress(AssertionError):
+        wait_for(lambda: readings_count(db) >= expected, timeout=timeout, what="every reading stored")
+    return expected - readings_count(db)
+
+
+# --- processes killed ----------------------------------------------------------------------------
+
+
+def kill_watcher(folder: Path, rounds: int, seed: int = 20261202) -> Outcome:
+    """SIGKILL watcher at random moments of a stream; restart it each time."""
+    rng = random.Random(seed)
+    with running_broker(folder / "broker") as broker:
+        config = write_config(folder, broker, reorder_s=0.0)
+        pub = Publisher(broker)
+        w = WatcherProcess(config)
+        w.wait_ready()
+        sent, recovery = 0, []
+        for _ in range(rounds):
+            pub.send(messages(ZONES, sent, 120))
+            sent += 120
+            time.sleep(rng.uniform(0.0, 0.5))
+            w.kill()
+            t0 = time.monotonic()
+            w = WatcherProcess(config)
+            w.wait_ready()
+            recovery.append(time.monotonic() - t0)
+        lost = _lost(folder / "watcher.db", len(ZONES) * sent, 120)
+        assert w.stop() == 0
+        pub.close()
+        assert_state_equals_recomputation(config)
+    return Outcome(
+        "watcher killed (SIGKILL) mid-stream",
+        rounds,
+        f"{len(ZONES) * sent} readings published; every one stored once; zone state equal to a full recomputation",
+        lost,
+        recovery,
+    )
+
+
+def broker_down(folder: Path, rounds: int, hard: bool) -> Outcome:
+    """The broker stops (SIGTERM, or SIGKILL with persistence on) while a QoS 1 publisher keeps
+    publishing; it comes back after about two seconds."""
+    with running_broker(folder / "broker") as broker:
+        with watcher_and_publisher(folder, broker, reorder_s=0.0) as (config, w, pub):
+            sent, recovery = 0, []
+            for _ in range(rounds):
+                pub.send(messages(ZONES, sent, 100))
+                sent += 100
+                _until_stored(folder / "watcher.db", len(ZONES) * sent, 60)
+                broker.kill() if hard else broker.stop()
+                down_at = time.monotonic()
+                infos = [pub.client.publish(t, p, qos=1) for t, p in messages(ZONES, sent, 60)]  # queued by paho
+                sent += 60
+                time.sleep(2.0)
+                broker.start()
+                wait_for(lambda q=infos: all(i.mid in pub.acked for i in q), timeout=60, what="the queued publishes")
+                _until_stored(folder / "watcher.db", len(ZONES) * sent, 60)
+                recovery.append(time.monotonic() - down_at)
+            lost = _lost(folder / "watcher.db", len(ZONES) * sent, 30)
+            assert w.stop() == 0
+    how = "killed (SIGKILL, persistence on)" if hard else "restarted (SIGTERM)"
+    return Outcome(
+        f"broker {how}, publisher keeps publishing",
+        rounds,
+        f"{len(ZONES) * sent} readings, 120 a round published while the broker was down; all arrived",
+        lost,
+        recovery,
+    )
+
+
+# --- the network between watcher and the broker ----------------------------------------------------
+
+
+def network(folder: Path, rounds: int, mode: str) -> Outcome:
+    """A TCP proxy between watcher and the broker: drop every connection, stall it silently
+    (half-open), or slow it down (50 ms per chunk). Keepalive 5 s."""
+    with running_broker(folder / "broker") as broker:
+        proxy = Proxy(broker.port)
+        config = write_config(folder, broker, reorder_s=0.0)
+        config.write_text(config.read_text().replace(f"port = {broker.port}\n", f"port = {proxy.port}\n", 1))
+        w = WatcherProcess(config)
+        pub = Publisher(broker)
+        try:
+            w.wait_ready()
+            sent, detect, recovery = 0, [], []
+            for _ in range(rounds):
+                pub.send(messages(ZONES, sent, 100))
+                sent += 100
+                _until_stored(folder / "watcher.db", len(ZONES) * sent, 60)
+                t0 = time.monotonic()
+                if mode == "slow":
+                    proxy.slow(0.05)
+                    pub.send(messages(ZONES, sent, 300))
+                    sent += 300
+                    _until_stored(folder / "watcher.db", len(ZONES) * sent, 120)
+                    recovery.append(time.monotonic() - t0)
+                    proxy.resume()
+                    continue
+                connects = _metric(w, "watcher_mqtt_connects_total")
+                proxy.drop() if mode == "drop" else proxy.stall()
+                wait_for(
+                    lambda c=connects: _ready_flag(w) is False or _metric(w, "watcher_mqtt_connects_total") > c,
+                    timeout=30,
+                    what="watcher to notice the dead link",
+                )
+                detect.append(time.monotonic() - t0)
+                pub.send(messages(ZONES, sent, 100))  # meanwhile, to the broker directly
+                sent += 100
+                proxy.resume()
+                _until_stored(folder / "watcher.db", len(ZONES) * sent, 60)
+                recovery.append(time.monotonic() - t0)
+            lost = _lost(folder / "watcher.db", len(ZONES) * sent, 30)
+            assert w.stop() == 0
+        finally:
+            pub.close()
+            proxy.close()
+            if w.proc.poll() is None:
+                w.kill()
+    words = {
+        "drop": "connection dropped",
+        "stall": "link stalled silently (half-open)",
+        "slow": "link slowed (50 ms per chunk)",
+    }
+    seen = f"{len(ZONES) * sent} readings; all arrived"
+    if detect:
+        seen += f"; dead link noticed in {max(detect):.1f} s at worst (keepalive 5 s)"
+    return Outcome(f"network: {words[mode]}", rounds, seen, lost, recovery, {"detect_s": detect})
+
+
+# --- the disk and the database -------------------------------------------------------------------
+
+
+def can_mount() -> str | None:
+    """None when a tmpfs can be mounted here (root), else why not."""
+    if os.geteuid() != 0:
+        return "needs root to mount a size-limited tmpfs"
+    return None
+
+
+@contextlib.contextmanager
+def small_disk(path: Path, size_mb: int):
+    path.mkdir(parents=True, exist_ok=True)
+    subprocess.run(["mount", "-t", "tmpfs", "-o", f"size={size_mb}m", "tmpfs", str(path)], check=True)
+    try:
+        yield path
+    finally:
+        subprocess.run(["umount", "-l", str(path)], check=False)
+
+
+def _fill(folder: Path) -> Path:
+    filler = folder / "filler"
+    with filler.open("wb") as f:
+        try:
+            while True:
+                f.write(b"\0" * 65536)
+                f.flush()
+        except OSError:
+            pass
+    return filler
+
+
+def disk_full(folder: Path) -> Outcome:
+    """The database's filesystem fills up while readings arrive; space is freed after a while."""
+    smtp = SmtpReceiver()
+    try:
+        with running_broker(folder / "broker") as broker, small_disk(folder / "disk", 48) as disk:
+            write_secret(folder / "mail.url", smtp.url() + "\n")
+            extra = f"""
+[alerts]
+repeat_min = 0.2
+
+[[alerts.rules]]
+id = "storage-failing"
+above = 3
+hysteresis = 2
+
+[[notify]]
+name = "qa-mail"
+url_file = "{folder / "mail.url"}"
+tags = ["alerts"]
+min_interval_s = 0
+"""
+            config = write_config(folder, broker, reorder_s=0.0, extra=extra)
+            config.write_text(config.read_text().replace(str(folder / "watcher.db"), str(disk / "watcher.db")))
+            db = disk / "watcher.db"
+            w = WatcherProcess(config)
+            pub = Publisher(broker, client_id="sensors-disk")
+            try:
+                w.wait_ready()
+                pub.send(messages(ZONES, 0, 200))
+                _until_stored(db, 400, 60)
+                filler = _fill(disk)
+                pub.send(messages(ZONES, 200, 300))
+                wait_for(lambda: _metric(w, "watcher_commit_failures_total") > 0, timeout=60, what="a failed commit")
+                full_at = time.monotonic()
+                stored_while_full = readings_count(db)
+                wait_for(
+                    lambda: any("CRITICAL] watcher service: readings not stored" in s for s in smtp.subjects()),
+                    timeout=30,
+                    what="the storage alert by mail",
+                )
+                alert_after = time.monotonic() - full_at
+                alive = w.proc.poll() is None and w.get("/healthz")[0] == 200
+                time.sleep(2.0)
+                unchanged = readings_count(db) == stored_while_full
+                filler.unlink()
+                freed = time.monotonic()
+                lost = _lost(db, 1000, 60)
+                recovered = time.monotonic() - freed
+                wait_for(
+                    lambda: any("[back to normal] watcher service: readings not stored" in s for s in smtp.subjects()),
+                    timeout=30,
+                    what="the clear notice",
+                )
+                assert w.stop() == 0
+            finally:
+                pub.close()
+                if w.proc.poll() is None:
+                    w.kill()
+            with contextlib.closing(sqlite3.connect(db)) as con:
+                steps = [r[0] for r in con.execute("SELECT step FROM alert_log ORDER BY id")]
+            assert_state_equals_recomputation(config)
+    finally:
+        smtp.close()
+    assert alive and unchanged, "the service must stay up and acknowledge nothing while the disk is full"
+    assert "raise" in steps and "sent" in steps and "clear" in steps, steps
+    return Outcome(
+        "disk full under the database (48 MB tmpfs)",
+        1,
+        f"service stayed up; nothing stored or acknowledged while full; storage alert mailed after "
+        f"{alert_after:.1f} s (rule: 3 s); episode recorded (raise, sent, clear) once space was freed",
+        lost,
+        [recovered],
+    )
+
+
+def database_locked(folder: Path, hold_s: float) -> Outcome:
+    """Another process holds the database's write lock (BEGIN IMMEDIATE) for hold_s, then runs
+    an online backup, while readings arrive."""
+    with running_broker(folder / "broker") as broker:
+        with watcher_and_publisher(folder, broker, reorder_s=0.0) as (config, w, pub):
+            db = folder / "watcher.db"
+            holder = subprocess.Popen(
+                [
+                    sys.executable,
+                    "-c",
+                    "import sqlite3, sys, time\n"
+                    f"c = sqlite3.connect({str(db)!r}, isolation_level=None)\n"
+                    "c.execute('BEGIN IMMEDIATE'); print('locked', flush=True)\n"
+                    f"time.sleep({hold_s}); c.execute('ROLLBACK')\n"
+                    f"c.backup(sqlite3.connect({str(folder / 'backup.db')!r}), pages=4, sleep=0.01)\n",
+                ],
+                stdout=subprocess.PIPE,
+                text=True,
+            )
+            assert holder.stdout.readline().strip() == "locked"
+            t0 = time.monotonic()
+            pub.send(messages(ZONES, 0, 500))
+            during = readings_count(db)
+            holder.wait(hold_s + 120)
+            holder.stdout.close()
+            lost = _lost(db, 1000, 60)
+            recovery = time.monotonic() - t0
+            assert w.stop() == 0
+            with contextlib.closing(sqlite3.connect(folder / "backup.db")) as b:
+                assert b.execute("PRAGMA integrity_check").fetchone()[0] == "ok"
+    return Outcome(
+        f"database locked by another process for {hold_s:.0f} s, then an online backup",
+        1,
+        f"{during} of 1000 readings stored during the lock; watcher waited, then stored all; backup intact",
+        lost,
+        [recovery],
+    )
+
+
+# --- notifications, reload, input -------------------------------------------------------------------
+
+
+def hanging_receiver(folder: Path) -> Outcome:
+    """A webhook receiver that accepts the connection and never answers, while alerts fire and
+    readings stream in: ingestion must not wait for it."""
+    hook = Receiver()
+    hook.mode, hook.hang_s = "hang", 60.0
+    try:
+        with running_broker(folder / "broker") as broker:
+            write_secret(folder / "hook.url", hook.url("?:timeout=30") + "\n")
+            extra = f"""
+[[alerts.rules]]
+id = "air-benchmark"
+above = -30.0
+for_min = 0
+
+[[notify]]
+name = "hook"
+url_file = "{folder / "hook.url"}"
+tags = ["alerts"]
+min_interval_s = 0
+"""
+            with watcher_and_publisher(folder, broker, reorder_s=0.0, extra=extra) as (config, w, pub):
+                pub.send(messages(ZONES, 0, 30))
+                wait_for(lambda: hook.hanging > 0, timeout=30, what="the deliverer to hang on the receiver")
+                t0 = time.monotonic()
+                pub.send(messages(ZONES, 30, 1000))
+                lost = _lost(folder / "watcher.db", 2060, 30)
+                took = time.monotonic() - t0
+                p99 = _quantile(w, "watcher_ack_seconds", 0.99)
+                hung = hook.hanging
+                assert w.stop() == 0
+    finally:
+        hook.close()
+    return Outcome(
+        "notification receiver hangs (never answers)",
+        1,
+        f"2,000 readings stored in {took:.1f} s while the deliverer was stuck on the receiver "
+        f"({hung} request(s) hanging); acknowledgement p99 at most {p99:g} s",
+        lost,
+        [took],
+    )
+
+
+def invalid_reload(folder: Path, rounds: int) -> Outcome:
+    """SIGHUP with a broken configuration file while readings stream in."""
+    with running_broker(folder / "broker") as broker:
+        with watcher_and_publisher(folder, broker, reorder_s=0.0) as (config, w, pub):
+            good = config.read_text()
+            sent = 0
+            for i in range(rounds):
+                config.write_text(good + ("\n[ingest]\nbatch_max = 'many'\n" if i % 2 else "\n[[zones]\n"))
+                w.proc.send_signal(signal.SIGHUP)
+                pub.send(messages(ZONES, sent, 100))
+                sent += 100
+                wait_for(lambda n=i + 1: _refusals(w) >= n, timeout=20, what="the reload to be refused")
+            config.write_text(good)
+            lost = _lost(folder / "watcher.db", len(ZONES) * sent, 60)
+            alive = w.proc.poll() is None
+            assert w.stop() == 0
+            refusals = w.log.read_text().count("reload refused, keeping the running configuration")
+    assert alive and refusals == rounds, (alive, refusals)
+    return Outcome(
+        "SIGHUP with an invalid configuration",
+        rounds,
+        f"each refused with the reason logged ({refusals}/{rounds}); running configuration kept; no crash",
+        lost,
+    )
+
+
+def bad_input(folder: Path, count: int, seed: int = 7) -> Outcome:
+    """`count` generated messages, most of them bad in one of many ways, through a real broker
+    into a running service; then good readings again."""
+    with running_broker(folder / "broker") as broker:
+        extra = """
+[[sources]]
+pattern = "kp/{zone}/{sensor}/tagged"
+signal = "air_c"
+value = "v"
+unit_field = "unit"
+time = "ts"
+time_format = "epoch_s"
+"""
+        with watcher_and_publisher(folder, broker, reorder_s=0.0, extra=extra) as (config, w, pub):
+            items = corpus(random.Random(seed), count, time.time())
+            pub.send([(t, p) for t, p, _ in items])
+            bad = [c for _, _, c in items if c != "good"]
+            good = len(items) - len(bad)
+            db = folder / "watcher.db"
+
+            def rejected() -> int:
+                with contextlib.closing(sqlite3.connect(f"file:{db}?mode=ro", uri=True)) as con:
+                    return con.execute("SELECT count(*) FROM rejections").fetchone()[0]
+
+            wait_for(lambda: rejected() + readings_count(db) >= len(items), timeout=120, what="every message handled")
+            counted = _metric(w, "watcher_rejections_total")
+            pub.send(messages(ZONES, 0, 50))  # good readings still go in
+            lost = _lost(db, good + 100, 30)
+            alive = w.proc.poll() is None
+            assert w.stop() == 0
+            with contextlib.closing(sqlite3.connect(db)) as con:
+                reasons = [r[0] for r in con.execute("SELECT reason FROM rejections")]
+            assert_state_equals_recomputation(config)
+    classes = sorted(set(bad))
+    assert alive and len(reasons) == len(bad) == counted, (alive, len(reasons), len(bad), counted)
+    assert all(reasons), "every rejection has a reason"
+    return Outcome(
+        "bad sensor messages (generated)",
+        len(items),
+        f"{len(bad):,} bad in {len(classes)} classes, each stored with its reason and counted in "
+        f"/metrics; {good:,} good ones among them stored; service unaffected",
+        lost,
+        extra={"classes": classes},
+    )
+
+
+def _refusals(w: WatcherProcess) -> int:
+    return w.log.read_text().count("reload refused, keeping the running configuration")
+
+
+def _quantile(w: WatcherProcess, name: str, q: float) -> float:
+    """Upper bucket bound holding quantile q of a Prometheus histogram."""
+    status, body = w.get("/metrics")
+    buckets = []
+    for line in body.decode().splitlines():
+        m = re.match(rf'{name}_bucket\{{le="([^"]+)"\}} (\S+)', line)
+        if m:
+            buckets.append((float(m.group(1)), float(m.group(2))))
+    total = buckets[-1][1] if buckets else 0.0
+    return next((le for le, n in buckets if n >= q * total), float("inf"))
+
+
+def fetch(url: str) -> bytes:
+    with urllib.request.urlopen(url, timeout=5) as r:
+        return r.read()

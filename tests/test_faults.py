@@ -1,0 +1,340 @@
+"""Faults and abuse: nothing acknowledged is lost, nothing bad gets in, the service stays up.
+
+The scenarios (tests/faults.py) run against real processes; here with small counts, in
+bench/fault_harness.py with full counts (it writes docs/reliability.md). The parser properties
+are fuzzed with hypothesis; the clock cases use an injected clock on the engine.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import json
+import math
+import random
+import sqlite3
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
+
+from tests import faults
+from tests.abuse import REASONS, corpus
+from tests.broker import make_ca
+from tests.receivers import Receiver
+from tests.service_harness import (
+    Publisher,
+    WatcherProcess,
+    messages,
+    readings_count,
+    wait_for,
+    write_config,
+    write_secret,
+)
+from tests.test_monitor import make
+from watcher.engine.batch import Message
+from watcher.ingest.payload import Limits, Rejected, Source, parse_message
+from watcher.ingest.topics import parse_pattern
+
+NOW = 1_795_000_000.0
+LIMITS = Limits()
+AIR = Source(
+    parse_pattern("kp/{zone}/{sensor}/air"), "air_c", value_path=("t",), time_path=("ts",), time_format="epoch_s"
+)
+TAGGED = Source(
+    parse_pattern("kp/{zone}/{sensor}/tagged"),
+    "air_c",
+    value_path=("v",),
+    unit_path=("unit",),
+    time_path=("ts",),
+    time_format="epoch_s",
+)
+DOOR = Source(parse_pattern("kp/{zone}/door"), "door", fmt="number")
+
+
+def check_outcome(outcome: faults.Outcome) -> None:
+    print(f"\n{outcome.name}: tried {outcome.tried}; {outcome.observed}; lost {outcome.lost}; {outcome.recovery()}")
+    assert outcome.lost == 0, outcome
+
+
+# --- the parser, fuzzed ----------------------------------------------------------------------------
+
+json_values = st.recursive(
+    st.none() | st.booleans() | st.integers() | st.floats() | st.text(max_size=20),
+    lambda inner: st.lists(inner, max_size=4) | st.dictionaries(st.text(max_size=8), inner, max_size=4),
+    max_leaves=20,
+)
+
+
+def _valid_or_rejected(source: Source, payload: bytes) -> None:
+    try:
+        r = parse_message(source, {"zone": "bulk-a", "sensor": "s1"}, payload, NOW, LIMITS)
+    except Rejected as exc:
+        assert str(exc)  # every rejection has a reason
+        return
+    assert math.isfinite(r.value) and math.isfinite(r.ts)
+    assert NOW - LIMITS.past_limit_s <= r.ts <= NOW + LIMITS.future_skew_s
+    if source.signal == "air_c":
+        assert LIMITS.temp_range_c[0] <= r.value <= LIMITS.temp_range_c[1]
+    else:
+        assert r.value in (0.0, 1.0)
+
+
+@settings(max_examples=600, deadline=None)
+@given(st.binary(max_size=300))
+def test_any_bytes_become_a_reading_or_a_reasoned_rejection(payload):
+    for source in (AIR, TAGGED, DOOR):
+        _valid_or_rejected(source, payload)
+
+
+@settings(max_examples=600, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(value=json_values, ts=json_values, unit=json_values, extra=st.dictionaries(st.text(max_size=5), json_values))
+def test_any_json_document_becomes_a_reading_or_a_reasoned_rejection(value, ts, unit, extra):
+    for doc in ({**extra, "t": value, "ts": ts}, {"v": value, "unit": unit, "ts": NOW}, value):
+        text = json.dumps(doc, allow_nan=True).encode()
+        _valid_or_rejected(AIR, text)
+        _valid_or_rejected(TAGGED, text)
+
+
+@settings(max_examples=400, deadline=None)
+@given(st.text(max_size=60))
+def test_topics_with_wildcards_or_control_characters_never_match(topic):
+    names = AIR.pattern.match(topic)
+    if names is not None:
+        assert all(
+            v and not set(v) & set("+#/") and all(ord(c) >= 32 and ord(c) != 127 for c in v) for v in names.values()
+        )
+
+
+def test_each_bad_class_is_rejected_with_its_reason_in_process(tmp_path):
+    """The same generated corpus the broker run uses, straight into the engine: every class
+    rejected with the words its reason must hold; topics the broker itself refuses (control
+    characters, wildcards) are refused here too."""
+    cfg, store, engine = make(
+        tmp_path,
+        zones=[{"id": "bulk-a", "setpoint_c": -25.0}, {"id": "dispatch", "setpoint_c": -25.0}],
+        sources=[
+            {"pattern": "kp/{zone}/{sensor}/air", "signal": "air_c", "value": "temp_c", "time": "ts"},
+            {
+                "pattern": "kp/{zone}/{sensor}/tagged",
+                "signal": "air_c",
+                "value": "v",
+                "unit_field": "unit",
+                "time": "ts",
+            },
+        ],
+    )
+    items = corpus(random.Random(3), 3000, NOW)
+    extra = [
+        ("kp/bulk\x07a/s1/air", b'{"temp_c": -25, "ts": 1}', "control character"),
+        ("kp/+/s1/air", b"{}", "wildcard"),
+    ]
+    msgs = [Message(t, p, NOW, i, 1) for i, (t, p, _) in enumerate(items + extra)]
+    for lo in range(0, len(msgs), 500):
+        engine.process(msgs[lo : lo + 500], now=NOW)
+    rows = store.conn.execute("SELECT topic, reason FROM rejections ORDER BY id").fetchall()
+    bad = [(t, c) for t, _, c in items + extra if c != "good"]
+    assert len(rows) == len(bad)
+    for (_, reason), (_, kind) in zip(rows, bad):
+        words = REASONS.get(kind, "no source pattern matches")
+        assert words in reason, (kind, reason)
+    assert {c for _, c in bad} >= set(REASONS)  # every class was generated
+    good = sum(1 for *_, c in items if c == "good")
+    assert store.conn.execute("SELECT count(*) FROM readings").fetchone()[0] == good
+
+
+def test_ten_thousand_generated_messages_through_a_real_broker(tmp_path):
+    check_outcome(faults.bad_input(tmp_path, 10_000))
+
+
+# --- faults against real processes ----------------------------------------------------------------
+
+
+def test_watcher_killed_at_random_moments(tmp_path):
+    check_outcome(faults.kill_watcher(tmp_path, rounds=10))
+
+
+@pytest.mark.parametrize("hard", [False, True], ids=["sigterm", "sigkill"])
+def test_broker_down_while_publishers_keep_publishing(tmp_path, hard):
+    check_outcome(faults.broker_down(tmp_path, rounds=2, hard=hard))
+
+
+@pytest.mark.parametrize("mode", ["drop", "stall", "slow"])
+def test_network_between_watcher_and_broker(tmp_path, mode):
+    outcome = faults.network(tmp_path, rounds=1, mode=mode)
+    check_outcome(outcome)
+    # keepalive 5 s: watcher pings after 2 s of silence and gives up 2 s later (+1 s for polling)
+    assert all(d <= 5.0 + 1.0 for d in outcome.extra.get("detect_s", []))
+
+
+@pytest.mark.skipif(faults.can_mount() is not None, reason=str(faults.can_mount()))
+def test_disk_full_stops_acks_alerts_around_the_database_and_resumes(tmp_path):
+    check_outcome(faults.disk_full(tmp_path))
+
+
+def test_database_locked_by_another_process(tmp_path):
+    check_outcome(faults.database_locked(tmp_path, hold_s=6.0))
+
+
+def test_a_hanging_receiver_never_blocks_ingestion(tmp_path):
+    outcome = faults.hanging_receiver(tmp_path)
+    check_outcome(outcome)
+    assert outcome.recovery_s[0] < 30.0
+
+
+def test_invalid_configuration_on_sighup(tmp_path):
+    check_outcome(faults.invalid_reload(tmp_path, rounds=3))
+
+
+# --- clock trouble, through an injected clock ---------------------------------------------------------
+
+
+def _air(k, ts, received, sensor="s1"):
+    return Message(f"kp/bulk-a/{sensor}/air", json.dumps({"t": -25.0, "ts": ts}).encode(), received, k, 1)
+
+
+def test_sensor_clock_ahead_or_behind(tmp_path):
+    """A reading stamped up to the tolerance ahead of the service clock is taken; further ahead
+    it is refused with the reason; one stamped behind (older than the reorder window) is taken
+    as late and the zone recomputed, so its state equals a full recomputation."""
+    cfg, store, engine = make(tmp_path)
+    engine.process([_air(k, NOW - 3600 + 60 * k, NOW - 3600 + 60 * k) for k in range(60)], now=NOW)
+    r = engine.process([_air(100, NOW + 240, NOW, "ahead-4min"), _air(101, NOW + 900, NOW, "ahead-15min")], now=NOW)
+    assert r.counts["rejected"] == 1
+    reason = store.conn.execute("SELECT reason FROM rejections").fetchone()[0]
+    assert "in the future" in reason and "tolerance 300 s" in reason
+    engine.process([_air(102, NOW - 1800 + 30, NOW, "behind-30min")], now=NOW)  # late
+    engine.checkpoint_all(NOW)
+    fresh, saved = engine.recompute("bulk-a").state, store.zone_rows()["bulk-a"].state
+    assert float(saved["t_s"]) == fresh.t_s and abs(saved["ub"] - fresh.ub).max() <= 1e-9 * abs(fresh.ub).max()
+
+
+def test_service_clock_jumps(tmp_path):
+    """The service clock jumps an hour ahead: the stale-sensor rule fires (a jump and a silent
+    sensor look alike; documented) and clears with the next reading. It jumps back a day:
+    nothing raises, nothing goes negative in the alert record."""
+    cfg, store, engine = make(tmp_path, keep=("sensor-stale",))
+    engine.process([_air(k, NOW - 600 + 60 * k, NOW - 600 + 60 * k) for k in range(10)], now=NOW)
+    with store.atomic():
+        engine.monitor.tick(NOW, True, True)
+    assert store.alerts_list(open_only=True) == []
+    jumped = NOW + 3600
+    with store.atomic():
+        engine.monitor.tick(jumped, True, True)
+    opened = store.alerts_list(open_only=True)
+    assert [a["rule"] for a in opened] == ["sensor-stale"]
+    engine.process([_air(50, jumped - 10, jumped)], now=jumped)
+    with store.atomic():
+        engine.monitor.tick(jumped + 1, True, True)
+    assert store.alerts_list(open_only=True) == []
+    back = NOW - 86400
+    with store.atomic():
+        engine.monitor.tick(back, True, True)
+    engine.process([_air(51, back - 5, back)], now=back)
+    with store.atomic():
+        engine.monitor.tick(back + 1, True, True)
+    assert store.alerts_list(open_only=True) == []
+    values = [r[0] for r in store.conn.execute("SELECT value FROM alert_log WHERE value IS NOT NULL")]
+    assert all(v >= 0 for v in values)
+
+
+# --- security ---------------------------------------------------------------------------------------
+
+
+@pytest.mark.parametrize("case", ["wrong CA", "wrong host name", "plain-text listener"])
+def test_tls_fails_clearly_and_never_falls_back(tmp_path, broker, case):
+    """With [broker.tls] set, a wrong CA, a host name the certificate does not name, or a
+    listener that speaks plain MQTT: no connection, a clear error in /readyz and the log, and
+    no CONNECT (so no password) ever reaches the broker."""
+    config = write_config(tmp_path, broker, tls=True, reorder_s=0.0)
+    text = config.read_text()
+    if case == "wrong CA":
+        (tmp_path / "other-ca").mkdir()
+        other = make_ca(tmp_path / "other-ca")
+        text = text.replace(str(broker.tls["ca"]), str(other["ca"]))
+    elif case == "wrong host name":
+        text = text.replace('host = "localhost"', 'host = "127.1"')  # reaches 127.0.0.1; the certificate names neither
+    else:
+        text = text.replace(f"port = {broker.tls_port}", f"port = {broker.port}")
+    config.write_text(text)
+    w = WatcherProcess(config)
+    wait_for(lambda: (json.loads(w.get("/readyz")[1] or b"{}").get("broker_error") or "") != "", timeout=30)
+    detail = json.loads(w.get("/readyz")[1])
+    assert detail["broker"] is False
+    expected = {
+        "wrong CA": "certificate signature failure",  # OpenSSL's words: the CA is not the signer
+        "wrong host name": "Hostname mismatch, certificate is not valid for '127.1'",
+        "plain-text listener": "the broker closed the connection (is this port a plain-text listener?)",
+    }
+    assert detail["broker_error"].startswith("TLS handshake with ") and expected[case] in detail["broker_error"], detail
+    assert detail["broker_error"] in w.log.read_text()
+    assert w.stop() == 0
+    assert "watcher-test" not in broker.log()  # the broker never saw our client id: no CONNECT in clear
+
+
+def test_secrets_never_appear_in_logs_status_alerts_or_reports(tmp_path, broker):
+    """The broker password and a webhook password in a notification URL: grep the log, status
+    (text and JSON), alerts, the HTTP endpoints, the outbox and a weekly summary for them."""
+    hook = Receiver()
+    hook_secret = "Hook-Pa55-do-not-print"
+    try:
+        write_secret(tmp_path / "hook.url", hook.url().replace("json://", f"json://qa:{hook_secret}@") + "\n")
+        extra = f"""
+[[alerts.rules]]
+id = "air-benchmark"
+above = -30.0
+for_min = 0
+
+[[notify]]
+name = "qa-hook"
+url_file = "{tmp_path / "hook.url"}"
+tags = ["alerts"]
+min_interval_s = 0
+"""
+        config = write_config(tmp_path, broker, reorder_s=0.0, extra=extra)
+        w = WatcherProcess(config)
+        w.wait_ready()
+        pub = Publisher(broker)
+        pub.send(messages(faults.ZONES, 0, 30))
+        wait_for(lambda: readings_count(tmp_path / "watcher.db") == 60, timeout=30)
+        wait_for(lambda: len(hook.bodies) >= 1, timeout=30, what="an alert through the webhook")
+        outputs = [w.get(p)[1].decode() for p in ("/healthz", "/readyz", "/metrics")]
+        assert w.stop() == 0
+        pub.close()
+
+        def cli(*args):
+            cmd = [sys.executable, "-m", "watcher", *args, "--config", str(config)]
+            out = subprocess.run(cmd, capture_output=True, text=True, timeout=120)
+            return out.stdout + out.stderr
+
+        outputs += [cli("status"), cli("status", "--json"), cli("alerts", "--json"), cli("check-config")]
+        outputs.append(cli("report", "--week", "2026-W47", "--out", str(tmp_path / "rep")))
+        outputs += [p.read_text(errors="replace") for p in (tmp_path / "rep").rglob("*") if p.is_file()]
+        outputs.append(w.log.read_text())
+        with contextlib.closing(sqlite3.connect(tmp_path / "watcher.db")) as con:
+            outputs += [str(r) for r in con.execute("SELECT * FROM outbox")]
+    finally:
+        hook.close()
+    everything = "\n".join(outputs)
+    assert len(everything) > 10_000 and "qa-hook" in everything  # plenty to look through, the channel named
+    for secret in (broker.PASSWORD, hook_secret):
+        assert secret not in everything
+
+
+def test_http_endpoint_binds_to_loopback_by_default(tmp_path, broker):
+    config = write_config(tmp_path, broker)
+    assert "host =" not in config.read_text().split("[health]")[1].split("[")[0]  # the default is used
+    w = WatcherProcess(config)
+    w.wait_ready()
+    port_hex = f"{w.health_port:04X}"
+    listening = [
+        line.split()[1]
+        for line in Path("/proc/net/tcp").read_text().splitlines()[1:]
+        if line.split()[1].endswith(":" + port_hex) and line.split()[3] == "0A"
+    ]
+    assert listening == ["0100007F:" + port_hex]  # 127.0.0.1 only
+    status, body = w.get("/readyz")
+    assert broker.PASSWORD not in body.decode()
+    assert w.stop() == 0
