@@ -178,7 +178,7 @@ def broker_down(folder: Path, rounds: int, hard: bool) -> Outcome:
 
 def network(folder: Path, rounds: int, mode: str) -> Outcome:
     """A TCP proxy between watcher and the broker: drop every connection, stall it silently
-    (half-open), or slow it down (50 ms per chunk). Keepalive 5 s."""
+    (half-open), or slow it down (4 KiB per 0.2 s, about 20 KB/s). Keepalive 5 s."""
     with running_broker(folder / "broker") as broker:
         proxy = Proxy(broker.port)
         config = write_config(folder, broker, reorder_s=0.0)
@@ -194,7 +194,7 @@ def network(folder: Path, rounds: int, mode: str) -> Outcome:
                 _until_stored(folder / "watcher.db", len(ZONES) * sent, 60)
                 t0 = time.monotonic()
                 if mode == "slow":
-                    proxy.slow(0.05)
+                    proxy.slow(0.2)
                     pub.send(messages(ZONES, sent, 300))
                     sent += 300
                     _until_stored(folder / "watcher.db", len(ZONES) * sent, 120)
@@ -224,7 +224,7 @@ def network(folder: Path, rounds: int, mode: str) -> Outcome:
     words = {
         "drop": "connection dropped",
         "stall": "link stalled silently (half-open)",
-        "slow": "link slowed (50 ms per chunk)",
+        "slow": "link slowed to about 20 KB/s",
     }
     seen = f"{len(ZONES) * sent} readings; all arrived"
     if detect:

@@ -53,10 +53,11 @@ class Proxy:
                     continue
                 ready, _, _ = select.select([a, b], [], [], 0.1)
                 for s in ready:
-                    data = s.recv(65536)
+                    slow = self.mode == "slow"
+                    data = s.recv(4096 if slow else 65536)  # slow: at most 4 KiB per delay
                     if not data:
                         return
-                    if self.mode == "slow":
+                    if slow:
                         time.sleep(self.delay_s)
                     peer[s].sendall(data)
         except (OSError, ValueError):  # a socket closed by drop() under our feet
