@@ -47,6 +47,7 @@ class Broker:
     receive_maximum: int = 1000
     status_topic: str = "watcher/status"
     ack_topic: str = "watcher/ack"
+    lot_topic: str = "watcher/lots"
     reconnect_min_s: float = 1.0
     reconnect_max_s: float = 60.0
     tls: Tls | None = None
@@ -260,7 +261,8 @@ def config_from_dict(data: dict, path: str = "config") -> Config:
         tls_r.done()
     status_topic = b.text("status_topic", "watcher/status")
     ack_topic = b.text("ack_topic", "watcher/ack")
-    for key, topic in (("status_topic", status_topic), ("ack_topic", ack_topic)):
+    lot_topic = b.text("lot_topic", "watcher/lots")
+    for key, topic in (("status_topic", status_topic), ("ack_topic", ack_topic), ("lot_topic", lot_topic)):
         if not topic_is_clean(topic):
             b.fail(key, topic, "a topic without wildcards, control characters or empty levels")
     broker = Broker(
@@ -274,6 +276,7 @@ def config_from_dict(data: dict, path: str = "config") -> Config:
         receive_maximum=int(b.integer("receive_maximum", 1000, 1, 65535)),
         status_topic=status_topic,
         ack_topic=ack_topic,
+        lot_topic=lot_topic,
         reconnect_min_s=b.number("reconnect_min_s", 1.0, 0.05, 600),
         reconnect_max_s=b.number("reconnect_max_s", 60.0, 0.05, 3600),
         tls=tls,

@@ -91,8 +91,8 @@ class Service:
 
     @staticmethod
     def _filters(config: Config) -> list[str]:
-        ack = config.broker.ack_topic
-        return sorted({s.pattern.filter for s in config.sources} | {ack, ack + "/+"})
+        ack, lots = config.broker.ack_topic, config.broker.lot_topic
+        return sorted({s.pattern.filter for s in config.sources} | {ack, ack + "/+", lots, lots + "/+"})
 
     def _on_link(self, event: str, detail) -> None:
         if event == "connected":

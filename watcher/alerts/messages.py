@@ -30,6 +30,9 @@ CHECK = {
     "rejections_per_h": "`watcher status` and the rejections table: a sensor or gateway sending bad messages.",
     "undelivered_s": "The failing notification channel (its error is kept in the outbox table).",
     "commit_failing_s": "Free disk space for the database, or a process holding it locked.",
+    "lot_budget_used_pct": "Ship this lot before fresher ones (`watcher lots` ranks them); look at where it has been "
+    "stored (`watcher lot show`).",
+    "lot_days_to_limit": "Ship this lot before fresher ones (`watcher lots` ranks them).",
 }
 
 WORDS = {
@@ -48,6 +51,8 @@ WORDS = {
     "rejections_per_h": "rejected messages in the last hour",
     "undelivered_s": "a notification channel failing",
     "commit_failing_s": "readings not stored",
+    "lot_budget_used_pct": "lot's texture budget used",
+    "lot_days_to_limit": "lot's days to the texture limit",
 }
 
 
@@ -66,7 +71,7 @@ def fmt_value(metric: str, value: float | None) -> str:
         return "unknown"
     if metric.endswith("_s"):
         return duration(value)
-    if metric == "days_to_limit":
+    if metric in ("days_to_limit", "lot_days_to_limit"):
         return f"{value:.0f} days"
     if metric == "defrosts_today":
         return f"{value:.0f}"

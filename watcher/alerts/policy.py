@@ -16,18 +16,23 @@ SEVERITIES = ("info", "warning", "critical")
 # Judged on the service's own clock (the rest on the zone's data time, so a replay or a sensor
 # clock that runs late still gives the right durations).
 WALL_CLOCK_METRICS = ("reading_age_s", "broker_down_s", "rejections_per_h", "undelivered_s", "commit_failing_s")
+LOT_METRICS = ("lot_budget_used_pct", "lot_days_to_limit")  # judged per lot (alert zone "lot:<id>")
 METRICS = (
-    "budget_used_pct",
-    "days_to_limit",
-    "event_budget_share_pct",
-    "event_excess_um",
-    "air_c",
-    "product_c",
-    "door_open_s",
-    "defrost_s",
-    "defrosts_today",
-    "sensor_spread_k",
-) + WALL_CLOCK_METRICS
+    (
+        "budget_used_pct",
+        "days_to_limit",
+        "event_budget_share_pct",
+        "event_excess_um",
+        "air_c",
+        "product_c",
+        "door_open_s",
+        "defrost_s",
+        "defrosts_today",
+        "sensor_spread_k",
+    )
+    + WALL_CLOCK_METRICS
+    + LOT_METRICS
+)
 
 
 @dataclass(frozen=True)
@@ -167,6 +172,19 @@ def default_rules() -> list[Rule]:
             "budget-80", "budget_used_pct", ">=", 80.0, "warning", latch=True, label="80 % of the texture budget used"
         ),
         Rule("budget-100", "budget_used_pct", ">=", 100.0, "critical", latch=True, label="texture limit reached"),
+        Rule(
+            "lot-50",
+            "lot_budget_used_pct",
+            ">=",
+            50.0,
+            "info",
+            latch=True,
+            label="lot has used half its texture budget",
+        ),
+        Rule(
+            "lot-80", "lot_budget_used_pct", ">=", 80.0, "warning", latch=True, label="lot has used 80 % of its budget"
+        ),
+        Rule("lot-100", "lot_budget_used_pct", ">=", 100.0, "critical", latch=True, label="lot at its texture limit"),
         Rule(
             "days-left",
             "days_to_limit",

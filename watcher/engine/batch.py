@@ -15,6 +15,7 @@ from contextlib import contextmanager
 from dataclasses import dataclass, field
 
 from watcher.config import Config
+from watcher.engine.lots import parse_payload, record_event
 from watcher.engine.monitor import Monitor
 from watcher.engine.zones import ZoneRunner, spec_key
 from watcher.errors import InputError
@@ -68,7 +69,16 @@ class Engine:
         self._last_checkpoint: dict[str, float] = {}
         self.last_figures: dict[str, dict] = {}
         self._load(z.id for z in config.zones)
-        self.monitor = Monitor(config, store)
+        self.monitor = self._monitor()
+
+    def _monitor(self) -> Monitor:
+        m = Monitor(self.config, self.store)
+        m.fed_of = self._fed_of
+        return m
+
+    def _fed_of(self, zone_id: str) -> float:
+        runner = self.runners.get(zone_id)
+        return -float("inf") if runner is None else runner.fed_ts
 
     # --- loading -------------------------------------------------------------------------
     def _new_runner(self, zone_id: str) -> ZoneRunner:
@@ -148,9 +158,9 @@ class Engine:
         now = time.time() if now is None else now
         result = BatchResult()
         parsed: list[tuple[Reading | str | None, Message]] = []
-        ack = self.config.broker.ack_topic
+        commands = (self.config.broker.ack_topic, self.config.broker.lot_topic)
         for msg in messages:
-            if msg.topic == ack or msg.topic.startswith(ack + "/"):
+            if any(msg.topic == c or msg.topic.startswith(c + "/") for c in commands):
                 parsed.append((None, msg))
                 continue
             try:
@@ -180,22 +190,29 @@ class Engine:
         except Exception:
             self.store.forget_heads()
             self._load(touched)
-            self.monitor = Monitor(self.config, self.store)
+            self.monitor = self._monitor()
             raise
 
     def _command(self, msg: Message, result: BatchResult) -> None:
-        """An acknowledgement. On `<ack_topic>/<user>` the last level names the sender: the
-        broker's ACL lets only that user write there (deploy/mosquitto/acl), so it is recorded
-        as the identity the broker vouches for."""
-        sender = msg.topic[len(self.config.broker.ack_topic) + 1 :] or None
+        """An acknowledgement or a lot event. On `<topic>/<user>` the last level names the
+        sender: the broker's ACL lets only that user write there (deploy/mosquitto/acl), so it
+        is recorded as the identity the broker vouches for."""
+        ack = self.config.broker.ack_topic
+        base = ack if msg.topic == ack or msg.topic.startswith(ack + "/") else self.config.broker.lot_topic
+        sender = msg.topic[len(base) + 1 :] or None
         try:
             if sender is not None and ("/" in sender or not topic_is_clean(sender)):
-                raise InputError(f"acknowledgement topic {msg.topic!r}: expected {self.config.broker.ack_topic}/<user>")
+                raise InputError("topic", msg.topic, f"{base} or {base}/<user>")
+            if base != ack:
+                doc = parse_payload(msg.payload, msg.topic)
+                record_event(self.store, self.config, doc, f"topic {msg.topic}", "mqtt", sender, msg.received_ts)
+                result.counts["lot_event"] += 1
+                return
             self.monitor.command(msg.payload, msg.received_ts, sender=sender)
             result.counts["command"] += 1
         except InputError as exc:
             self.store.insert_rejection(msg.received_ts, msg.topic, str(exc), msg.payload)
-            result.rejections["ack_command"] += 1
+            result.rejections["ack_command" if base == ack else "lot_event"] += 1
             result.counts["rejected"] += 1
 
     def process_readings(self, items: list[tuple[Reading, float, str]], now: float | None = None) -> BatchResult:

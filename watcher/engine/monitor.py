@@ -16,9 +16,10 @@ from dataclasses import asdict, dataclass, field, replace
 
 from watcher.alerts import messages
 from watcher.alerts.channels import route
-from watcher.alerts.policy import WALL_CLOCK_METRICS, AlertState, Rule, acknowledge, evaluate
+from watcher.alerts.policy import LOT_METRICS, WALL_CLOCK_METRICS, AlertState, Rule, acknowledge, evaluate
 from watcher.config import Config
 from watcher.engine.analysis import CONTEXT_S, analyse, analysis_points, take_snapshot
+from watcher.engine.lots import LotKeeper
 from watcher.engine.zones import ZoneRunner, spec_key
 from watcher.errors import InputError
 from watcher.store.db import Store
@@ -113,6 +114,8 @@ class Monitor:
             lz.snapshot_ts = marks.get((zid, "snapshot_ts"), -math.inf)
         self.broker_down_since: float | None = None
         self.commit_failing_since: float | None = None
+        self.lots = LotKeeper(config, store)
+        self.fed_of = lambda zone_id: -math.inf  # set by the engine: how far each zone's data go
 
     # --- intake ---------------------------------------------------------------------------
     def observe(self, reading, received_ts: float) -> None:
@@ -136,13 +139,13 @@ class Monitor:
             lz.figures = figures
         lz.air_c = runner.last_air_c
         if checkpointed and runner.state is not None:
-            self._analyse(runner, lz, final)
+            self._analyse(runner, lz, wall_s, final)
         if runner.last_ts is None:
             return
-        rules = [r for r in self.rules if r.metric not in WALL_CLOCK_METRICS]
+        rules = [r for r in self.rules if r.metric not in WALL_CLOCK_METRICS + LOT_METRICS]
         self._evaluate(rules, zid, self.zone_observations(runner, lz), runner.last_ts, wall_s)
 
-    def _analyse(self, runner: ZoneRunner, lz: Live, final: bool = False) -> None:
+    def _analyse(self, runner: ZoneRunner, lz: Live, wall_s: float, final: bool = False) -> None:
         """Bring events and costs up to date at the grid points of data time (multiples of
         analyse_every_s) that the zone has passed, so the same readings give the same events
         however they were batched; a final pass (stop, reload, end of a replay) also covers the
@@ -158,6 +161,14 @@ class Monitor:
             points.append(fed)
         for at in points:
             self._analyse_at(runner, lz, at)
+            self._lots_at(zid, at, wall_s)
+
+    def _lots_at(self, zone_id: str, at_s: float, wall_s: float) -> None:
+        """Bring the zone's lots up to at_s and judge the lot rules on each."""
+        rules = [r for r in self.rules if r.metric in LOT_METRICS]
+        for lot, _zone, figures in self.lots.advance_zone(zone_id, at_s, self.fed_of, wall_s):
+            obs = {"lot_budget_used_pct": figures["budget_used_pct"], "lot_days_to_limit": figures["days_to_limit"]}
+            self._evaluate(rules, f"lot:{lot}", obs, figures["t_s"], wall_s)
 
     def _analyse_at(self, runner: ZoneRunner, lz: Live, at_s: float) -> None:
         zid = runner.zone.id
@@ -183,6 +194,7 @@ class Monitor:
     def forget_after(self, zone_id: str, ts: float) -> None:
         """A late reading at ts changed the zone's past: snapshots from then on no longer hold."""
         self.store.snapshots_drop(zone_id, after_ts=ts)
+        self.store.lot_states_drop_after(zone_id, ts)
         lz = self.live[zone_id]
         lz.snapshot_ts = min(lz.snapshot_ts, ts - 1.0)
         lz.analysed_ts = min(lz.analysed_ts, ts - 1.0)
@@ -322,16 +334,25 @@ class Monitor:
         return None if row is None else row[0]
 
     def _notify(self, kind: str, alert: dict, wall_s: float, n: int = 0, by=None, note=None) -> None:
-        zone = self.config.zone(alert["zone"])
+        key = alert["zone"]
+        lot = key[4:] if key.startswith("lot:") else None
+        if lot is not None:  # a lot's alert: told where the lot is, with the lot's own figures
+            key = next((z for _, z, _ in reversed(self.store.lot_history(lot)) if z is not None), key)
+        zone = self.config.zone(key)
         zone_name = zone.name if zone else "watcher service"
-        site = self.config.site_of(alert["zone"]) if zone else (self.config.sites[0] if self.config.sites else None)
+        site = self.config.site_of(key) if zone else (self.config.sites[0] if self.config.sites else None)
         tz = site.timezone if site else "UTC"
         place = f"{site.name or site.id} - {zone_name}" if site else zone_name
-        lz = self.live.get(alert["zone"])
+        lz = self.live.get(key)
+        figures = {**(lz.figures or {}), "air_c": lz.air_c} if lz else None
         events = []
         if zone is not None and lz is not None:
             events = self.store.events_for(zone.id, (lz.figures or {}).get("model_time_s", wall_s) - 86400.0)
-        tags = ["escalation"] if kind == "escalate" else ["alerts", alert["severity"], f"zone:{alert['zone']}"]
+        if lot is not None:
+            zone_name, place = f"lot {lot} ({zone_name})", f"{place}, lot {lot}"
+            state = self.store.lot_state_get(lot)
+            figures = {**(state[2] if state else {}), "air_c": lz.air_c if lz else None}
+        tags = ["escalation"] if kind == "escalate" else ["alerts", alert["severity"], f"zone:{key}"]
         exclude = set(self.store.failing_channels()) if alert["metric"] == "undelivered_s" else set()
         self.store.outbox_add(
             messages.title(kind, alert, zone_name, n),
@@ -340,7 +361,7 @@ class Monitor:
                 alert,
                 place,
                 tz,
-                {**(lz.figures or {}), "air_c": lz.air_c} if lz else None,
+                figures,
                 events,
                 self.config.broker.ack_topic,
                 zone.profile.limit_mean_diameter_um if zone else None,

@@ -22,6 +22,7 @@ from watcher.report.figures import (
     rejection_table,
     temperature_table,
 )
+from watcher.report.lots import lots_note, lots_table
 from watcher.report.week import Week
 from watcher.store import chain
 from watcher.store.db import Store
@@ -59,11 +60,13 @@ class Report:
     digest: str
     versions: dict
     cautions: list[str]
-    lots_note: str = "No lot data are recorded for this site yet: lots at risk cannot be listed."
+    lots: pd.DataFrame = field(default_factory=pd.DataFrame)
+    lots_note: str = ""
 
     def tables(self) -> dict[str, pd.DataFrame]:
         """Every table, by file name stem (the CSV files)."""
         out = {
+            "lots": self.lots,
             "alerts": self.alerts,
             "completeness": self.completeness,
             "gaps": self.gaps,
@@ -179,6 +182,7 @@ def build(store: Store, cfg: Config, site: Site, week: Week, generated_s: float)
     comp = completeness(sw.readings, week.end_s - week.start_s)
     gaps = sw.gaps.assign(minutes=(sw.gaps["seconds"] / 60.0).round(1)) if len(sw.gaps) else sw.gaps
     heads = chain.heads(store.conn)
+    lots = lots_table(store, cfg, site, week)
     return Report(
         site=site,
         week=week,
@@ -196,4 +200,6 @@ def build(store: Store, cfg: Config, site: Site, week: Week, generated_s: float)
             CAUTION,
             "Predictions are only as good as the product profile: calibrate it with your own storage trial.",
         ],
+        lots=lots,
+        lots_note=lots_note(lots),
     )

@@ -88,9 +88,9 @@ def load(store: Store, cfg: Config, site: Site, week: Week) -> SiteWeek:
     events = events.drop(columns=["detail"])
     alerts = _frame(
         conn,
-        f"SELECT * FROM alerts WHERE zone IN ({_in(len(ids) + 1)}) AND raised_s < ? "
-        "AND (cleared_s IS NULL OR cleared_s >= ?) ORDER BY raised_s",
-        (*ids, "service", e, s),
+        f"SELECT * FROM alerts WHERE (zone IN ({_in(len(ids) + 1)}) OR zone IN (SELECT 'lot:' || lot FROM lot_events "
+        f"WHERE zone IN ({_in(len(ids))}))) AND raised_s < ? AND (cleared_s IS NULL OR cleared_s >= ?) ORDER BY raised_s",
+        (*ids, "service", *ids, e, s),
     )
     alert_log = _frame(
         conn,

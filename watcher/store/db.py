@@ -22,6 +22,7 @@ from sqlite_utils.migrations import Migrations
 from watcher.errors import WatcherError
 from watcher.store import chain
 from watcher.store.alert_rows import AlertRows, EventRows
+from watcher.store.lot_rows import LotRows
 from watcher.store.outbox import OutboxRows
 
 BUSY_TIMEOUT_MS = 30_000
@@ -167,6 +168,26 @@ def m005_record_chain(db: sqlite_utils.Database) -> None:
     )
 
 
+@migrations()
+def m006_lots(db: sqlite_utils.Database) -> None:
+    db.executescript(
+        """
+        CREATE TABLE lots (
+            lot TEXT PRIMARY KEY, product TEXT NOT NULL, initial TEXT NOT NULL, note TEXT, created_s REAL NOT NULL
+        );
+        CREATE TABLE lot_events (
+            id INTEGER PRIMARY KEY, lot TEXT NOT NULL, kind TEXT NOT NULL, zone TEXT, ts REAL NOT NULL,
+            source TEXT NOT NULL, sender TEXT, received_s REAL NOT NULL, note TEXT
+        );
+        CREATE INDEX lot_events_lot ON lot_events(lot, ts);
+        CREATE INDEX lot_events_zone ON lot_events(zone);
+        CREATE TABLE lot_state (
+            lot TEXT PRIMARY KEY, t_s REAL NOT NULL, state BLOB NOT NULL, figures TEXT NOT NULL, updated_s REAL NOT NULL
+        );
+        """
+    )
+
+
 @dataclass
 class ZoneRow:
     zone: str
@@ -204,7 +225,7 @@ def _connect(path: str, readonly: bool) -> sqlite3.Connection:
     return conn
 
 
-class Store(OutboxRows, AlertRows, EventRows):
+class Store(OutboxRows, AlertRows, EventRows, LotRows):
     """The writer's handle (or, with readonly=True, a reader's)."""
 
     def __init__(self, path: str, readonly: bool = False):

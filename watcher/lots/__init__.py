@@ -1,0 +1,1 @@
+"""Lots: batches of pallets of one product, each with its own crystal population."""

@@ -1,0 +1,77 @@
+"""The summary's lots: every lot that sat in the site's zones during the week, its figures at
+the end of the week (or at its departure), ranked by texture life left, with those at risk
+marked. Each lot is recomputed from its arrival up to that moment from the stored readings, so
+a summary re-run later shows the same figures."""
+
+from __future__ import annotations
+
+import math
+
+import pandas as pd
+
+from watcher.engine.lots import LotKeeper, recompute_lot
+from watcher.lots.events import stays
+from watcher.lots.model import lot_figures
+
+AT_RISK_DAYS = 14.0  # fewer days to the limit at week-end conditions than this (as the days-left rule)
+AT_RISK_BUDGET_PCT = 80.0  # or at least this share of the budget used
+
+COLUMNS = [
+    "rank",
+    "lot",
+    "product",
+    "zone",
+    "status",
+    "budget_used_pct",
+    "mean_diameter_um",
+    "days_to_limit",
+    "at_risk",
+]
+
+
+def lots_table(store, cfg, site, week) -> pd.DataFrame:
+    zone_ids = {z.id for z in cfg.zones if z.site == site.id}
+    keeper = LotKeeper(cfg, store)
+    rows = []
+    for item in store.lots_overview():
+        periods = stays(item["history"])
+        here = [
+            (z, a, b) for z, a, b in periods if z in zone_ids and a < week.end_s and (b is None or b > week.start_s)
+        ]
+        if not here:
+            continue
+        until = week.end_s if item["departed_s"] is None else min(week.end_s, item["departed_s"])
+        state = recompute_lot(cfg, store, item["lot"], until)
+        f = lot_figures(keeper.spec(item["product"]), state)
+        zone = next((z for z, a, b in reversed(periods) if a < until), here[-1][0])
+        departed = item["departed_s"] is not None and item["departed_s"] <= week.end_s
+        days, budget = f["days_to_limit"], f["budget_used_pct"]
+        rows.append(
+            {
+                "lot": item["lot"],
+                "product": item["product"],
+                "zone": zone,
+                "status": "departed" if departed else "in store",
+                "budget_used_pct": None if budget is None else round(budget, 1),
+                "mean_diameter_um": None if f["mean_diameter_um"] is None else round(f["mean_diameter_um"], 1),
+                "days_to_limit": None if days is None else round(days, 0),
+                "at_risk": "yes"
+                if (days is not None and days < AT_RISK_DAYS) or (budget or 0.0) >= AT_RISK_BUDGET_PCT
+                else "",
+            }
+        )
+    rows.sort(key=lambda r: (r["days_to_limit"] if r["days_to_limit"] is not None else math.inf, r["lot"]))
+    for i, r in enumerate(rows, 1):
+        r["rank"] = i
+    return pd.DataFrame(rows, columns=COLUMNS)
+
+
+def lots_note(table: pd.DataFrame) -> str:
+    if table.empty:
+        return "No lot data are recorded for this site's zones this week: lots at risk cannot be listed."
+    risky = int((table["at_risk"] == "yes").sum())
+    return (
+        f"{len(table)} lot(s) sat in these zones this week; {risky} at risk (under {AT_RISK_DAYS:.0f} days to the "
+        f"texture limit at week-end conditions, or {AT_RISK_BUDGET_PCT:.0f} % of the budget used). Ranked by texture "
+        "life left: the first should leave first. Figures at the end of the week, or at departure."
+    )

@@ -1,0 +1,86 @@
+"""Rows for lots: the lots, their events (arrive, move, depart) and each lot's model state."""
+
+from __future__ import annotations
+
+import json
+
+
+class LotRows:
+    conn = None  # set by Store
+
+    def lot_history(self, lot: str) -> list[tuple[str, str | None, float]]:
+        return self.conn.execute(
+            "SELECT kind, zone, ts FROM lot_events WHERE lot = ? ORDER BY ts, id", (lot,)
+        ).fetchall()
+
+    def lot_add_event(self, ev, source: str, sender: str | None, received_s: float) -> None:
+        """Record a validated event; an event before the lot's computed state sends the lot
+        back to be recomputed from its arrival."""
+        if ev.kind == "arrive":
+            self.conn.execute(
+                "INSERT INTO lots (lot, product, initial, note, created_s) VALUES (?,?,?,?,?)",
+                (ev.lot, ev.product, json.dumps(ev.initial), ev.note, received_s),
+            )
+        self.conn.execute(
+            "INSERT INTO lot_events (lot, kind, zone, ts, source, sender, received_s, note) VALUES (?,?,?,?,?,?,?,?)",
+            (ev.lot, ev.kind, ev.zone, ev.ts, source, sender, received_s, ev.note),
+        )
+        self.conn.execute("DELETE FROM lot_state WHERE lot = ? AND t_s > ?", (ev.lot, ev.ts))
+
+    def lot_info(self, lot: str) -> dict | None:
+        row = self.conn.execute("SELECT product, initial, note, created_s FROM lots WHERE lot = ?", (lot,)).fetchone()
+        if row is None:
+            return None
+        return {"lot": lot, "product": row[0], "initial": json.loads(row[1]), "note": row[2], "created_s": row[3]}
+
+    def lots_touching(self, zone: str) -> list[str]:
+        """Lots with any stay in the zone whose computed state has not passed that stay."""
+        return [
+            r[0]
+            for r in self.conn.execute(
+                "SELECT DISTINCT e.lot FROM lot_events e LEFT JOIN lot_state s ON s.lot = e.lot "
+                "WHERE e.zone = ? AND NOT EXISTS (SELECT 1 FROM lot_events d WHERE d.lot = e.lot AND d.kind = 'depart' "
+                "AND s.t_s IS NOT NULL AND d.ts <= s.t_s)",
+                (zone,),
+            )
+        ]
+
+    def lot_state_get(self, lot: str) -> tuple[float, bytes, dict] | None:
+        row = self.conn.execute("SELECT t_s, state, figures FROM lot_state WHERE lot = ?", (lot,)).fetchone()
+        return None if row is None else (row[0], row[1], json.loads(row[2]))
+
+    def lot_state_save(self, lot: str, t_s: float, blob: bytes, figures: dict, now_s: float) -> None:
+        self.conn.execute(
+            "INSERT OR REPLACE INTO lot_state (lot, t_s, state, figures, updated_s) VALUES (?,?,?,?,?)",
+            (lot, t_s, blob, json.dumps(figures), now_s),
+        )
+
+    def lot_states_drop_after(self, zone: str, ts: float) -> None:
+        """A zone's past changed at ts (a late reading): lots that sat there since are recomputed."""
+        self.conn.execute(
+            "DELETE FROM lot_state WHERE t_s > ? AND lot IN (SELECT lot FROM lot_events WHERE zone = ?)", (ts, zone)
+        )
+
+    def lots_overview(self) -> list[dict]:
+        """Every lot with its current zone, arrival, departure and last computed figures."""
+        out = []
+        for lot, product in self.conn.execute("SELECT lot, product FROM lots ORDER BY lot"):
+            history = self.lot_history(lot)
+            state = self.lot_state_get(lot)
+            last_kind, last_zone, last_ts = history[-1] if history else (None, None, None)
+            zone = None if last_kind == "depart" else last_zone
+            if last_kind == "depart":
+                zone = next((z for k, z, _ in reversed(history) if z is not None), None)
+            out.append(
+                {
+                    "lot": lot,
+                    "product": product,
+                    "zone": zone,
+                    "present": last_kind != "depart",
+                    "arrived_s": history[0][2] if history else None,
+                    "departed_s": last_ts if last_kind == "depart" else None,
+                    "history": history,
+                    "figures": state[2] if state else None,
+                }
+            )
+        return out
