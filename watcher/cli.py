@@ -389,4 +389,4 @@ def replay(config_path, readings_path) -> None:
     click.echo(f"Database {cfg.storage.path}; see `watcher status --config {config_path}`.")
 
 
-from watcher import cli_alerts, cli_lots  # noqa: E402,F401  (register ack, alerts, test-notify, lot, lots)
+from watcher import cli_alerts, cli_lots, cli_whatif  # noqa: E402,F401  (register the other commands)

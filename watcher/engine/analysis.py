@@ -70,6 +70,16 @@ def binned_air(rows) -> tuple[np.ndarray, np.ndarray]:
     return keys * BIN_S, sums / counts
 
 
+def air_samples(store: Store, zone_id: str, after_s: float, upto_s: float) -> tuple[np.ndarray, np.ndarray]:
+    """The zone's air as one sample per whole one-minute bin, stamped at the bin's end (when its
+    mean is known), for the samples in (after_s, upto_s]. The same readings always give the same
+    samples, however the span is cut (lots and the what-if replay rely on it)."""
+    starts, air = binned_air(store.signal_rows(zone_id, ("air_c",), after_s - BIN_S, upto_s))
+    t = starts + BIN_S
+    keep = (t > after_s) & (t <= upto_s)
+    return t[keep], air[keep]
+
+
 def _intervals(rows, kind: str) -> list[Event]:
     by_sensor: dict[str, list] = {}
     for sensor, _, ts, value in rows:

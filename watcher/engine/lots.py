@@ -16,7 +16,7 @@ import math
 
 import numpy as np
 
-from watcher.engine.analysis import BIN_S, binned_air
+from watcher.engine.analysis import air_samples
 from watcher.errors import InputError
 from watcher.files.profiles import builtin_names, load_profile
 from watcher.lots.events import LotEvent, check_next, parse_event, stays
@@ -103,11 +103,7 @@ class LotKeeper:
         return start_state(spec, t0, self._air_before(zone0, t0), self.config.zone(zone0).setpoint_c, info["initial"])
 
     def _advance(self, spec, state: State, zone: str, reach_s: float, exact_end: bool) -> State:
-        rows = self.store.signal_rows(zone, ("air_c",), state.t_s - BIN_S, reach_s)
-        starts, air = binned_air(rows)
-        t = starts + BIN_S  # a bin's mean is known at its end
-        keep = (t > state.t_s) & (t <= reach_s)
-        t, air = t[keep], air[keep]
+        t, air = air_samples(self.store, zone, state.t_s, reach_s)
         if exact_end and (t.size == 0 or t[-1] < reach_s):  # the lot leaves the zone exactly then
             t = np.append(t, reach_s)
             air = np.append(air, air[-1] if air.size else state.air_c[0])

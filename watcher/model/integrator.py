@@ -221,15 +221,17 @@ def _budget_fraction(spec: Spec, mean_um: np.ndarray) -> np.ndarray:
 def _settled(
     spec: Spec, u: np.ndarray, n: np.ndarray, setpoint_c: np.ndarray, n_pos: int
 ) -> tuple[np.ndarray, np.ndarray]:
-    """Copies of the rows with the ice that is melted now refrozen onto the survivors at the
-    zone's setpoint: the crystals a warm spell leaves behind once the product is cold again."""
+    """Copies of the rows brought to the ice fraction of the zone's setpoint: the ice melted now
+    refrozen onto the survivors (the crystals a warm spell leaves behind once the product is
+    cold again), and the extra ice of a product colder than the setpoint melted back off, so
+    that more ice in a colder product never counts as coarsening."""
     z = setpoint_c.size
     target = np.repeat(spec.ice(setpoint_c), n_pos + 1)
     u2, n2 = u.copy(), n.copy()
     v = pop.volume(u2, n2)
-    warm = (target > v * (1.0 + ICE_TOL)) & (v > 0)
-    warm.reshape(z, n_pos + 1)[:, n_pos] = False  # the counterfactual sits at its setpoint
-    pop.shift_to_volume(u2, n2, target, warm)
+    off = ((target > v * (1.0 + ICE_TOL)) | (target < v * (1.0 - ICE_TOL))) & (v > 0)
+    off.reshape(z, n_pos + 1)[:, n_pos] = False  # the counterfactual sits at its setpoint
+    pop.shift_to_volume(u2, n2, target, off)
     return u2, n2
 
 

@@ -123,3 +123,22 @@ def hour_bars(by_hour: pd.DataFrame, title: str) -> str:
     ax.set_xlabel("hour of day (site time)")
     ax.set_title(title, loc="left", fontsize=9)
     return _svg(fig)
+
+
+def whatif_chart(result: dict, t_s, tz: str, title: str) -> str:
+    """The recorded and the changed air above; the texture budget used by each below."""
+    fig, (top, bottom) = plt.subplots(2, 1, figsize=(7.0, 3.9), sharex=True, height_ratios=(1, 1))
+    step = max(1, len(t_s) // 2000)
+    t = _times(np.asarray(t_s)[::step], tz)
+    top.plot(t, np.asarray(result["air_recorded_c"])[::step], color="#9aa5b1", lw=0.8, label="air as recorded")
+    top.plot(t, np.asarray(result["air_changed_c"])[::step], color=AIR, lw=0.9, label="air with the change")
+    top.set_ylabel("C")
+    top.set_title(title, loc="left", fontsize=9)
+    top.legend(loc="upper right", ncol=2, fontsize=6.5, frameon=False)
+    tt = _times(result["trace_t_s"], tz)
+    bottom.plot(tt, result["trace_recorded_pct"], color="#9aa5b1", lw=1.2, label="as recorded")
+    bottom.plot(tt, result["trace_changed_pct"], color=SIZE, lw=1.2, label="with the change")
+    bottom.set_ylabel("% of texture budget")
+    bottom.legend(loc="upper left", fontsize=6.5, frameon=False)
+    bottom.xaxis.set_major_formatter(mdates.DateFormatter("%d %b", tz=t.iloc[0].tzinfo if len(t) else None))
+    return _svg(fig)
