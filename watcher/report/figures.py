@@ -82,6 +82,7 @@ def event_list(ev: pd.DataFrame, kind: str, tz: str) -> pd.DataFrame:
     x = ev[ev["kind"] == kind]
     return pd.DataFrame(
         {
+            "event": x["id"].values,  # the id `watcher what-if --without-event` takes
             "start": _local(x["start_ts"], tz).dt.strftime("%a %d %b %H:%M").values,
             "end": [
                 "still on" if pd.isna(e) else v
