@@ -24,32 +24,11 @@ from pathlib import Path
 ROOT = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(ROOT))
 
-from tests.broker import Broker, free_port  # noqa: E402
-from tests.service_harness import AIR_SOURCE_TOML, WatcherProcess, readings_count  # noqa: E402
+from bench.service_ingest import config_text  # noqa: E402  (the same service settings)
+from tests.broker import Broker  # noqa: E402
+from tests.service_harness import WatcherProcess, readings_count  # noqa: E402
 
 SENSORS_PER_ZONE = 10
-
-
-def config_text(folder: Path, broker: Broker, zones: int) -> str:
-    zone_blocks = "".join(f'[[zones]]\nid = "z{i:03d}"\nsetpoint_c = -25.0\n' for i in range(zones))
-    return f"""
-[broker]
-port = {broker.port}
-client_id = "watcher-soak"
-username = "{broker.USER}"
-password_file = "{folder / "watcher-password"}"
-[storage]
-path = "{folder / "soak.db"}"
-[ingest]
-reorder_window_s = 60.0
-[health]
-port = {free_port()}
-[reports]
-enabled = false
-[[sites]]
-id = "kp"
-{zone_blocks}
-{AIR_SOURCE_TOML}"""
 
 
 def publisher(port: int, sensors: int, rate: float, seconds: float, counter) -> None:
@@ -72,7 +51,7 @@ def publisher(port: int, sensors: int, rate: float, seconds: float, counter) -> 
             zone, sensor = s // SENSORS_PER_ZONE, s % SENSORS_PER_ZONE
             # a reading per sensor every sensors/rate seconds; stamps unique per (sensor, ts)
             payload = json.dumps({"temp_c": -25.0 + 0.1 * ((n // sensors) % 7), "ts": round(now, 3) + 1e-4 * s})
-            c.publish(f"kp/z{zone:03d}/s{sensor}/air", payload, qos=1)
+            c.publish(f"kp/z{zone:04d}/s{sensor}/air", payload, qos=1)
             n += 1
         counter.value = n
         time.sleep(0.01)
@@ -135,7 +114,7 @@ def main() -> int:
         broker = Broker(folder)
         broker.start()
         cfg = folder / "soak.toml"
-        cfg.write_text(config_text(folder, broker, zones))
+        cfg.write_text(config_text(folder, broker, zones, "watcher-soak"))
         w = WatcherProcess(cfg)
         w.wait_ready(60)
         counter = mp.Value("q", 0)
@@ -161,10 +140,10 @@ def main() -> int:
             )
         pub.join()
         deadline = time.time() + 120
-        while readings_count(folder / "soak.db") < counter.value and time.time() < deadline:
+        while readings_count(folder / "watcher-soak.db") < counter.value and time.time() < deadline:
             time.sleep(0.5)
         text = w.get("/metrics")[1].decode()
-        stored = readings_count(folder / "soak.db")
+        stored = readings_count(folder / "watcher-soak.db")
         w.stop()
         broker.stop()
     buckets = histogram(text, "watcher_ack_seconds")

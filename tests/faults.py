@@ -25,14 +25,15 @@ from tests.broker import Broker
 from tests.proxy import Proxy
 from tests.receivers import Receiver, SmtpReceiver
 from tests.service_harness import (
+    AIR_ALERT_AT_ONCE_TOML,
     Publisher,
     WatcherProcess,
     assert_state_equals_recomputation,
+    channel_toml,
     messages,
     readings_count,
     wait_for,
     write_config,
-    write_secret,
 )
 
 ZONES = ("bulk-a", "dispatch")
@@ -269,8 +270,7 @@ def disk_full(folder: Path) -> Outcome:
     smtp = SmtpReceiver()
     try:
         with running_broker(folder / "broker") as broker, small_disk(folder / "disk", 48) as disk:
-            write_secret(folder / "mail.url", smtp.url() + "\n")
-            extra = f"""
+            extra = """
 [alerts]
 repeat_min = 0.2
 
@@ -278,13 +278,7 @@ repeat_min = 0.2
 id = "storage-failing"
 above = 3
 hysteresis = 2
-
-[[notify]]
-name = "qa-mail"
-url_file = "{folder / "mail.url"}"
-tags = ["alerts"]
-min_interval_s = 0
-"""
+""" + channel_toml(folder, "qa-mail", smtp.url())
             config = write_config(folder, broker, reorder_s=0.0, extra=extra)
             config.write_text(config.read_text().replace(str(folder / "watcher.db"), str(disk / "watcher.db")))
             db = disk / "watcher.db"
@@ -388,19 +382,7 @@ def hanging_receiver(folder: Path) -> Outcome:
     hook.mode, hook.hang_s = "hang", 60.0
     try:
         with running_broker(folder / "broker") as broker:
-            write_secret(folder / "hook.url", hook.url("?:timeout=30") + "\n")
-            extra = f"""
-[[alerts.rules]]
-id = "air-benchmark"
-above = -30.0
-for_min = 0
-
-[[notify]]
-name = "hook"
-url_file = "{folder / "hook.url"}"
-tags = ["alerts"]
-min_interval_s = 0
-"""
+            extra = AIR_ALERT_AT_ONCE_TOML + channel_toml(folder, "hook", hook.url("?:timeout=30"))
             with watcher_and_publisher(folder, broker, reorder_s=0.0, extra=extra) as (config, w, pub):
                 pub.send(messages(ZONES, 0, 30))
                 wait_for(lambda: hook.hanging > 0, timeout=30, what="the deliverer to hang on the receiver")

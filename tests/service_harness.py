@@ -37,6 +37,26 @@ def write_secret(path: Path, text: str) -> Path:
     return path
 
 
+AIR_ALERT_AT_ONCE_TOML = """
+[[alerts.rules]]
+id = "air-benchmark"
+above = -30.0
+for_min = 0
+"""  # -25 C air raises it with the first reading: an alert to deliver, at once
+
+
+def channel_toml(folder: Path, name: str, url: str) -> str:
+    """A notification channel: its URL in a secret file, the [[notify]] table that reads it."""
+    write_secret(folder / f"{name}.url", url + "\n")
+    return f"""
+[[notify]]
+name = "{name}"
+url_file = "{folder / f"{name}.url"}"
+tags = ["alerts"]
+min_interval_s = 0
+"""
+
+
 def write_config(
     folder: Path,
     broker: Broker,

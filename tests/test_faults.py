@@ -25,13 +25,14 @@ from tests.abuse import REASONS, corpus
 from tests.broker import make_ca
 from tests.receivers import Receiver
 from tests.service_harness import (
+    AIR_ALERT_AT_ONCE_TOML,
     Publisher,
     WatcherProcess,
+    channel_toml,
     messages,
     readings_count,
     wait_for,
     write_config,
-    write_secret,
 )
 from tests.test_monitor import make
 from watcher.engine.batch import Message
@@ -280,19 +281,8 @@ def test_secrets_never_appear_in_logs_status_alerts_or_reports(tmp_path, broker)
     hook = Receiver()
     hook_secret = "Hook-Pa55-do-not-print"
     try:
-        write_secret(tmp_path / "hook.url", hook.url().replace("json://", f"json://qa:{hook_secret}@") + "\n")
-        extra = f"""
-[[alerts.rules]]
-id = "air-benchmark"
-above = -30.0
-for_min = 0
-
-[[notify]]
-name = "qa-hook"
-url_file = "{tmp_path / "hook.url"}"
-tags = ["alerts"]
-min_interval_s = 0
-"""
+        url = hook.url().replace("json://", f"json://qa:{hook_secret}@")
+        extra = AIR_ALERT_AT_ONCE_TOML + channel_toml(tmp_path, "qa-hook", url)
         config = write_config(tmp_path, broker, reorder_s=0.0, extra=extra)
         w = WatcherProcess(config)
         w.wait_ready()
