@@ -3,6 +3,7 @@ a real local broker, and the same without one."""
 
 from __future__ import annotations
 
+import json
 import sqlite3
 import subprocess
 import sys
@@ -42,6 +43,26 @@ def test_demo_through_a_broker_and_without_one(tmp_path):
     published = int(out.split("sensor messages (")[1].split(")")[0].replace(",", ""))
     assert readings == published  # every message stored
     assert ("dispatch", "event-cost") in alerts and events["dispatch/excursion"] >= 1
+    lots = subprocess.run(
+        [
+            sys.executable,
+            "-m",
+            "watcher",
+            "lots",
+            "--all",
+            "--json",
+            "--config",
+            str(tmp_path / "broker" / "watcher.toml"),
+        ],
+        capture_output=True,
+        text=True,
+        timeout=120,
+    )
+    ranked = json.loads(lots.stdout)
+    assert {r["lot"] for r in ranked} == {"KP-0417", "KP-0418", "KP-0421", "EXT-77"} and all(
+        r["figures"] for r in ranked
+    )
+    assert "watcher lots --config" in out
     assert events["hardening/defrost"] >= 7  # inferred, about one a day
     verify = subprocess.run(
         [sys.executable, "-m", "watcher", "verify", "--config", str(tmp_path / "broker" / "watcher.toml")],

@@ -249,6 +249,7 @@ def demo(out_dir, no_broker, now_s) -> None:
     click.echo("Try next:")
     click.echo(f"  watcher status --config {result['config']}")
     click.echo(f"  watcher alerts --config {result['config']}")
+    click.echo(f"  watcher lots --config {result['config']}")
     click.echo(f"  watcher report --config {result['config']} --week {result['week']}")
     click.echo(f"  watcher verify --config {result['config']}")
     click.echo(CAUTION)

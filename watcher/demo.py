@@ -109,8 +109,37 @@ def messages(zones: list[DemoZone]) -> list[tuple[float, str, bytes]]:
         for a, b in z.defrosts:
             out.append((a, f"kestrel/{z.zone_id}/evaporator/defrost", json.dumps({"state": "on", "ts": a}).encode()))
             out.append((b, f"kestrel/{z.zone_id}/evaporator/defrost", json.dumps({"state": "off", "ts": b}).encode()))
+    out += lot_messages(zones[0].t_s[0], zones[0].t_s[-1])
     out.sort(key=lambda m: m[0])
     return out
+
+
+def lot_messages(start_s: float, end_s: float) -> list[tuple[float, str, bytes]]:
+    """Invented lots of the demo site, as a warehouse system would publish them: put away in
+    the bulk store from hardening, one bought in half-used, one moved to dispatch, one shipped."""
+    day = 86400.0
+    events = [
+        (start_s + 0.1 * day, {"event": "arrive", "lot": "KP-0417", "zone": "bulk-a"}),
+        (
+            start_s + 0.2 * day,
+            {"event": "arrive", "lot": "KP-0418", "zone": "bulk-a", "initial": {"budget_used_pct": 20}},
+        ),
+        (
+            start_s + 0.3 * day,
+            {
+                "event": "arrive",
+                "lot": "EXT-77",
+                "zone": "bulk-a",
+                "initial": {"budget_used_pct": 45},
+                "note": "bought in",
+            },
+        ),  # fmt: skip
+        (start_s + 1.0 * day, {"event": "arrive", "lot": "KP-0421", "zone": "hardening"}),
+        (start_s + 2.0 * day, {"event": "move", "lot": "KP-0421", "zone": "bulk-a"}),
+        (end_s - 4.0 * day, {"event": "move", "lot": "KP-0418", "zone": "dispatch"}),
+        (end_s - 1.0 * day, {"event": "depart", "lot": "KP-0418"}),
+    ]
+    return [(ts, "watcher/lots", json.dumps({**doc, "time": ts}).encode()) for ts, doc in events]
 
 
 def config_text(folder: str, port: int | None) -> str:

@@ -92,7 +92,8 @@ def run(
     for z in zones:
         say(f"  {z.name:<17} setpoint {z.setpoint_c:g} C: {z.regime}")
     say(
-        f"{days:.1f} days of sensor messages ({len(msgs):,}) from {dt.datetime.fromtimestamp(start, dt.UTC):%d %b} to now."
+        f"{days:.1f} days of sensor messages ({sum(1 for m in msgs if m[1] != 'watcher/lots'):,}) and "
+        f"{sum(1 for m in msgs if m[1] == 'watcher/lots')} lot events from {dt.datetime.fromtimestamp(start, dt.UTC):%d %b} to now."
     )
     printer = AlertPrinter(folder / "watcher.db", say, site.TIMEZONE)
     started = time.monotonic()
@@ -168,10 +169,12 @@ def _through_broker(exe, port, cfg, msgs, printer, progress) -> dict:
 
 
 def _stored(db: str) -> int:
-    """Messages the service has dealt with: stored as readings or as rejections."""
+    """Messages the service has dealt with: stored as readings, lot events or rejections."""
     try:
         con = sqlite3.connect(f"file:{db}?mode=ro", uri=True, timeout=5)
-        n = con.execute("SELECT (SELECT count(*) FROM readings) + (SELECT count(*) FROM rejections)").fetchone()[0]
+        n = con.execute(
+            "SELECT (SELECT count(*) FROM readings) + (SELECT count(*) FROM rejections) + (SELECT count(*) FROM lot_events)"
+        ).fetchone()[0]
         con.close()
         return n
     except sqlite3.Error:
