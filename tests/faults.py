@@ -164,11 +164,13 @@ def broker_down(folder: Path, rounds: int, hard: bool) -> Outcome:
                 recovery.append(time.monotonic() - down_at)
             lost = _lost(folder / "watcher.db", len(ZONES) * sent, 30)
             assert w.stop() == 0
+            assert_state_equals_recomputation(config)
     how = "killed (SIGKILL, persistence on)" if hard else "restarted (SIGTERM)"
     return Outcome(
         f"broker {how}, publisher keeps publishing",
         rounds,
-        f"{len(ZONES) * sent} readings, 120 a round published while the broker was down; all arrived",
+        f"{len(ZONES) * sent} readings, 120 a round published while the broker was down; all arrived; "
+        "zone state equal to a full recomputation",
         lost,
         recovery,
     )
@@ -217,6 +219,7 @@ def network(folder: Path, rounds: int, mode: str) -> Outcome:
                 recovery.append(time.monotonic() - t0)
             lost = _lost(folder / "watcher.db", len(ZONES) * sent, 30)
             assert w.stop() == 0
+            assert_state_equals_recomputation(config)
         finally:
             pub.close()
             proxy.close()
@@ -227,7 +230,7 @@ def network(folder: Path, rounds: int, mode: str) -> Outcome:
         "stall": "link stalled silently (half-open)",
         "slow": "link slowed to about 20 KB/s",
     }
-    seen = f"{len(ZONES) * sent} readings; all arrived"
+    seen = f"{len(ZONES) * sent} readings; all arrived; zone state equal to a full recomputation"
     if detect:
         seen += f"; dead link noticed in {max(detect):.1f} s at worst (keepalive 5 s)"
     return Outcome(f"network: {words[mode]}", rounds, seen, lost, recovery, {"detect_s": detect})
@@ -361,6 +364,7 @@ def database_locked(folder: Path, hold_s: float) -> Outcome:
             lost = _lost(db, 1000, 60)
             recovery = time.monotonic() - t0
             assert w.stop() == 0
+            assert_state_equals_recomputation(config)
             with contextlib.closing(sqlite3.connect(folder / "backup.db")) as b:
                 assert b.execute("PRAGMA integrity_check").fetchone()[0] == "ok"
     return Outcome(

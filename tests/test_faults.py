@@ -313,6 +313,19 @@ def test_secrets_never_appear_in_logs_status_alerts_or_reports(tmp_path, broker)
         assert secret not in everything
 
 
+def test_acknowledgements_come_only_from_the_command_topic(tmp_path):
+    """An ack-shaped message on a sensor topic is a bad reading, not an acknowledgement."""
+    cfg, store, engine = make(tmp_path, rules=[{"id": "air-benchmark", "above": -30.0, "for_min": 0}])
+    engine.process([_air(k, NOW - 600 + 60 * k, NOW) for k in range(5)], now=NOW)
+    (alert,) = store.alerts_list(open_only=True)
+    forged = json.dumps({"alert": alert["id"], "by": "intruder"}).encode()
+    engine.process([Message("kp/bulk-a/s1/air", forged, NOW, 99, 1)], now=NOW)
+    engine.monitor.apply_commands(NOW + 1)
+    assert store.alert_get(alert["id"])["status"] == "open"
+    reason = store.conn.execute("SELECT reason FROM rejections ORDER BY id DESC").fetchone()[0]
+    assert "missing field" in reason
+
+
 def test_http_endpoint_binds_to_loopback_by_default(tmp_path, broker):
     config = write_config(tmp_path, broker)
     assert "host =" not in config.read_text().split("[health]")[1].split("[")[0]  # the default is used
