@@ -177,16 +177,19 @@ def lots_cmd(zone, everything, as_json, config_path) -> None:
     if not rows:
         click.echo("No lots recorded" + (f" in {zone}" if zone else "") + " (see `watcher lot arrive`).")
         return
+    where = [r["zone"] if r["present"] else f"{r['zone']} (gone)" for r in rows]
+    w_lot = max(14, *(len(r["lot"]) for r in rows))
+    w_zone = max(12, *(len(x) for x in where))
     click.echo(
-        f"{'#':>3}  {'lot':<14} {'zone':<12} {'product':<18} {'budget used':>11} {'mean um':>8} {'days left':>9}  as of"
+        f"{'#':>3}  {'lot':<{w_lot}} {'zone':<{w_zone}} {'product':<18} {'budget used':>11} {'mean um':>8} "
+        f"{'days left':>9}  as of"
     )
-    for i, r in enumerate(rows, 1):
+    for i, (r, place) in enumerate(zip(rows, where), 1):
         f = r["figures"] or {}
-        where = r["zone"] if r["present"] else f"({r['zone']}, gone)"
         click.echo(
-            f"{i:>3}  {r['lot']:<14} {where:<12} {r['product']:<18} {_fmt(f.get('budget_used_pct'), '10.1f')}% "
-            f"{_fmt(f.get('mean_diameter_um'), '8.1f')} {_fmt(f.get('days_to_limit'), '9.0f')}  "
-            f"{_stamp(f['t_s']) if f else 'not computed yet'}"
+            f"{i:>3}  {r['lot']:<{w_lot}} {place:<{w_zone}} {r['product']:<18} "
+            f"{_fmt(f.get('budget_used_pct'), '10.1f')}% {_fmt(f.get('mean_diameter_um'), '8.1f')} "
+            f"{_fmt(f.get('days_to_limit'), '9.0f')}  {_stamp(f['t_s']) if f else 'not computed yet'}"
         )
     click.echo("Days left: at current conditions. Texture only: not a food-safety or release verdict.")
 
