@@ -7,6 +7,7 @@ import sys
 import pytest
 
 from tests.test_engine import NOW, make, msg
+from watcher.engine.lots import record_event
 from watcher.store import chain
 
 
@@ -26,6 +27,11 @@ def filled(tmp_path):
         store.alert_log_add(1, "raise", 1.0, 2.0, 3.5)
         store.event_upsert("bulk-a", "door", 100.0, 160.0, {"source": "signal"})
         store.event_upsert("bulk-a", "door", 100.0, 170.0, {"cost": "final"})
+        for doc in (
+            {"event": "arrive", "lot": "L-1", "zone": "bulk-a", "time": NOW - 3600, "initial": {"budget_used_pct": 30}},
+            {"event": "move", "lot": "L-1", "zone": "dispatch", "time": NOW - 1800},
+        ):
+            record_event(store, cfg, doc, "test", "cli", "qa", NOW)
     store.close()
     return tmp_path / "w.db"
 
@@ -50,6 +56,8 @@ def test_intact_record_verifies(filled):
         ),
         ("UPDATE alert_log SET by = 'someone else'", "alert_log"),
         ("UPDATE event_log SET end_ts = 999 WHERE id = 1", "event_log"),
+        ("UPDATE lot_events SET zone = 'bulk-a' WHERE kind = 'move'", "lot_events"),
+        ('UPDATE lots SET initial = \'{"kind": "fresh"}\'', "lots"),  # the declared state, quietly reset
     ],
 )
 def test_an_altered_row_is_named(filled, edit, chain_name):

@@ -150,7 +150,7 @@ def verify(since, config_path, db_path) -> None:
     store = Store(_db(config_path, db_path), readonly=True)
     try:
         findings, counts = chain.verify(store.conn, since_ts)
-        findings += chain.check_reports(store.conn)
+        findings += chain.check_reports(store.conn) + chain.check_lots(store.conn)
     finally:
         store.close()
     for name, n in sorted(counts.items()):

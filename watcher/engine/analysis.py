@@ -35,19 +35,16 @@ SNAPSHOT_KEEP_S = 10 * 86400.0
 DAYS_BACK = 8  # daily figures are filled in for at most this many days back
 FORECAST_STEP_S = 600.0
 MAX_LEAD_S = 2 * 86400.0  # a day's figures start from a model state at most this far before it
-MAX_CATCH_UP = 8  # more grid points passed in one step than this: analyse only at the last
-
-
 def analysis_points(after_s: float, fed_s: float, every_s: float) -> list[float]:
-    """The grid points of data time (multiples of every_s) in (after_s, fed_s]. A zone that
-    jumped further (first start, a backlog, a late reading) is analysed once, at the last."""
-    last = math.floor(fed_s / every_s)
-    if not math.isfinite(after_s):
-        return [last * every_s] if math.isfinite(fed_s) else []
-    first = math.floor(after_s / every_s) + 1
-    if last - first + 1 > MAX_CATCH_UP:
-        return [last * every_s]
-    return [k * every_s for k in range(first, last + 1)]
+    """The last grid point of data time (a multiple of every_s) in (after_s, fed_s], if any.
+    Passes sit on the grid, so feeds whose batches each move less than a grid step (live data,
+    the demo's two paths) analyse at the same moments; a zone that moved several steps at once
+    (a backlog, a first start) is analysed once, at the last, over everything since its last
+    pass (analysing every step of a backlog made draining one 2.3 times slower)."""
+    if not math.isfinite(fed_s):
+        return []
+    last = math.floor(fed_s / every_s) * every_s
+    return [last] if last > after_s else []
 
 
 @dataclass

@@ -1,4 +1,5 @@
-"""Hash chains over the record: readings (one chain per zone), the alert log and the event log.
+"""Hash chains over the record: readings (one chain per zone), the alert log, the event log and
+the lot events (whose arrive rows carry the lot's product and declared starting state).
 
 Each row carries `chain` = SHA-256 of the previous row's chain and the row's own fields, in
 insertion order. The hash is computed inside SQLite (a registered function, `chain_hash`), in
@@ -21,6 +22,9 @@ from dataclasses import dataclass
 READING_FIELDS = ("zone", "sensor", "signal", "ts", "value", "received_ts", "topic", "late")
 ALERT_LOG_FIELDS = ("alert_id", "step", "at_s", "wall_s", "value", "by", "note")
 EVENT_LOG_FIELDS = ("event_id", "op", "zone", "kind", "start_ts", "end_ts", "detail")
+LOT_EVENT_FIELDS = ("lot", "kind", "zone", "ts", "source", "sender", "received_s", "note", "detail")
+LOGS = (("alert_log", ALERT_LOG_FIELDS, "wall_s"), ("event_log", EVENT_LOG_FIELDS, None))
+LOGS += (("lot_events", LOT_EVENT_FIELDS, "received_s"),)
 
 
 def chain_hash(prev, *fields) -> str:
@@ -53,7 +57,7 @@ def params(values: tuple, zone: str | None = None) -> tuple:
 
 @dataclass(frozen=True)
 class Finding:
-    chain: str  # "readings/<zone>", "alert_log" or "event_log"
+    chain: str  # "readings/<zone>", "alert_log", "event_log", "lot_events" or "lots"
     row_id: int
     what: str
 
@@ -108,7 +112,7 @@ def verify(conn, since_ts: float | None = None) -> tuple[list[Finding], dict[str
                 first,
             )
         )
-    for name, fields, time_col in (("alert_log", ALERT_LOG_FIELDS, "wall_s"), ("event_log", EVENT_LOG_FIELDS, None)):
+    for name, fields, time_col in LOGS:
         first = 0
         if since_ts is not None and time_col:
             row = conn.execute(f"SELECT min(id) FROM {name} WHERE {time_col} >= ?", (since_ts,)).fetchone()
@@ -145,7 +149,7 @@ def heads(conn) -> dict[str, list]:
         "SELECT zone, id, chain FROM readings WHERE id IN (SELECT max(id) FROM readings GROUP BY zone) ORDER BY zone"
     ):
         out[f"readings/{zone}"] = [row_id, chain]
-    for table in ("alert_log", "event_log"):
+    for table, _, _ in LOGS:
         row = conn.execute(f"SELECT id, chain FROM {table} ORDER BY id DESC LIMIT 1").fetchone()
         if row:
             out[table] = [row[0], row[1]]
@@ -155,6 +159,23 @@ def heads(conn) -> dict[str, list]:
 def digest(head_map: dict[str, list]) -> str:
     text = ";".join(f"{k}={v[0]}:{v[1]}" for k, v in sorted(head_map.items()))
     return hashlib.sha256(text.encode()).hexdigest()
+
+
+def check_lots(conn) -> list[Finding]:
+    """Each lot's product and starting state must be what its chained arrive event declared."""
+    out = []
+    for lot, product, initial, detail, row_id, linked in conn.execute(
+        "SELECT l.lot, l.product, l.initial, e.detail, e.id, e.chain FROM lots l LEFT JOIN lot_events e "
+        "ON e.lot = l.lot AND e.kind = 'arrive'"
+    ):
+        if row_id is not None and linked is None:  # recorded before lot events were chained
+            continue
+        declared = json.loads(detail) if detail else None
+        if declared != {"product": product, "initial": json.loads(initial)}:
+            out.append(
+                Finding("lots", row_id or 0, f"lot {lot}: product or starting state differs from its arrive event")
+            )
+    return out
 
 
 def check_reports(conn) -> list[Finding]:

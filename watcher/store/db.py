@@ -188,6 +188,16 @@ def m006_lots(db: sqlite_utils.Database) -> None:
     )
 
 
+@migrations()
+def m007_lot_chain(db: sqlite_utils.Database) -> None:
+    db.executescript(
+        """
+        ALTER TABLE lot_events ADD COLUMN detail TEXT;
+        ALTER TABLE lot_events ADD COLUMN chain TEXT;
+        """
+    )
+
+
 @dataclass
 class ZoneRow:
     zone: str

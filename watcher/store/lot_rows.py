@@ -4,6 +4,10 @@ from __future__ import annotations
 
 import json
 
+from watcher.store import chain
+
+LOT_EVENT_INSERT = chain.insert_sql("lot_events", chain.LOT_EVENT_FIELDS, zone_scoped=False)
+
 
 class LotRows:
     conn = None  # set by Store
@@ -16,15 +20,15 @@ class LotRows:
     def lot_add_event(self, ev, source: str, sender: str | None, received_s: float) -> None:
         """Record a validated event; an event before the lot's computed state sends the lot
         back to be recomputed from its arrival."""
+        detail = None
         if ev.kind == "arrive":
             self.conn.execute(
                 "INSERT INTO lots (lot, product, initial, note, created_s) VALUES (?,?,?,?,?)",
                 (ev.lot, ev.product, json.dumps(ev.initial), ev.note, received_s),
             )
-        self.conn.execute(
-            "INSERT INTO lot_events (lot, kind, zone, ts, source, sender, received_s, note) VALUES (?,?,?,?,?,?,?,?)",
-            (ev.lot, ev.kind, ev.zone, ev.ts, source, sender, received_s, ev.note),
-        )
+            detail = json.dumps({"product": ev.product, "initial": ev.initial}, sort_keys=True)
+        values = (ev.lot, ev.kind, ev.zone, ev.ts, source, sender, received_s, ev.note, detail)
+        self.conn.execute(LOT_EVENT_INSERT, chain.params(values))
         self.conn.execute("DELETE FROM lot_state WHERE lot = ? AND t_s > ?", (ev.lot, ev.ts))
 
     def lot_info(self, lot: str) -> dict | None:
