@@ -190,6 +190,21 @@ def test_sighup_swaps_a_valid_config_and_keeps_the_old_on_error(tmp_path, broker
     pub.close()
 
 
+def test_a_notify_socket_nobody_reads_never_blocks_the_service(tmp_path, broker):
+    """The notify socket's queue fills (nobody reads it): watchdog pings are dropped with a
+    warning and SIGTERM still stops the service at once (the main thread once blocked there)."""
+    sock_path = tmp_path / "notify.sock"
+    sock = socket.socket(socket.AF_UNIX, socket.SOCK_DGRAM)
+    sock.bind(str(sock_path))
+    w = WatcherProcess(write_config(tmp_path, broker), env={"NOTIFY_SOCKET": str(sock_path), "WATCHDOG_USEC": "100000"})
+    w.wait_ready()
+    wait_for(lambda: "notify socket is full" in w.log.read_text(), timeout=30, what="a full notify socket")
+    started = time.monotonic()
+    assert w.stop(timeout=30) == 0
+    assert time.monotonic() - started < 15
+    sock.close()
+
+
 def test_systemd_notifications(tmp_path, broker):
     """With NOTIFY_SOCKET set: READY=1 once up, WATCHDOG=1 while threads live, STOPPING=1 on SIGTERM."""
     sock_path = tmp_path / "notify.sock"

@@ -44,9 +44,13 @@ def sd_notify(message: str) -> bool:
         addr = "\0" + addr[1:]
     try:
         with socket.socket(socket.AF_UNIX, socket.SOCK_DGRAM) as sock:
+            sock.setblocking(False)  # a receiver that stops reading must not freeze the main thread
             sock.connect(addr)
             sock.sendall(message.encode())
         return True
+    except BlockingIOError:
+        log.warning("sd_notify: the notify socket is full; %s not sent", message)
+        return False
     except OSError as exc:
         log.warning("sd_notify failed: %s", exc)
         return False

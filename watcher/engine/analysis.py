@@ -35,12 +35,14 @@ SNAPSHOT_KEEP_S = 10 * 86400.0
 DAYS_BACK = 8  # daily figures are filled in for at most this many days back
 FORECAST_STEP_S = 600.0
 MAX_LEAD_S = 2 * 86400.0  # a day's figures start from a model state at most this far before it
+
+
 def analysis_points(after_s: float, fed_s: float, every_s: float) -> list[float]:
     """The last grid point of data time (a multiple of every_s) in (after_s, fed_s], if any.
     Passes sit on the grid, so feeds whose batches each move less than a grid step (live data,
     the demo's two paths) analyse at the same moments; a zone that moved several steps at once
     (a backlog, a first start) is analysed once, at the last, over everything since its last
-    pass (analysing every step of a backlog made draining one 2.3 times slower)."""
+    pass (analysing every step passed would multiply the work of a slow backlog drain)."""
     if not math.isfinite(fed_s):
         return []
     last = math.floor(fed_s / every_s) * every_s
