@@ -8,6 +8,7 @@ bench/fault_harness.py runs them with full counts and writes docs/reliability.md
 from __future__ import annotations
 
 import contextlib
+import json
 import os
 import random
 import re
@@ -16,7 +17,6 @@ import sqlite3
 import subprocess
 import sys
 import time
-import urllib.request
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -90,13 +90,9 @@ def _metric(w: WatcherProcess, name: str) -> float:
 
 
 def _ready_flag(w: WatcherProcess) -> bool | None:
-    import json
-
+    """/readyz's broker flag; None while the endpoint does not answer."""
     status, body = w.get("/readyz")
-    try:
-        return bool(json.loads(body).get("detail", json.loads(body)).get("broker"))
-    except (ValueError, AttributeError):
-        return None
+    return json.loads(body).get("broker") if status else None
 
 
 def _until_stored(db: Path, n: int, timeout: float = 60.0) -> None:
@@ -495,8 +491,3 @@ def _quantile(w: WatcherProcess, name: str, q: float) -> float:
             buckets.append((float(m.group(1)), float(m.group(2))))
     total = buckets[-1][1] if buckets else 0.0
     return next((le for le, n in buckets if n >= q * total), float("inf"))
-
-
-def fetch(url: str) -> bytes:
-    with urllib.request.urlopen(url, timeout=5) as r:
-        return r.read()

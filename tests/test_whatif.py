@@ -1,7 +1,7 @@
 """`watcher what-if`: a recorded period replayed with an operating change.
 
-Checked against cases whose direction the physics fixes (coarsening speeds up with
-temperature and melting only adds to it): a colder setpoint never costs more, taking out an
+Checked against cases whose direction the physics fixes [derived: coarsening speeds up with
+temperature and melting only adds to it]: a colder setpoint never costs more, taking out an
 excursion never costs more, a strip curtain or fewer door openings never cost more; and an
 empty change gives exactly the recorded result."""
 

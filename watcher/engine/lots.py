@@ -19,7 +19,7 @@ import numpy as np
 from watcher.engine.analysis import air_samples
 from watcher.errors import InputError
 from watcher.files.profiles import builtin_names, load_profile
-from watcher.lots.events import LotEvent, check_next, parse_event, stays
+from watcher.lots.events import LotEvent, check_next, last_zone, parse_event, stays
 from watcher.lots.model import lot_figures, lot_spec, start_state
 from watcher.model.integrator import State, advance
 from watcher.store.db import Store, pack_state, unpack_state
@@ -81,8 +81,7 @@ class LotKeeper:
             return None
         figures = lot_figures(spec, state)
         self.store.lot_state_save(lot, state.t_s, pack_state(state.arrays()), figures, now_s)
-        current = next((z for k, z, _ in reversed(history) if z is not None), None)
-        return current, figures
+        return last_zone(history), figures
 
     def walk(self, spec, state: State, periods, target_s: float, fed_of) -> State:
         """Advance through the lot's stays up to target_s, each zone only as far as it has data."""

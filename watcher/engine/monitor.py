@@ -22,6 +22,7 @@ from watcher.engine.analysis import CONTEXT_S, analyse, analysis_points, take_sn
 from watcher.engine.lots import LotKeeper
 from watcher.engine.zones import ZoneRunner, spec_key
 from watcher.errors import InputError
+from watcher.lots.events import last_zone
 from watcher.store.db import Store
 
 log = logging.getLogger("watcher.alerts")
@@ -337,7 +338,7 @@ class Monitor:
         key = alert["zone"]
         lot = key[4:] if key.startswith("lot:") else None
         if lot is not None:  # a lot's alert: told where the lot is, with the lot's own figures
-            key = next((z for _, z, _ in reversed(self.store.lot_history(lot)) if z is not None), key)
+            key = last_zone(self.store.lot_history(lot)) or key
         zone = self.config.zone(key)
         zone_name = zone.name if zone else "watcher service"
         site = self.config.site_of(key) if zone else (self.config.sites[0] if self.config.sites else None)

@@ -116,5 +116,10 @@ def stays(history: list[tuple[str, str | None, float]]) -> list[tuple[str, float
     return out
 
 
+def last_zone(history: list[tuple[str, str | None, float]]) -> str | None:
+    """The zone the lot is in now, or the one it left from when it departed."""
+    return next((zone for _, zone, _ in reversed(history) if zone is not None), None)
+
+
 def _when(ts: float) -> str:
     return datetime.fromtimestamp(ts, UTC).strftime("%Y-%m-%dT%H:%M:%SZ")

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import json
 
+from watcher.lots.events import last_zone
 from watcher.store import chain
 
 LOT_EVENT_INSERT = chain.insert_sql("lot_events", chain.LOT_EVENT_FIELDS, zone_scoped=False)
@@ -71,15 +72,12 @@ class LotRows:
         for lot, product in self.conn.execute("SELECT lot, product FROM lots ORDER BY lot"):
             history = self.lot_history(lot)
             state = self.lot_state_get(lot)
-            last_kind, last_zone, last_ts = history[-1] if history else (None, None, None)
-            zone = None if last_kind == "depart" else last_zone
-            if last_kind == "depart":
-                zone = next((z for k, z, _ in reversed(history) if z is not None), None)
+            last_kind, _, last_ts = history[-1] if history else (None, None, None)
             out.append(
                 {
                     "lot": lot,
                     "product": product,
-                    "zone": zone,
+                    "zone": last_zone(history),
                     "present": last_kind != "depart",
                     "arrived_s": history[0][2] if history else None,
                     "departed_s": last_ts if last_kind == "depart" else None,
