@@ -8,7 +8,10 @@ import pytest
 
 from watcher.errors import TrialError
 from watcher.files.trial import read_trial
-from watcher.model.calibrate import fit_trial, make_trial, master_curve, predict_isothermal
+from tests.model_checks import days_to_limit_at
+from watcher.files.profiles import load_profile
+from watcher.model.calibrate import fit_trial, from_declared_life, make_trial, master_curve, predict_isothermal
+from watcher.model.profiles import parse_life
 from watcher.model.integrator import Position, Spec, advance, new_state, outputs
 from watcher.model.kinetics import Kinetics, rate_um3_per_day
 
@@ -68,7 +71,7 @@ def test_recovers_known_wlf_rate(dairy):
 
 def test_published_trial_fits_with_the_published_ordering(dairy):
     """Sinclair et al. 2025 Table 3 [published]: fitted rates rise with storage temperature."""
-    fit = fit_trial(read_trial(PUBLISHED), dairy, "published")
+    fit = fit_trial(read_trial(PUBLISHED), dairy, "published", limit_ratio=50.0 / 35.0)
     ks = [g.k_um3_per_day for g in sorted(fit.groups, key=lambda g: g.temp_c)]
     assert all(a < b for a, b in zip(ks, ks[1:]))
     assert fit.params["activation_energy_kj_per_mol"] > 0
@@ -76,13 +79,57 @@ def test_published_trial_fits_with_the_published_ordering(dairy):
     assert 5.0 < fit.rmse_um < 30.0
 
 
-def test_shipped_profile_is_the_fit_of_the_published_trial(dairy):
-    """The shipped dairy profile's kinetics equal a re-fit of the published table (to its rounding)."""
-    fit = fit_trial(read_trial(PUBLISHED), dairy, "refit")
-    assert dairy.kinetics.k_ref_um3_per_day == pytest.approx(fit.params["k_ref_um3_per_day"], rel=0.01)
-    assert dairy.kinetics.activation_energy_kj_per_mol == pytest.approx(
+def test_example_profile_is_the_fit_of_the_published_trial(dairy):
+    """The shipped fast-coarsening example equals a re-fit of the published table on its own
+    (SEM, freeze-dried) scale with the default's limit ratio 50/35."""
+    example = load_profile("fast-coarsening-dessert")
+    fit = fit_trial(read_trial(PUBLISHED), dairy, "refit", limit_ratio=1.4286)
+    assert example.kinetics.k_ref_um3_per_day == pytest.approx(fit.params["k_ref_um3_per_day"], rel=0.01)
+    assert example.kinetics.activation_energy_kj_per_mol == pytest.approx(
         fit.params["activation_energy_kj_per_mol"], rel=0.01
     )
+    assert example.scale == "sem-freeze-dried" and example.initial.mean_diameter_um == 23.7
+    assert example.limit_mean_diameter_um == pytest.approx(23.7 * 1.4286)
+
+
+def test_published_trial_activation_energy_agrees_with_the_default(dairy):
+    """The published trial's own fit of Ea [derived from published data] agrees with the
+    default's 143 kJ/mol (from storage-life figures) within its standard deviation: two
+    independent sources of the temperature dependence."""
+    fit = fit_trial(read_trial(PUBLISHED), dairy, "published", limit_ratio=50.0 / 35.0)
+    ea, sd = fit.params["activation_energy_kj_per_mol"], fit.sd["activation_energy_kj_per_mol"]
+    assert abs(ea - dairy.kinetics.activation_energy_kj_per_mol) < sd
+
+
+def test_a_trial_on_another_scale_needs_a_limit_on_its_scale(dairy, tmp_path):
+    """Sizes from freeze-dried SEM pores and a light-microscopy limit are not mixed silently:
+    the trial's declared scale is refused against the base's absolute limit, accepted with a
+    limit on the trial's scale or relative to its day-0 size; the fitted profile carries the
+    trial's scale."""
+    trial = read_trial(PUBLISHED)
+    assert trial.scale == "sem-freeze-dried"
+    with pytest.raises(TrialError, match="trial scale: got 'sem-freeze-dried'.*--limit-ratio"):
+        fit_trial(trial, dairy, "mixed")
+    fit = fit_trial(trial, dairy, "own", limit_um=60.0)
+    assert fit.profile.scale == "sem-freeze-dried" and fit.profile.limit_mean_diameter_um == 60.0
+    plain = tmp_path / "plain.csv"
+    plain.write_text("days,temp_c,mean_diameter_um\n0,-18,30\n30,-18,36\n30,-12,45\n60,-12,52\n")
+    undeclared = fit_trial(read_trial(str(plain)), dairy, "plain")
+    assert undeclared.profile.scale == dairy.scale and undeclared.profile.limit_mean_diameter_um == 50.0
+
+
+def test_fitted_profile_carries_the_rate_range_from_its_covariance(dairy):
+    """The 90 % range factor is exp(1.645 sd(ln K_ref)) of the fit."""
+    fit = fit_trial(read_trial(PUBLISHED), dairy, "published", limit_ratio=50.0 / 35.0)
+    rel_sd = fit.sd["k_ref_um3_per_day"] / fit.params["k_ref_um3_per_day"]
+    assert fit.profile.kinetics.rate_factor_90 == pytest.approx(np.exp(1.6449 * rel_sd), rel=1e-6)
+
+
+@pytest.mark.parametrize(("days", "temp_c"), [(548.0, -18.0), (120.0, -15.0), (900.0, -25.0)])
+def test_declared_life_round_trips(dairy, days, temp_c):
+    """Calibrate from 'N days at T', simulate constant T with the integrator: N days (+-2 %)."""
+    prof = from_declared_life(dairy, "declared", parse_life(f"{days} days at {temp_c} C"))
+    assert days_to_limit_at(prof, temp_c) == pytest.approx(days, rel=0.02)
 
 
 def test_trial_errors_name_the_problem(dairy, tmp_path):

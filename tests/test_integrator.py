@@ -166,7 +166,9 @@ def test_probe_position_uses_product_readings(dairy):
 
 def test_days_to_limit_is_conservative_and_exact_on_the_asymptote(dairy):
     """days_to_limit never exceeds the days it really takes at that temperature; from the LSW
-    shape (no transient) it matches them within 5 %; the rate is at least the cube law K/(3L^2)."""
+    shape (no transient) it matches them within 5 % and the rate is at least the cube law
+    K/(3L^2). (From a broad start the number-mean first lags the cube law, because shrinking
+    small crystals still count, so the rate bound holds only on the asymptote.)"""
     from dataclasses import replace
 
     from watcher.model.kinetics import rate_um3_per_day
@@ -178,7 +180,9 @@ def test_days_to_limit_is_conservative_and_exact_on_the_asymptote(dairy):
         state, out = run_history(spec, t, np.full(t.size, -15.0), setpoint_c=-15.0)
         predicted = out["days_to_limit"][0, 0]
         mean = out["mean_diameter_um"][0, 0]
-        assert out["growth_rate_um_per_day"][0, 0] >= k / (3 * mean**2) * (1 - 1e-9)
+        if prof.initial.shape == "lsw":
+            assert out["growth_rate_um_per_day"][0, 0] >= k / (3 * mean**2) * (1 - 1e-9)
+        assert out["growth_rate_um_per_day"][0, 0] > 0
         # Hold -15 C and find the day the settled mean first reaches the 50 um limit.
         day = 0.0
         while out["mean_diameter_um"][0, 0] < 50.0:

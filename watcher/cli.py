@@ -13,7 +13,7 @@ from pathlib import Path
 import click
 
 from watcher import __version__
-from watcher.errors import WatcherError
+from watcher.errors import ProfileError, WatcherError
 
 
 class _Group(click.Group):
@@ -130,7 +130,7 @@ def profile_show(name, as_json) -> None:
 
 
 @main.command()
-@click.argument("trial_path", metavar="TRIAL.csv", type=click.Path(dir_okay=False))
+@click.argument("trial_path", metavar="[TRIAL.csv]", required=False, type=click.Path(dir_okay=False))
 @click.option(
     "--out",
     "out_path",
@@ -148,17 +148,37 @@ def profile_show(name, as_json) -> None:
     help="Temperature dependence to fit (default: the base profile's).",
 )
 @click.option("--name", default=None, help="Name of the new profile (default: the output file's stem).")
+@click.option(
+    "--life",
+    "life_text",
+    default=None,
+    help="Instead of a trial: the declared storage life, e.g. '18 months at -18 C'.",
+)
+@click.option(
+    "--life-spread",
+    type=float,
+    default=None,
+    help="With --life: the 90 %% range factor of the rate (default: the base profile's).",
+)
+@click.option("--limit-um", type=float, default=None, help="Texture limit on the trial's own measurement scale.")
+@click.option("--limit-ratio", type=float, default=None, help="Texture limit as a multiple of the trial's day-0 size.")
 @click.option("--json", "as_json", is_flag=True, help="Print the fit as JSON.")
-def calibrate(trial_path, out_path, base, form, name, as_json) -> None:
-    """Fit a profile's kinetics to a storage trial (columns days, temp_c, mean_diameter_um)."""
-    from watcher.files.profiles import load_profile, profile_to_toml
+def calibrate(trial_path, out_path, base, form, name, life_text, life_spread, limit_um, limit_ratio, as_json) -> None:
+    """Fit a profile's kinetics to a storage trial (columns days, temp_c, mean_diameter_um), or
+    anchor it to a declared storage life (--life '18 months at -18 C')."""
+    from watcher.files.profiles import load_profile
     from watcher.files.trial import read_trial
     from watcher.model.calibrate import fit_trial
 
-    trial = read_trial(trial_path)
     base_profile = load_profile(base)
     name = name or Path(out_path).stem
-    fit = fit_trial(trial, base_profile, name, form)
+    if (trial_path is None) == (life_text is None):
+        raise click.UsageError("give either a trial CSV or --life 'N months at T C', not both or neither")
+    if life_text is not None:
+        _calibrate_from_life(base_profile, name, life_text, life_spread, out_path, as_json)
+        return
+    trial = read_trial(trial_path)
+    fit = fit_trial(trial, base_profile, name, form, limit_um, limit_ratio)
     kin = fit.profile.kinetics
     header = [
         f"Calibrated by watcher {__version__} from {Path(trial_path).name} on base profile {base_profile.name}.",
@@ -168,13 +188,16 @@ def calibrate(trial_path, out_path, base, form, name, as_json) -> None:
             if kin.form == "arrhenius"
             else f"; WLF with Tg' {kin.tg_prime_c} C"
         ),
-        f"RMSE {fit.rmse_um:.2f} um over {trial.days.size} measurements.",
+        f"RMSE {fit.rmse_um:.2f} um over {trial.days.size} measurements; 90 % range of the rate "
+        f"K / {kin.rate_factor_90:.2f} .. K x {kin.rate_factor_90:.2f}.",
+        f"Scale {fit.profile.scale}: initial {fit.profile.initial.mean_diameter_um:g} um, "
+        f"limit {fit.profile.limit_mean_diameter_um:.4g} um"
+        + (f" ({fit.profile.limit_ratio:g} x the initial size)" if fit.profile.limit_ratio else "")
+        + ("" if trial.scale else " (the trial declares no scale: taken as the base profile's)")
+        + ".",
         "Texture-quality parameters only; not a food-safety profile.",
     ]
-    try:
-        Path(out_path).write_text(profile_to_toml(fit.profile, header), encoding="utf-8")
-    except OSError as exc:
-        raise WatcherError(f"{out_path}: cannot write the profile ({exc})") from exc
+    _write_profile(out_path, fit.profile, header)
     groups = [
         {"temp_c": g.temp_c, "k_um3_per_day": g.k_um3_per_day, "k_rel_sd": g.k_rel_sd, "n": g.n} for g in fit.groups
     ]
@@ -204,7 +227,7 @@ def calibrate(trial_path, out_path, base, form, name, as_json) -> None:
             )
         )
         return
-    for line in header[:3]:
+    for line in header[:4]:
         click.echo(line)
     click.echo("")
     click.echo("Each temperature on its own (rate K only):")
@@ -218,6 +241,41 @@ def calibrate(trial_path, out_path, base, form, name, as_json) -> None:
             f"  {r['days']:6.0f} {r['temp_c']:7.1f} {r['observed_um']:9.1f} {r['predicted_um']:9.1f} {r['residual_um']:+9.1f}"
         )
     click.echo("")
+    click.echo(f"Wrote {out_path} (use it with --profile {out_path}).")
+
+
+def _write_profile(out_path, prof, header: list[str]) -> None:
+    from watcher.files.profiles import profile_to_toml
+
+    try:
+        Path(out_path).write_text(profile_to_toml(prof, header), encoding="utf-8")
+    except OSError as exc:
+        raise WatcherError(f"{out_path}: cannot write the profile ({exc})") from exc
+
+
+def _calibrate_from_life(base_profile, name, life_text, life_spread, out_path, as_json) -> None:
+    """`watcher calibrate --life`: a profile anchored to a declared storage life."""
+    from watcher.model.calibrate import from_declared_life
+    from watcher.model.profiles import parse_life
+
+    life = parse_life(life_text)
+    if life_spread is not None and not 1.0 <= life_spread <= 100.0:
+        raise ProfileError("--life-spread", life_spread, "a 90 % range factor from 1 to 100")
+    prof = from_declared_life(base_profile, name, life, life_spread)
+    kin = prof.kinetics
+    header = [
+        f"Anchored by watcher {__version__} to a declared life of {life.days:g} days at {life.temp_c:g} C "
+        f"on base profile {base_profile.name}.",
+        f"K_ref = {kin.k_ref_um3_per_day:.4g} um^3/day at {kin.ref_temp_c} C; 90 % range K / {kin.rate_factor_90:.2f} "
+        f".. K x {kin.rate_factor_90:.2f}; temperature dependence kept from the base profile.",
+        "Texture-quality parameters only; not a food-safety profile.",
+    ]
+    _write_profile(out_path, prof, header)
+    if as_json:
+        click.echo(json.dumps({"profile": prof.as_dict(), "out": str(out_path)}, indent=2))
+        return
+    for line in header[:2]:
+        click.echo(line)
     click.echo(f"Wrote {out_path} (use it with --profile {out_path}).")
 
 

@@ -60,7 +60,9 @@ def profile_to_toml(profile: Profile, header: list[str] | None = None) -> str:
         lines.append("")
     for key in ("name", "description", "source"):
         lines.append(f"{key} = {_toml_value(data[key])}")
-    for section in ("initial", "texture", "kinetics", "ice"):
+    for section in ("initial", "texture", "life", "kinetics", "ice"):
+        if section not in data:
+            continue
         lines.append("")
         lines.append(f"[{section}]")
         for key, value in data[section].items():

@@ -21,7 +21,11 @@ import numpy as np
 from watcher.errors import TrialError
 from watcher.model.kinetics import LSW_A_OVER_K, rate_um3_per_day
 from watcher.model.population import master_curve
-from watcher.model.profiles import Profile
+from watcher.model.profiles import Life, Profile, k_ref_for_life
+
+
+#: z of the two-sided 90 % normal interval: ranges are K / f .. K x f with f = exp(z sd(ln K)).
+Z_90 = 1.6449
 
 
 @dataclass(frozen=True)
@@ -30,6 +34,7 @@ class Trial:
     temp_c: np.ndarray
     mean_diameter_um: np.ndarray
     initial_um: float
+    scale: str | None = None  # measurement method of the sizes; None: not declared
 
 
 @dataclass(frozen=True)
@@ -51,7 +56,7 @@ class Fit:
     groups: tuple[GroupFit, ...]
 
 
-def make_trial(days, temp_c, mean_diameter_um) -> Trial:
+def make_trial(days, temp_c, mean_diameter_um, scale: str | None = None) -> Trial:
     """Split rows into the day-0 initial size and the storage measurements."""
     days = np.asarray(days, dtype=float)
     temp = np.asarray(temp_c, dtype=float)
@@ -62,7 +67,37 @@ def make_trial(days, temp_c, mean_diameter_um) -> Trial:
     later = days > 0
     if later.sum() < 2:
         raise TrialError("trial", int(later.sum()), "at least two measurements after day 0")
-    return Trial(days[later], temp[later], size[later], float(size[start].mean()))
+    return Trial(days[later], temp[later], size[later], float(size[start].mean()), scale)
+
+
+def trial_limit(trial: Trial, base: Profile, limit_um: float | None = None, limit_ratio: float | None = None):
+    """(limit in um, limit ratio or None, scale) for a profile fitted to `trial`.
+
+    Initial size, limit and trial sizes must be on one measurement scale. The trial brings its
+    own day-0 size; the limit is taken, in this order, from an explicit limit on the trial's
+    scale, an explicit ratio, the base profile's ratio, or the base profile's absolute limit
+    when the trial is on the base's scale (or declares none). Otherwise it is refused."""
+    scale = trial.scale or base.scale
+    if limit_um is not None and limit_ratio is not None:
+        raise TrialError("--limit-um", limit_um, "only one of --limit-um and --limit-ratio")
+    if limit_um is not None:
+        return float(limit_um), None, scale
+    ratio = limit_ratio if limit_ratio is not None else base.limit_ratio
+    if ratio is not None:
+        return ratio * trial.initial_um, float(ratio), scale
+    if scale != base.scale:
+        raise TrialError(
+            "trial scale",
+            scale,
+            f"the base profile's scale {base.scale!r} (its limit {base.limit_mean_diameter_um:g} um is on that "
+            "scale), or a limit on the trial's own scale: --limit-um, or --limit-ratio (limit / day-0 size)",
+        )
+    return base.limit_mean_diameter_um, None, scale
+
+
+def rate_factor_90(sd_ln_k: float) -> float:
+    """The 90 % range factor of K from the standard deviation of ln K."""
+    return float(math.exp(Z_90 * sd_ln_k)) if math.isfinite(sd_ln_k) else 100.0
 
 
 def predict_isothermal(master: tuple[np.ndarray, np.ndarray], l0_um: float, k_um3_per_day, days) -> np.ndarray:
@@ -126,15 +161,22 @@ def _naive_k(trial: Trial, mask: np.ndarray) -> float:
     return max(float(t @ y) / float(t @ t), 1e-3)
 
 
-def fit_trial(trial: Trial, base: Profile, name: str, form: str | None = None) -> Fit:
-    """Fit the kinetics of `base` (form from base unless given) to the trial."""
+def fit_trial(
+    trial: Trial,
+    base: Profile,
+    name: str,
+    form: str | None = None,
+    limit_um: float | None = None,
+    limit_ratio: float | None = None,
+) -> Fit:
+    """Fit the kinetics of `base` (form from base unless given) to the trial; the new profile
+    is on the trial's measurement scale (``trial_limit``)."""
     form = form or base.kinetics.form
     kin0 = replace(base.kinetics, form=form)
     initial = replace(base.initial, mean_diameter_um=trial.initial_um)
-    if trial.initial_um >= base.limit_mean_diameter_um:
-        raise TrialError(
-            "trial.day0.mean_diameter_um", trial.initial_um, f"below the texture limit {base.limit_mean_diameter_um} um"
-        )
+    limit, ratio, scale = trial_limit(trial, base, limit_um, limit_ratio)
+    if trial.initial_um >= limit:
+        raise TrialError("trial.day0.mean_diameter_um", trial.initial_um, f"below the texture limit {limit:g} um")
     master = master_curve(initial.shape, initial.spread_cv)
     fp = base.ice.initial_freezing_point_c
     if np.any(trial.temp_c >= fp):
@@ -176,7 +218,7 @@ def fit_trial(trial: Trial, base: Profile, name: str, form: str | None = None) -
     r = residuals(p)
     cov = _covariance(j, r)
     sd = np.sqrt(np.maximum(np.diag(cov), 0.0))
-    kin = kin_with(p)
+    kin = replace(kin_with(p), rate_factor_90=min(rate_factor_90(float(sd[0])), 100.0))
     params = {"k_ref_um3_per_day": kin.k_ref_um3_per_day, "ref_temp_c": kin.ref_temp_c}
     sds = {"k_ref_um3_per_day": kin.k_ref_um3_per_day * float(sd[0])}
     if form == "arrhenius":
@@ -188,6 +230,10 @@ def fit_trial(trial: Trial, base: Profile, name: str, form: str | None = None) -
         name=name,
         kinetics=kin,
         initial=initial,
+        limit_mean_diameter_um=limit,
+        limit_ratio=ratio,
+        scale=scale,
+        life=None,
         description=f"Calibrated from a storage trial ({trial.days.size} measurements at {temps.size} temperatures).",
     )
     return Fit(
@@ -212,3 +258,20 @@ def _fit_group(trial: Trial, master, temp_c: float, k0: float) -> GroupFit:
     r = residuals(p)
     sd = float(np.sqrt(max(_covariance(j, r)[0, 0], 0.0))) if days.size > 1 else float("nan")
     return GroupFit(temp_c=float(temp_c), k_um3_per_day=float(math.exp(p[0])), k_rel_sd=sd, n=int(days.size))
+
+
+def from_declared_life(base: Profile, name: str, life: Life, rate_factor: float | None = None) -> Profile:
+    """A profile anchored to a declared storage life (N days at T): the base's shape, limit,
+    ice curve and temperature dependence, with K_ref such that constant T reaches the limit
+    after N days."""
+    kin = base.kinetics if rate_factor is None else replace(base.kinetics, rate_factor_90=float(rate_factor))
+    k_ref = k_ref_for_life(
+        kin, base.initial, base.limit_mean_diameter_um, life, base.ice.initial_freezing_point_c, "--life"
+    )
+    return replace(
+        base,
+        name=name,
+        life=life,
+        kinetics=replace(kin, k_ref_um3_per_day=k_ref),
+        description=f"Anchored to a declared storage life of {life.days:g} days at {life.temp_c:g} C.",
+    )

@@ -27,7 +27,6 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field, fields, replace
-from functools import lru_cache
 
 import numpy as np
 
@@ -39,11 +38,6 @@ from watcher.model.profiles import Profile
 from watcher.model.thermal import lag_series
 
 SECONDS_PER_DAY = 86400.0
-
-
-@lru_cache(maxsize=64)
-def _master(shape: str, spread_cv: float, n_classes: int, rel_tol: float) -> tuple[np.ndarray, np.ndarray]:
-    return pop.master_curve(shape, spread_cv, n_classes, rel_tol)
 
 
 #: Ice-volume changes smaller than this share are carried to the next macro step instead of
@@ -87,7 +81,7 @@ class Spec:
         """The profile's isothermal master curve (theta / L0^3, L / L0), computed once per
         distinct shape (zones sharing a profile share it)."""
         ini = self.profile.initial
-        return _master(ini.shape, ini.spread_cv, self.n_classes, self.rel_tol)
+        return pop.master_curve(ini.shape, ini.spread_cv, self.n_classes, self.rel_tol)
 
     @property
     def panel_s(self) -> float:
@@ -380,29 +374,48 @@ def _ffill(a: np.ndarray) -> np.ndarray:
     return np.take_along_axis(a, idx, axis=-1)
 
 
-def _ahead(spec: Spec, mean_um: np.ndarray, product_c: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Growth rate (um/day) and days to the limit if each product temperature held.
+def _ahead(spec: Spec, mean_um: np.ndarray, product_c: np.ndarray) -> dict[str, np.ndarray]:
+    """Growth rate (um/day), days to the limit if each product temperature held, and the 90 %
+    range of the days and of the budget from the profile's rate factor f.
 
     Read off the profile's isothermal master curve at the current settled size: the model's
     own prediction at constant temperature, including the faster start of a broad size
-    distribution (the LSW transient), without re-running the population.
+    distribution (the LSW transient), without re-running the population. For the range, the
+    history so far is read as the reduced time that reaches the current size; a rate f times
+    higher would have covered f times that reduced time and would cover the rest f times
+    faster (and the same for 1/f).
     """
     l0 = spec.profile.initial.mean_diameter_um
     lim = spec.profile.limit_mean_diameter_um
-    th, ratio = spec.master
-    mono = np.maximum.accumulate(ratio)  # the number-mean may dip at the very start
-
-    def theta_at(x):
-        inside = np.interp(x, mono, th)
-        return np.where(x <= mono[-1], inside, th[-1] + LSW_A_OVER_K * (x**3 - mono[-1] ** 3))
-
+    master = spec.master
+    f = spec.profile.kinetics.rate_factor_90
     x = np.maximum(mean_um / l0, 1.0)
+    th_x = pop.reduced_time_to(master, x)
+    th_lim = float(pop.reduced_time_to(master, lim / l0))
     a_day = spec.rate_um3_per_s(product_c) * SECONDS_PER_DAY / l0**3  # reduced time per day
     with np.errstate(invalid="ignore", divide="ignore"):
-        days = np.where(a_day > 0, (theta_at(lim / l0) - theta_at(x)) / a_day, np.inf)
         x_next = x * 1.1 ** (1.0 / 3.0)  # L^3 up by 10 %
-        growth = np.where(a_day > 0, (x_next - x) * l0 * a_day / (theta_at(x_next) - theta_at(x)), 0.0)
-    return growth, np.where(mean_um >= lim, 0.0, np.maximum(days, 0.0))
+        growth = np.where(
+            a_day > 0, (x_next - x) * l0 * a_day / (pop.reduced_time_to(master, x_next) - th_x), 0.0
+        )
+
+        def days(scale):
+            left = np.maximum(th_lim - scale * th_x, 0.0)
+            return np.where(a_day > 0, left / (scale * a_day), np.inf)
+
+        def budget(scale):
+            m = pop.ratio_at(master, scale * th_x)
+            return 100.0 * (m**3 - 1.0) / ((lim / l0) ** 3 - 1.0)
+
+        done = mean_um >= lim
+        return {
+            "growth": growth,
+            "days": np.where(done, 0.0, days(1.0)),
+            "days_low": np.where(done, 0.0, days(f)),
+            "days_high": np.where(done, 0.0, days(1.0 / f)),
+            "budget_low": budget(1.0 / f),
+            "budget_high": budget(f),
+        }
 
 
 def outputs(spec: Spec, state: State) -> dict[str, np.ndarray]:
@@ -411,7 +424,9 @@ def outputs(spec: Spec, state: State) -> dict[str, np.ndarray]:
     Keys (arrays of shape (Z, P) unless noted): mean_diameter_um, d90_um,
     share_above_limit (volume share of crystals above the limit), budget_used_pct,
     growth_rate_um_per_day and days_to_limit (from the isothermal master curve at the current
-    size and product temperature), excess_growth_um (versus the setpoint counterfactual), product_c, thawed
+    size and product temperature), their 90 % ranges from the profile's rate factor
+    (budget_used_pct_low/_high, days_to_limit_low/_high: _low days is the cautious end),
+    excess_growth_um (versus the setpoint counterfactual), product_c, thawed
     (bool), setpoint_mean_diameter_um (Z,).
     """
     z, n_pos = state.product_c.shape
@@ -430,16 +445,21 @@ def outputs(spec: Spec, state: State) -> dict[str, np.ndarray]:
     lim = spec.profile.limit_mean_diameter_um
     share = pop.volume_share_above(u, n, lim).reshape(shape)
     lm = mean[:, :n_pos]
-    growth, days = _ahead(spec, lm, state.product_c)
+    ahead = _ahead(spec, lm, state.product_c)
+    budget_pct = 100.0 * budget[:, :n_pos]
     thawed = ~np.isnan(state.thawed_at_s) | (state.product_c >= spec.profile.ice.initial_freezing_point_c)
     nan = np.nan
     return {
         "mean_diameter_um": np.where(thawed, nan, lm),
         "d90_um": np.where(thawed, nan, d90[:, :n_pos]),
         "share_above_limit": np.where(thawed, nan, share[:, :n_pos]),
-        "budget_used_pct": np.where(thawed, nan, 100.0 * budget[:, :n_pos]),
-        "growth_rate_um_per_day": np.where(thawed, nan, growth),
-        "days_to_limit": np.where(thawed, nan, days),
+        "budget_used_pct": np.where(thawed, nan, budget_pct),
+        "budget_used_pct_low": np.where(thawed, nan, np.minimum(budget_pct, ahead["budget_low"])),
+        "budget_used_pct_high": np.where(thawed, nan, np.maximum(budget_pct, ahead["budget_high"])),
+        "growth_rate_um_per_day": np.where(thawed, nan, ahead["growth"]),
+        "days_to_limit": np.where(thawed, nan, ahead["days"]),
+        "days_to_limit_low": np.where(thawed, nan, np.minimum(ahead["days"], ahead["days_low"])),
+        "days_to_limit_high": np.where(thawed, nan, np.maximum(ahead["days"], ahead["days_high"])),
         "excess_growth_um": np.where(thawed, nan, lm - mean[:, n_pos:]),
         "product_c": state.product_c.copy(),
         "thawed": thawed,

@@ -42,6 +42,9 @@ class Kinetics:
     activation_energy_kj_per_mol: float = 0.0
     wlf_c1: float = 17.44
     wlf_c2_k: float = 51.6
+    #: 90 % range of K: K / f .. K x f (calibration covariance, or the spread stated with a
+    #: declared life). Ranges on budget and days left come from it.
+    rate_factor_90: float = 2.2
 
 
 def wlf_log10_shift(temp_c, tg_prime_c: float, c1: float = 17.44, c2_k: float = 51.6):

@@ -15,9 +15,14 @@ small error of the uniform-cell assumption is removed by an exact rescale after 
 A cell that has dissolved completely is dropped and the cell widest in diameter is split in
 two halves, which is exact for a uniform cell, so the class count stays C.
 
-Melting and refreezing move every boundary by one common shell thickness s in diameter
-(surface-limited phase change): on melting the smallest crystals vanish first; on refreezing
-water deposits on the survivors; no new nuclei form.
+Melting and refreezing are diffusion limited: the flux to or from a sphere is proportional to
+its radius, so every crystal's volume changes at a rate proportional to its diameter
+(du/dt ~ d), which moves every boundary by one common amount in d^2. A melt therefore takes a
+larger share of a small crystal than of a large one, and the smallest vanish; refreezing
+deposits the water on the survivors (no new nuclei form). This is the driving-force part of
+the same growth law, du/dtheta = 3 (kappa d - 1) with kappa set by the change of ice volume;
+its capillary (Gibbs-Thomson) part, the -1, acts in the LSW step of the same hour, where it
+dissolves the crystals the melt has shrunk.
 
 Weights are scaled so that the ice volume sum equals the ice fraction (the pi/6 and the
 density ratio cancel); only ratios matter to the growth law.
@@ -26,9 +31,11 @@ density ratio cancel); only ratios matter to the growth law.
 from __future__ import annotations
 
 import math
+from functools import lru_cache
 
 import numpy as np
 
+from watcher.model.kinetics import LSW_A_OVER_K
 from watcher.model.lsw import RHO_MAX, lsw_pdf
 
 _NEWTON_MAX_STEPS = 12
@@ -209,9 +216,10 @@ def _cut_dissolved(ub: np.ndarray, nc: np.ndarray) -> None:
 
 
 def shift_to_volume(ub: np.ndarray, nc: np.ndarray, v_target: np.ndarray, rows: np.ndarray) -> None:
-    """Melt (s < 0) or refreeze (s > 0) the selected rows in place by one shell s in diameter.
+    """Melt (s < 0) or refreeze (s > 0) the selected rows in place: every crystal's d^2 moves
+    by one common amount s (um^2), the diffusion-limited rule (module docstring).
 
-    Newton's method on V(s) = v_target, using dV/ds = 3 sum n d^2, until the volume is within
+    Newton's method on V(s) = v_target, using dV/ds = (3/2) sum n d, until the volume is within
     1e-7 of the target; an exact rescale then removes the last residual.
     """
     if not rows.any():
@@ -222,28 +230,35 @@ def shift_to_volume(ub: np.ndarray, nc: np.ndarray, v_target: np.ndarray, rows: 
     vt = np.maximum(v_target if every else v_target[rows], 0.0)
     _cut_dissolved(u, n)
     d = np.cbrt(u)
+    d2 = d * d  # boundaries are >= 0 after the cut
     s = np.zeros(vt.shape)
     todo = np.ones(vt.shape, dtype=bool)
     for _ in range(_NEWTON_MAX_STEPS):
-        dd = d + s[:, None]
+        dd = _root_signed(d2 + s[:, None])
         a, b, n_eff, d_mean = _cell_parts(dd * dd * dd, n, dd)
         f = np.einsum("rc,rc->r", n_eff, 0.5 * (a + b)) - vt
         # Each row stops on its own tolerance, so its result never depends on other rows.
         todo &= np.abs(f) > _NEWTON_RTOL * vt
         if not todo.any():
             break
-        fp = 3.0 * np.einsum("rc,rc->r", n_eff, d_mean**2)
+        fp = 1.5 * np.einsum("rc,rc->r", n_eff, d_mean)
         with np.errstate(invalid="ignore", divide="ignore"):
             s = np.where(todo & (fp > 0), s - f / fp, s)
     else:
         f = None  # ran out of steps: the volume at the last s is not known yet
-    dd = d + s[:, None]
+    dd = _root_signed(d2 + s[:, None])
     u[...] = dd * dd * dd
     _rescale(u, n, vt, None if f is None else f + vt)
     refill(u, n)
     if not every:
         ub[rows] = u
         nc[rows] = n
+
+
+def _root_signed(q: np.ndarray) -> np.ndarray:
+    """sqrt(q) for q >= 0 and -sqrt(-q) below: a boundary pushed below d^2 = 0 has dissolved and
+    keeps a negative u, as the cells expect."""
+    return np.sign(q) * np.sqrt(np.abs(q))
 
 
 def quantile_diameter(ub: np.ndarray, nc: np.ndarray, q: float) -> np.ndarray:
@@ -273,10 +288,12 @@ def volume_share_above(ub: np.ndarray, nc: np.ndarray, limit_um: float) -> np.nd
         return np.where(v > 0, np.nan_to_num(part).sum(axis=-1) / v, np.nan)
 
 
+@lru_cache(maxsize=64)
 def master_curve(
     shape: str, spread_cv: float, n_classes: int = 64, rel_tol: float = 0.02
 ) -> tuple[np.ndarray, np.ndarray]:
-    """(theta / L0^3, L / L0) for an isothermal run from a unit-mean population."""
+    """(theta / L0^3, L / L0) for an isothermal run from a unit-mean population (computed once
+    per distinct shape; the arrays are read-only)."""
     ub, w = initial_cells(1.0, spread_cv, shape, n_classes)
     u = ub[None].copy()
     n = w[None].copy()
@@ -290,4 +307,28 @@ def master_curve(
         last = theta
         thetas.append(theta)
         ratios.append(float(mean_diameter(u, n)[0]))
-    return np.array(thetas), np.array(ratios)
+    th, ratio = np.array(thetas), np.array(ratios)
+    th.flags.writeable = False
+    ratio.flags.writeable = False
+    return th, ratio
+
+
+def reduced_time_to(master: tuple[np.ndarray, np.ndarray], ratio) -> np.ndarray:
+    """theta / L0^3 at which an isothermal run from the master curve's start reaches the mean
+    diameter ratio L / L0 (the cube law beyond the curve's end). The number-mean may dip at
+    the very start of a broad distribution, so the curve is read as its running maximum."""
+    th, r = master
+    mono = np.maximum.accumulate(r)
+    x = np.asarray(ratio, dtype=float)
+    inside = np.interp(x, mono, th)
+    return np.where(x <= mono[-1], inside, th[-1] + LSW_A_OVER_K * (x**3 - mono[-1] ** 3))
+
+
+def ratio_at(master: tuple[np.ndarray, np.ndarray], theta) -> np.ndarray:
+    """L / L0 after reduced time theta / L0^3 on the master curve (its running maximum; the
+    cube law beyond its end): the inverse of ``reduced_time_to``."""
+    th, r = master
+    mono = np.maximum.accumulate(r)
+    t = np.asarray(theta, dtype=float)
+    inside = np.interp(t, th, mono)
+    return np.where(t <= th[-1], inside, np.cbrt(mono[-1] ** 3 + np.maximum(t - th[-1], 0.0) / LSW_A_OVER_K))
