@@ -133,19 +133,23 @@ class Model:
                 nc[k] *= hi / (hi - lo)
                 ub[k] = 0.0
         target = max(target, 0.0)
-        d = [cbrt(u) for u in ub]
+        d2 = [cbrt(u) ** 2 for u in ub]  # every crystal's d^2 moves by one amount s
+
+        def moved(s):
+            return [math.copysign(math.sqrt(abs(x + s)), x + s) ** 3 for x in d2]
+
         s, f = 0.0, None
         for _ in range(12):
-            trial = [(x + s) ** 3 for x in d]
+            trial = moved(s)
             parts = self.parts(trial, nc)
             f = sum(n * 0.5 * (a + b) for a, b, n, _ in parts) - target
             if abs(f) <= NEWTON_RTOL * target:
                 break
-            fp = 3.0 * sum(n * dm * dm for _, _, n, dm in parts)
+            fp = 1.5 * sum(n * dm for _, _, n, dm in parts)
             if fp > 0:
                 s -= f / fp
             f = None
-        ub[:] = [(x + s) ** 3 for x in d]
+        ub[:] = moved(s)
         self.rescale(ub, nc, target, None if f is None else f + target)
         self.refill(ub, nc)
 

@@ -6,14 +6,14 @@ from importlib import resources
 import numpy as np
 import pytest
 
-from watcher.errors import TrialError
-from watcher.files.trial import read_trial
 from tests.model_checks import days_to_limit_at
+from watcher.errors import TrialError
 from watcher.files.profiles import load_profile
+from watcher.files.trial import read_trial
 from watcher.model.calibrate import fit_trial, from_declared_life, make_trial, master_curve, predict_isothermal
-from watcher.model.profiles import parse_life
 from watcher.model.integrator import Position, Spec, advance, new_state, outputs
 from watcher.model.kinetics import Kinetics, rate_um3_per_day
+from watcher.model.profiles import parse_life
 
 PUBLISHED = str(resources.files("watcher.data") / "trials" / "sinclair-2025-table3.csv")
 

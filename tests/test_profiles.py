@@ -4,10 +4,10 @@ import tomllib
 
 import pytest
 
+from tests.model_checks import days_to_limit_at
 from watcher.errors import ProfileError
 from watcher.files.profiles import builtin_names, load_profile, profile_to_toml
 from watcher.model.profiles import parse_life, profile_from_dict
-from tests.model_checks import days_to_limit_at
 
 BASE = {"name": "p", "kinetics": {"k_ref_um3_per_day": 1000.0, "activation_energy_kj_per_mol": 80.0}}
 
@@ -69,8 +69,11 @@ def test_rate_in_the_linear_cube_root_form_keeps_its_time_to_the_limit():
 
 def test_declared_life_and_rate_constant_must_agree():
     """A [life] beside a rate constant that says otherwise is refused, naming both."""
-    data = {"name": "l", "life": {"days": 300.0, "temp_c": -18.0}, "kinetics": {"k_ref_um3_per_day": 1.0,
-            "activation_energy_kj_per_mol": 100.0}}
+    data = {
+        "name": "l",
+        "life": {"days": 300.0, "temp_c": -18.0},
+        "kinetics": {"k_ref_um3_per_day": 1.0, "activation_energy_kj_per_mol": 100.0},
+    }
     with pytest.raises(ProfileError, match="k_ref_um3_per_day.*declared life gives"):
         profile_from_dict(data)
 
@@ -85,7 +88,11 @@ def test_limit_ratio_and_scale():
 
 @pytest.mark.parametrize(
     ("text", "days", "temp_c"),
-    [("18 months at -18 C", 547.875, -18.0), ("182 days at -18", 182.0, -18.0), ("2 years at \u221225 \u00b0C", 730.5, -25.0)],
+    [
+        ("18 months at -18 C", 547.875, -18.0),
+        ("182 days at -18", 182.0, -18.0),
+        ("2 years at \u221225 \u00b0C", 730.5, -25.0),
+    ],
 )
 def test_declared_life_one_line_form(text, days, temp_c):
     """The one-line declared life reads days, weeks, months or years at a temperature."""

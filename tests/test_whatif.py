@@ -100,10 +100,20 @@ def test_door_practice(spec):
 
 
 def test_defrost_schedule(spec):
+    """More or warmer defrosts cost more. The totals are compared without the 3-hour fault:
+    melt-refreeze dissolves the smallest crystals, so a heavier defrost schedule leaves fewer
+    for the fault to dissolve and the fault's own cost drops (measured 2.88 -> 2.63 % of the
+    budget), which can outweigh the defrosts' extra cost in a 3-day total."""
     rec = run(spec, Change())["recorded"]
     one = run(spec, Change(defrosts_per_day=1, defrost_min=30))["changed"]
     six = run(spec, Change(defrosts_per_day=6, defrost_min=45, defrost_peak_c=-15.0))["changed"]
     assert one["excess_pct"]["defrost"] < rec["excess_pct"]["defrost"] < six["excess_pct"]["defrost"]
+    no_fault = (999,)
+    rec = run(spec, Change(drop_event_ids=no_fault))["changed"]
+    one = run(spec, Change(defrosts_per_day=1, defrost_min=30, drop_event_ids=no_fault))["changed"]
+    six = run(spec, Change(defrosts_per_day=6, defrost_min=45, defrost_peak_c=-15.0, drop_event_ids=no_fault))[
+        "changed"
+    ]
     assert one["budget_used_end_pct"] < rec["budget_used_end_pct"] < six["budget_used_end_pct"]
 
 

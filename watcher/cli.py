@@ -14,6 +14,7 @@ import click
 
 from watcher import __version__
 from watcher.errors import ProfileError, WatcherError
+from watcher.ranges import range_of, with_range
 
 
 class _Group(click.Group):
@@ -398,7 +399,7 @@ def status(config_path, db_path, as_json) -> None:
         click.echo(json.dumps(report, indent=2))
         return
     click.echo(f"Database {report['database']} (read-only), as of {_stamp(report['now_s'])}")
-    head = f"{'zone':<12} {'air C':>6} {'product C':>9} {'mean um':>8} {'budget %':>9} {'days left':>9} {'last reading':>13} {'readings':>9}  data"
+    head = f"{'zone':<12} {'air C':>6} {'product C':>9} {'mean um':>8} {'budget % (90 % range)':>22} {'days left (range)':>20} {'last reading':>13} {'readings':>9}  data"
     click.echo(head)
     click.echo("-" * len(head))
     for z in report["zones"]:
@@ -418,8 +419,13 @@ def status(config_path, db_path, as_json) -> None:
         days_none = "never" if z["state"] == "frozen" else "-"  # 'never': no coarsening below Tg'; '-': no figures yet
         click.echo(
             f"{z['id']:<12} {_fmt(z['air_c'], '6.1f'):>6} {_fmt(z['product_c'], '9.1f'):>9} {_fmt(z['mean_diameter_um'], '8.1f'):>8} "
-            f"{_fmt(z['budget_used_pct'], '9.1f'):>9} {_fmt(z['days_to_limit'], '9.1f', days_none):>9} {age_txt:>13} {z['readings_total']:>9}  {data}"
+            f"{with_range(*range_of(z, 'budget_used_pct'), '.1f'):>22} "
+            f"{with_range(*range_of(z, 'days_to_limit'), '.0f', days_none):>20} {age_txt:>13} {z['readings_total']:>9}  {data}"
         )
+    click.echo(
+        "Days left: if the product stayed at its current temperature. Ranges: 90 % range from the profile's "
+        "uncertainty; alerts on days left use the cautious (lower) end."
+    )
     click.echo(f"Rejected messages stored: {report['rejections_total']}; data gaps recorded: {report['gaps_total']}.")
     alerts = report["open_alerts"]
     if alerts:

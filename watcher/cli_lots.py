@@ -10,6 +10,7 @@ import click
 
 from watcher.cli import _config_option, _fmt, _stamp, main
 from watcher.errors import InputError
+from watcher.ranges import range_of, with_range
 
 CSV_COLUMNS = ("event", "lot", "zone", "time", "product", "mean_diameter_um", "budget_used_pct", "note")
 
@@ -155,9 +156,10 @@ def lot_show(lot_id, as_json, config_path) -> None:
         click.echo("  Not computed yet: the service computes lots at its next analysis pass.")
         return
     click.echo(
-        f"  As of {_stamp(f['t_s'])}: {_fmt(f['budget_used_pct'], '.1f')} % of the texture budget used "
-        f"({f['worst_position']}), mean crystal {_fmt(f['mean_diameter_um'], '.1f')} um, "
-        f"{_fmt(f['days_to_limit'], '.0f', 'no limit in sight')} days to the limit at current conditions."
+        f"  As of {_stamp(f['t_s'])}: {with_range(*range_of(f, 'budget_used_pct'), '.1f')} % of the texture budget "
+        f"used ({f['worst_position']}), mean crystal {_fmt(f['mean_diameter_um'], '.1f')} um, "
+        f"{with_range(*range_of(f, 'days_to_limit'), '.0f', 'no limit in sight')} days to the limit at current "
+        "conditions (90 % range in brackets)."
     )
     click.echo("  A texture prediction, not a food-safety verdict; release decisions follow your food-safety plan.")
 
@@ -181,17 +183,20 @@ def lots_cmd(zone, everything, as_json, config_path) -> None:
     w_lot = max(14, *(len(r["lot"]) for r in rows))
     w_zone = max(12, *(len(x) for x in where))
     click.echo(
-        f"{'#':>3}  {'lot':<{w_lot}} {'zone':<{w_zone}} {'product':<18} {'budget used':>11} {'mean um':>8} "
-        f"{'days left':>9}  as of"
+        f"{'#':>3}  {'lot':<{w_lot}} {'zone':<{w_zone}} {'product':<18} {'budget used %':>20} {'mean um':>8} "
+        f"{'days left':>16}  as of"
     )
     for i, (r, place) in enumerate(zip(rows, where), 1):
         f = r["figures"] or {}
         click.echo(
             f"{i:>3}  {r['lot']:<{w_lot}} {place:<{w_zone}} {r['product']:<18} "
-            f"{_fmt(f.get('budget_used_pct'), '10.1f')}% {_fmt(f.get('mean_diameter_um'), '8.1f')} "
-            f"{_fmt(f.get('days_to_limit'), '9.0f')}  {_stamp(f['t_s']) if f else 'not computed yet'}"
+            f"{with_range(*range_of(f, 'budget_used_pct'), '.1f'):>20} {_fmt(f.get('mean_diameter_um'), '8.1f')} "
+            f"{with_range(*range_of(f, 'days_to_limit'), '.0f'):>16}  {_stamp(f['t_s']) if f else 'not computed yet'}"
         )
-    click.echo("Days left: at current conditions. Texture only: not a food-safety or release verdict.")
+    click.echo(
+        "Days left: at current conditions; brackets: 90 % range from the profile's uncertainty (ranked by the "
+        "central figure). Texture only: not a food-safety or release verdict."
+    )
 
 
 def rank_key(row: dict):

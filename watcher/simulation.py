@@ -14,6 +14,7 @@ from watcher import MODEL_VERSION
 from watcher.files.series import Series
 from watcher.model.integrator import DEFAULT_POSITIONS, Position, Spec, advance, new_state, outputs
 from watcher.model.profiles import Profile
+from watcher.ranges import RANGE_KEYS
 
 CAUTION = (
     "Texture-quality prediction only, not a food-safety verdict: safety, hold/release and recall "
@@ -30,6 +31,7 @@ FIGURES = (
     "excess_growth_um",
     "product_c",
 )
+FIGURES = FIGURES + RANGE_KEYS
 
 
 def _clean(value: float) -> float | None:
@@ -75,7 +77,7 @@ def simulate(
     worst = worst_position(rows)
     result = {
         k: rows[worst][k]
-        for k in ("mean_diameter_um", "d90_um", "budget_used_pct", "days_to_limit", "excess_growth_um")
+        for k in ("mean_diameter_um", "d90_um", "budget_used_pct", "days_to_limit", "excess_growth_um") + RANGE_KEYS
     }
     result.update(
         worst_position=worst,

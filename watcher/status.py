@@ -5,6 +5,7 @@ from __future__ import annotations
 import time
 
 from watcher.config import default_db_path, load_config
+from watcher.ranges import RANGE_KEYS
 from watcher.store.db import Store
 
 DEFAULT_MAX_GAP_S = 900.0
@@ -33,6 +34,7 @@ def read_status(config_path: str | None, db_path: str | None, now: float | None 
                     "mean_diameter_um": fig.get("mean_diameter_um"),
                     "budget_used_pct": fig.get("budget_used_pct"),
                     "days_to_limit": fig.get("days_to_limit"),
+                    **{k: fig.get(k) for k in RANGE_KEYS},
                     "excess_growth_um": fig.get("excess_growth_um"),
                     "state": fig.get("state", "waiting"),
                     "worst_position": fig.get("worst_position"),

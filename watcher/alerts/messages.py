@@ -5,6 +5,8 @@ from __future__ import annotations
 import datetime as dt
 from zoneinfo import ZoneInfo
 
+from watcher.ranges import range_of, with_range
+
 CAUTION = (
     "Texture prediction, not a food-safety verdict: hold/release and safety decisions follow your "
     "food-safety plan and local rules. -18 C is a benchmark for quick-frozen foods, not a legal "
@@ -61,6 +63,11 @@ def auto_label(metric: str, op: str, threshold: float, for_s: float = 0.0) -> st
     held = f" for {duration(for_s)}" if for_s else ""
     note = " (a benchmark, not a legal limit for ice cream)" if metric in ("air_c", "product_c") else ""
     return f"{WORDS.get(metric, metric)} {side} {fmt_value(metric, threshold)}{held}{note}"
+
+
+def range_text(figures: dict, key: str, spec: str) -> str:
+    """'410 (190-900)': a figure and its 90 % range."""
+    return with_range(*range_of(figures, key), spec)
 
 
 UNITS = {"_pct": " %", "_um": " um", "_c": " C", "_k": " K", "_per_h": " per hour"}
@@ -144,10 +151,15 @@ def body(
         lines.append("Now: " + ", ".join(temps) + ".")
     if figures and figures.get("budget_used_pct") is not None:
         days = figures.get("days_to_limit")
-        days_text = "no limit in sight" if days is None else f"{days:.0f} days to the limit at current conditions"
+        days_text = (
+            "no limit in sight"
+            if days is None
+            else f"{range_text(figures, 'days_to_limit', '.0f')} days to the limit at current conditions"
+        )
         limit = f" of the {limit_um:g} um limit" if limit_um else ""
         lines.append(
-            f"Texture so far: {figures['budget_used_pct']:.1f} % of the budget used (worst position: "
+            f"Texture so far: {range_text(figures, 'budget_used_pct', '.1f')} % of the budget used (90 % ranges in "
+            "brackets; worst position: "
             f"{figures.get('worst_position')}), mean crystal {figures.get('mean_diameter_um', 0):.1f} um{limit}, "
             f"{days_text}."
         )

@@ -193,7 +193,7 @@ def default_rules() -> list[Rule]:
             "warning",
             for_s=6 * 3600.0,  # days_to_limit follows the product temperature: a defrost is not a trend
             hysteresis=3.0,
-            label="under two weeks to the texture limit",
+            label="under two weeks to the texture limit (cautious end of the range)",
         ),
         Rule(
             "event-cost", "event_budget_share_pct", ">=", 2.0, "warning", label="one event used over 2 % of the budget"

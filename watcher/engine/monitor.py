@@ -168,7 +168,10 @@ class Monitor:
         """Bring the zone's lots up to at_s and judge the lot rules on each."""
         rules = [r for r in self.rules if r.metric in LOT_METRICS]
         for lot, _zone, figures in self.lots.advance_zone(zone_id, at_s, self.fed_of, wall_s):
-            obs = {"lot_budget_used_pct": figures["budget_used_pct"], "lot_days_to_limit": figures["days_to_limit"]}
+            obs = {
+                "lot_budget_used_pct": figures["budget_used_pct"],
+                "lot_days_to_limit": figures.get("days_to_limit_low", figures["days_to_limit"]),
+            }
             self._evaluate(rules, f"lot:{lot}", obs, figures["t_s"], wall_s)
 
     def _analyse_at(self, runner: ZoneRunner, lz: Live, at_s: float) -> None:
@@ -206,7 +209,8 @@ class Monitor:
         fresh = [v for t, v in runner.air.values() if runner.air and now - t <= runner.max_gap]
         return {
             "budget_used_pct": f.get("budget_used_pct"),
-            "days_to_limit": f.get("days_to_limit"),
+            # Rules on days left judge the cautious end of the range (the rule's label says so).
+            "days_to_limit": f.get("days_to_limit_low", f.get("days_to_limit")),
             "product_c": f.get("product_c"),
             "air_c": runner.last_air_c,
             "door_open_s": lz.on_for("door", now),

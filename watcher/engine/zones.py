@@ -20,6 +20,7 @@ import numpy as np
 from watcher.config import Zone
 from watcher.ingest.payload import Reading
 from watcher.model.integrator import Spec, State, advance, new_state, outputs
+from watcher.ranges import RANGE_KEYS
 from watcher.simulation import position_rows, worst_position
 
 MODEL_SIGNALS = ("air_c", "product_c")
@@ -132,6 +133,7 @@ class ZoneRunner:
             "mean_diameter_um": w["mean_diameter_um"],
             "budget_used_pct": w["budget_used_pct"],
             "days_to_limit": w["days_to_limit"],
+            **{k: w[k] for k in RANGE_KEYS},
             "excess_growth_um": w["excess_growth_um"],
             "product_c": max((r["product_c"] for r in rows.values() if r["product_c"] is not None), default=None),
         }

@@ -85,14 +85,21 @@ def lot_figures(spec: Spec, state: State) -> dict:
         v = float(out[key][0][worst])
         return None if math.isnan(v) else round(v, 6)
 
-    days = out["days_to_limit"][0]
-    finite_days = days[np.isfinite(days)]
+    def soonest(key):
+        days = out[key][0]
+        finite = days[np.isfinite(days)]
+        return round(float(finite.min()), 3) if finite.size else None
+
     return {
         "t_s": state.t_s,
         "worst_position": spec.positions[worst].name,
         "budget_used_pct": value("budget_used_pct"),
+        "budget_used_pct_low": value("budget_used_pct_low"),
+        "budget_used_pct_high": value("budget_used_pct_high"),
         "mean_diameter_um": value("mean_diameter_um"),
-        "days_to_limit": round(float(finite_days.min()), 3) if finite_days.size else None,
+        "days_to_limit": soonest("days_to_limit"),
+        "days_to_limit_low": soonest("days_to_limit_low"),
+        "days_to_limit_high": soonest("days_to_limit_high"),
         "product_c": value("product_c"),
         "thawed": bool(out["thawed"][0].any()),
     }

@@ -23,7 +23,6 @@ from watcher.model.kinetics import LSW_A_OVER_K, rate_um3_per_day
 from watcher.model.population import master_curve
 from watcher.model.profiles import Life, Profile, k_ref_for_life
 
-
 #: z of the two-sided 90 % normal interval: ranges are K / f .. K x f with f = exp(z sd(ln K)).
 Z_90 = 1.6449
 

@@ -68,6 +68,9 @@ class Spec:
     n_classes: int = 64
     macro_s: float = 3600.0
     rel_tol: float = 0.02
+    #: False holds the ice at its amount at the start of each step (no melt, no refreeze):
+    #: the same history without melt-refreeze, to show what part of a cost it is.
+    melt_refreeze: bool = True
 
     def __post_init__(self) -> None:
         if not self.positions:
@@ -215,22 +218,31 @@ def _budget_fraction(spec: Spec, mean_um: np.ndarray) -> np.ndarray:
 def _settled(
     spec: Spec, u: np.ndarray, n: np.ndarray, setpoint_c: np.ndarray, n_pos: int
 ) -> tuple[np.ndarray, np.ndarray]:
-    """Copies of the rows brought to the ice fraction of the zone's setpoint: the ice melted now
-    refrozen onto the survivors (the crystals a warm spell leaves behind once the product is
-    cold again), and the extra ice of a product colder than the setpoint melted back off, so
-    that more ice in a colder product never counts as coarsening."""
+    """Copies of the rows brought to the reference ice fraction: the ice melted now refrozen
+    onto the survivors (the crystals a warm spell leaves behind once the product is cold
+    again), and the extra ice of a product colder than the reference melted back off, so that
+    more ice in a colder product never counts as coarsening.
+
+    The reference is the ice held by the zone's counterfactual row: the ice fraction of the
+    setpoint the population started at. For a zone that is its setpoint; a lot moved to a
+    colder room keeps the reference of its first room, so the extra ice the colder room
+    freezes onto its crystals is not read as coarsening either."""
     z = setpoint_c.size
-    target = np.repeat(spec.ice(setpoint_c), n_pos + 1)
     u2, n2 = u.copy(), n.copy()
     v = pop.volume(u2, n2)
+    ref = v.reshape(z, n_pos + 1)[:, n_pos]
+    target = np.repeat(np.where(ref > 0, ref, spec.ice(setpoint_c)), n_pos + 1)
     off = ((target > v * (1.0 + ICE_TOL)) | (target < v * (1.0 - ICE_TOL))) & (v > 0)
-    off.reshape(z, n_pos + 1)[:, n_pos] = False  # the counterfactual sits at its setpoint
+    off.reshape(z, n_pos + 1)[:, n_pos] = False  # the counterfactual is the reference
     pop.shift_to_volume(u2, n2, target, off)
     return u2, n2
 
 
 def _population_step(spec: Spec, u, n, theta, ice_min, ice_end) -> None:
     """One macro step in place on flattened rows: melt, coarsen, refreeze."""
+    if not spec.melt_refreeze:
+        pop.lsw_advance(u, n, theta, spec.rel_tol)
+        return
     v = pop.volume(u, n)
     melt = ice_min < v * (1.0 - ICE_TOL)
     pop.shift_to_volume(u, n, ice_min, melt)
@@ -395,9 +407,7 @@ def _ahead(spec: Spec, mean_um: np.ndarray, product_c: np.ndarray) -> dict[str, 
     a_day = spec.rate_um3_per_s(product_c) * SECONDS_PER_DAY / l0**3  # reduced time per day
     with np.errstate(invalid="ignore", divide="ignore"):
         x_next = x * 1.1 ** (1.0 / 3.0)  # L^3 up by 10 %
-        growth = np.where(
-            a_day > 0, (x_next - x) * l0 * a_day / (pop.reduced_time_to(master, x_next) - th_x), 0.0
-        )
+        growth = np.where(a_day > 0, (x_next - x) * l0 * a_day / (pop.reduced_time_to(master, x_next) - th_x), 0.0)
 
         def days(scale):
             left = np.maximum(th_lim - scale * th_x, 0.0)

@@ -195,7 +195,9 @@ def _texture(tex: dict, where: str, initial_um: float) -> tuple[float, float | N
     _reject_unknown(tex, {"limit_mean_diameter_um", "limit_ratio", "scale"}, where)
     scale = tex.get("scale", DEFAULT_SCALE)
     if not isinstance(scale, str) or not scale.strip():
-        raise ProfileError(f"{where}.scale", scale, "a non-empty name of the measurement method (e.g. light-microscopy)")
+        raise ProfileError(
+            f"{where}.scale", scale, "a non-empty name of the measurement method (e.g. light-microscopy)"
+        )
     ratio = None
     if "limit_ratio" in tex:
         ratio = _number(tex, "limit_ratio", where, None, 1.0, 100.0, lo_open=True)
@@ -221,7 +223,9 @@ def _life(data: dict, kin: dict, where: str, kinetics: Kinetics, initial: Initia
     life_t = data.get("life")
     if "r_um_per_cuberoot_day" in kin:
         if life_t is not None:
-            raise ProfileError(f"{where}.kinetics.r_um_per_cuberoot_day", kin["r_um_per_cuberoot_day"], "no R beside [life]")
+            raise ProfileError(
+                f"{where}.kinetics.r_um_per_cuberoot_day", kin["r_um_per_cuberoot_day"], "no R beside [life]"
+            )
         # L = L0 + R t^(1/3) reaches the limit at t = ((L_lim - L0) / R)^3 [derived]. That time,
         # not K = R^3 (right only when L >> L0), is what the profile is anchored to.
         r = _number(kin, "r_um_per_cuberoot_day", f"{where}.kinetics", None, 0.0, 1000.0, lo_open=True)
@@ -237,9 +241,23 @@ def _life(data: dict, kin: dict, where: str, kinetics: Kinetics, initial: Initia
     )
 
 
-_UNIT_DAYS = {"d": 1.0, "day": 1.0, "days": 1.0, "w": 7.0, "week": 7.0, "weeks": 7.0, "month": 30.4375,
-              "months": 30.4375, "mo": 30.4375, "y": 365.25, "year": 365.25, "years": 365.25}
-_LIFE_RE = re.compile(r"^\s*([0-9]+(?:\.[0-9]*)?)\s*([a-z]+)\s+at\s+([-+\u2212]?[0-9]+(?:\.[0-9]*)?)\s*(?:\u00b0?\s*c)?\s*$")
+_UNIT_DAYS = {
+    "d": 1.0,
+    "day": 1.0,
+    "days": 1.0,
+    "w": 7.0,
+    "week": 7.0,
+    "weeks": 7.0,
+    "month": 30.4375,
+    "months": 30.4375,
+    "mo": 30.4375,
+    "y": 365.25,
+    "year": 365.25,
+    "years": 365.25,
+}
+_LIFE_RE = re.compile(
+    r"^\s*([0-9]+(?:\.[0-9]*)?)\s*([a-z]+)\s+at\s+([-+\u2212]?[0-9]+(?:\.[0-9]*)?)\s*(?:\u00b0?\s*c)?\s*$"
+)
 
 
 def parse_life(text: str, where: str = "--life") -> Life:
@@ -263,11 +281,17 @@ def k_ref_for_life(
     from the initial size to the limit (the master curve) fixes K(T_life); the temperature
     dependence then carries it to the reference temperature."""
     if life.temp_c >= freezing_point_c:
-        raise ProfileError(f"{where}.temp_c", life.temp_c, f"a frozen temperature below the initial freezing point {freezing_point_c} C")
+        raise ProfileError(
+            f"{where}.temp_c",
+            life.temp_c,
+            f"a frozen temperature below the initial freezing point {freezing_point_c} C",
+        )
     unit = rate_um3_per_day(replace(kin, k_ref_um3_per_day=1.0), life.temp_c, freezing_point_c)
     if not unit > 0:
         raise ProfileError(
-            f"{where}.temp_c", life.temp_c, f"a temperature above Tg' ({kin.tg_prime_c} C), where the product coarsens at all"
+            f"{where}.temp_c",
+            life.temp_c,
+            f"a temperature above Tg' ({kin.tg_prime_c} C), where the product coarsens at all",
         )
     master = master_curve(initial.shape, initial.spread_cv)
     theta = float(reduced_time_to(master, limit_um / initial.mean_diameter_um)) * initial.mean_diameter_um**3
