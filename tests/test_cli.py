@@ -69,6 +69,10 @@ def test_simulate_json_contract(tmp_path):
     )
     assert data["setpoint_c"] == pytest.approx(-22.0)  # the series' median air temperature
     assert data["excess_growth_um"] > 0  # defrost peaks above the median cost growth
+    # Ranges and the additive rule ride beside the figures; the old keys keep their meaning.
+    assert data["budget_used_pct_low"] <= data["budget_used_pct"] <= data["budget_used_pct_high"]
+    assert data["days_to_limit_low"] <= data["days_to_limit"] <= data["days_to_limit_high"]
+    assert 0 < data["additive_rule_budget_pct"] <= data["budget_used_pct"] * 1.01
 
 
 def test_simulate_epoch_times_probe_and_setpoint(tmp_path):

@@ -101,7 +101,14 @@ def simulate(profile_name, series_path, setpoint_c, as_json) -> None:
         click.echo(line)
     w = result["positions"][result["worst_position"]]
     click.echo("")
-    click.echo(f"Most budget used: {result['worst_position']} ({_fmt(w['budget_used_pct'], '.1f')} %).")
+    click.echo(
+        f"Most budget used: {result['worst_position']} "
+        f"({with_range(*range_of(w, 'budget_used_pct'), '.1f')} %; 90 % range in brackets)."
+    )
+    click.echo(
+        f"The additive rule (sum of time / life at each temperature) would say {_fmt(w['additive_rule_budget_pct'], '.1f')} %:"
+        " the difference is what temperature cycling costs beyond the time spent at each temperature."
+    )
     click.echo(result["caution"])
 
 

@@ -13,6 +13,7 @@ from watcher.errors import InputError
 ROWS = (
     ("budget_used_start_pct", "texture budget used at the start, %", ".2f"),
     ("budget_used_end_pct", "texture budget used at the end, %", ".2f"),
+    ("additive_rule_end_pct", "the additive rule (sum of time / life) would say, %", ".2f"),
     ("budget_per_30_days_pct", "budget used per 30 days, %", ".2f"),
     ("days_to_limit_end", "days to the limit at the end (at its conditions)", ".0f"),
     ("mean_diameter_end_um", "mean crystal at the end, um", ".2f"),

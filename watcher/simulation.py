@@ -12,6 +12,7 @@ import numpy as np
 
 from watcher import MODEL_VERSION
 from watcher.files.series import Series
+from watcher.model.additive import additive_budget_pct
 from watcher.model.integrator import DEFAULT_POSITIONS, Position, Spec, advance, new_state, outputs
 from watcher.model.profiles import Profile
 from watcher.ranges import RANGE_KEYS
@@ -74,10 +75,15 @@ def simulate(
     state = new_state(spec, series.t_s[0], series.air_c[0], setpoint, None if probe is None else probe[0])
     state, _ = advance(spec, state, series.t_s[1:], series.air_c[None, 1:], None if probe is None else probe[None, 1:])
     rows = position_rows(spec, outputs(spec, state))
+    rule = additive_budget_pct(spec, series.t_s, series.air_c[None, :])[0]
+    for row, pct in zip(rows.values(), rule):
+        row["additive_rule_budget_pct"] = _clean(pct)
     worst = worst_position(rows)
     result = {
         k: rows[worst][k]
-        for k in ("mean_diameter_um", "d90_um", "budget_used_pct", "days_to_limit", "excess_growth_um") + RANGE_KEYS
+        for k in ("mean_diameter_um", "d90_um", "budget_used_pct", "days_to_limit", "excess_growth_um")
+        + RANGE_KEYS
+        + ("additive_rule_budget_pct",)
     }
     result.update(
         worst_position=worst,

@@ -21,6 +21,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from watcher.model.additive import additive_budget_pct
 from watcher.model.integrator import Spec, State, advance, outputs, tile_state
 
 CAUSES = ("defrost", "door", "excursion")
@@ -140,6 +141,13 @@ def compare(
     l0, lim = spec.profile.initial.mean_diameter_um, spec.profile.limit_mean_diameter_um
     span = lim**3 - l0**3
     start_budget = float(np.nanmax(outputs(spec, start)["budget_used_pct"][0]))
+    rule = additive_budget_pct(
+        spec,
+        np.concatenate(([start.t_s], t)),
+        np.vstack([np.concatenate(([start.air_c[0]], r)) for r in (air, new_air)]),
+        np.repeat(start.product_c[:1], 2, axis=0),
+        start_budget,
+    )
 
     def case(k: int) -> dict:
         budget = out["budget_used_pct"][k]
@@ -160,6 +168,7 @@ def compare(
             "mean_diameter_end_um": round(float(mean[k, worst]), 3),
             "baseline_growth_pct": round(float(100.0 * (mean[k + 1, worst] ** 3 - l0**3) / span) - start_budget, 3),
             "excess_pct": {cause: share(k + 2 + i) for i, cause in enumerate(CAUSES)},
+            "additive_rule_end_pct": round(float(rule[k // ROWS_PER_CASE, worst]), 3),
             "worst_position": spec.positions[worst].name,
         }
 
