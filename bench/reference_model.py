@@ -133,7 +133,7 @@ class Model:
                 nc[k] *= hi / (hi - lo)
                 ub[k] = 0.0
         target = max(target, 0.0)
-        d2 = [cbrt(u) ** 2 for u in ub]  # every crystal's d^2 moves by one amount s
+        d2 = [cbrt(u) * abs(cbrt(u)) for u in ub]  # every crystal's signed d^2 moves by one amount s
 
         def moved(s):
             return [math.copysign(math.sqrt(abs(x + s)), x + s) ** 3 for x in d2]

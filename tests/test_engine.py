@@ -55,7 +55,10 @@ def same_state(a, b):
     chunks only changes the order of floating-point sums."""
     assert a.t_s == b.t_s
     np.testing.assert_allclose(a.ub, b.ub, rtol=1e-9, atol=1e-9 * np.abs(b.ub).max())
-    np.testing.assert_allclose(a.nc, b.nc, rtol=1e-9, atol=1e-12 * np.abs(b.nc).max())
+    # Weights to 1e-9 of the row's largest, like the boundaries: the lowest live cell's weight
+    # is its share above u = 0, and a boundary that low (d ~ 5 um) carries ~2e-9 relative
+    # rounding after a year of hourly steps, so a 1e-9 bound on that weight alone is noise.
+    np.testing.assert_allclose(a.nc, b.nc, rtol=1e-9, atol=1e-9 * np.abs(b.nc).max())
 
 
 def test_duplicates_are_dropped_by_natural_key(tmp_path):

@@ -230,7 +230,7 @@ def shift_to_volume(ub: np.ndarray, nc: np.ndarray, v_target: np.ndarray, rows: 
     vt = np.maximum(v_target if every else v_target[rows], 0.0)
     _cut_dissolved(u, n)
     d = np.cbrt(u)
-    d2 = d * d  # boundaries are >= 0 after the cut
+    d2 = d * np.abs(d)  # signed: boundaries of dissolved cells stay below zero, in order
     s = np.zeros(vt.shape)
     todo = np.ones(vt.shape, dtype=bool)
     for _ in range(_NEWTON_MAX_STEPS):

@@ -10,6 +10,7 @@ import pandas as pd
 from watcher import MODEL_VERSION, __version__
 from watcher.alerts.messages import CAUTION
 from watcher.config import Config, Site
+from watcher.ranges import RANGE_KEYS
 from watcher.report import charts
 from watcher.report.data import SiteWeek, load
 from watcher.report.figures import (
@@ -144,6 +145,8 @@ def zone_section(sw: SiteWeek, zone) -> ZoneSection:
         "end_pct": end,
         "used_in_week_pct": None if start is None or end is None else end - start,
         "days_to_limit": m.days_to_limit_end if m else None,
+        **{k: (m.ranges_end.get(k) if m else None) for k in RANGE_KEYS},
+        "additive_rule_end_pct": m.additive_rule_end_pct if m else None,
         "mean_start_um": m.mean_start_um if m else None,
         "mean_end_um": m.mean_end_um if m else None,
         "limit_um": zone.profile.limit_mean_diameter_um,

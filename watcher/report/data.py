@@ -17,8 +17,10 @@ import pandas as pd
 from watcher.config import Config, Site, Zone
 from watcher.engine.analysis import binned_air
 from watcher.engine.zones import spec_key
+from watcher.model.additive import additive_budget_pct
 from watcher.model.integrator import Spec, State, advance, outputs
 from watcher.model.thermal import lag_series
+from watcher.ranges import RANGE_KEYS
 from watcher.report.week import Week
 from watcher.simulation import position_rows, worst_position
 from watcher.store.db import Store, unpack_state
@@ -39,6 +41,8 @@ class ZoneModel:
     mean_start_um: float | None
     mean_end_um: float | None
     limit_um: float
+    ranges_end: dict = field(default_factory=dict)  # 90 % ranges of budget and days at the week's end
+    additive_rule_end_pct: float | None = None  # the additive rule from the week's start budget
 
 
 @dataclass
@@ -163,4 +167,20 @@ def zone_model(store: Store, zone: Zone, week: Week) -> ZoneModel | None:
         mean_start_um=start_rows[worst]["mean_diameter_um"],
         mean_end_um=end_rows[worst]["mean_diameter_um"],
         limit_um=zone.profile.limit_mean_diameter_um,
+        ranges_end={k: end_rows[worst][k] for k in RANGE_KEYS},
+        additive_rule_end_pct=_additive_end(spec, start_t, start_air, start_product, t, air, w, start_rows[worst]),
     )
+
+
+def _additive_end(spec, start_t, start_air, start_product, t, air, w, start_row) -> float | None:
+    """The additive rule's budget at the week's end, continued from the model's start budget."""
+    if not t.size or start_row["budget_used_pct"] is None:
+        return None
+    rule = additive_budget_pct(
+        spec,
+        np.concatenate(([start_t], t)),
+        np.concatenate(([start_air], air))[None, :],
+        start_product[None, :],
+        start_row["budget_used_pct"],
+    )
+    return float(rule[0, w])

@@ -11,6 +11,7 @@ from zoneinfo import ZoneInfo
 
 import pandas as pd
 
+from watcher.ranges import with_range
 from watcher.report.build import Report
 
 FORMATS = ("html", "csv", "json")
@@ -103,6 +104,13 @@ def _glance(r: Report) -> pd.DataFrame:
     return pd.DataFrame(rows)
 
 
+def _with_range(b: dict, key: str, value_key: str, spec: str, unit: str) -> str:
+    """A summary figure with its 90 % range, e.g. '12.3 (8.1-19.0) %'."""
+    if b.get(value_key) is None:
+        return _n(None, spec, unit)
+    return with_range(b[value_key], b.get(f"{key}_low"), b.get(f"{key}_high"), spec) + unit
+
+
 def zone_html(z, tz: str) -> str:
     b, d, f = z.budget, z.doors, z.defrosts
     parts = [
@@ -111,8 +119,15 @@ def zone_html(z, tz: str) -> str:
         _facts(
             [
                 ("Texture budget at start", _n(b["start_pct"], ".1f", " %")),
-                ("at end", _n(b["end_pct"], ".1f", " %")),
-                ("Days to the limit (end of week)", _n(b["days_to_limit"], ".0f", " days")),
+                ("at end (90 % range)", _with_range(b, "budget_used_pct", "end_pct", ".1f", " %")),
+                (
+                    "at end by the additive rule (time / life at each temperature)",
+                    _n(b["additive_rule_end_pct"], ".1f", " %"),
+                ),
+                (
+                    "Days to the limit (end of week; 90 % range)",
+                    _with_range(b, "days_to_limit", "days_to_limit", ".0f", " days"),
+                ),
                 ("Mean crystal", f"{_n(b['mean_start_um'])} to {_n(b['mean_end_um'])} um (limit {b['limit_um']:g} um)"),
                 ("Worst position", str(b["position"])),
             ]
