@@ -78,25 +78,30 @@ def test_a_day_splits_into_baseline_and_causes(spec):
     assert g.baseline_um > 0
     assert g.by_cause_um["defrost"] > g.by_cause_um["door"] > 0  # 30 min warm costs more than 10
     assert g.excess_um == pytest.approx(sum(g.by_cause_um.values()) + g.unattributed_um)
-    assert abs(g.unattributed_um) < 0.05 * g.excess_um
+    # Causes sum to about 90 % of the excess (docs/events.md); with 64 classes the remainder
+    # is about 8 % here (256 classes: under 1 %), so 10 % bounds it.
+    assert abs(g.unattributed_um) < 0.10 * g.excess_um
     quiet = day_growth(spec, start, *history([], days=3.0), -25.0, DAY, 2 * DAY, [])
     assert quiet.excess_um == pytest.approx(0.0, abs=1e-9)
     assert quiet.baseline_um == pytest.approx(g.baseline_um, rel=1e-6)  # same setpoint day
 
 
 def test_baseline_matches_the_isothermal_master_curve(spec, dairy):
-    """A day at setpoint grows the mean about as the growth rate read off the profile's
-    isothermal master curve at the day's starting size says (derived: the master curve is the
-    same model run isothermally; it assumes the master curve's own distribution shape, so the
-    two agree only to ~20 %: measured 0.318 against 0.374 um/day)."""
+    """A week at setpoint grows the mean about as the profile's isothermal master curve says
+    from the week's starting size over the same reduced time (derived: the master curve is the
+    same model run isothermally with other steps; 20 % covers the cells' day-to-day jitter and
+    the difference in step pattern). A week, not a day: with the slower default kinetics one
+    day at -25 C grows the mean by about 0.02 um, the size of a cell emptying."""
+    from watcher.model import population as pop
     from watcher.model.integrator import advance, outputs
 
-    t, air = history([], days=12.0)
+    t, air = history([], days=50.0, step=600.0)
     start = new_state(spec, 0.0, -25.0, -25.0)
-    # Day 11, not day 1: with the slower, credible default kinetics a fresh broad distribution
-    # is still in its first hours of reduced time after one day, where the number-mean barely
-    # moves and a one-day growth is dominated by the start-up.
-    g = day_growth(spec, start, t, air, -25.0, 10 * DAY, 11 * DAY, [])
-    at_day_start, _ = advance(spec, start, t[t <= 10 * DAY], air[None, t <= 10 * DAY])
-    rate = outputs(spec, at_day_start)["growth_rate_um_per_day"][0]
-    assert abs(g.baseline_um / rate.mean() - 1.0) < 0.25
+    g = day_growth(spec, start, t, air, -25.0, 42 * DAY, 49 * DAY, [])
+    at_start, _ = advance(spec, start, t[t <= 42 * DAY], air[None, t <= 42 * DAY])
+    l0 = dairy.initial.mean_diameter_um
+    x0 = outputs(spec, at_start)["mean_diameter_um"][0, 0] / l0
+    theta_week = float(spec.rate_um3_per_s(-25.0)) * 7 * DAY / l0**3
+    theta0 = pop.reduced_time_to(spec.master, x0)
+    expected = l0 * (pop.ratio_at(spec.master, theta0 + theta_week) - x0)
+    assert abs(g.baseline_um / expected - 1.0) < 0.20

@@ -89,7 +89,13 @@ def test_two_half_steps_equal_one_step_for_any_history(levels, hours):
     periods_h=st.lists(st.floats(3.0, 72.0), min_size=3, max_size=3),
 )
 def test_sampling_rate_independence_for_smooth_histories(base, amps, periods_h):
-    """1-min and 5-min samples of a smooth history agree on growth within 1 %."""
+    """1-min and 5-min samples of a smooth history agree on growth within 1.5 %.
+
+    Typical differences are below 0.2 %. The bound is 1.5 %, not 1 %, since melt-refreeze
+    became material (model lsw-pop-3): the population steps hourly, and a short period that is
+    a multiple of the hour (a 3-h sine of +-2 K at -23 C) puts its coldest and warmest points in
+    the same hour every cycle, so the 2.5-min lag of 5-min held samples shifts them across an
+    hour boundary every time (measured 1.1 %)."""
     grown = []
     for step in (60.0, 300.0):
         t = np.arange(0.0, 6 * 86400.0 + 1, step)
@@ -97,4 +103,4 @@ def test_sampling_rate_independence_for_smooth_histories(base, amps, periods_h):
         grown.append(
             run_history(SPEC, t, air, setpoint_c=base)[1]["mean_diameter_um"][0] - DAIRY.initial.mean_diameter_um
         )
-    np.testing.assert_allclose(grown[1], grown[0], rtol=0.01, atol=1e-6)
+    np.testing.assert_allclose(grown[1], grown[0], rtol=0.015, atol=1e-6)

@@ -1,4 +1,4 @@
 """watcher: ice-crystal coarsening watch for frozen-dessert cold stores."""
 
 __version__ = "0.1.0"
-MODEL_VERSION = "lsw-pop-2"
+MODEL_VERSION = "lsw-pop-3"

@@ -127,7 +127,12 @@ def summary_text(
         parts[-1] += f"; {len(gaps)} gap{'s' if len(gaps) != 1 else ''} recorded." if len(gaps) else "; no gaps."
     else:
         parts.append("Data: no readings this week.")
-    look = [z.name for z in zones if (z.budget["end_pct"] or 0) >= 80 or (z.budget["days_to_limit"] or 1e9) < 30]
+    look = [
+        z.name
+        for z in zones
+        if (z.budget["end_pct"] or 0) >= 80
+        or (z.budget.get("days_to_limit_low", z.budget["days_to_limit"]) or 1e9) < 30
+    ]
     if look:
         parts.append("Look at: " + ", ".join(look) + " (high budget used or under 30 days to the limit).")
     return " ".join(parts)

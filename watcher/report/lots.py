@@ -13,7 +13,7 @@ from watcher.engine.lots import LotKeeper, recompute_lot
 from watcher.lots.events import stays
 from watcher.lots.model import lot_figures
 
-AT_RISK_DAYS = 14.0  # fewer days to the limit at week-end conditions than this (as the days-left rule)
+AT_RISK_DAYS = 14.0  # fewer days to the limit (cautious end) at week-end conditions than this, as the days-left rule
 AT_RISK_BUDGET_PCT = 80.0  # or at least this share of the budget used
 
 COLUMNS = [
@@ -25,6 +25,8 @@ COLUMNS = [
     "budget_used_pct",
     "mean_diameter_um",
     "days_to_limit",
+    "days_to_limit_low",
+    "days_to_limit_high",
     "at_risk",
 ]
 
@@ -46,6 +48,7 @@ def lots_table(store, cfg, site, week) -> pd.DataFrame:
         zone = next((z for z, a, b in reversed(periods) if a < until), here[-1][0])
         departed = item["departed_s"] is not None and item["departed_s"] <= week.end_s
         days, budget = f["days_to_limit"], f["budget_used_pct"]
+        cautious = f.get("days_to_limit_low", days)
         rows.append(
             {
                 "lot": item["lot"],
@@ -55,8 +58,12 @@ def lots_table(store, cfg, site, week) -> pd.DataFrame:
                 "budget_used_pct": None if budget is None else round(budget, 1),
                 "mean_diameter_um": None if f["mean_diameter_um"] is None else round(f["mean_diameter_um"], 1),
                 "days_to_limit": None if days is None else round(days, 0),
+                "days_to_limit_low": None if cautious is None else round(cautious, 0),
+                "days_to_limit_high": None
+                if f.get("days_to_limit_high") is None
+                else round(f["days_to_limit_high"], 0),
                 "at_risk": "yes"
-                if (days is not None and days < AT_RISK_DAYS) or (budget or 0.0) >= AT_RISK_BUDGET_PCT
+                if (cautious is not None and cautious < AT_RISK_DAYS) or (budget or 0.0) >= AT_RISK_BUDGET_PCT
                 else "",
             }
         )
@@ -72,6 +79,7 @@ def lots_note(table: pd.DataFrame) -> str:
     risky = int((table["at_risk"] == "yes").sum())
     return (
         f"{len(table)} lot(s) sat in these zones this week; {risky} at risk (under {AT_RISK_DAYS:.0f} days to the "
-        f"texture limit at week-end conditions, or {AT_RISK_BUDGET_PCT:.0f} % of the budget used). Ranked by texture "
-        "life left: the first should leave first. Figures at the end of the week, or at departure."
+        f"texture limit at week-end conditions at the cautious end of the 90 % range, or {AT_RISK_BUDGET_PCT:.0f} % of "
+        "the budget used). Ranked by texture life left: the first should leave first. Figures at the end of the "
+        "week, or at departure; low and high: the 90 % range of the days left."
     )

@@ -96,6 +96,7 @@ def _glance(r: Report) -> pd.DataFrame:
                 "budget at end %": z.budget["end_pct"],
                 "used this week %": z.budget["used_in_week_pct"],
                 "days to limit": z.budget["days_to_limit"],
+                "90 % range, days": _range_only(z.budget, "days_to_limit", ".0f"),
                 "mean crystal um": z.budget["mean_end_um"],
                 "baseline um": None if g is None else g["baseline_um"],
                 "excess um": None if g is None else g["total_excess_um"],
@@ -109,6 +110,13 @@ def _with_range(b: dict, key: str, value_key: str, spec: str, unit: str) -> str:
     if b.get(value_key) is None:
         return _n(None, spec, unit)
     return with_range(b[value_key], b.get(f"{key}_low"), b.get(f"{key}_high"), spec) + unit
+
+
+def _range_only(b: dict, key: str, spec: str) -> str | None:
+    low, high = b.get(f"{key}_low"), b.get(f"{key}_high")
+    if low is None and high is None:
+        return None
+    return f"{_n(low, spec)}-{_n(high, spec)}"
 
 
 def zone_html(z, tz: str) -> str:
