@@ -89,13 +89,13 @@ def test_two_half_steps_equal_one_step_for_any_history(levels, hours):
     periods_h=st.lists(st.floats(3.0, 72.0), min_size=3, max_size=3),
 )
 def test_sampling_rate_independence_for_smooth_histories(base, amps, periods_h):
-    """1-min and 5-min samples of a smooth history agree on growth within 1.5 %.
+    """1-min and 5-min samples of a smooth history agree on growth within 1 % or 0.02 um
+    (0.1 % of the budget), whichever is larger.
 
-    Typical differences are below 0.2 %. The bound is 1.5 %, not 1 %, since melt-refreeze
-    became material (model lsw-pop-3): the population steps hourly, and a short period that is
-    a multiple of the hour (a 3-h sine of +-2 K at -23 C) puts its coldest and warmest points in
-    the same hour every cycle, so the 2.5-min lag of 5-min held samples shifts them across an
-    hour boundary every time (measured 1.1 %)."""
+    The absolute floor is new with model lsw-pop-3, where melt-refreeze is material: at cold
+    storage six days grow the mean by under 0.3 um, and short periods alias on the hourly
+    population step (a 4-h +-3 K sine at -30 C: 0.076 against 0.078 um, 13 % relative but
+    0.01 um, a hundredth of what a microscope resolves). Typical differences are below 0.2 %."""
     grown = []
     for step in (60.0, 300.0):
         t = np.arange(0.0, 6 * 86400.0 + 1, step)
@@ -103,4 +103,4 @@ def test_sampling_rate_independence_for_smooth_histories(base, amps, periods_h):
         grown.append(
             run_history(SPEC, t, air, setpoint_c=base)[1]["mean_diameter_um"][0] - DAIRY.initial.mean_diameter_um
         )
-    np.testing.assert_allclose(grown[1], grown[0], rtol=0.015, atol=1e-6)
+    np.testing.assert_allclose(grown[1], grown[0], rtol=0.01, atol=0.02)

@@ -303,6 +303,9 @@ def test_lot_commands_import_and_ranking(tmp_path):
     assert set(ranked) == {"P-1", "P-2", "P-4"} and days == sorted(days)  # least texture life left first
     by_lot = {r["lot"]: r["figures"] for r in rows}
     assert by_lot["P-2"]["budget_used_pct"] == pytest.approx(60.0, abs=0.5)  # declared, no air data since
+    for f in by_lot.values():  # the 90 % ranges ride beside the old keys
+        assert f["budget_used_pct_low"] <= f["budget_used_pct"] <= f["budget_used_pct_high"]
+        assert f["days_to_limit_low"] <= f["days_to_limit"] <= f["days_to_limit_high"]
     code, text = run("lots", config=config)
     assert code == 0 and text.index(ranked[0]) < text.index(ranked[1]) < text.index(ranked[2])
     assert "not a food-safety" in text

@@ -43,6 +43,19 @@ def test_raise_message_says_what_happened_cost_and_checks():
     assert "door open over 10 min. Now 14 min (at or above 10 min), since 2026-11-18 11:06" in body
     assert "Now: air -16.5 C, product (estimated, warmest position) -20.1 C." in body
     assert "41.3 % of the budget used" in body and "42.2 um of the 50 um limit" in body and "61 days" in body
+    ranged = messages.body(
+        "raise",
+        ALERT,
+        "Kestrel Point - Dispatch freezer",
+        "Europe/London",
+        {**FIGURES, "budget_used_pct_low": 20.5, "budget_used_pct_high": 77.0, "days_to_limit_low": 22.0,
+         "days_to_limit_high": 150.0},
+        [],
+        "watcher/ack",
+        50.0,
+    )  # fmt: skip
+    assert "41.3 (20.5-77.0) % of the budget used (90 % ranges in brackets" in ranged
+    assert "61 (22-150) days to the limit" in ranged
     assert (
         "defrost 2026-11-18 08:20 to 2026-11-18 08:50, peak -14.2 C, cost 0.02 um (0.09 % of the budget, final)" in body
     )

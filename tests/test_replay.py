@@ -38,8 +38,13 @@ def test_replay_then_status(tmp_path):
     zone = status["zones"][0]
     assert zone["id"] == "bulk-a" and zone["readings_total"] == 2881
     assert zone["budget_used_pct"] > 0 and zone["air_c"] == pytest.approx(-25.0)
+    # Ranges beside the old keys; two days of fresh product at -25 C leave a year or more.
+    assert zone["budget_used_pct_low"] < zone["budget_used_pct"] < zone["budget_used_pct_high"]
+    assert 365 <= zone["days_to_limit_low"] < zone["days_to_limit"] < zone["days_to_limit_high"]
     text = CliRunner().invoke(main, ["status", "--config", str(cfg)]).output
     assert "bulk-a" in text and "not a food-safety verdict" in text
+    low, high = round(zone["days_to_limit_low"]), round(zone["days_to_limit_high"])
+    assert f"({low}-{high})" in text  # the table shows the range beside the figure
 
 
 def test_replay_bad_row_exits_2(tmp_path):

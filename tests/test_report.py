@@ -127,6 +127,11 @@ def test_budget_and_record_heads(w47):
     _, store, _, _, data, db = w47
     b = zone(data, "bulk-a")["budget"]
     assert 0 < b["start_pct"] < b["end_pct"] < 100 and b["mean_start_um"] < b["mean_end_um"] < b["limit_um"]
+    # The 90 % ranges and the additive rule ride beside the budget; the rule, blind to what
+    # the defrosts' melt-refreeze adds, never says more than the model.
+    assert b["budget_used_pct_low"] <= b["end_pct"] <= b["budget_used_pct_high"]
+    assert b["days_to_limit_low"] <= b["days_to_limit"] <= b["days_to_limit_high"]
+    assert b["start_pct"] < b["additive_rule_end_pct"] <= b["end_pct"]
     assert data["integrity"]["heads"] == chain.heads(db)
     assert data["integrity"]["digest"] == chain.digest(chain.heads(db))
     (stored,) = db.execute("SELECT digest FROM reports").fetchone()

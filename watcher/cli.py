@@ -103,7 +103,9 @@ def simulate(profile_name, series_path, setpoint_c, as_json) -> None:
     click.echo("")
     click.echo(
         f"Most budget used: {result['worst_position']} "
-        f"({with_range(*range_of(w, 'budget_used_pct'), '.1f')} %; 90 % range in brackets)."
+        f"({with_range(*range_of(w, 'budget_used_pct'), '.1f')} %; 90 % range in brackets), "
+        f"{with_range(*range_of(w, 'days_to_limit'), '.0f', 'never')} days to the limit if its product stayed "
+        "at its last temperature."
     )
     click.echo(
         f"The additive rule (sum of time / life at each temperature) would say {_fmt(w['additive_rule_budget_pct'], '.1f')} %:"

@@ -234,6 +234,7 @@ def fit_trial(
         scale=scale,
         life=None,
         description=f"Calibrated from a storage trial ({trial.days.size} measurements at {temps.size} temperatures).",
+        source=f"Storage trial fit; other parameters from {base.name}",
     )
     return Fit(
         profile=profile,
@@ -273,4 +274,5 @@ def from_declared_life(base: Profile, name: str, life: Life, rate_factor: float 
         life=life,
         kinetics=replace(kin, k_ref_um3_per_day=k_ref),
         description=f"Anchored to a declared storage life of {life.days:g} days at {life.temp_c:g} C.",
+        source=f"Declared storage life, {life.days:g} days at {life.temp_c:g} C; other parameters from {base.name}",
     )

@@ -406,7 +406,7 @@ def _ahead(spec: Spec, mean_um: np.ndarray, product_c: np.ndarray) -> dict[str, 
     th_lim = float(pop.reduced_time_to(master, lim / l0))
     a_day = spec.rate_um3_per_s(product_c) * SECONDS_PER_DAY / l0**3  # reduced time per day
     with np.errstate(invalid="ignore", divide="ignore"):
-        x_next = x * 1.02 ** (1.0 / 3.0)  # L^3 up by 2 %: close to the current rate, above the curve's resolution
+        x_next = x * 1.1 ** (1.0 / 3.0)  # L^3 up by 10 %: smooths the cells' wobble in the local slope
         growth = np.where(a_day > 0, (x_next - x) * l0 * a_day / (pop.reduced_time_to(master, x_next) - th_x), 0.0)
 
         def days(scale):

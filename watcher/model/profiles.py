@@ -167,13 +167,13 @@ def profile_from_dict(data: dict, where: str = "profile") -> Profile:
     life = _life(data, kin_t, where, kinetics, initial, limit)
     if life is not None:
         k_ref = k_ref_for_life(kinetics, initial, limit, life, ice.initial_freezing_point_c, f"{where}.life")
-        given = kin_t.get("k_ref_um3_per_day")
-        if given is not None and not math.isclose(float(given), k_ref, rel_tol=1e-6):
-            raise ProfileError(
-                f"{where}.kinetics.k_ref_um3_per_day",
-                given,
-                f"no rate constant beside [life] (the declared life gives {k_ref:.6g} um^3/day), or exactly that value",
-            )
+        _must_agree(
+            kin_t,
+            "k_ref_um3_per_day",
+            k_ref,
+            f"{where}.kinetics",
+            f"no rate constant beside [life] (the declared life gives {k_ref:.6g} um^3/day), or exactly that value",
+        )
         kinetics = replace(kinetics, k_ref_um3_per_day=k_ref)
     return Profile(
         name=name.strip(),
@@ -189,6 +189,15 @@ def profile_from_dict(data: dict, where: str = "profile") -> Profile:
     )
 
 
+def _must_agree(table: dict, key: str, derived: float, where: str, expected: str) -> None:
+    """A value given beside the one it is derived from (written back by as_dict) must agree."""
+    given = table.get(key)
+    if given is None:
+        return
+    if isinstance(given, bool) or not isinstance(given, (int, float)) or not math.isclose(given, derived, rel_tol=1e-6):
+        raise ProfileError(f"{where}.{key}", given, expected)
+
+
 def _texture(tex: dict, where: str, initial_um: float) -> tuple[float, float | None, str]:
     """The limit on the profile's one measurement scale: absolute, or relative to the initial
     mean diameter (which then carries over to a trial's own day-0 size)."""
@@ -202,13 +211,13 @@ def _texture(tex: dict, where: str, initial_um: float) -> tuple[float, float | N
     if "limit_ratio" in tex:
         ratio = _number(tex, "limit_ratio", where, None, 1.0, 100.0, lo_open=True)
         limit = ratio * initial_um
-        given = tex.get("limit_mean_diameter_um")
-        if given is not None and not math.isclose(float(given), limit, rel_tol=1e-6):
-            raise ProfileError(
-                f"{where}.limit_mean_diameter_um",
-                given,
-                f"only one of limit_mean_diameter_um and limit_ratio, or values that agree ({limit:.6g} um)",
-            )
+        _must_agree(
+            tex,
+            "limit_mean_diameter_um",
+            limit,
+            where,
+            f"only one of limit_mean_diameter_um and limit_ratio, or values that agree ({limit:.6g} um)",
+        )
     else:
         limit = _number(tex, "limit_mean_diameter_um", where, 50.0, 0.0, 1000.0, lo_open=True)
     if limit <= initial_um:
