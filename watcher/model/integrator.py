@@ -221,7 +221,7 @@ def _settled(
     """Copies of the rows brought to the reference ice fraction: the ice melted now refrozen
     onto the survivors (the crystals a warm spell leaves behind once the product is cold
     again), and the extra ice of a product colder than the reference melted back off, so that
-    more ice in a colder product never counts as coarsening.
+    more ice in a colder product does not count as coarsening.
 
     The reference is the ice held by the zone's counterfactual row: the ice fraction of the
     setpoint the population started at. For a zone that is its setpoint; a lot moved to a
@@ -234,6 +234,10 @@ def _settled(
     target = np.repeat(np.where(ref > 0, ref, spec.ice(setpoint_c)), n_pos + 1)
     off = ((target > v * (1.0 + ICE_TOL)) | (target < v * (1.0 - ICE_TOL))) & (v > 0)
     off.reshape(z, n_pos + 1)[:, n_pos] = False  # the counterfactual is the reference
+    # Extra ice comes off by the same diffusion rule that froze it on (d^2 down by one amount),
+    # so a colder spell's freezing and this settling undo each other; scaling every crystal in
+    # proportion instead would leave the small crystals' gain from the d^2 refreeze in place
+    # and read a colder product as coarser (found by the what-if hypothesis test).
     pop.shift_to_volume(u2, n2, target, off)
     return u2, n2
 
