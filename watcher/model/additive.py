@@ -20,13 +20,6 @@ from watcher.model import population as pop
 from watcher.model.thermal import lag_series
 
 
-def reduced_time_to_limit_um3(spec) -> float:
-    """Reduced time (um^3) from the profile's initial size to its limit at constant temperature."""
-    ini = spec.profile.initial
-    ratio = spec.profile.limit_mean_diameter_um / ini.mean_diameter_um
-    return float(pop.reduced_time_to(spec.master, ratio)) * ini.mean_diameter_um**3
-
-
 def budget_pct_after(spec, reduced_um3) -> np.ndarray:
     """Budget (%) on constant storage after a reduced time (um^3) from the initial size."""
     ini = spec.profile.initial
