@@ -101,17 +101,20 @@ def test_published_trial_activation_energy_agrees_with_the_default(dairy):
     assert abs(ea - dairy.kinetics.activation_energy_kj_per_mol) < sd
 
 
-def test_a_trial_on_another_scale_needs_a_limit_on_its_scale(dairy, tmp_path):
-    """Sizes from freeze-dried SEM pores and a light-microscopy limit are not mixed silently:
-    the trial's declared scale is refused against the base's absolute limit, accepted with a
-    limit on the trial's scale or relative to its day-0 size; the fitted profile carries the
-    trial's scale."""
+def test_a_trial_on_another_scale_never_takes_an_absolute_limit_from_another(dairy, tmp_path):
+    """Sizes from freeze-dried SEM pores and a light-microscopy limit are not mixed: the trial's
+    declared scale carries the base's limit over as a ratio to its own day-0 size (and says
+    so), or takes a limit given on its scale; the fitted profile carries the trial's scale. A
+    trial that declares no scale is on the base's and keeps its absolute limit."""
     trial = read_trial(PUBLISHED)
     assert trial.scale == "sem-freeze-dried"
-    with pytest.raises(TrialError, match="trial scale: got 'sem-freeze-dried'.*--limit-ratio"):
-        fit_trial(trial, dairy, "mixed")
-    fit = fit_trial(trial, dairy, "own", limit_um=60.0)
-    assert fit.profile.scale == "sem-freeze-dried" and fit.profile.limit_mean_diameter_um == 60.0
+    carried = fit_trial(trial, dairy, "carried")
+    assert carried.profile.limit_mean_diameter_um == pytest.approx(23.7 * 50.0 / 35.0)
+    assert carried.profile.scale == "sem-freeze-dried" and "carried as a ratio" in carried.limit_basis
+    own = fit_trial(trial, dairy, "own", limit_um=60.0)
+    assert own.profile.scale == "sem-freeze-dried" and own.profile.limit_mean_diameter_um == 60.0
+    with pytest.raises(TrialError, match="only one of --limit-um and --limit-ratio"):
+        fit_trial(trial, dairy, "both", limit_um=60.0, limit_ratio=1.5)
     plain = tmp_path / "plain.csv"
     plain.write_text("days,temp_c,mean_diameter_um\n0,-18,30\n30,-18,36\n30,-12,45\n60,-12,52\n")
     undeclared = fit_trial(read_trial(str(plain)), dairy, "plain")

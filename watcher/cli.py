@@ -202,7 +202,7 @@ def calibrate(trial_path, out_path, base, form, name, life_text, life_spread, li
         f"K / {kin.rate_factor_90:.2f} .. K x {kin.rate_factor_90:.2f}.",
         f"Scale {fit.profile.scale}: initial {fit.profile.initial.mean_diameter_um:g} um, "
         f"limit {fit.profile.limit_mean_diameter_um:.4g} um"
-        + (f" ({fit.profile.limit_ratio:g} x the initial size)" if fit.profile.limit_ratio else "")
+        + f": {fit.limit_basis}"
         + ("" if trial.scale else " (the trial declares no scale: taken as the base profile's)")
         + ".",
         "Texture-quality parameters only; not a food-safety profile.",
@@ -229,6 +229,7 @@ def calibrate(trial_path, out_path, base, form, name, life_text, life_spread, li
                     "params": fit.params,
                     "sd": fit.sd,
                     "rmse_um": fit.rmse_um,
+                    "limit_basis": fit.limit_basis,
                     "groups": groups,
                     "residuals": residuals,
                     "out": str(out_path),

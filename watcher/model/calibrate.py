@@ -53,6 +53,7 @@ class Fit:
     residual_um: np.ndarray
     rmse_um: float
     groups: tuple[GroupFit, ...]
+    limit_basis: str = ""  # how the texture limit on the trial's scale was set
 
 
 def make_trial(days, temp_c, mean_diameter_um, scale: str | None = None) -> Trial:
@@ -69,29 +70,37 @@ def make_trial(days, temp_c, mean_diameter_um, scale: str | None = None) -> Tria
     return Trial(days[later], temp[later], size[later], float(size[start].mean()), scale)
 
 
-def trial_limit(trial: Trial, base: Profile, limit_um: float | None = None, limit_ratio: float | None = None):
-    """(limit in um, limit ratio or None, scale) for a profile fitted to `trial`.
+def trial_limit(
+    trial: Trial, base: Profile, limit_um: float | None = None, limit_ratio: float | None = None
+) -> tuple[float, float | None, str, str]:
+    """(limit in um, limit ratio or None, scale, how the limit was set) for a profile fitted to
+    `trial`.
 
     Initial size, limit and trial sizes must be on one measurement scale. The trial brings its
     own day-0 size; the limit is taken, in this order, from an explicit limit on the trial's
-    scale, an explicit ratio, the base profile's ratio, or the base profile's absolute limit
-    when the trial is on the base's scale (or declares none). Otherwise it is refused."""
+    scale, an explicit ratio, the base profile's ratio, the base profile's absolute limit when
+    the trial is on the base's scale (or declares none), or else the base's limit carried over
+    as a ratio to the base's initial size, never as an absolute size from another scale; the
+    fourth value says which, and calibrate prints it."""
     scale = trial.scale or base.scale
     if limit_um is not None and limit_ratio is not None:
         raise TrialError("--limit-um", limit_um, "only one of --limit-um and --limit-ratio")
     if limit_um is not None:
-        return float(limit_um), None, scale
-    ratio = limit_ratio if limit_ratio is not None else base.limit_ratio
-    if ratio is not None:
-        return ratio * trial.initial_um, float(ratio), scale
-    if scale != base.scale:
-        raise TrialError(
-            "trial scale",
-            scale,
-            f"the base profile's scale {base.scale!r} (its limit {base.limit_mean_diameter_um:g} um is on that "
-            "scale), or a limit on the trial's own scale: --limit-um, or --limit-ratio (limit / day-0 size)",
-        )
-    return base.limit_mean_diameter_um, None, scale
+        return float(limit_um), None, scale, f"given on the {scale} scale"
+    if limit_ratio is not None:
+        return limit_ratio * trial.initial_um, float(limit_ratio), scale, "given as a multiple of the day-0 size"
+    if base.limit_ratio is not None:
+        return base.limit_ratio * trial.initial_um, base.limit_ratio, scale, f"the ratio of base {base.name}"
+    if scale == base.scale:
+        return base.limit_mean_diameter_um, None, scale, f"the limit of base {base.name} (same scale)"
+    ratio = base.limit_mean_diameter_um / base.initial.mean_diameter_um
+    return (
+        ratio * trial.initial_um,
+        ratio,
+        scale,
+        f"carried as a ratio ({base.limit_mean_diameter_um:g} / {base.initial.mean_diameter_um:g} um of base "
+        f"{base.name}, {base.scale}) because the trial is on another scale; give --limit-um to set it on this scale",
+    )
 
 
 def rate_factor_90(sd_ln_k: float) -> float:
@@ -173,7 +182,7 @@ def fit_trial(
     form = form or base.kinetics.form
     kin0 = replace(base.kinetics, form=form)
     initial = replace(base.initial, mean_diameter_um=trial.initial_um)
-    limit, ratio, scale = trial_limit(trial, base, limit_um, limit_ratio)
+    limit, ratio, scale, limit_basis = trial_limit(trial, base, limit_um, limit_ratio)
     if trial.initial_um >= limit:
         raise TrialError("trial.day0.mean_diameter_um", trial.initial_um, f"below the texture limit {limit:g} um")
     master = master_curve(initial.shape, initial.spread_cv)
@@ -244,6 +253,7 @@ def fit_trial(
         residual_um=r,
         rmse_um=float(np.sqrt(np.mean(r * r))),
         groups=groups,
+        limit_basis=limit_basis,
     )
 
 
