@@ -36,6 +36,19 @@ def filled(tmp_path):
     return tmp_path / "w.db"
 
 
+def test_negative_zero_is_hashed_as_sqlite_stores_it(tmp_path):
+    """An alert log value of -0.0 (a cleared cost that rounded to minus zero) still verifies:
+    SQLite stores it as 0.0, and the chain hashes what is stored (this broke the demo's record)."""
+    _, store, _ = make(tmp_path, reorder=0.0)
+    with store.atomic():
+        store.alert_log_add(1, "raise", 1.0, 2.0, 3.5)
+        store.alert_log_add(1, "clear", 5.0, 6.0, -0.0)
+        store.alert_log_add(1, "ack", 7.0, 8.0, None, "qa", "note")
+    store.close()
+    out = verify_cli(tmp_path / "w.db")
+    assert out.returncode == 0 and "Record intact" in out.stdout, out.stdout
+
+
 def test_intact_record_verifies(filled):
     out = verify_cli(filled)
     assert out.returncode == 0, out.stdout + out.stderr

@@ -28,8 +28,13 @@ LOGS += (("lot_events", LOT_EVENT_FIELDS, "received_s"),)
 
 
 def chain_hash(prev, *fields) -> str:
-    """SHA-256 over the previous hash and the fields' exact text (repr keeps every float bit)."""
-    return hashlib.sha256(((prev or "") + "".join("\x1f" + repr(f) for f in fields)).encode()).hexdigest()
+    """SHA-256 over the previous hash and the fields' exact text (repr keeps every float bit).
+
+    A float is hashed as SQLite stores it: SQLite keeps -0.0 as 0.0, so hashing repr(-0.0) at
+    insert broke the chain the moment verify read the row back (an alert cleared with a cost of
+    -0.0 did it); adding 0.0 turns -0.0 into 0.0 and leaves every other value as it is."""
+    text = "".join("\x1f" + repr(f + 0.0 if isinstance(f, float) else f) for f in fields)
+    return hashlib.sha256(((prev or "") + text).encode()).hexdigest()
 
 
 def register(conn) -> None:
