@@ -14,7 +14,7 @@ import click
 
 from watcher import __version__
 from watcher.errors import ProfileError, WatcherError
-from watcher.ranges import range_of, with_range
+from watcher.ranges import figure_text
 
 
 class _Group(click.Group):
@@ -103,8 +103,8 @@ def simulate(profile_name, series_path, setpoint_c, as_json) -> None:
     click.echo("")
     click.echo(
         f"Most budget used: {result['worst_position']} "
-        f"({with_range(*range_of(w, 'budget_used_pct'), '.1f')} %; 90 % range in brackets), "
-        f"{with_range(*range_of(w, 'days_to_limit'), '.0f', 'never')} days to the limit if its product stayed "
+        f"({figure_text(w, 'budget_used_pct', '.1f')} %; 90 % range in brackets), "
+        f"{figure_text(w, 'days_to_limit', '.0f', 'never')} days to the limit if its product stayed "
         "at its last temperature."
     )
     click.echo(
@@ -429,8 +429,8 @@ def status(config_path, db_path, as_json) -> None:
         days_none = "never" if z["state"] == "frozen" else "-"  # 'never': no coarsening below Tg'; '-': no figures yet
         click.echo(
             f"{z['id']:<12} {_fmt(z['air_c'], '6.1f'):>6} {_fmt(z['product_c'], '9.1f'):>9} {_fmt(z['mean_diameter_um'], '8.1f'):>8} "
-            f"{with_range(*range_of(z, 'budget_used_pct'), '.1f'):>22} "
-            f"{with_range(*range_of(z, 'days_to_limit'), '.0f', days_none):>20} {age_txt:>13} {z['readings_total']:>9}  {data}"
+            f"{figure_text(z, 'budget_used_pct', '.1f'):>22} "
+            f"{figure_text(z, 'days_to_limit', '.0f', days_none):>20} {age_txt:>13} {z['readings_total']:>9}  {data}"
         )
     click.echo(
         "Days left: if the product stayed at its current temperature. Ranges: 90 % range from the profile's "

@@ -10,7 +10,7 @@ import click
 
 from watcher.cli import _config_option, _fmt, _stamp, main
 from watcher.errors import InputError
-from watcher.ranges import range_of, with_range
+from watcher.ranges import figure_text
 
 CSV_COLUMNS = ("event", "lot", "zone", "time", "product", "mean_diameter_um", "budget_used_pct", "note")
 
@@ -156,9 +156,9 @@ def lot_show(lot_id, as_json, config_path) -> None:
         click.echo("  Not computed yet: the service computes lots at its next analysis pass.")
         return
     click.echo(
-        f"  As of {_stamp(f['t_s'])}: {with_range(*range_of(f, 'budget_used_pct'), '.1f')} % of the texture budget "
+        f"  As of {_stamp(f['t_s'])}: {figure_text(f, 'budget_used_pct', '.1f')} % of the texture budget "
         f"used ({f['worst_position']}), mean crystal {_fmt(f['mean_diameter_um'], '.1f')} um, "
-        f"{with_range(*range_of(f, 'days_to_limit'), '.0f', 'no limit in sight')} days to the limit at current "
+        f"{figure_text(f, 'days_to_limit', '.0f', 'no limit in sight')} days to the limit at current "
         "conditions (90 % range in brackets)."
     )
     click.echo("  A texture prediction, not a food-safety verdict; release decisions follow your food-safety plan.")
@@ -190,8 +190,8 @@ def lots_cmd(zone, everything, as_json, config_path) -> None:
         f = r["figures"] or {}
         click.echo(
             f"{i:>3}  {r['lot']:<{w_lot}} {place:<{w_zone}} {r['product']:<18} "
-            f"{with_range(*range_of(f, 'budget_used_pct'), '.1f'):>20} {_fmt(f.get('mean_diameter_um'), '8.1f')} "
-            f"{with_range(*range_of(f, 'days_to_limit'), '.0f'):>16}  {_stamp(f['t_s']) if f else 'not computed yet'}"
+            f"{figure_text(f, 'budget_used_pct', '.1f'):>20} {_fmt(f.get('mean_diameter_um'), '8.1f')} "
+            f"{figure_text(f, 'days_to_limit', '.0f'):>16}  {_stamp(f['t_s']) if f else 'not computed yet'}"
         )
     click.echo(
         "Days left: at current conditions; brackets: 90 % range from the profile's uncertainty (ranked by the "

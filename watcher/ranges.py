@@ -23,3 +23,14 @@ def with_range(value, low, high, spec: str, none: str = "-") -> str:
 def range_of(figures: dict, key: str) -> tuple:
     """(value, low, high) of budget_used_pct or days_to_limit from a figures dict."""
     return figures.get(key), figures.get(f"{key}_low"), figures.get(f"{key}_high")
+
+
+def figure_text(figures: dict, key: str, spec: str, none: str = "-") -> str:
+    """A figure of a figures dict with its 90 % range, as ``with_range`` writes it."""
+    return with_range(*range_of(figures, key), spec, none)
+
+
+def cautious_days(figures: dict):
+    """The days left that rules and risk marks judge: the cautious (low) end of the range,
+    or the figure itself where no range is known."""
+    return figures.get("days_to_limit_low", figures.get("days_to_limit"))

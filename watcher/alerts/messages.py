@@ -5,7 +5,7 @@ from __future__ import annotations
 import datetime as dt
 from zoneinfo import ZoneInfo
 
-from watcher.ranges import range_of, with_range
+from watcher.ranges import figure_text
 
 CAUTION = (
     "Texture prediction, not a food-safety verdict: hold/release and safety decisions follow your "
@@ -63,11 +63,6 @@ def auto_label(metric: str, op: str, threshold: float, for_s: float = 0.0) -> st
     held = f" for {duration(for_s)}" if for_s else ""
     note = " (a benchmark, not a legal limit for ice cream)" if metric in ("air_c", "product_c") else ""
     return f"{WORDS.get(metric, metric)} {side} {fmt_value(metric, threshold)}{held}{note}"
-
-
-def range_text(figures: dict, key: str, spec: str) -> str:
-    """'410 (190-900)': a figure and its 90 % range."""
-    return with_range(*range_of(figures, key), spec)
 
 
 UNITS = {"_pct": " %", "_um": " um", "_c": " C", "_k": " K", "_per_h": " per hour"}
@@ -154,11 +149,11 @@ def body(
         days_text = (
             "no limit in sight"
             if days is None
-            else f"{range_text(figures, 'days_to_limit', '.0f')} days to the limit at current conditions"
+            else f"{figure_text(figures, 'days_to_limit', '.0f')} days to the limit at current conditions"
         )
         limit = f" of the {limit_um:g} um limit" if limit_um else ""
         lines.append(
-            f"Texture so far: {range_text(figures, 'budget_used_pct', '.1f')} % of the budget used (90 % ranges in "
+            f"Texture so far: {figure_text(figures, 'budget_used_pct', '.1f')} % of the budget used (90 % ranges in "
             "brackets; worst position: "
             f"{figures.get('worst_position')}), mean crystal {figures.get('mean_diameter_um', 0):.1f} um{limit}, "
             f"{days_text}."

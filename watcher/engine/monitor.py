@@ -23,6 +23,7 @@ from watcher.engine.lots import LotKeeper
 from watcher.engine.zones import ZoneRunner, spec_key
 from watcher.errors import InputError
 from watcher.lots.events import last_zone
+from watcher.ranges import cautious_days
 from watcher.store.db import Store
 
 log = logging.getLogger("watcher.alerts")
@@ -170,7 +171,7 @@ class Monitor:
         for lot, _zone, figures in self.lots.advance_zone(zone_id, at_s, self.fed_of, wall_s):
             obs = {
                 "lot_budget_used_pct": figures["budget_used_pct"],
-                "lot_days_to_limit": figures.get("days_to_limit_low", figures["days_to_limit"]),
+                "lot_days_to_limit": cautious_days(figures),
             }
             self._evaluate(rules, f"lot:{lot}", obs, figures["t_s"], wall_s)
 
@@ -210,7 +211,7 @@ class Monitor:
         return {
             "budget_used_pct": f.get("budget_used_pct"),
             # Rules on days left judge the cautious end of the range (the rule's label says so).
-            "days_to_limit": f.get("days_to_limit_low", f.get("days_to_limit")),
+            "days_to_limit": cautious_days(f),
             "product_c": f.get("product_c"),
             "air_c": runner.last_air_c,
             "door_open_s": lz.on_for("door", now),

@@ -10,7 +10,7 @@ import pandas as pd
 from watcher import MODEL_VERSION, __version__
 from watcher.alerts.messages import CAUTION
 from watcher.config import Config, Site
-from watcher.ranges import RANGE_KEYS
+from watcher.ranges import RANGE_KEYS, cautious_days
 from watcher.report import charts
 from watcher.report.data import SiteWeek, load
 from watcher.report.figures import (
@@ -127,12 +127,7 @@ def summary_text(
         parts[-1] += f"; {len(gaps)} gap{'s' if len(gaps) != 1 else ''} recorded." if len(gaps) else "; no gaps."
     else:
         parts.append("Data: no readings this week.")
-    look = [
-        z.name
-        for z in zones
-        if (z.budget["end_pct"] or 0) >= 80
-        or (z.budget.get("days_to_limit_low", z.budget["days_to_limit"]) or 1e9) < 30
-    ]
+    look = [z.name for z in zones if (z.budget["end_pct"] or 0) >= 80 or (cautious_days(z.budget) or 1e9) < 30]
     if look:
         parts.append("Look at: " + ", ".join(look) + " (high budget used or under 30 days to the limit).")
     return " ".join(parts)

@@ -12,6 +12,7 @@ import pandas as pd
 from watcher.engine.lots import LotKeeper, recompute_lot
 from watcher.lots.events import stays
 from watcher.lots.model import lot_figures
+from watcher.ranges import cautious_days
 
 AT_RISK_DAYS = 14.0  # fewer days to the limit (cautious end) at week-end conditions than this, as the days-left rule
 AT_RISK_BUDGET_PCT = 80.0  # or at least this share of the budget used
@@ -48,7 +49,7 @@ def lots_table(store, cfg, site, week) -> pd.DataFrame:
         zone = next((z for z, a, b in reversed(periods) if a < until), here[-1][0])
         departed = item["departed_s"] is not None and item["departed_s"] <= week.end_s
         days, budget = f["days_to_limit"], f["budget_used_pct"]
-        cautious = f.get("days_to_limit_low", days)
+        cautious = cautious_days(f)
         rows.append(
             {
                 "lot": item["lot"],
