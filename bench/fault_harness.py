@@ -35,7 +35,7 @@ def scenarios(args) -> list:
         ("net-drop", lambda d: faults.network(d, rounds=5, mode="drop")),
         ("net-stall", lambda d: faults.network(d, rounds=3, mode="stall")),
         ("net-slow", lambda d: faults.network(d, rounds=2, mode="slow")),
-        ("locked", lambda d: faults.database_locked(d, hold_s=10.0)),
+        ("locked", lambda d: faults.database_locked(d, hold_s=40.0, stall_limit_s=15.0)),
         ("hang", faults.hanging_receiver),
         ("reload", lambda d: faults.invalid_reload(d, rounds=5)),
         ("input", lambda d: faults.bad_input(d, args.messages)),

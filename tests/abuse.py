@@ -30,6 +30,10 @@ REASONS = {
     "unknown zone": "unknown zone",
     "empty payload": "invalid JSON",
     "not an object": "missing field",
+    "integer of hundreds of digits": "digits",
+    "lone UTF-16 surrogate": "surrogate",
+    "ack with an impossible alert id": "ack command",
+    "lot event at an impossible time": "time: got",
 }
 
 
@@ -101,4 +105,20 @@ def _bad(rng, kind, zone, i, ts, now_s) -> tuple[str, bytes]:
         return air, b""
     if kind == "not an object":
         return air, rng.choice([b"[-25, 1]", b"-25", b'"-25"', b"null"])
+    if kind == "integer of hundreds of digits":
+        digits = "9" * rng.randrange(25, 400)
+        return air, rng.choice([f'{{"temp_c": {digits}, "ts": {ts}}}', f'{{"temp_c": -25, "ts": {digits}}}']).encode()
+    if kind == "lone UTF-16 surrogate":
+        return rng.choice(
+            [
+                (air, f'{{"temp_c": -25, "ts": {ts}, "note": "\\ud800"}}'.encode()),
+                ("watcher/ack", b'{"alert": 1, "by": "\\udc00"}'),
+                ("watcher/lots", b'{"event": "arrive", "lot": "L-1", "zone": "bulk-a", "note": "\\ud83d"}'),
+            ]
+        )
+    if kind == "ack with an impossible alert id":
+        return "watcher/ack", json.dumps({"alert": rng.choice([2**63, 10**19 + 7, 0, -3]), "by": "ops"}).encode()
+    if kind == "lot event at an impossible time":
+        doc = {"event": "arrive", "lot": f"L-{i}", "zone": zone, "time": rng.choice([1e300, -1e300, -5.0, 1e12])}
+        return "watcher/lots", json.dumps(doc).encode()
     raise ValueError(kind)

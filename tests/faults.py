@@ -332,11 +332,13 @@ hysteresis = 2
     )
 
 
-def database_locked(folder: Path, hold_s: float) -> Outcome:
+def database_locked(folder: Path, hold_s: float, stall_limit_s: float = 600.0) -> Outcome:
     """Another process holds the database's write lock (BEGIN IMMEDIATE) for hold_s, then runs
-    an online backup, while readings arrive."""
+    an online backup, while readings arrive. Half-way through, SIGHUP asks for a reload (it
+    must wait for the database, not kill the writer). When the hold outlasts the stall limit,
+    /healthz must say so (the watchdog then restarts the service) and recover after."""
     with running_broker(folder / "broker") as broker:
-        with watcher_and_publisher(folder, broker, reorder_s=0.0) as (config, w, pub):
+        with watcher_and_publisher(folder, broker, reorder_s=0.0, stall_limit_s=stall_limit_s) as (config, w, pub):
             db = folder / "watcher.db"
             holder = subprocess.Popen(
                 [
@@ -355,20 +357,39 @@ def database_locked(folder: Path, hold_s: float) -> Outcome:
             t0 = time.monotonic()
             pub.send(messages(ZONES, 0, 500))
             during = readings_count(db)
-            holder.wait(hold_s + 120)
+            time.sleep(hold_s / 2)
+            w.proc.send_signal(signal.SIGHUP)
+            unhealthy_at = None
+            while holder.poll() is None:
+                if unhealthy_at is None and w.get("/healthz")[0] == 503:
+                    unhealthy_at = time.monotonic() - t0
+                time.sleep(0.2)
             holder.stdout.close()
             lost = _lost(db, 1000, 60)
             recovery = time.monotonic() - t0
+            wait_for(lambda: w.get("/healthz")[0] == 200, 30, "healthy again")
+            wait_for(lambda: "reload: configuration swapped" in w.log.read_text(), 30, "the reload applied")
+            alive = w.proc.poll() is None
             assert w.stop() == 0
             assert_state_equals_recomputation(config)
             with contextlib.closing(sqlite3.connect(folder / "backup.db")) as b:
                 assert b.execute("PRAGMA integrity_check").fetchone()[0] == "ok"
+    assert alive
+    stalls = hold_s > stall_limit_s + 2
+    assert (unhealthy_at is not None) == stalls, (unhealthy_at, hold_s, stall_limit_s)
+    seen = (
+        f"/healthz 503 after {unhealthy_at:.0f} s (stall limit {stall_limit_s:.0f} s), 200 after"
+        if stalls
+        else "/healthz 200"
+    )
     return Outcome(
-        f"database locked by another process for {hold_s:.0f} s, then an online backup",
+        f"database locked by another process for {hold_s:.0f} s (SIGHUP during it), then an online backup",
         1,
-        f"{during} of 1000 readings stored during the lock; watcher waited, then stored all; backup intact",
+        f"{during} of 1000 readings stored during the lock; watcher waited, then stored all; the reload "
+        f"waited for the database and applied; {seen}; backup intact",
         lost,
         [recovery],
+        extra={"unhealthy_at_s": unhealthy_at},
     )
 
 
@@ -491,3 +512,68 @@ def _quantile(w: WatcherProcess, name: str, q: float) -> float:
             buckets.append((float(m.group(1)), float(m.group(2))))
     total = buckets[-1][1] if buckets else 0.0
     return next((le for le, n in buckets if n >= q * total), float("inf"))
+
+
+# --- a message the writer cannot handle ---------------------------------------------------------------
+
+
+def _rejection_reasons(db: Path) -> list[str]:
+    with contextlib.closing(sqlite3.connect(f"file:{db}?mode=ro", uri=True)) as con:
+        return [r[0] for r in con.execute("SELECT reason FROM rejections ORDER BY id")]
+
+
+def poison_message(folder: Path, crash: bool) -> Outcome:
+    """One message among good readings makes the handler fail: it raises (a bug in one
+    message's path), or it ends the process as a crash would (the marker is injected through
+    WATCHER_TEST_RAISE_ON / WATCHER_TEST_CRASH_ON, the only fault the tests plant in watcher).
+    The writer must isolate it, store it as a rejection with the reason, acknowledge it, and
+    keep every good reading; a crashing one is set aside after three failed starts."""
+    marker = "POISON-7f3a"
+    env = {"WATCHER_TEST_CRASH_ON" if crash else "WATCHER_TEST_RAISE_ON": marker}
+    db = folder / "watcher.db"
+    with running_broker(folder / "broker") as broker:
+        config = write_config(folder, broker, reorder_s=0.0)
+        pub = Publisher(broker)
+        w = WatcherProcess(config, env=env)
+        w.wait_ready()
+        good = messages(ZONES, 0, 300)
+        poison = ("kp/bulk-a/s1/air", json.dumps({"temp_c": -25.0, "ts": 1, "tag": marker}).encode())
+        pub.send(good[:300] + [poison] + good[300:])
+        crashes, recovery = 0, []
+        t0 = time.monotonic()
+        while crash and crashes < 6:
+            try:
+                code = w.proc.wait(30)
+            except subprocess.TimeoutExpired:
+                break  # it stayed up: the poison was set aside
+            assert code == 70, f"exit code {code}"
+            crashes += 1
+            w = WatcherProcess(config, env=env)  # what systemd's Restart= does
+            with contextlib.suppress(RuntimeError):
+                w.wait_ready()
+        lost = _lost(db, len(good), 60)
+        wait_for(lambda: any("set aside" in r for r in _rejection_reasons(db)), 30, "the poison set aside")
+        recovery.append(time.monotonic() - t0)
+        ready = w.get("/readyz")[0]
+        healthy = w.get("/healthz")[0]
+        assert w.stop() == 0
+        pub.close()
+        reasons = [r for r in _rejection_reasons(db) if "set aside" in r]
+        assert_state_equals_recomputation(config)
+    assert len(reasons) == 1, reasons
+    assert (ready, healthy) == (200, 200)
+    if crash:
+        assert crashes == 3 and "3 starts in a row" in reasons[0], (crashes, reasons)
+    else:
+        assert "RuntimeError" in reasons[0], reasons
+    kind = "ends the process (crash)" if crash else "raises in the handler"
+    return Outcome(
+        f"a message that {kind}",
+        1,
+        f"{len(good)} good readings around it all stored; the message stored as a rejection "
+        f"({reasons[0][:60]}...) and acknowledged"
+        + (f" after {crashes} failed starts" if crash else " in the same run")
+        + "; ready and healthy after",
+        lost,
+        recovery,
+    )

@@ -66,6 +66,7 @@ def write_config(
     health_port: int | None = None,
     reorder_s: float = 120.0,
     reports: bool = False,
+    stall_limit_s: float = 600.0,
 ) -> Path:
     port = broker.tls_port if tls else broker.port
     tls_block = f'\n[broker.tls]\nca_file = "{broker.tls["ca"]}"\n' if tls else ""
@@ -88,6 +89,7 @@ path = "{folder / "watcher.db"}"
 [ingest]
 reorder_window_s = {reorder_s}
 max_gap_s = 900.0
+stall_limit_s = {stall_limit_s}
 
 [health]
 port = {health_port}

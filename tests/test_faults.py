@@ -153,6 +153,11 @@ def test_ten_thousand_generated_messages_through_a_real_broker(tmp_path):
 # --- faults against real processes ----------------------------------------------------------------
 
 
+@pytest.mark.parametrize("crash", [False, True], ids=["raises", "crashes"])
+def test_a_message_that_breaks_the_handler_is_set_aside(tmp_path, crash):
+    check_outcome(faults.poison_message(tmp_path, crash))
+
+
 def test_watcher_killed_at_random_moments(tmp_path):
     check_outcome(faults.kill_watcher(tmp_path, rounds=10))
 
@@ -176,7 +181,9 @@ def test_disk_full_stops_acks_alerts_around_the_database_and_resumes(tmp_path):
 
 
 def test_database_locked_by_another_process(tmp_path):
-    check_outcome(faults.database_locked(tmp_path, hold_s=6.0))
+    """Held longer than the busy timeout (30 s), so a commit fails and is retried, a reload
+    waits, and the stall shows in /healthz."""
+    check_outcome(faults.database_locked(tmp_path, hold_s=36.0, stall_limit_s=10.0))
 
 
 def test_a_hanging_receiver_never_blocks_ingestion(tmp_path):

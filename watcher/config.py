@@ -65,6 +65,7 @@ class Ingest:
     max_gap_s: float = 900.0
     batch_max: int = 1000
     batch_wait_s: float = 0.02
+    stall_limit_s: float = 600.0
     limits: Limits = Limits()
 
 
@@ -304,6 +305,7 @@ def config_from_dict(data: dict, path: str = "config") -> Config:
         max_gap_s=i.number("max_gap_s", 900.0, 10.0, 7 * 86400.0),
         batch_max=int(i.integer("batch_max", 1000, 1, 100000)),
         batch_wait_s=i.number("batch_wait_s", 0.02, 0.0, 5.0),
+        stall_limit_s=i.number("stall_limit_s", 600.0, 10.0, 86400.0),
         limits=Limits(
             max_payload_bytes=int(i.integer("max_payload_bytes", 65536, 64, 16 * 1024 * 1024)),
             future_skew_s=i.number("future_skew_s", 300.0, 0.0, 86400.0),

@@ -7,6 +7,9 @@
     |   +-- TrialError           a storage-trial table cannot be fitted
     |   +-- ConfigError          the service configuration is invalid
     +-- ModelError               the numerical core met a state it cannot continue from
+    +-- StoreError               the database cannot be opened or written (disk full, locked, I/O):
+                                 the only failure the writer retries; anything else raised while
+                                 handling a message is that message's fault and sets it aside
 
 Library errors are translated at the boundary with ``raise ... from exc``.
 """
@@ -52,3 +55,9 @@ class ConfigError(InputError):
 
 class ModelError(WatcherError):
     """The numerical core reached a state it cannot continue from."""
+
+
+class StoreError(WatcherError):
+    """The database could not be opened or written. Raised at the store's boundary only (sqlite3
+    and OS errors are translated there), so the writer can tell a storage fault, which it
+    retries, from a message that cannot be handled, which it sets aside."""

@@ -23,9 +23,10 @@ from watcher.alerts.bypass import StorageBypass
 from watcher.alerts.delivery import Notifier, deliver_due
 from watcher.config import Config, load_config
 from watcher.engine.batch import Engine, Message
-from watcher.errors import WatcherError
+from watcher.errors import StoreError, WatcherError
 from watcher.health import HealthServer, Metrics
 from watcher.ingest.mqtt_process import MqttProcess
+from watcher.ingest.suspects import SET_ASIDE_AFTER, Suspects
 from watcher.store.db import Store
 
 log = logging.getLogger("watcher.service")
@@ -78,9 +79,12 @@ class Service:
         self.db_ok = False
         self.last_commit_error: str | None = None
         self._pending_config: Config | None = None
+        self._reload_not_before = 0.0
         self._queue_peak = 0
         self._config_lock = threading.Lock()
         self.store = Store(config.storage.path)
+        self.suspects = Suspects(config.storage.path + ".inhand")
+        self.last_progress = time.monotonic()  # the writer's last commit, or its last idle moment
         self.engine = Engine(config, self.store, checkpoint_s)
         self.bypass = StorageBypass(config)
         self.db_ok = True
@@ -105,7 +109,15 @@ class Service:
     # --- health --------------------------------------------------------------------------
     def healthz(self):
         threads = {"writer": self.writer.is_alive(), "mqtt": self.mqtt.alive(), "deliverer": self.deliverer.is_alive()}
-        return all(threads.values()), {"threads": threads, "mqtt_callback_errors": self.mqtt.callback_errors}
+        stalled_s = time.monotonic() - self.last_progress
+        stalled = stalled_s > self.config.ingest.stall_limit_s
+        detail = {"threads": threads, "mqtt_callback_errors": self.mqtt.callback_errors}
+        if stalled:
+            # The watchdog restarts the service: a writer that has not committed for this long
+            # is wedged or its storage is (the storage alert went out around the database).
+            detail["writer_stalled_s"] = round(stalled_s, 1)
+            detail["commit_error"] = self.last_commit_error
+        return all(threads.values()) and not stalled, detail
 
     def readyz(self):
         detail = {
@@ -133,17 +145,75 @@ class Service:
             batch.append(self.inbox.popleft())
         return batch
 
-    def _commit(self, batch: list[Message]) -> None:
-        """Process until the batch is committed (retrying with backoff), then ack it."""
+    def _commit(self, batch: list[Message], careful: bool = True) -> None:
+        """Handle a batch until it is committed, then acknowledge it.
+
+        Storage faults (StoreError) are retried with backoff: nothing is acknowledged until the
+        record holds the batch. Any other error belongs to a message: the batch is split in
+        halves until the message is alone, and that message is set aside (stored as a
+        rejection with the error) and acknowledged, so one message cannot stop a site.
+        Suspects from a process that died mid-batch go alone, or are set aside (suspects.py)."""
+        if careful and self.suspects.counts:
+            batch = self._handle_suspects(batch)
+            if not batch:
+                return
+        self.suspects.holding(batch)
+        try:
+            result = self._until_stored(lambda: self.engine.process(batch), len(batch))
+        except StoreError:
+            return  # stopping with the batch uncommitted: it stays unacknowledged
+        except Exception as exc:
+            if len(batch) > 1:
+                log.warning(
+                    "a batch of %d failed (%s: %s); splitting it to find the message",
+                    len(batch),
+                    type(exc).__name__,
+                    exc,
+                )
+                mid = len(batch) // 2
+                self._commit(batch[:mid], careful)
+                self._commit(batch[mid:], careful)
+                return
+            log.error("message on %s could not be handled; set aside", batch[0].topic, exc_info=exc)
+            reason = f"could not be handled ({type(exc).__name__}: {str(exc)[:200]}); set aside"
+            self._set_aside(batch[0], reason)
+            return
+        self._acknowledge(batch, result)
+
+    def _handle_suspects(self, batch: list[Message]) -> list[Message]:
+        """Commit the suspects in the batch on their own; return the others."""
+        rest = []
+        for m in batch:
+            starts = self.suspects.failed_starts(m)
+            if starts >= SET_ASIDE_AFTER:
+                reason = f"handling it stopped the service {starts} starts in a row; set aside"
+                log.error("message on %s: %s", m.topic, reason)
+                self._set_aside(m, reason)
+            elif starts >= 2:
+                self._commit([m], careful=False)
+            else:
+                rest.append(m)
+        return rest
+
+    def _set_aside(self, msg: Message, reason: str) -> None:
+        self.suspects.holding([msg])
+        try:
+            result = self._until_stored(lambda: self.engine.set_aside(msg, reason), 1)
+        except StoreError:
+            return  # stopping: it stays unacknowledged
+        self._acknowledge([msg], result)
+
+    def _until_stored(self, step, n: int):
+        """Run one transaction, retrying storage faults with backoff; StoreError when stopping."""
         delay = 0.1
         failing_since = None
         while True:
             started = time.perf_counter()
             try:
-                result = self.engine.process(batch)
-            except Exception as exc:  # disk full, database locked for too long, ...
+                result = step()
+            except StoreError as exc:  # disk full, database locked for too long, ...
                 self.db_ok = False
-                self.last_commit_error = f"{type(exc).__name__}: {exc}"
+                self.last_commit_error = str(exc)
                 self.metrics.commit_failures.inc()
                 failing_since = failing_since or time.time()
                 self.bypass.failing(failing_since, time.time(), self.last_commit_error)
@@ -151,10 +221,10 @@ class Service:
                     log.error(
                         "stopping with %d uncommitted messages; they stay unacknowledged and the broker sends them "
                         "again after the restart: %s",
-                        len(batch),
+                        n,
                         self.last_commit_error,
                     )
-                    return
+                    raise
                 log.error("commit failed, nothing acknowledged, retrying in %.1f s: %s", delay, self.last_commit_error)
                 self.stopping.wait(delay)
                 delay = min(delay * 2.0, 5.0)  # cheap to retry; resume soon after space is freed
@@ -162,9 +232,14 @@ class Service:
             break
         self.db_ok = True
         self.last_commit_error = None
+        self.last_progress = time.monotonic()
         if failing_since is not None:
             self._record_bypass()
         self.metrics.commit_seconds.observe(time.perf_counter() - started)
+        return result
+
+    def _acknowledge(self, batch: list[Message], result) -> None:
+        self.suspects.done(batch)
         for kind, n in result.counts.items():
             self.metrics.readings.labels(kind).inc(n)
         for reason, n in result.rejections.items():
@@ -233,8 +308,10 @@ class Service:
                 self.metrics.queue_peak.set(depth)
             if batch:
                 self._commit(batch)
-            elif self.stopping.is_set():
-                break
+            else:
+                self.last_progress = time.monotonic()
+                if self.stopping.is_set():
+                    break
         try:
             self.engine.checkpoint_all()
         except Exception as exc:
@@ -308,12 +385,23 @@ class Service:
 
     def _apply_pending_config(self) -> None:
         with self._config_lock:
-            new, self._pending_config = self._pending_config, None
-        if new is None:
+            pending = self._pending_config
+        if pending is None or time.monotonic() < self._reload_not_before:
             return
-        self.engine.checkpoint_all()
-        new = replace(new, broker=self.config.broker, storage=self.config.storage)
-        self.engine = Engine(new, self.store, self.checkpoint_s)
+        new = replace(pending, broker=self.config.broker, storage=self.config.storage)
+        try:
+            self.engine.checkpoint_all()
+            engine = Engine(new, self.store, self.checkpoint_s)
+        except StoreError as exc:
+            # The database is locked or full: keep running on the old configuration and try
+            # the swap again shortly (a reload must never cost the writer).
+            log.error("reload waits for the database (running configuration kept for now): %s", exc)
+            self._reload_not_before = time.monotonic() + 5.0
+            return
+        with self._config_lock:
+            if self._pending_config is pending:  # a newer SIGHUP may have replaced it meanwhile
+                self._pending_config = None
+        self.engine = engine
         self.bypass = StorageBypass(new)
         self.config = new
         self.mqtt.resubscribe(self._filters(new))
@@ -370,6 +458,7 @@ class Service:
                 last_ping = time.monotonic()
             if not self.writer.is_alive():
                 log.error("the writer thread has died; exiting so systemd restarts the service")
+                self.mqtt.stop(2.0)
                 return 1
         self.stop()
         return 0

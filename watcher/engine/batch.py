@@ -9,6 +9,7 @@ the record; the caller keeps the batch and tries again.
 from __future__ import annotations
 
 import logging
+import os
 import time
 from collections import Counter
 from contextlib import contextmanager
@@ -25,6 +26,11 @@ from watcher.ingest.topics import topic_is_clean
 from watcher.store.db import Store, ZoneRow
 
 log = logging.getLogger("watcher.engine")
+# Fault injection for the tests of the writer's isolation (never set in production): a message
+# whose payload contains the marker makes the handler raise, or ends the process at once as a
+# crash would. Read once at import.
+_RAISE_ON = os.environ.get("WATCHER_TEST_RAISE_ON", "").encode() or None
+_CRASH_ON = os.environ.get("WATCHER_TEST_CRASH_ON", "").encode() or None
 FEED_AT_PENDING = 5000  # readings waiting in a zone before it is fed between checkpoints
 
 
@@ -44,6 +50,9 @@ def reason_class(reason: str) -> str:
         "payload of",
         "not UTF-8",
         "invalid JSON",
+        "too large",
+        "digits",
+        "surrogate",
         "nested",
         "missing field",
         "is not a number",
@@ -156,6 +165,8 @@ class Engine:
     def process(self, messages: list[Message], now: float | None = None) -> BatchResult:
         """Store and feed a batch in one transaction; raise if the commit fails."""
         now = time.time() if now is None else now
+        if _RAISE_ON or _CRASH_ON:
+            _inject(messages)
         result = BatchResult()
         parsed: list[tuple[Reading | str | None, Message]] = []
         commands = (self.config.broker.ack_topic, self.config.broker.lot_topic)
@@ -214,6 +225,15 @@ class Engine:
             self.store.insert_rejection(msg.received_ts, msg.topic, str(exc), msg.payload)
             result.rejections["ack_command" if base == ack else "lot_event"] += 1
             result.counts["rejected"] += 1
+
+    def set_aside(self, msg: Message, reason: str) -> BatchResult:
+        """Record a message that could not be handled as a rejection, in its own transaction."""
+        result = BatchResult()
+        with self.store.atomic():
+            self.store.insert_rejection(msg.received_ts, msg.topic, reason, msg.payload)
+        result.counts["rejected"] += 1
+        result.rejections["set_aside"] += 1
+        return result
 
     def process_readings(self, items: list[tuple[Reading, float, str]], now: float | None = None) -> BatchResult:
         """Store and feed already-parsed readings (replay): (reading, received_ts, topic)."""
@@ -340,3 +360,11 @@ class Engine:
             for zid in self.runners:
                 self.checkpoint(zid, now)
                 self.monitor.zone_step(self.runners[zid], self.last_figures.get(zid), True, now, final=True)
+
+
+def _inject(messages: list[Message]) -> None:
+    for m in messages:
+        if _CRASH_ON and _CRASH_ON in m.payload:
+            os._exit(70)
+        if _RAISE_ON and _RAISE_ON in m.payload:
+            raise RuntimeError("injected fault (WATCHER_TEST_RAISE_ON)")

@@ -10,7 +10,6 @@ recomputed in the next pass). A lot is only advanced as far as every zone it sat
 
 from __future__ import annotations
 
-import json
 import logging
 import math
 
@@ -19,6 +18,7 @@ import numpy as np
 from watcher.engine.analysis import air_samples
 from watcher.errors import InputError
 from watcher.files.profiles import builtin_names, load_profile
+from watcher.ingest.jsondoc import BadJson, load_json
 from watcher.lots.events import LotEvent, check_next, last_zone, parse_event, stays
 from watcher.lots.model import lot_figures, lot_spec, start_state
 from watcher.model.integrator import State, advance
@@ -37,9 +37,9 @@ def record_event(store: Store, config, doc, where: str, source: str, sender: str
 
 def parse_payload(payload: bytes, topic: str) -> dict:
     try:
-        return json.loads(payload.decode("utf-8"))
-    except (UnicodeDecodeError, ValueError) as exc:
-        raise InputError(f"lot event on {topic}", payload[:40], f"a JSON object ({str(exc)[:60]})") from None
+        return load_json(payload)
+    except BadJson as exc:
+        raise InputError(f"lot event on {topic}", payload[:40], f"a JSON object ({exc})") from None
 
 
 class LotKeeper:

@@ -9,7 +9,6 @@ own clock, from `tick`, which runs even when no message arrives.
 
 from __future__ import annotations
 
-import json
 import logging
 import math
 from dataclasses import asdict, dataclass, field, replace
@@ -22,6 +21,7 @@ from watcher.engine.analysis import CONTEXT_S, analyse, analysis_points, take_sn
 from watcher.engine.lots import LotKeeper
 from watcher.engine.zones import ZoneRunner, spec_key
 from watcher.errors import InputError
+from watcher.ingest.jsondoc import BadJson, load_json, storable
 from watcher.lots.events import last_zone
 from watcher.ranges import cautious_days
 from watcher.store.db import Store
@@ -84,17 +84,17 @@ def _comparable(st: AlertState) -> tuple:
 def parse_ack(payload: bytes) -> tuple[int, str, str | None]:
     """An acknowledgement command: {"alert": 12, "by": "name", "note": "optional"}."""
     try:
-        data = json.loads(payload.decode("utf-8"))
-    except (UnicodeDecodeError, json.JSONDecodeError) as exc:
+        data = load_json(payload)
+    except BadJson as exc:
         raise InputError("ack command", payload[:80], f'JSON like {{"alert": 12, "by": "name"}} ({exc})') from None
     if not isinstance(data, dict):
         raise InputError("ack command", data, "a JSON object")
     alert, by, note = data.get("alert"), data.get("by"), data.get("note")
-    if not isinstance(alert, int) or isinstance(alert, bool) or alert < 1:
+    if not isinstance(alert, int) or isinstance(alert, bool) or not 1 <= alert < 2**63:
         raise InputError("ack command: alert", alert, "a positive alert id")
-    if not isinstance(by, str) or not by.strip() or len(by) > MAX_NAME:
+    if not isinstance(by, str) or not by.strip() or len(by) > MAX_NAME or not storable(by):
         raise InputError("ack command: by", by, f"the name of who acknowledges (1-{MAX_NAME} characters)")
-    if note is not None and (not isinstance(note, str) or len(note) > MAX_NOTE):
+    if note is not None and (not isinstance(note, str) or len(note) > MAX_NOTE or not storable(note)):
         raise InputError("ack command: note", note, f"text of at most {MAX_NOTE} characters")
     return alert, by.strip(), note
 

@@ -16,6 +16,7 @@ SIGKILL leaves no orphan holding the client id.
 
 from __future__ import annotations
 
+import atexit
 import collections
 import logging
 import multiprocessing as mp
@@ -130,6 +131,15 @@ class MqttProcess:
         self._proc.start()
         self._child_conn.close()
         self._reader.start()
+        # On every way out of the parent, the child goes too. multiprocessing's own exit hook
+        # would send SIGTERM, which the child ignores (it drains on the parent's word), and
+        # then wait for ever; atexit runs hooks last-registered first, so this one comes first.
+        atexit.register(self._kill_if_alive)
+
+    def _kill_if_alive(self) -> None:
+        if self._proc.is_alive():
+            self._proc.kill()
+            self._proc.join(5.0)
 
     def alive(self) -> bool:
         return self._proc.is_alive() and self._reader.is_alive()

@@ -6,10 +6,11 @@ door and defrost states as 1.0 (open / on) or 0.0 (closed / off).
 
 from __future__ import annotations
 
-import json
 import math
 from dataclasses import dataclass
 from datetime import UTC, datetime
+
+from watcher.ingest.jsondoc import BadJson, load_json
 
 SIGNALS = ("air_c", "product_c", "door", "defrost")
 TEMPERATURE_SIGNALS = ("air_c", "product_c")
@@ -77,7 +78,10 @@ def _to_celsius(value: float, unit: str) -> float:
 def _number(raw, what: str) -> float:
     if isinstance(raw, bool) or not isinstance(raw, (int, float)):
         raise Rejected(f"{what} is {type(raw).__name__}, expected a number")
-    value = float(raw)
+    try:
+        value = float(raw)
+    except OverflowError:
+        raise Rejected(f"{what} is too large to be a number") from None
     if not math.isfinite(value):
         raise Rejected(f"{what} is not finite")
     return value
@@ -129,16 +133,14 @@ def parse_message(source: Source, names: dict[str, str], payload: bytes, receive
             raw = float(text.strip())
         except ValueError:
             raise Rejected(f"payload {text[:40]!r} is not a number") from None
-        if source.signal in TEMPERATURE_SIGNALS and not math.isfinite(raw):
+        if not math.isfinite(raw):
             raise Rejected("value is not finite")
         value_raw = raw
     else:
         try:
-            doc = json.loads(text, parse_constant=_reject_constant)
-        except RecursionError:
-            raise Rejected("JSON nested too deeply") from None
-        except ValueError as exc:
-            raise Rejected(f"invalid JSON ({str(exc)[:60]})") from None
+            doc = load_json(payload)
+        except BadJson as exc:
+            raise Rejected(str(exc)) from None
         value_raw = _dig(doc, source.value_path, "value")
         if source.unit_path is not None:
             unit = _unit(_dig(doc, source.unit_path, "unit"))
@@ -161,7 +163,3 @@ def parse_message(source: Source, names: dict[str, str], payload: bytes, receive
     sensor = names.get("sensor") or source.sensor or source.signal
     # Microseconds: readings stamped with the receive time must not collide in the natural key.
     return Reading(zone=zone, sensor=sensor, signal=source.signal, ts=round(ts, 6), value=value)
-
-
-def _reject_constant(name: str):
-    raise ValueError(f"{name} is not valid JSON")

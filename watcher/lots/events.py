@@ -18,9 +18,11 @@ from dataclasses import dataclass, field
 from datetime import UTC, datetime
 
 from watcher.errors import InputError
+from watcher.ingest.jsondoc import storable
 from watcher.lots.model import parse_initial
 
 KINDS = ("arrive", "move", "depart")
+LATEST_S = 253402300799.0  # 9999-12-31T23:59:59Z, the last second an ISO 8601 date can name
 _LOT_ID = re.compile(r"^[A-Za-z0-9][A-Za-z0-9._:-]{0,63}$")
 
 
@@ -39,6 +41,8 @@ def parse_time(raw, where: str, received_s: float) -> float:
     if raw is None:
         return received_s
     if isinstance(raw, (int, float)) and not isinstance(raw, bool) and math.isfinite(raw):
+        if not 0.0 <= raw <= LATEST_S:
+            raise InputError(f"{where}: time", str(raw)[:40], "epoch seconds between 1970 and 9999")
         return float(raw)
     if isinstance(raw, str):
         try:
@@ -81,7 +85,7 @@ def parse_event(doc, where: str, zones: set[str], products: set[str], received_s
     else:
         initial = {"kind": "fresh"}
     note = doc.get("note")
-    if note is not None and (not isinstance(note, str) or len(note) > 500):
+    if note is not None and (not isinstance(note, str) or len(note) > 500 or not storable(note)):
         raise InputError(f"{where}: note", str(note)[:40], "text of at most 500 characters")
     return LotEvent(kind, lot, ts, zone, product, initial, note)
 

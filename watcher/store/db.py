@@ -12,6 +12,7 @@ import io
 import json
 import sqlite3
 from collections.abc import Iterable, Iterator
+from contextlib import contextmanager
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -19,7 +20,7 @@ import numpy as np
 import sqlite_utils
 from sqlite_utils.migrations import Migrations
 
-from watcher.errors import WatcherError
+from watcher.errors import StoreError
 from watcher.store import chain
 from watcher.store.alert_rows import AlertRows, EventRows
 from watcher.store.lot_rows import LotRows
@@ -33,10 +34,6 @@ READING_INSERT_CHAINED = (
 )
 PAYLOAD_KEEP_BYTES = 512
 migrations = Migrations("watcher")
-
-
-class StoreError(WatcherError):
-    """The database could not be opened or written."""
 
 
 @migrations()
@@ -224,6 +221,21 @@ def unpack_state(blob: bytes) -> dict[str, np.ndarray]:
         return {k: data[k] for k in data.files}
 
 
+def _text(s: str) -> str:
+    """Text SQLite can store as UTF-8: lone surrogates become backslash escapes."""
+    return s.encode("utf-8", "backslashreplace").decode("utf-8")
+
+
+def is_storage_fault(exc: BaseException) -> bool:
+    """sqlite3's operational errors and OS errors are the storage's; integrity, interface and
+    programming errors (a value that cannot be bound, a broken constraint) are the data's."""
+    if isinstance(exc, StoreError):
+        return True
+    if isinstance(exc, (sqlite3.OperationalError, OSError)):
+        return True
+    return type(exc) in (sqlite3.DatabaseError, sqlite3.InternalError)
+
+
 def _connect(path: str, readonly: bool) -> sqlite3.Connection:
     if readonly:
         uri = Path(path).resolve().as_uri() + "?mode=ro"
@@ -261,8 +273,18 @@ class Store(OutboxRows, AlertRows, EventRows, LotRows):
         self.conn.close()
 
     # --- writing -------------------------------------------------------------------------
+    @contextmanager
     def atomic(self):
-        return self.db.atomic()
+        """One transaction. A storage fault inside it (disk full, locked past the busy timeout,
+        I/O error, a read-only or vanished file) leaves as StoreError; other errors pass through
+        unchanged: they belong to the data being written, not to the storage."""
+        try:
+            with self.db.atomic():
+                yield
+        except Exception as exc:
+            if is_storage_fault(exc):
+                raise StoreError(f"{self.path}: {type(exc).__name__}: {exc}") from exc
+            raise
 
     def insert_reading(self, reading, received_ts: float, topic: str, late: bool) -> bool:
         """Insert one reading; False when its natural key is already stored (a duplicate)."""
@@ -321,7 +343,7 @@ class Store(OutboxRows, AlertRows, EventRows, LotRows):
         text = payload[:PAYLOAD_KEEP_BYTES].decode("utf-8", errors="backslashreplace")
         self.conn.execute(
             "INSERT INTO rejections (received_ts, topic, reason, payload) VALUES (?,?,?,?)",
-            (received_ts, topic[:512], reason, text),
+            (received_ts, _text(topic[:512]), _text(reason), text),
         )
 
     def insert_gap(self, zone: str, start_ts: float, end_ts: float) -> None:
