@@ -1,14 +1,22 @@
 """The record's hash chains: intact after normal work and retention, broken by any edit."""
 
+import json
 import sqlite3
 import subprocess
 import sys
 
 import pytest
 
-from tests.test_engine import NOW, make, msg
+from tests.test_engine import NOW, T0, make, msg
+from watcher.engine.batch import Message
 from watcher.engine.lots import record_event
 from watcher.store import chain
+
+
+def an_alert(store, **fields) -> int:
+    """An alerts row that agrees with the log rows a test writes for it (verify cross-checks them)."""
+    row = dict(zone="bulk-a", rule="air-warm", severity="warning", label="Air warm", metric="air_c", threshold=-18.0)
+    return store.alert_insert(**row, **{"status": "open", "raised_s": 1.0, **fields})
 
 
 def verify_cli(db) -> subprocess.CompletedProcess:
@@ -23,7 +31,9 @@ def filled(tmp_path):
     for k0 in range(0, 600, 60):
         engine.process([msg(z, k) for k in range(k0, k0 + 60) for z in ("bulk-a", "dispatch")], now=NOW)
     engine.process([msg("bulk-a", 5, value=-20.0, sensor="s2")], now=NOW)  # a late reading (row by row)
+    engine.process([Message("kp/bulk-a/s1/air", b'{"t": "warm"}', NOW, 1, 1)], now=NOW)  # a rejection
     with store.atomic():
+        an_alert(store)
         store.alert_log_add(1, "raise", 1.0, 2.0, 3.5)
         store.event_upsert("bulk-a", "door", 100.0, 160.0, {"source": "signal"})
         store.event_upsert("bulk-a", "door", 100.0, 170.0, {"cost": "final"})
@@ -41,6 +51,7 @@ def test_negative_zero_is_hashed_as_sqlite_stores_it(tmp_path):
     SQLite stores it as 0.0, and the chain hashes what is stored (this broke the demo's record)."""
     _, store, _ = make(tmp_path, reorder=0.0)
     with store.atomic():
+        an_alert(store, status="cleared", cleared_s=5.0, acked_s=7.0, acked_by="qa")
         store.alert_log_add(1, "raise", 1.0, 2.0, 3.5)
         store.alert_log_add(1, "clear", 5.0, 6.0, -0.0)
         store.alert_log_add(1, "ack", 7.0, 8.0, None, "qa", "note")
@@ -100,8 +111,8 @@ def test_retention_keeps_the_chain_verifiable(tmp_path):
     engine.process([msg("bulk-a", k) for k in range(0, 300)], now=NOW)
     engine.process([msg("bulk-a", 10, value=-21.0, sensor="s2")], now=NOW)  # an old reading inserted late
     with store.atomic():
-        assert store.downsample("bulk-a", 1_795_000_000.0 + 60 * 120) > 0
-    findings, counts = chain.verify(store.conn)
+        assert store.downsample("bulk-a", 1_795_000_000.0 + 60 * 120, NOW + 400 * 86400) > 0
+    findings, counts = chain.verify(store.conn, now_s=NOW + 400 * 86400)
     assert findings == [] and counts["readings/bulk-a"] == 300 - 121
 
 
@@ -115,3 +126,110 @@ def test_since_starts_part_way(filled):
         later, counts = chain.verify(db, since_ts=1_795_000_000.0 + 60 * 300)
     assert [f for f in later if f.chain.startswith("readings")] == []  # the edit lies before --since
     assert counts["readings/bulk-a"] < 601
+
+
+def _hole_with_handmade_fold(db, hashed: bool) -> None:
+    """Erase bulk-a's warm readings (its defrost peaks after the first) and cover each hole with
+    a fold row, as an insider would: copying the hash of the row before the hole, with or
+    without hashing the fold into the fold chain (dated now: the pass must look recent)."""
+    rows = db.execute("SELECT id, value, chain FROM readings WHERE zone = 'bulk-a' ORDER BY id").fetchall()
+    before, hole = None, []
+    for i, (row_id, value, row_chain) in enumerate(rows):
+        if value > -25.0 and i > 0 and (hole or rows[i - 1][1] <= -25.0):
+            before = before if hole else rows[i - 1][2]
+            hole.append(row_id)
+        elif hole:
+            db.execute(f"DELETE FROM readings WHERE id IN ({','.join(map(str, hole))})")
+            if hashed:
+                chain.add_fold(db, "readings", "bulk-a", [(row_id, before)], 0, T0, T0 + 86400)
+            else:
+                db.execute(
+                    "INSERT INTO chain_folds (tbl, zone, next_id, prev_chain) VALUES ('readings', 'bulk-a', ?, ?)",
+                    (row_id, before),
+                )
+            hole = []
+
+
+def _report_then_truncate(db) -> None:
+    chain.register(db)
+    heads = chain.heads(db)
+    db.execute(
+        "INSERT INTO reports (site, week, generated_s, heads, digest, files) VALUES ('kp', '2026-W47', ?, ?, ?, '[]')",
+        (NOW, json.dumps(heads), chain.digest(heads)),
+    )
+    db.execute(
+        "DELETE FROM readings WHERE id IN (SELECT id FROM readings WHERE zone = 'dispatch' ORDER BY id DESC LIMIT 7)"
+    )
+    db.execute("UPDATE zone_state SET readings_total = readings_total - 7 WHERE zone = 'dispatch'")  # cover that too
+
+
+@pytest.mark.parametrize(
+    ("edit", "first_line", "words"),
+    [
+        (lambda db: _hole_with_handmade_fold(db, hashed=False), "MISMATCH chain_folds", "not made by retention"),
+        (
+            lambda db: _hole_with_handmade_fold(db, hashed=True),
+            "MISSING chain_folds",
+            "retention keeps at least 366 days",
+        ),
+        (
+            _report_then_truncate,
+            "MISSING readings/dispatch row",
+            "printed as the head in the kp summary for 2026-W47, is gone",
+        ),
+        (
+            lambda db: db.execute(
+                "DELETE FROM readings WHERE id IN (SELECT id FROM readings WHERE zone = 'bulk-a' ORDER BY id DESC LIMIT 5)"
+            ),
+            "MISSING readings/bulk-a",
+            "5 readings missing: the checkpoint of",
+        ),
+        (
+            lambda db: db.execute("DELETE FROM readings WHERE zone = 'dispatch'"),
+            "MISSING readings/dispatch",
+            "no readings left",
+        ),
+        (
+            lambda db: db.execute(
+                "UPDATE readings SET value = -40, chain = NULL WHERE zone = 'bulk-a' AND id >= (SELECT min(id) + 300 FROM readings WHERE zone = 'bulk-a')"
+            ),
+            "MISSING readings/bulk-a row",
+            "no hash from this row on",
+        ),
+        (
+            lambda db: db.execute("DELETE FROM alert_log WHERE id = (SELECT max(id) FROM alert_log)"),
+            "MISSING alerts row 1",
+            "no raise step",
+        ),
+        (
+            lambda db: db.execute("UPDATE alerts SET status = 'cleared', cleared_s = 9"),
+            "MISSING alerts row 1",
+            "cleared without",
+        ),
+        (lambda db: db.execute("DELETE FROM alerts"), "MISSING alerts row 1", "gone from the alerts table"),
+        (lambda db: db.execute("UPDATE rejections SET reason = 'fine'"), "MISMATCH rejections row", "does not follow"),
+        (lambda db: db.execute("DELETE FROM record_meta"), "MISSING readings", "where its hashing began"),
+    ],
+    ids=[
+        "hole-covered-by-unhashed-fold",
+        "hole-covered-by-hashed-fold",
+        "truncated-before-printed-head",
+        "truncated-end",
+        "zone-deleted",
+        "chain-set-null",
+        "newest-alert-log-row-deleted",
+        "alert-quietly-cleared",
+        "alerts-table-emptied",
+        "rejection-altered",
+        "hashing-start-erased",
+    ],
+)
+def test_what_is_missing_is_named(filled, edit, first_line, words):
+    """Each way an insider with write access can hide or rewrite part of the record without
+    recomputing every hash: verify exits 1 and names the chain and what is missing."""
+    with sqlite3.connect(filled) as db:
+        edit(db)
+    out = verify_cli(filled)
+    assert out.returncode == 1, out.stdout
+    lines = [x for x in out.stdout.splitlines() if x.startswith(("MISMATCH", "MISSING"))]
+    assert any(x.startswith(first_line) and words in x for x in lines), out.stdout

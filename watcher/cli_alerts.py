@@ -138,7 +138,7 @@ def verify(since, config_path, db_path) -> None:
     """Recompute the record's hash chains and name the first row that no longer matches."""
     import datetime as dt
 
-    from watcher.store import chain
+    from watcher.store import chain, crosscheck
     from watcher.store.db import Store
 
     since_ts = None
@@ -151,6 +151,7 @@ def verify(since, config_path, db_path) -> None:
     try:
         findings, counts = chain.verify(store.conn, since_ts)
         findings += chain.check_reports(store.conn) + chain.check_lots(store.conn)
+        findings += crosscheck.check_alerts(store.conn) + crosscheck.check_outbox(store.conn)
     finally:
         store.close()
     for name, n in sorted(counts.items()):
@@ -161,7 +162,8 @@ def verify(since, config_path, db_path) -> None:
         )
         return
     for f in findings:
-        click.echo(f"MISMATCH {f.chain} row {f.row_id}: {f.what}")
+        where = f" row {f.row_id}" if f.row_id else ""
+        click.echo(f"{f.kind} {f.chain}{where}: {f.what}")
     sys.exit(1)
 
 

@@ -350,7 +350,9 @@ class Engine:
                     None if runner.state is None else runner.state.arrays(),
                     runner.sensors_blob(),
                 )
-                folded += self.store.downsample(zid, runner.fed_ts)
+                folded += self.store.downsample(zid, runner.fed_ts, now)
+        with self.store.atomic():
+            self.store.prune_rejections(cutoff, now)
         return folded
 
     def checkpoint_all(self, now: float | None = None) -> None:

@@ -199,9 +199,17 @@ def to_html(r: Report) -> str:
         "<h3>Rejected messages by reason</h3>",
         table_html(r.rejections, "No messages were rejected."),
         "</section><section><h2>Record integrity</h2>",
-        "<p>Each chain's newest row when this summary was made. <code>watcher verify</code> recomputes the chains "
-        "and checks these values; any later change to the stored record breaks them.</p>",
-        table_html(pd.DataFrame([{"chain": k, "row": v[0], "hash": v[1]} for k, v in sorted(r.heads.items())])),
+        "<p>Each chain's newest row and its length (rows ever held, those retention folded included) when this "
+        "summary was made. <code>watcher verify</code> recomputes the chains and checks these values: a later "
+        "change to the stored record, or rows cut from it, shows.</p>",
+        table_html(
+            pd.DataFrame(
+                [
+                    {"chain": k, "row": v[0], "rows": v[2] if len(v) > 2 else None, "hash": v[1]}
+                    for k, v in sorted(r.heads.items())
+                ]
+            )
+        ),
         f"<p>Digest of this record: <code>{r.digest}</code></p>",
         f'<p class="note">watcher {html.escape(r.versions["watcher"])}, model {html.escape(r.versions["model"])}, '
         f"profiles: {html.escape(', '.join(r.versions['profiles']))}.</p></section>",

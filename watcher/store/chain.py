@@ -1,30 +1,45 @@
-"""Hash chains over the record: readings (one chain per zone), the alert log, the event log and
-the lot events (whose arrive rows carry the lot's product and declared starting state).
+"""Hash chains over the record: readings (one chain per zone), the alert log, the event log, the
+lot events (whose arrive rows carry the lot's product and declared starting state), the
+rejections, and the fold record that retention leaves.
 
 Each row carries `chain` = SHA-256 of the previous row's chain and the row's own fields, in
 insertion order. The hash is computed inside SQLite (a registered function, `chain_hash`), in
 the same statement that inserts the row, so the writer and the deliverer, on two connections,
 extend one chain correctly. Altering, inserting or deleting a stored row breaks the chain at
 that row or the next; `verify` walks the chains and names the first row that no longer matches.
-Retention deletes old raw readings: before it does, the link each surviving row had to a
-deleted predecessor is kept in `chain_folds`, so the chain still verifies across the cut.
-The weekly report prints each chain's head (row id and hash) and keeps it in `reports`, so a
-printed report anchors the record: rewriting history after it would change a printed head.
+
+Retention deletes old raw readings and rejections. Each pass is itself recorded, chained, in
+`chain_folds`: one pass row (cut-off, rows deleted, when) and one link per surviving row whose
+predecessor was deleted, so the chain still verifies across the cut. A fold is only accepted
+when it hashes into the fold chain, cuts at least the shortest retention before the time it was
+made, and its counts agree with the hourly aggregates; a hand-made fold over a hole is named.
+
+A chain cannot show rows cut from its end, so lengths are checked too: each chain's length
+(rows plus rows folded) is printed with its head in every weekly summary, and the last
+checkpoint's count of each zone's readings must still be there. `store/crosscheck.py` holds the
+checks between tables (alerts against their log, notifications sent against it).
 """
 
 from __future__ import annotations
 
+import datetime as dt
 import hashlib
 import json
-from collections.abc import Iterator
+import math
+import time
 from dataclasses import dataclass
 
 READING_FIELDS = ("zone", "sensor", "signal", "ts", "value", "received_ts", "topic", "late")
 ALERT_LOG_FIELDS = ("alert_id", "step", "at_s", "wall_s", "value", "by", "note")
 EVENT_LOG_FIELDS = ("event_id", "op", "zone", "kind", "start_ts", "end_ts", "detail")
 LOT_EVENT_FIELDS = ("lot", "kind", "zone", "ts", "source", "sender", "received_s", "note", "detail")
+REJECTION_FIELDS = ("received_ts", "topic", "reason", "payload", "n")
+FOLD_FIELDS = ("tbl", "zone", "next_id", "prev_chain", "cutoff_ts", "folded", "wall_s")
 LOGS = (("alert_log", ALERT_LOG_FIELDS, "wall_s"), ("event_log", EVENT_LOG_FIELDS, None))
-LOGS += (("lot_events", LOT_EVENT_FIELDS, "received_s"),)
+LOGS += (("lot_events", LOT_EVENT_FIELDS, "received_s"), ("rejections", REJECTION_FIELDS, "received_ts"))
+CHAINED_TABLES = tuple((name, "id") for name in ("readings", *(t for t, _, _ in LOGS))) + (("chain_folds", "rowid"),)
+MIN_RETENTION_S = 366 * 86400.0  # storage.raw_retention_days cannot be set lower
+CLOCK_SLACK_S = 86400.0
 
 
 def chain_hash(prev, *fields) -> str:
@@ -60,109 +75,242 @@ def params(values: tuple, zone: str | None = None) -> tuple:
     return (*values, zone, *values) if zone is not None else (*values, *values)
 
 
+def add_fold(conn, table: str, zone: str, links, folded: int, cutoff_ts: float, wall_s: float | None) -> None:
+    """Record one retention pass (and its links) in the chained fold record."""
+    row = conn.execute("SELECT chain FROM chain_folds ORDER BY rowid DESC LIMIT 1").fetchone()
+    prev = row[0] if row else None
+    rows = [(table, zone, 0, None, cutoff_ts, folded, wall_s)]
+    rows += [(table, zone, next_id, prev_chain, cutoff_ts, 0, wall_s) for next_id, prev_chain in links]
+    for values in rows:
+        prev = chain_hash(prev, *values)
+        conn.execute(
+            f"INSERT INTO chain_folds ({', '.join(FOLD_FIELDS)}, chain) VALUES ({', '.join('?' * 8)})", (*values, prev)
+        )
+
+
 @dataclass(frozen=True)
 class Finding:
-    chain: str  # "readings/<zone>", "alert_log", "event_log", "lot_events" or "lots"
+    chain: str  # "readings/<zone>", "alert_log", ..., "chain_folds", "lots", "alerts", "outbox"
     row_id: int
     what: str
+    kind: str = "MISMATCH"  # or "MISSING": rows, a zone or a record that should be there is not
 
 
-def _walk(conn, chain: str, sql: str, args: tuple, fields: int, folds: dict, start_prev) -> Iterator[Finding | int]:
+def _walk(conn, chain: str, sql: str, args: tuple, fields: int, folds: dict, start_prev, hashed_from: float):
     """Recompute one chain; yield findings, then the number of rows checked."""
     prev = start_prev
     n = 0
     for row in conn.execute(sql, args):
         row_id, stored, values = row[0], row[1], row[2 : 2 + fields]
         n += 1
-        if stored is None:  # written before chaining began (an older database)
-            continue
+        if stored is None:
+            if row_id < hashed_from:  # written before this chain was hashed (an older database)
+                continue
+            yield Finding(chain, row_id, "no hash from this row on (its chain value was removed)", "MISSING")
+            return
         candidates = [prev] + folds.get(row_id, [])
         if not any(chain_hash(p, *values) == stored for p in candidates):
             yield Finding(
-                chain, row_id, "stored chain differs: this row or the one before it was altered, added or removed"
+                chain,
+                row_id,
+                "does not follow from the row before it: rows before it were deleted, or this row or the "
+                "one before it was altered or added",
             )
             return
         prev = stored
     yield n
 
 
-def verify(conn, since_ts: float | None = None) -> tuple[list[Finding], dict[str, int]]:
-    """Walk every chain; return the first break of each chain and rows checked per chain.
+def _meta(conn) -> dict[str, float]:
+    return dict(conn.execute("SELECT key, value FROM record_meta"))
 
-    With since_ts, each chain starts at its first row at or after that time, trusting the
-    stored hash of the row before it.
-    """
-    findings: list[Finding] = []
-    counts: dict[str, int] = {}
-    folds: dict[str, dict[int, list[str]]] = {}
-    for tbl, zone, next_id, prev in conn.execute("SELECT tbl, zone, next_id, prev_chain FROM chain_folds"):
-        folds.setdefault(f"{tbl}/{zone}", {}).setdefault(next_id, []).append(prev)
-    zones = [r[0] for r in conn.execute("SELECT DISTINCT zone FROM readings ORDER BY zone")]
+
+def _plans(conn, since_ts) -> list[tuple]:
     plans = []
+    zones = [r[0] for r in conn.execute("SELECT DISTINCT zone FROM readings ORDER BY zone")]
     for zone in zones:
         first = 0
         if since_ts is not None:
             row = conn.execute("SELECT min(id) FROM readings WHERE zone = ? AND ts >= ?", (zone, since_ts)).fetchone()
             first = row[0] if row[0] is not None else 1 << 62
+        cols = ", ".join(READING_FIELDS)
+        sql = f"SELECT id, chain, {cols} FROM readings WHERE zone = ? AND id >= ? ORDER BY id"
         plans.append(
-            (
-                f"readings/{zone}",
-                "readings",
-                f"SELECT id, chain, {', '.join(READING_FIELDS)} FROM readings WHERE zone = ? AND id >= ? ORDER BY id",
-                (zone, first),
-                len(READING_FIELDS),
-                folds.get(f"readings/{zone}", {}),
-                "zone = ? AND",
-                (zone,),
-                first,
-            )
+            (f"readings/{zone}", "readings", "id", sql, (zone, first), READING_FIELDS, "zone = ? AND ", (zone,), first)
         )
     for name, fields, time_col in LOGS:
+        id_col = "id"
         first = 0
         if since_ts is not None and time_col:
             row = conn.execute(f"SELECT min(id) FROM {name} WHERE {time_col} >= ?", (since_ts,)).fetchone()
             first = row[0] if row[0] is not None else 1 << 62
-        plans.append(
-            (
-                name,
-                name,
-                f"SELECT id, chain, {', '.join(fields)} FROM {name} WHERE id >= ? ORDER BY id",
-                (first,),
-                len(fields),
-                {},
-                "",
-                (),
-                first,
-            )
-        )
-    for chain, table, sql, args, nfields, chain_folds, scope, scope_args, first in plans:
+        sql = f"SELECT {id_col}, chain, {', '.join(fields)} FROM {name} WHERE {id_col} >= ? ORDER BY {id_col}"
+        plans.append((name, name, id_col, sql, (first,), fields, "", (), first))
+    return plans
+
+
+def verify(conn, since_ts: float | None = None, now_s: float | None = None) -> tuple[list[Finding], dict[str, int]]:
+    """Walk every chain, then check what chains cannot show (folds, lengths, missing zones).
+
+    Returns the findings (the first break of each chain, then every missing part) and rows
+    checked per chain. With since_ts, each chain starts at its first row at or after that
+    time, trusting the stored hash of the row before it.
+    """
+    meta = _meta(conn)
+    findings: list[Finding] = []
+    counts: dict[str, int] = {}
+    for table, _ in CHAINED_TABLES:
+        if f"chained_from:{table}" not in meta:
+            findings.append(Finding(table, 0, "the record of where its hashing began (record_meta) is gone", "MISSING"))
+    fold_rows, fold_break = _fold_rows(conn, meta)
+    folds: dict[str, dict[int, list[str]]] = {}
+    for r in fold_rows:
+        if r["next_id"]:
+            folds.setdefault(f"{r['tbl']}/{r['zone']}", {}).setdefault(r["next_id"], []).append(r["prev_chain"])
+    for chain, table, id_col, sql, args, fields, scope, scope_args, first in _plans(conn, since_ts):
         prev = conn.execute(
-            f"SELECT chain FROM {table} WHERE {scope} id < ? ORDER BY id DESC LIMIT 1", (*scope_args, first)
+            f"SELECT chain FROM {table} WHERE {scope}{id_col} < ? ORDER BY {id_col} DESC LIMIT 1", (*scope_args, first)
         ).fetchone()
-        for item in _walk(conn, chain, sql, args, nfields, chain_folds, prev[0] if prev else None):
+        key = chain if table == "readings" else f"{table}/"
+        hashed_from = meta.get(f"chained_from:{table}", 0.0)
+        walk = _walk(conn, chain, sql, args, len(fields), folds.get(key, {}), prev[0] if prev else None, hashed_from)
+        for item in walk:
             if isinstance(item, Finding):
                 findings.append(item)
             else:
                 counts[chain] = item
+    counts["chain_folds"] = len(fold_rows)
+    if fold_break is not None:
+        findings.append(fold_break)
+    findings += check_folds(conn, fold_rows, meta, now_s)
+    findings += check_lengths(conn, fold_rows)
     return findings, counts
 
 
+def _fold_rows(conn, meta) -> tuple[list[dict], Finding | None]:
+    """The fold rows that hash into the fold chain (up to its first break), and that break."""
+    rows, prev = [], None
+    hashed_from = meta.get("chained_from:chain_folds", 0.0)
+    for rowid, stored, *values in conn.execute(
+        f"SELECT rowid, chain, {', '.join(FOLD_FIELDS)} FROM chain_folds ORDER BY rowid"
+    ):
+        doc = dict(zip(FOLD_FIELDS, values), rowid=rowid)
+        if stored is None and rowid < hashed_from:
+            rows.append(doc)  # a link kept before folds were chained
+            continue
+        if stored is None or chain_hash(prev, *values) != stored:
+            what = "fold record not made by retention (no hash, or it does not follow): the rows it covers are unaccounted for"
+            return rows, Finding("chain_folds", rowid, what)
+        rows.append(doc)
+        prev = stored
+    return rows, None
+
+
+def _passes(fold_rows: list[dict]) -> list[dict]:
+    return [r for r in fold_rows if not r["next_id"] and r.get("cutoff_ts") is not None]
+
+
+def check_folds(conn, fold_rows: list[dict], meta: dict, now_s: float | None) -> list[Finding]:
+    """A retention pass cuts at least the shortest retention before it ran, never runs in the
+    future, and the readings it folded are in the hourly aggregates."""
+    now_s = time.time() if now_s is None else now_s
+    out = []
+    legacy_until = meta.get("legacy_folds_until", 0.0)
+    for p in _passes(fold_rows):
+        name = f"{p['tbl']}/{p['zone']}" if p["tbl"] == "readings" else p["tbl"]
+        if p["wall_s"] is None:
+            if p["rowid"] > legacy_until:
+                out.append(Finding("chain_folds", p["rowid"], f"{name}: a retention pass without its time"))
+            continue
+        if p["wall_s"] > now_s + CLOCK_SLACK_S:
+            out.append(
+                Finding(
+                    "chain_folds", p["rowid"], f"{name}: a retention pass dated in the future ({_iso(p['wall_s'])})"
+                )
+            )
+        elif p["cutoff_ts"] > p["wall_s"] - MIN_RETENTION_S + CLOCK_SLACK_S:
+            days = (p["wall_s"] - p["cutoff_ts"]) / 86400.0
+            out.append(
+                Finding(
+                    "chain_folds",
+                    p["rowid"],
+                    f"{name}: {p['folded']} rows deleted up to {_iso(p['cutoff_ts'])}, only {days:.0f} days before the "
+                    f"pass at {_iso(p['wall_s'])}; retention keeps at least 366 days",
+                    "MISSING",
+                )
+            )
+    folded: dict[str, int] = {}
+    for p in _passes(fold_rows):
+        if p["tbl"] == "readings":
+            folded[p["zone"]] = folded.get(p["zone"], 0) + int(p["folded"])
+    hourly = dict(conn.execute("SELECT zone, sum(n) FROM readings_hourly GROUP BY zone"))
+    for zone in sorted(set(folded) | set(hourly)):
+        if folded.get(zone, 0) != hourly.get(zone, 0):
+            out.append(
+                Finding(
+                    f"readings/{zone}",
+                    0,
+                    f"retention records {folded.get(zone, 0)} readings folded, the hourly aggregates hold "
+                    f"{hourly.get(zone, 0)}",
+                )
+            )
+    return out
+
+
+def lengths(conn, fold_rows: list[dict] | None = None) -> dict[str, int]:
+    """Rows each chain has ever held: rows stored plus rows retention folded away."""
+    if fold_rows is None:
+        fold_rows = _fold_rows(conn, _meta(conn))[0]
+    out: dict[str, int] = {}
+    for zone, n in conn.execute("SELECT zone, count(*) FROM readings GROUP BY zone"):
+        out[f"readings/{zone}"] = n
+    for table, _, _ in LOGS:
+        out[table] = conn.execute(f"SELECT count(*) FROM {table}").fetchone()[0]
+    for p in _passes(fold_rows):
+        name = f"readings/{p['zone']}" if p["tbl"] == "readings" else p["tbl"]
+        out[name] = out.get(name, 0) + int(p["folded"])
+    return out
+
+
+def check_lengths(conn, fold_rows: list[dict]) -> list[Finding]:
+    """Rows cut from a chain's end, or a whole zone gone, against the last checkpoint's counts."""
+    have = lengths(conn, fold_rows)
+    out = []
+    for zone, total, updated in conn.execute("SELECT zone, readings_total, updated_ts FROM zone_state ORDER BY zone"):
+        now = have.get(f"readings/{zone}", 0)
+        if now < total:
+            what = "no readings left" if now == 0 else f"{total - now} readings missing"
+            out.append(
+                Finding(
+                    f"readings/{zone}",
+                    0,
+                    f"{what}: the checkpoint of {_iso(updated)} counted {total}, the record holds {now}",
+                    "MISSING",
+                )
+            )
+    return out
+
+
 def heads(conn) -> dict[str, list]:
-    """Each chain's newest row: {chain name: [row id, hash]}."""
+    """Each chain's newest row and length: {chain name: [row id, hash, rows ever held]}."""
+    size = lengths(conn)
     out = {}
     for zone, row_id, chain in conn.execute(
         "SELECT zone, id, chain FROM readings WHERE id IN (SELECT max(id) FROM readings GROUP BY zone) ORDER BY zone"
     ):
-        out[f"readings/{zone}"] = [row_id, chain]
+        out[f"readings/{zone}"] = [row_id, chain, size[f"readings/{zone}"]]
     for table, _, _ in LOGS:
         row = conn.execute(f"SELECT id, chain FROM {table} ORDER BY id DESC LIMIT 1").fetchone()
         if row:
-            out[table] = [row[0], row[1]]
+            out[table] = [row[0], row[1], size[table]]
+    row = conn.execute("SELECT rowid, chain FROM chain_folds ORDER BY rowid DESC LIMIT 1").fetchone()
+    if row and row[1]:
+        out["chain_folds"] = [row[0], row[1], conn.execute("SELECT count(*) FROM chain_folds").fetchone()[0]]
     return out
 
 
 def digest(head_map: dict[str, list]) -> str:
-    text = ";".join(f"{k}={v[0]}:{v[1]}" for k, v in sorted(head_map.items()))
+    text = ";".join(f"{k}={':'.join(str(x) for x in v)}" for k, v in sorted(head_map.items()))
     return hashlib.sha256(text.encode()).hexdigest()
 
 
@@ -184,12 +332,38 @@ def check_lots(conn) -> list[Finding]:
 
 
 def check_reports(conn) -> list[Finding]:
-    """Each stored report's printed heads must still be the chain values at those rows."""
+    """Each stored summary's printed heads must still be there with the same hash, and no chain
+    may be shorter than the summary printed it."""
     out = []
-    for site, week, heads_json in conn.execute("SELECT site, week, heads FROM reports ORDER BY generated_s"):
-        for name, (row_id, value) in json.loads(heads_json).items():
+    have = lengths(conn)
+    folded_after: dict[str, float] = {}
+    for tbl, zone, wall_s in conn.execute(
+        "SELECT tbl, zone, max(wall_s) FROM chain_folds WHERE next_id = 0 GROUP BY tbl, zone"
+    ):
+        folded_after[f"readings/{zone}" if tbl == "readings" else tbl] = wall_s if wall_s is not None else math.inf
+    for site, week, generated_s, heads_json in conn.execute(
+        "SELECT site, week, generated_s, heads FROM reports ORDER BY generated_s"
+    ):
+        where = f"the {site} summary for {week}"
+        for name, printed in json.loads(heads_json).items():
+            row_id, value = printed[0], printed[1]
             table = name.split("/")[0]
-            row = conn.execute(f"SELECT chain FROM {table} WHERE id = ?", (row_id,)).fetchone()
-            if row is not None and row[0] != value:
-                out.append(Finding(name, row_id, f"differs from the head printed in the {site} report for {week}"))
+            id_col = "rowid" if table == "chain_folds" else "id"
+            row = conn.execute(f"SELECT chain FROM {table} WHERE {id_col} = ?", (row_id,)).fetchone()
+            if row is None and folded_after.get(name, -math.inf) < generated_s:
+                out.append(Finding(name, row_id, f"this row, printed as the head in {where}, is gone", "MISSING"))
+            elif row is not None and row[0] != value:
+                out.append(Finding(name, row_id, f"differs from the head printed in {where}"))
+            if len(printed) > 2 and have.get(name, 0) < printed[2]:
+                missing = printed[2] - have.get(name, 0)
+                out.append(
+                    Finding(name, row_id, f"{missing} rows fewer than {where} printed ({printed[2]})", "MISSING")
+                )
     return out
+
+
+def _iso(ts: float) -> str:
+    try:
+        return dt.datetime.fromtimestamp(ts, dt.UTC).strftime("%Y-%m-%dT%H:%MZ")
+    except (OverflowError, OSError, ValueError):
+        return repr(ts)

@@ -32,6 +32,7 @@ READING_INSERT_CHAINED = (
     f"INSERT OR IGNORE INTO readings ({', '.join(chain.READING_FIELDS)}, chain) "
     f"VALUES ({', '.join('?' * (len(chain.READING_FIELDS) + 1))})"
 )
+REJECTION_INSERT = chain.insert_sql("rejections", chain.REJECTION_FIELDS, zone_scoped=False)
 PAYLOAD_KEEP_BYTES = 512
 migrations = Migrations("watcher")
 
@@ -195,6 +196,34 @@ def m007_lot_chain(db: sqlite_utils.Database) -> None:
     )
 
 
+@migrations()
+def m008_record_seal(db: sqlite_utils.Database) -> None:
+    """Rejections chained (with how many messages a row stands for); retention's folds chained
+    and recorded per pass (cut-off, rows folded, when); where each chain's hashing began."""
+    db.executescript(
+        """
+        ALTER TABLE rejections ADD COLUMN n INTEGER NOT NULL DEFAULT 1;
+        ALTER TABLE rejections ADD COLUMN chain TEXT;
+        ALTER TABLE chain_folds ADD COLUMN cutoff_ts REAL;
+        ALTER TABLE chain_folds ADD COLUMN folded INTEGER NOT NULL DEFAULT 0;
+        ALTER TABLE chain_folds ADD COLUMN wall_s REAL;
+        ALTER TABLE chain_folds ADD COLUMN chain TEXT;
+        CREATE TABLE record_meta (key TEXT PRIMARY KEY, value REAL NOT NULL);
+        """
+    )
+    conn = db.conn
+    for table, id_col in chain.CHAINED_TABLES:
+        first = conn.execute(f"SELECT coalesce(max({id_col}), 0) + 1 FROM {table} WHERE chain IS NULL").fetchone()[0]
+        conn.execute("INSERT INTO record_meta (key, value) VALUES (?, ?)", (f"chained_from:{table}", first))
+    # Raw readings folded before passes were recorded: one pass row per zone says how many.
+    for zone, n, last in conn.execute(
+        "SELECT zone, sum(n), max(hour_ts) FROM readings_hourly GROUP BY zone"
+    ).fetchall():
+        chain.add_fold(conn, "readings", zone, [], n, last + 3600.0, None)
+    legacy = conn.execute("SELECT coalesce(max(rowid), 0) FROM chain_folds").fetchone()[0]
+    conn.execute("INSERT INTO record_meta (key, value) VALUES ('legacy_folds_until', ?)", (legacy,))
+
+
 @dataclass
 class ZoneRow:
     zone: str
@@ -339,12 +368,11 @@ class Store(OutboxRows, AlertRows, EventRows, LotRows):
         """After a failed transaction: the cached chain heads may name rows that were rolled back."""
         self._heads, self._heads_version = {}, None
 
-    def insert_rejection(self, received_ts: float, topic: str, reason: str, payload: bytes) -> None:
+    def insert_rejection(self, received_ts: float, topic: str, reason: str, payload: bytes, n: int = 1) -> None:
+        """One rejected message (or n like it, when a topic's rejections are rate-limited)."""
         text = payload[:PAYLOAD_KEEP_BYTES].decode("utf-8", errors="backslashreplace")
-        self.conn.execute(
-            "INSERT INTO rejections (received_ts, topic, reason, payload) VALUES (?,?,?,?)",
-            (received_ts, _text(topic[:512]), _text(reason), text),
-        )
+        values = (received_ts, _text(topic[:512]), _text(reason), text, n)
+        self.conn.execute(REJECTION_INSERT, chain.params(values))
 
     def insert_gap(self, zone: str, start_ts: float, end_ts: float) -> None:
         self.conn.execute(
@@ -377,7 +405,7 @@ class Store(OutboxRows, AlertRows, EventRows, LotRows):
             (zone, spec_key, fed_ts, None if state is None else pack_state(state), json.dumps(sensors)),
         )
 
-    def downsample(self, zone: str, upto_ts: float) -> int:
+    def downsample(self, zone: str, upto_ts: float, wall_s: float) -> int:
         """Fold a zone's raw readings with ts <= upto_ts into hourly aggregates; return how many."""
         self.forget_heads()
         self.conn.execute(
@@ -389,14 +417,30 @@ class Store(OutboxRows, AlertRows, EventRows, LotRows):
             "max = max(max, excluded.max), n = n + excluded.n",
             (zone, upto_ts),
         )
-        # Keep the chain verifiable across the cut: each surviving row's link to a deleted predecessor.
-        self.conn.execute(
-            "INSERT INTO chain_folds (tbl, zone, next_id, prev_chain) SELECT 'readings', zone, id, prev FROM ("
-            "SELECT id, zone, ts, lag(chain) OVER (ORDER BY id) AS prev, lag(ts) OVER (ORDER BY id) AS prev_ts "
-            "FROM readings WHERE zone = ?) WHERE ts > ? AND prev_ts <= ?",
-            (zone, upto_ts, upto_ts),
-        )
-        return self.conn.execute("DELETE FROM readings WHERE zone = ? AND ts <= ?", (zone, upto_ts)).rowcount
+        return self._cut("readings", zone, "ts", upto_ts, wall_s)
+
+    def prune_rejections(self, upto_ts: float, wall_s: float) -> int:
+        """Delete rejections received at or before upto_ts (with the raw readings' retention)."""
+        return self._cut("rejections", "", "received_ts", upto_ts, wall_s)
+
+    def _cut(self, table: str, zone: str, time_col: str, upto_ts: float, wall_s: float) -> int:
+        """Delete a chain's rows at or before the cut-off, keeping the chain verifiable: each
+        surviving row's link to a deleted predecessor, and the pass itself (cut-off, rows,
+        when), go into the chained fold record (store/chain.py checks them)."""
+        scope, args = ("zone = ? AND ", (zone,)) if table == "readings" else ("", ())
+        n = self.conn.execute(
+            f"SELECT count(*) FROM {table} WHERE {scope}{time_col} <= ?", (*args, upto_ts)
+        ).fetchone()[0]
+        if not n:
+            return 0
+        links = self.conn.execute(
+            f"SELECT id, prev FROM (SELECT id, {time_col} AS t, lag(chain) OVER (ORDER BY id) AS prev, "
+            f"lag({time_col}) OVER (ORDER BY id) AS prev_t FROM {table} WHERE {scope}1) WHERE t > ? AND prev_t <= ?",
+            (*args, upto_ts, upto_ts),
+        ).fetchall()
+        chain.add_fold(self.conn, table, zone, links, n, upto_ts, wall_s)
+        self.conn.execute(f"DELETE FROM {table} WHERE {scope}{time_col} <= ?", (*args, upto_ts))
+        return n
 
     # --- reading -------------------------------------------------------------------------
     def anchor(self, zone: str) -> tuple | None:
