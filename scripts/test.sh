@@ -15,6 +15,7 @@ need() {  # need COMMAND PACKAGE WHY: install a Debian package when its command 
 }
 need mosquitto mosquitto "the MQTT tests start their own broker on loopback"
 need chromium chromium "the weekly summary is rendered in headless Chromium"
+need faketime faketime "the clock tests run watcher with its wall clock offset and stepped (libfaketime)"
 bash scripts/setup-venv.sh test
 .venv/bin/ruff check watcher tests bench
 exec .venv/bin/python -m pytest "$@"

@@ -11,6 +11,8 @@ import random
 ZONES = ("bulk-a", "dispatch")
 
 # class -> words in the stored reason (checked by the in-process test)
+# Classes whose time disagrees with the service clock: held (engine/held.py), not rejected.
+HELD = ("timestamp far in the past", "timestamp in the future")
 REASONS = {
     "invalid JSON": "invalid JSON",
     "truncated JSON": "invalid JSON",

@@ -20,7 +20,7 @@ import time
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from tests.abuse import corpus
+from tests.abuse import HELD, corpus
 from tests.broker import Broker
 from tests.proxy import Proxy
 from tests.receivers import Receiver, SmtpReceiver
@@ -472,9 +472,9 @@ time_format = "epoch_s"
             good = len(items) - len(bad)
             db = folder / "watcher.db"
 
-            def rejected() -> int:
+            def rejected() -> int:  # rejected, or held for a clock disagreement (sensor clocks here)
                 with contextlib.closing(sqlite3.connect(f"file:{db}?mode=ro", uri=True)) as con:
-                    return con.execute("SELECT count(*) FROM rejections").fetchone()[0]
+                    return sum(con.execute(f"SELECT count(*) FROM {t}").fetchone()[0] for t in ("rejections", "held"))
 
             wait_for(lambda: rejected() + readings_count(db) >= len(items), timeout=120, what="every message handled")
             counted = _metric(w, "watcher_rejections_total")
@@ -484,15 +484,19 @@ time_format = "epoch_s"
             assert w.stop() == 0
             with contextlib.closing(sqlite3.connect(db)) as con:
                 reasons = [r[0] for r in con.execute("SELECT reason FROM rejections")]
+                held = [r[0] for r in con.execute("SELECT reason FROM held")]
             assert_state_equals_recomputation(config)
     classes = sorted(set(bad))
-    assert alive and len(reasons) == len(bad) == counted, (alive, len(reasons), len(bad), counted)
+    n_held = sum(1 for c in bad if c in HELD)
+    assert alive and len(reasons) == len(bad) - n_held == counted, (alive, len(reasons), len(bad), counted)
+    assert len(held) == n_held and all("timestamp" in r for r in held)
     assert all(reasons), "every rejection has a reason"
     return Outcome(
         "bad sensor messages (generated)",
         len(items),
         f"{len(bad):,} bad in {len(classes)} classes, each stored with its reason and counted in "
-        f"/metrics; {good:,} good ones among them stored; service unaffected",
+        f"/metrics ({n_held:,} whose time disagrees with the clock held for re-admission); {good:,} good "
+        "ones among them stored; service unaffected",
         lost,
         extra={"classes": classes},
     )
@@ -576,4 +580,99 @@ def poison_message(folder: Path, crash: bool) -> Outcome:
         + "; ready and healthy after",
         lost,
         recovery,
+    )
+
+
+# --- the service clock wrong, through libfaketime -------------------------------------------------------
+
+FAKETIME_LIB = next(
+    (
+        p
+        for p in (
+            "/usr/lib/x86_64-linux-gnu/faketime/libfaketime.so.1",
+            "/usr/lib/aarch64-linux-gnu/faketime/libfaketime.so.1",
+        )
+        if Path(p).exists()
+    ),
+    None,
+)
+
+
+def faketime_env(offset_file: Path) -> dict:
+    """Run `watcher run` with its wall clock offset by what offset_file says ("+401d", "-1h",
+    "+0"), re-read on every call so a test can step the clock of a running service; the
+    monotonic clock stays real, as it does when NTP or a person steps a machine's clock."""
+    return {
+        "LD_PRELOAD": FAKETIME_LIB,
+        "FAKETIME_TIMESTAMP_FILE": str(offset_file),
+        "FAKETIME_NO_CACHE": "1",
+        "FAKETIME_DONT_FAKE_MONOTONIC": "1",
+        "PYTHONPATH": str(Path(__file__).parent / "faketime_site"),
+    }
+
+
+def _count(db: Path, sql: str) -> int:
+    with contextlib.closing(sqlite3.connect(f"file:{db}?mode=ro", uri=True)) as con:
+        return con.execute(sql).fetchone()[0]
+
+
+def service_clock_wrong(folder: Path) -> Outcome:
+    """The service starts with its clock 401 days ahead (a dead RTC battery): retention must not
+    delete the raw readings, readings stamped correctly are held (not rejected), the clock is
+    stepped back (NTP), a clock-jump alert is raised and every held reading goes in. Then the
+    clock is stepped an hour slow: readings stamped now are held as 'in the future' and go in
+    once the clock is right again. Nothing is lost, nothing is rejected."""
+    db = folder / "watcher.db"
+    offset = folder / "faketime-offset"
+    offset.write_text("+0\n")
+    with running_broker(folder / "broker") as broker:
+        config = write_config(folder, broker, reorder_s=0.0)
+        pub = Publisher(broker)
+        w = WatcherProcess(config)
+        w.wait_ready()
+        pub.send(messages(ZONES, 0, 300))
+        _until_stored(db, 600)
+        assert w.stop() == 0
+        offset.write_text("+401d\n")
+        w = WatcherProcess(config, env=faketime_env(offset))
+        w.wait_ready()
+        time.sleep(3.0)  # retention ran at start (with the clock 401 days ahead)
+        kept = readings_count(db)
+        pub.send(messages(ZONES, 300, 100))  # correctly stamped: 400+ days old by the wrong clock
+        wait_for(lambda: _count(db, "SELECT count(*) FROM held") == 200, 30, "200 readings held")
+        t0 = time.monotonic()
+        offset.write_text("+0\n")  # NTP steps the clock back
+        lost_ahead = _lost(db, 800, 60)
+        back_s = time.monotonic() - t0
+        jump_alerts = _count(db, "SELECT count(*) FROM alerts WHERE rule = 'clock-jump'")
+        offset.write_text("-1h\n")  # now an hour slow
+        time.sleep(2.5)
+        now = time.time()
+        fresh = [
+            (f"kp/{z}/s2/air", json.dumps({"temp_c": -25.0, "ts": now - 60 + k}).encode())
+            for z in ZONES
+            for k in range(50)
+        ]
+        pub.send(fresh)
+        wait_for(lambda: _count(db, "SELECT count(*) FROM held") == 100, 30, "100 readings held as in the future")
+        offset.write_text("+0\n")
+        lost_slow = _lost(db, 900, 60)
+        rejected = _count(db, "SELECT count(*) FROM rejections")
+        jumps = _count(
+            db,
+            "SELECT count(*) FROM alert_log l JOIN alerts a ON a.id = l.alert_id WHERE a.rule = 'clock-jump' AND l.step IN ('raise', 'repeat')",
+        )
+        assert w.stop() == 0
+        pub.close()
+        assert_state_equals_recomputation(config)
+    assert kept == 600, f"retention deleted {600 - kept} raw readings on the word of a wrong clock"
+    assert rejected == 0 and jump_alerts == 1 and jumps >= 1, (rejected, jump_alerts, jumps)
+    return Outcome(
+        "service clock 401 days ahead at start, stepped back; then an hour slow",
+        3,
+        f"retention deleted nothing ({kept} raw readings kept); 200 correctly stamped readings held, not "
+        f"rejected, and stored {back_s:.0f} s after the clock was stepped back (clock-jump alert raised); "
+        "100 readings stamped 'in the future' by the slow clock held and stored when it was right; 0 rejected",
+        lost_ahead + lost_slow,
+        [back_s],
     )

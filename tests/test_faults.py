@@ -21,7 +21,7 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from tests import faults
-from tests.abuse import REASONS, corpus
+from tests.abuse import HELD, REASONS, corpus
 from tests.broker import make_ca
 from tests.receivers import Receiver
 from tests.service_harness import (
@@ -36,6 +36,7 @@ from tests.service_harness import (
 )
 from tests.test_monitor import make
 from watcher.engine.batch import Message
+from watcher.engine.held import readmit
 from watcher.ingest.payload import Limits, Rejected, Source, parse_message
 from watcher.ingest.topics import parse_pattern
 
@@ -136,12 +137,14 @@ def test_each_bad_class_is_rejected_with_its_reason_in_process(tmp_path):
     for lo in range(0, len(msgs), 500):
         engine.process(msgs[lo : lo + 500], now=NOW)
     rows = store.conn.execute("SELECT topic, reason FROM rejections ORDER BY id").fetchall()
-    bad = [(t, c) for t, _, c in items + extra if c != "good"]
-    assert len(rows) == len(bad)
-    for (_, reason), (_, kind) in zip(rows, bad):
+    held = store.conn.execute("SELECT topic, reason FROM held ORDER BY id").fetchall()
+    bad = [(t, c) for t, _, c in items + extra if c not in ("good", *HELD)]
+    late_or_early = [(t, c) for t, _, c in items if c in HELD]
+    assert len(rows) == len(bad) and len(held) == len(late_or_early) > 0
+    for (_, reason), (_, kind) in zip(rows + held, bad + late_or_early):
         words = REASONS.get(kind, "no source pattern matches")
         assert words in reason, (kind, reason)
-    assert {c for _, c in bad} >= set(REASONS)  # every class was generated
+    assert {c for _, c in bad + late_or_early} >= set(REASONS)  # every class was generated
     good = sum(1 for *_, c in items if c == "good")
     assert store.conn.execute("SELECT count(*) FROM readings").fetchone()[0] == good
 
@@ -205,14 +208,26 @@ def _air(k, ts, received, sensor="s1"):
 
 def test_sensor_clock_ahead_or_behind(tmp_path):
     """A reading stamped up to the tolerance ahead of the service clock is taken; further ahead
-    it is refused with the reason; one stamped behind (older than the reorder window) is taken
-    as late and the zone recomputed, so its state equals a full recomputation."""
+    it is held with the reason (either clock may be wrong) and goes in once the clocks agree;
+    one that never fits becomes a rejection after hold_days. One stamped behind (older than the
+    reorder window) is taken as late and the zone recomputed, so its state equals a full
+    recomputation."""
     cfg, store, engine = make(tmp_path)
     engine.process([_air(k, NOW - 3600 + 60 * k, NOW - 3600 + 60 * k) for k in range(60)], now=NOW)
     r = engine.process([_air(100, NOW + 240, NOW, "ahead-4min"), _air(101, NOW + 900, NOW, "ahead-15min")], now=NOW)
-    assert r.counts["rejected"] == 1
-    reason = store.conn.execute("SELECT reason FROM rejections").fetchone()[0]
+    assert (r.counts["accepted"], r.counts["held"], r.counts["rejected"]) == (1, 1, 0)
+    reason = store.conn.execute("SELECT reason FROM held").fetchone()[0]
     assert "in the future" in reason and "tolerance 300 s" in reason
+    assert readmit(engine, NOW + 300).counts["readmitted"] == 0  # still 300 s too early: kept
+    assert readmit(engine, NOW + 650).counts["readmitted"] == 1  # within the tolerance now
+    assert store.count("held") == 0 and engine.held_count == 0
+    stored = store.conn.execute("SELECT count(*) FROM readings WHERE sensor = 'ahead-15min'").fetchone()[0]
+    assert stored == 1
+    engine.process([_air(103, NOW + 30 * 86400, NOW, "ahead-30d")], now=NOW)
+    assert readmit(engine, NOW + 6 * 86400).counts["rejected"] == 0
+    assert readmit(engine, NOW + 7 * 86400).counts["rejected"] == 1  # hold_days (7) without agreement
+    reason = store.conn.execute("SELECT reason FROM rejections ORDER BY id DESC").fetchone()[0]
+    assert "clocks never agreed" in reason and store.count("held") == 0
     engine.process([_air(102, NOW - 1800 + 30, NOW, "behind-30min")], now=NOW)  # late
     engine.checkpoint_all(NOW)
     fresh, saved = engine.recompute("bulk-a").state, store.zone_rows()["bulk-a"].state
@@ -348,3 +363,8 @@ def test_http_endpoint_binds_to_loopback_by_default(tmp_path, broker):
     status, body = w.get("/readyz")
     assert broker.PASSWORD not in body.decode()
     assert w.stop() == 0
+
+
+@pytest.mark.skipif(faults.FAKETIME_LIB is None, reason="libfaketime is not installed (apt-get install faketime)")
+def test_a_wrong_service_clock_loses_and_deletes_nothing(tmp_path):
+    check_outcome(faults.service_clock_wrong(tmp_path))

@@ -134,7 +134,7 @@ def _hole_with_handmade_fold(db, hashed: bool) -> None:
     without hashing the fold into the fold chain (dated now: the pass must look recent)."""
     rows = db.execute("SELECT id, value, chain FROM readings WHERE zone = 'bulk-a' ORDER BY id").fetchall()
     before, hole = None, []
-    for i, (row_id, value, row_chain) in enumerate(rows):
+    for i, (row_id, value, _) in enumerate(rows):
         if value > -25.0 and i > 0 and (hole or rows[i - 1][1] <= -25.0):
             before = before if hole else rows[i - 1][2]
             hole.append(row_id)

@@ -66,6 +66,8 @@ class Ingest:
     batch_max: int = 1000
     batch_wait_s: float = 0.02
     stall_limit_s: float = 600.0
+    hold_days: float = 7.0
+    hold_max: int = 100_000
     limits: Limits = Limits()
 
 
@@ -306,6 +308,8 @@ def config_from_dict(data: dict, path: str = "config") -> Config:
         batch_max=int(i.integer("batch_max", 1000, 1, 100000)),
         batch_wait_s=i.number("batch_wait_s", 0.02, 0.0, 5.0),
         stall_limit_s=i.number("stall_limit_s", 600.0, 10.0, 86400.0),
+        hold_days=i.number("hold_days", 7.0, 0.01, 400.0),
+        hold_max=int(i.integer("hold_max", 100_000, 0, 10_000_000)),
         limits=Limits(
             max_payload_bytes=int(i.integer("max_payload_bytes", 65536, 64, 16 * 1024 * 1024)),
             future_skew_s=i.number("future_skew_s", 300.0, 0.0, 86400.0),

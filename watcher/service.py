@@ -34,6 +34,8 @@ RETENTION_EVERY_S = 6 * 3600.0
 TICK_S = 1.0
 DELIVER_EVERY_S = 0.5
 REPORT_CHECK_S = 60.0
+READMIT_EVERY_S = 60.0
+CLOCK_JUMP_S = 60.0
 
 
 def sd_notify(message: str) -> bool:
@@ -85,6 +87,8 @@ class Service:
         self.store = Store(config.storage.path)
         self.suspects = Suspects(config.storage.path + ".inhand")
         self.last_progress = time.monotonic()  # the writer's last commit, or its last idle moment
+        self._clock_seen: tuple[float, float] | None = None
+        self._readmit_due = 0.0
         self.engine = Engine(config, self.store, checkpoint_s)
         self.bypass = StorageBypass(config)
         self.db_ok = True
@@ -289,16 +293,47 @@ class Service:
         except Exception as exc:
             log.error("alert tick failed (it runs again in a second): %s", exc)
 
+    def _readmit(self) -> None:
+        """Held readings whose time now agrees with the clock go in (engine/held.py)."""
+        from watcher.engine.held import readmit
+
+        try:
+            result = self._until_stored(lambda: readmit(self.engine, time.time()), 0)
+        except StoreError:
+            return
+        except Exception as exc:
+            log.error("re-admitting held readings failed (trying again in a minute): %s", exc)
+            return
+        for kind, n in result.counts.items():
+            self.metrics.readings.labels(kind).inc(n)
+
+    def _watch_clock(self) -> None:
+        """A step of the wall clock against the monotonic clock is a clock jump (NTP stepping a
+        wrong clock, someone setting it by hand): the alert rules hear of it."""
+        wall, mono = time.time(), time.monotonic()
+        if self._clock_seen is not None:
+            jump = (wall - self._clock_seen[0]) - (mono - self._clock_seen[1])
+            if abs(jump) >= CLOCK_JUMP_S:
+                log.warning("the service clock jumped by %+.0f s", jump)
+                self.engine.monitor.clock_jumped(jump, wall)
+                self._readmit_due = 0.0  # held readings may agree with the clock now
+        self._clock_seen = (wall, mono)
+
     def _writer_loop(self) -> None:
         next_retention = 0.0
         next_tick = 0.0
+        self._readmit_due = 0.0
         while True:
             if time.monotonic() >= next_retention:
                 self._retention()
                 next_retention = time.monotonic() + RETENTION_EVERY_S
             if time.monotonic() >= next_tick:
+                self._watch_clock()
                 self._tick()
                 next_tick = time.monotonic() + TICK_S
+            if self.engine.held_count and time.monotonic() >= self._readmit_due:
+                self._readmit()
+                self._readmit_due = time.monotonic() + READMIT_EVERY_S
             self._apply_pending_config()
             batch = self._next_batch()
             depth = len(self.inbox) + len(batch)

@@ -32,6 +32,10 @@ CHECK = {
     "rejections_per_h": "`watcher status` and the rejections table: a sensor or gateway sending bad messages.",
     "undelivered_s": "The failing notification channel (its error is kept in the outbox table).",
     "commit_failing_s": "Free disk space for the database, or a process holding it locked.",
+    "clock_jump_s": "The machine's time source (NTP, the real-time clock and its battery); `timedatectl` shows it. "
+    "Times recorded around the jump may be off by its size.",
+    "held_readings": "Which clock is wrong: this machine's (`timedatectl`) or the gateway's. Held readings go in by "
+    "themselves once the two agree; nothing is lost while they wait.",
     "lot_budget_used_pct": "Ship this lot before fresher ones (`watcher lots` ranks them); look at where it has been "
     "stored (`watcher lot show`).",
     "lot_days_to_limit": "Ship this lot before fresher ones (`watcher lots` ranks them).",
@@ -53,6 +57,8 @@ WORDS = {
     "rejections_per_h": "rejected messages in the last hour",
     "undelivered_s": "a notification channel failing",
     "commit_failing_s": "readings not stored",
+    "clock_jump_s": "service clock jumped by",
+    "held_readings": "readings held for a clock disagreement",
     "lot_budget_used_pct": "lot's texture budget used",
     "lot_days_to_limit": "lot's days to the texture limit",
 }

@@ -16,6 +16,7 @@ SEVERITIES = ("info", "warning", "critical")
 # Judged on the service's own clock (the rest on the zone's data time, so a replay or a sensor
 # clock that runs late still gives the right durations).
 WALL_CLOCK_METRICS = ("reading_age_s", "broker_down_s", "rejections_per_h", "undelivered_s", "commit_failing_s")
+WALL_CLOCK_METRICS += ("clock_jump_s", "held_readings")
 LOT_METRICS = ("lot_budget_used_pct", "lot_days_to_limit")  # judged per lot (alert zone "lot:<id>")
 METRICS = (
     (
@@ -270,5 +271,24 @@ def default_rules() -> list[Rule]:
             "critical",
             hysteresis=59.0,
             label="readings cannot be stored (disk full or database locked); nothing is acknowledged",
+        ),
+        Rule(
+            "clock-jump",
+            "clock_jump_s",
+            ">=",
+            60.0,
+            "warning",
+            hysteresis=59.0,
+            label="the service clock jumped by a minute or more",
+        ),
+        Rule(
+            "readings-held",
+            "held_readings",
+            ">=",
+            1.0,
+            "warning",
+            for_s=300.0,
+            hysteresis=0.5,
+            label="readings held: their time disagrees with the service clock",
         ),
     ]

@@ -21,7 +21,7 @@ from watcher.engine.monitor import Monitor
 from watcher.engine.zones import ZoneRunner, spec_key
 from watcher.errors import InputError
 from watcher.ingest.message import Message
-from watcher.ingest.payload import Reading, Rejected, parse_message
+from watcher.ingest.payload import OutOfClock, Reading, Rejected, parse_message
 from watcher.ingest.topics import topic_is_clean
 from watcher.store.db import Store, ZoneRow
 
@@ -31,7 +31,8 @@ log = logging.getLogger("watcher.engine")
 # crash would. Read once at import.
 _RAISE_ON = os.environ.get("WATCHER_TEST_RAISE_ON", "").encode() or None
 _CRASH_ON = os.environ.get("WATCHER_TEST_CRASH_ON", "").encode() or None
-FEED_AT_PENDING = 5000  # readings waiting in a zone before it is fed between checkpoints
+FEED_AT_PENDING = 5000
+CLOCK_TRUST_S = 86400.0  # retention believes the clock only this far past the newest reading  # readings waiting in a zone before it is fed between checkpoints
 
 
 @dataclass
@@ -79,11 +80,22 @@ class Engine:
         self.last_figures: dict[str, dict] = {}
         self._load(z.id for z in config.zones)
         self.monitor = self._monitor()
+        self.held_count = store.count("held")
 
     def _monitor(self) -> Monitor:
         m = Monitor(self.config, self.store)
         m.fed_of = self._fed_of
+        m.held_count = lambda: self.held_count
+        old = getattr(self, "monitor", None)
+        if old is not None:
+            m.last_jump = old.last_jump  # a clock jump is not in the record; keep it across reloads
         return m
+
+    def reload_all(self) -> None:
+        """After a failed outer transaction: every zone and the monitor back to the record."""
+        self.store.forget_heads()
+        self._load(self.runners)
+        self.monitor = self._monitor()
 
     def _fed_of(self, zone_id: str) -> float:
         runner = self.runners.get(zone_id)
@@ -168,7 +180,7 @@ class Engine:
         if _RAISE_ON or _CRASH_ON:
             _inject(messages)
         result = BatchResult()
-        parsed: list[tuple[Reading | str | None, Message]] = []
+        parsed: list[tuple[Reading | str | tuple | None, Message]] = []
         commands = (self.config.broker.ack_topic, self.config.broker.lot_topic)
         for msg in messages:
             if any(msg.topic == c or msg.topic.startswith(c + "/") for c in commands):
@@ -176,6 +188,16 @@ class Engine:
                 continue
             try:
                 parsed.append((self.parse(msg), msg))
+            except OutOfClock as exc:
+                if self.held_count < self.config.ingest.hold_max:
+                    parsed.append((("hold", str(exc)), msg))
+                    self.held_count += 1
+                    result.counts["held"] += 1
+                    continue
+                reason = f"{exc} (not held: {self.held_count} readings already wait for the clocks to agree)"
+                parsed.append((reason, msg))
+                result.rejections[reason_class(reason)] += 1
+                result.counts["rejected"] += 1
             except Rejected as exc:
                 parsed.append((str(exc), msg))
                 result.rejections[reason_class(str(exc))] += 1
@@ -187,6 +209,8 @@ class Engine:
                     self._command(msg, result)
                 elif isinstance(item, str):
                     self.store.insert_rejection(msg.received_ts, msg.topic, item, msg.payload)
+                elif isinstance(item, tuple):
+                    self.store.hold(msg.received_ts, msg.topic, msg.payload, item[1])
             good = [(item, msg.received_ts, msg.topic) for item, msg in parsed if isinstance(item, Reading)]
             self._store_readings(good, result, touched)
             self._finish(touched, result, now)
@@ -202,6 +226,7 @@ class Engine:
             self.store.forget_heads()
             self._load(touched)
             self.monitor = self._monitor()
+            self.held_count = self.store.count("held")
             raise
 
     def _command(self, msg: Message, result: BatchResult) -> None:
@@ -328,7 +353,21 @@ class Engine:
 
     def apply_retention(self, now: float) -> int:
         """Move each zone's anchor to the retention cut-off, then fold older raw readings into
-        hourly aggregates. Returns the number of raw readings folded."""
+        hourly aggregates. Returns the number of raw readings folded.
+
+        The cut-off follows the data, not only the clock: a service clock that runs ahead of the
+        newest reading by more than a day (a dead RTC battery once put it 401 days ahead and
+        retention deleted every raw reading) is not believed; the newest reading's time plus a
+        day is used, and the disagreement logged."""
+        newest = self.store.newest_reading_ts()
+        if newest is None:
+            return 0
+        if now > newest + CLOCK_TRUST_S:
+            log.warning(
+                "retention: the service clock is %.1f days ahead of the newest reading; cutting by the data's time",
+                (now - newest) / 86400.0,
+            )
+            now = newest + CLOCK_TRUST_S
         cutoff = now - self.config.storage.raw_retention_days * 86400.0
         folded = 0
         for zid in self.runners:

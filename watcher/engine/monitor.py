@@ -26,6 +26,7 @@ from watcher.lots.events import last_zone
 from watcher.ranges import cautious_days
 from watcher.store.db import Store
 
+JUMP_REMEMBERED_S = 3600.0
 log = logging.getLogger("watcher.alerts")
 SERVICE = "service"  # the zone id of service-wide alerts
 FORGET_SENSOR_S = 2 * 86400.0  # a sensor silent this long no longer counts for staleness
@@ -116,6 +117,8 @@ class Monitor:
             lz.snapshot_ts = marks.get((zid, "snapshot_ts"), -math.inf)
         self.broker_down_since: float | None = None
         self.commit_failing_since: float | None = None
+        self.last_jump: tuple[float, float] | None = None  # (seconds, wall time) of the last clock jump
+        self.held_count = lambda: 0  # set by the engine: readings waiting for the clocks to agree
         self.lots = LotKeeper(config, store)
         self.fed_of = lambda zone_id: -math.inf  # set by the engine: how far each zone's data go
 
@@ -244,8 +247,19 @@ class Monitor:
             "commit_failing_s": 0.0 if self.commit_failing_since is None else wall_s - self.commit_failing_since,
             "rejections_per_h": float(self.store.rejections_since(wall_s - 3600.0)),
             "undelivered_s": max((wall_s - t for t in failing.values()), default=0.0),
+            "clock_jump_s": self._recent_jump(wall_s),
+            "held_readings": float(self.held_count()),
         }
         self._evaluate(rules, SERVICE, service, wall_s, wall_s)
+
+    def clock_jumped(self, jump_s: float, wall_s: float) -> None:
+        self.last_jump = (jump_s, wall_s)
+
+    def _recent_jump(self, wall_s: float) -> float:
+        """The size of the last clock jump, for an hour after it (then the alert clears)."""
+        if self.last_jump is None or not 0.0 <= wall_s - self.last_jump[1] < JUMP_REMEMBERED_S:
+            return 0.0
+        return abs(self.last_jump[0])
 
     def record_bypass(self, ep, wall_s: float) -> int | None:
         """Record a storage episode whose alert went out around the database (alerts.bypass):

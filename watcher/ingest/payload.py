@@ -56,6 +56,12 @@ class Rejected(Exception):
     """A message that cannot become a reading; the reason is short and stored with it."""
 
 
+class OutOfClock(Rejected):
+    """A reading whose own time lies outside the window around the service clock. It is held,
+    not rejected: either clock may be the wrong one, and the reading is re-admitted when the
+    two agree (watcher.engine.held)."""
+
+
 def _dig(obj, path: tuple[str, ...], what: str):
     for key in path:
         if isinstance(obj, dict) and key in obj:
@@ -156,9 +162,9 @@ def parse_message(source: Source, names: dict[str, str], payload: bytes, receive
     if not math.isfinite(ts):
         raise Rejected("timestamp is not finite")
     if ts > received_ts + limits.future_skew_s:
-        raise Rejected(f"timestamp {ts - received_ts:.0f} s in the future (tolerance {limits.future_skew_s:.0f} s)")
+        raise OutOfClock(f"timestamp {ts - received_ts:.0f} s in the future (tolerance {limits.future_skew_s:.0f} s)")
     if ts < received_ts - limits.past_limit_s:
-        raise Rejected(f"timestamp {(received_ts - ts) / 86400:.0f} days in the past")
+        raise OutOfClock(f"timestamp {(received_ts - ts) / 86400:.0f} days in the past")
     zone = names.get("zone") or source.zone
     sensor = names.get("sensor") or source.sensor or source.signal
     # Microseconds: readings stamped with the receive time must not collide in the natural key.

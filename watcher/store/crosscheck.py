@@ -38,7 +38,7 @@ def check_alerts(conn) -> list[Finding]:
         log = steps.get(alert_id, [])
         kinds = Counter(s[0] for s in log)
 
-        def at(kind: str):
+        def at(kind: str, log=log):
             return next((s for s in log if s[0] == kind), None)
 
         wrong = []

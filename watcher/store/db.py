@@ -224,6 +224,19 @@ def m008_record_seal(db: sqlite_utils.Database) -> None:
     conn.execute("INSERT INTO record_meta (key, value) VALUES ('legacy_folds_until', ?)", (legacy,))
 
 
+@migrations()
+def m009_held(db: sqlite_utils.Database) -> None:
+    """Readings whose time disagrees with the service clock, kept until the clocks agree."""
+    db.executescript(
+        """
+        CREATE TABLE held (
+            id INTEGER PRIMARY KEY, received_ts REAL NOT NULL, topic TEXT NOT NULL, payload BLOB NOT NULL,
+            reason TEXT NOT NULL
+        );
+        """
+    )
+
+
 @dataclass
 class ZoneRow:
     zone: str
@@ -373,6 +386,25 @@ class Store(OutboxRows, AlertRows, EventRows, LotRows):
         text = payload[:PAYLOAD_KEEP_BYTES].decode("utf-8", errors="backslashreplace")
         values = (received_ts, _text(topic[:512]), _text(reason), text, n)
         self.conn.execute(REJECTION_INSERT, chain.params(values))
+
+    def hold(self, received_ts: float, topic: str, payload: bytes, reason: str) -> None:
+        self.conn.execute(
+            "INSERT INTO held (received_ts, topic, payload, reason) VALUES (?,?,?,?)",
+            (received_ts, _text(topic), payload, _text(reason)),
+        )
+
+    def held_rows(self, limit: int) -> list[tuple]:
+        """(id, received_ts, topic, payload, reason), oldest first."""
+        return self.conn.execute(
+            "SELECT id, received_ts, topic, payload, reason FROM held ORDER BY id LIMIT ?", (limit,)
+        ).fetchall()
+
+    def unhold(self, ids: list[int]) -> None:
+        self.conn.executemany("DELETE FROM held WHERE id = ?", [(i,) for i in ids])
+
+    def newest_reading_ts(self) -> float | None:
+        """The newest reading time any checkpoint has seen (what the data say the time is)."""
+        return self.conn.execute("SELECT max(last_ts) FROM zone_state").fetchone()[0]
 
     def insert_gap(self, zone: str, start_ts: float, end_ts: float) -> None:
         self.conn.execute(
