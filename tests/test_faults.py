@@ -298,12 +298,17 @@ def test_tls_fails_clearly_and_never_falls_back(tmp_path, broker, case):
 
 
 def test_secrets_never_appear_in_logs_status_alerts_or_reports(tmp_path, broker):
-    """The broker password and a webhook password in a notification URL: grep the log, status
-    (text and JSON), alerts, the HTTP endpoints, the outbox and a weekly summary for them."""
+    """The broker password, and a webhook password, a token in the webhook's path and a bearer
+    header in a notification URL: grep the log, status (text and JSON), alerts, test-notify,
+    the HTTP endpoints, the outbox and a weekly summary for them."""
     hook = Receiver()
     hook_secret = "Hook-Pa55-do-not-print"
+    path_token = "T0ken-in-the-path-7d2f9c"
+    bearer = "Bearer-value-k3y-a81e"
     try:
-        url = hook.url().replace("json://", f"json://qa:{hook_secret}@")
+        url = hook.url(f"/{path_token}?+Authorization=Bearer%20{bearer}").replace(
+            "json://", f"json://qa:{hook_secret}@"
+        )
         extra = AIR_ALERT_AT_ONCE_TOML + channel_toml(tmp_path, "qa-hook", url)
         config = write_config(tmp_path, broker, reorder_s=0.0, extra=extra)
         w = WatcherProcess(config)
@@ -322,6 +327,7 @@ def test_secrets_never_appear_in_logs_status_alerts_or_reports(tmp_path, broker)
             return out.stdout + out.stderr
 
         outputs += [cli("status"), cli("status", "--json"), cli("alerts", "--json"), cli("check-config")]
+        outputs.append(cli("test-notify"))
         outputs.append(cli("report", "--week", "2026-W47", "--out", str(tmp_path / "rep")))
         outputs += [p.read_text(errors="replace") for p in (tmp_path / "rep").rglob("*") if p.is_file()]
         outputs.append(w.log.read_text())
@@ -331,8 +337,9 @@ def test_secrets_never_appear_in_logs_status_alerts_or_reports(tmp_path, broker)
         hook.close()
     everything = "\n".join(outputs)
     assert len(everything) > 10_000 and "qa-hook" in everything  # plenty to look through, the channel named
-    for secret in (broker.PASSWORD, hook_secret):
-        assert secret not in everything
+    assert "json://****@127.0.0.1" in everything  # the channel is shown, masked
+    for secret in (broker.PASSWORD, hook_secret, path_token, bearer):
+        assert secret not in everything, secret
 
 
 def test_acknowledgements_come_only_from_the_command_topic(tmp_path):

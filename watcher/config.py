@@ -10,6 +10,7 @@ from __future__ import annotations
 import logging
 import math
 import os
+import re
 import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -161,6 +162,8 @@ class _Reader:
 
     def fail(self, key: str, value, expected: str):
         path = f"{self.where}.{key}" if self.where else key
+        if _secret_shaped(key):
+            value = "(not shown: the key may hold a secret)"
         raise ConfigError(f"{self.file}: {path}", value, expected)
 
     def get(self, key, kinds, default, expected):
@@ -202,6 +205,17 @@ class _Reader:
 
 
 _REQUIRED = object()
+_SECRET_WORD = re.compile(r"(^|_)(pass|passwd|password|passphrase|secret|token|api_?key|key|auth|bearer|cred|credentials?)($|_)")
+
+
+def _secret_shaped(key: str) -> bool:
+    """A key whose value may be a secret (a stray `password`, a `url` beside `url_file`): a
+    refusal never echoes it. Keys naming a file or a credential hold paths and names."""
+    if key.endswith(("_file", "_credential", "_path")):
+        return False
+    return key in ("url", "uri", "dsn") or bool(_SECRET_WORD.search(key))
+
+
 RECORDER: list | None = None
 
 
@@ -251,7 +265,7 @@ def config_from_dict(data: dict, path: str = "config") -> Config:
     b = root.sub("broker")
     tls_r = b.sub("tls")
     tls = None
-    if tls_r.table:
+    if "tls" in b.table:  # present, even empty: TLS is wanted and must never fall back to plain text
         tls = Tls(
             ca_file=tls_r.text("ca_file", _REQUIRED), cert_file=tls_r.text("cert_file"), key_file=tls_r.text("key_file")
         )
@@ -259,8 +273,12 @@ def config_from_dict(data: dict, path: str = "config") -> Config:
             tls_r.fail("key_file", tls.key_file, "cert_file and key_file together")
         for key in ("ca_file", "cert_file", "key_file"):
             value = getattr(tls, key)
-            if value and not Path(value).is_file():
-                tls_r.fail(key, value, "an existing file")
+            if value is not None and not (value.strip() and Path(value).is_file()):
+                tls_r.fail(
+                    key,
+                    value,
+                    "an existing file" + (" (the CA that signed the broker's certificate)" if key == "ca_file" else ""),
+                )
         tls_r.done()
     status_topic = b.text("status_topic", "watcher/status")
     ack_topic = b.text("ack_topic", "watcher/ack")
@@ -522,6 +540,17 @@ def _channels(root: _Reader) -> tuple[Channel, ...]:
 
         if not usable(url):
             r.fail("url_file", "(not shown)", "a file holding one URL that apprise can use")
+        from watcher.alerts.secrets import insecure_options
+
+        insecure = insecure_options(url)
+        if insecure and not r.get(
+            "allow_insecure_tls", (bool,), False, "true to accept a URL that turns TLS checks off"
+        ):
+            r.fail(
+                "url_file",
+                ", ".join(insecure),
+                "a URL that checks the receiver's TLS certificate (or allow_insecure_tls = true on this channel)",
+            )
         out.append(Channel(name, url, tuple(tags), r.number("min_interval_s", None, 0.0, 3600.0)))
         r.done()
     names = [c.name for c in out]

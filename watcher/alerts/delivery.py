@@ -5,8 +5,9 @@ it), then sent by a deliverer that runs apart from ingestion, so a slow or dead 
 holds up readings. Each attempt keeps apprise's result and its log lines with the row; a failed
 send is retried with a doubling delay (30 s up to an hour) and given up after `max_attempts`,
 when the row stays in the table as `failed` for the record. Each row names one channel, so a
-retry reaches only the channel that failed. Channel URLs carry credentials: only their
-privacy-masked form is ever logged.
+retry reaches only the channel that failed. Channel URLs carry credentials: only their masked
+form (alerts/secrets.py) is ever logged, and apprise's log lines are scrubbed of the URL's
+secret parts before they are kept or printed.
 """
 
 from __future__ import annotations
@@ -17,6 +18,7 @@ from dataclasses import dataclass
 import apprise
 
 from watcher.alerts.channels import Channel
+from watcher.alerts.secrets import mask_url, scrub
 from watcher.store.db import Store
 
 log = logging.getLogger("watcher.delivery")
@@ -36,8 +38,7 @@ def usable(url: str) -> bool:
 
 
 def masked(url: str) -> str:
-    plugin = apprise.Apprise.instantiate(url, suppress_exceptions=True)
-    return plugin.url(privacy=True) if plugin else "(an unreadable URL)"
+    return mask_url(url)
 
 
 class Notifier:
@@ -56,8 +57,8 @@ class Notifier:
             self._apprise[ch.name] = a
 
     def describe(self) -> dict[str, str]:
-        """Channel name -> privacy-masked URL (safe to log and print)."""
-        return {name: a[0].url(privacy=True) for name, a in self._apprise.items()}
+        """Channel name -> masked URL (safe to log and print: alerts/secrets.py)."""
+        return {name: mask_url(self.channels[name].url) for name in self._apprise}
 
     def send(self, channel: str, title: str, body: str, attach: str | None = None) -> Delivery:
         a = self._apprise.get(channel)
@@ -65,7 +66,8 @@ class Notifier:
             return Delivery(False, "nochannel", f"no channel named {channel!r} in the configuration")
         result = a.notify(body=body, title=title, attach=attach)
         lines = [f"{e.level} {e.message}" for e in result.logs()]
-        return Delivery(bool(result), result.status.name.lower(), "\n".join(lines)[-4000:])
+        text = scrub("\n".join(lines), [self.channels[channel].url])  # kept in the outbox and printed
+        return Delivery(bool(result), result.status.name.lower(), text[-4000:])
 
 
 REPEAT_NOTE = "(This message may repeat one sent just before a restart.)\n\n"
