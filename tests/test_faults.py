@@ -14,6 +14,7 @@ import random
 import sqlite3
 import subprocess
 import sys
+import time
 from pathlib import Path
 
 import pytest
@@ -326,7 +327,12 @@ def test_secrets_never_appear_in_logs_status_alerts_or_reports(tmp_path, broker)
             out = subprocess.run(cmd, capture_output=True, text=True, timeout=120)
             return out.stdout + out.stderr
 
-        outputs += [cli("status"), cli("status", "--json"), cli("alerts", "--json"), cli("check-config")]
+        outputs += [cli("status"), cli("status", "--json"), cli("alerts", "--json")]
+        checked = subprocess.run(
+            [sys.executable, "-m", "watcher", "check-config", str(config)], capture_output=True, text=True
+        )
+        assert checked.returncode == 0, checked.stderr
+        outputs.append(checked.stdout + checked.stderr)
         outputs.append(cli("test-notify"))
         outputs.append(cli("report", "--week", "2026-W47", "--out", str(tmp_path / "rep")))
         outputs += [p.read_text(errors="replace") for p in (tmp_path / "rep").rglob("*") if p.is_file()]
@@ -375,3 +381,35 @@ def test_http_endpoint_binds_to_loopback_by_default(tmp_path, broker):
 @pytest.mark.skipif(faults.FAKETIME_LIB is None, reason="libfaketime is not installed (apt-get install faketime)")
 def test_a_wrong_service_clock_loses_and_deletes_nothing(tmp_path):
     check_outcome(faults.service_clock_wrong(tmp_path))
+
+
+def test_retained_readings_of_receive_time_sources_are_refused_at_reconnect(tmp_path, broker):
+    """A gateway publishes a door state with retain: the live message is a reading, but the
+    broker replays it at every reconnect; stamped with the receive time, each replay would be a
+    fresh reading and hide a dead sensor. The replays are refused with the reason and counted;
+    a retained reading that carries its own time is only a duplicate."""
+    config = write_config(tmp_path, broker, reorder_s=0.0)
+    db = tmp_path / "watcher.db"
+    w = WatcherProcess(config)
+    w.wait_ready()
+    pub = Publisher(broker)
+    pub.send([("kp/bulk-a/door", b"1")], retain=True)
+    pub.send(messages(faults.ZONES, 0, 1), retain=True)
+    wait_for(lambda: readings_count(db) == 3, 30, "the live door and air readings")
+    for _ in range(2):
+        assert w.stop() == 0
+        w = WatcherProcess(config)
+        w.wait_ready()
+        time.sleep(1.5)
+    wait_for(
+        lambda: faults._count(db, "SELECT count(*) FROM rejections WHERE reason LIKE 'retained%'") == 2, 30, "2 refused"
+    )
+    doors = faults._count(db, "SELECT count(*) FROM readings WHERE signal = 'door'")
+    status = w.get("/metrics")[1].decode()
+    assert w.stop() == 0
+    pub.send([("kp/bulk-a/door", b""), ("kp/bulk-a/s1/air", b"")], retain=True)  # clear the broker's copies
+    pub.close()
+    assert doors == 1 and readings_count(db) == 3
+    assert 'watcher_rejections_total{reason="retained"} 1.0' in status
+    out = subprocess.run([sys.executable, "-m", "watcher", "check-config", str(config)], capture_output=True, text=True)
+    assert "receive time (retained messages refused)" in out.stdout, out.stdout + out.stderr

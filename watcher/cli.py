@@ -354,7 +354,11 @@ def check_config(config_path) -> None:
         zone = "{zone} level" if "zone" in s.pattern.placeholders else f"zone {s.zone}"
         sensor = "{sensor} level" if "sensor" in s.pattern.placeholders else f"sensor {s.sensor or s.signal}"
         value = "plain number" if s.fmt == "number" else f"JSON field {'.'.join(s.value_path)}"
-        when = "receive time" if s.time_path is None else f"JSON field {'.'.join(s.time_path)} ({s.time_format})"
+        when = (
+            "receive time (retained messages refused)"
+            if s.time_path is None
+            else f"JSON field {'.'.join(s.time_path)} ({s.time_format})"
+        )
         unit = f" in {s.unit}" if s.signal in ("air_c", "product_c") else ""
         click.echo(f"  {s.pattern.filter:<32} {s.signal:<9} {zone}; {sensor}; value: {value}{unit}; time: {when}")
     click.echo("")

@@ -64,6 +64,7 @@ def reason_class(reason: str) -> str:
         "timestamp",
         "state",
         "value is",
+        "retained",
     ):
         if key in reason:
             return key.replace(" ", "_")
@@ -167,6 +168,11 @@ class Engine:
         for source in self.config.sources:
             names = source.pattern.match(msg.topic)
             if names is not None:
+                if msg.retain and source.time_path is None:
+                    raise Rejected(
+                        "retained message on a source stamped with the receive time: it is replayed at every "
+                        "reconnect and would make a dead sensor look alive (publish without retain, or add a time field)"
+                    )
                 reading = parse_message(source, names, msg.payload, msg.received_ts, self.config.ingest.limits)
                 if reading.zone not in self.runners:
                     raise Rejected(f"unknown zone {reading.zone[:64]!r}")

@@ -12,3 +12,4 @@ class Message:
     received_ts: float
     mid: int = 0
     qos: int = 0
+    retain: bool = False  # a retained message the broker replayed at subscription

@@ -96,7 +96,7 @@ class MqttLink:
 
     def _on_message(self, client, userdata, msg):
         try:
-            self.inbox.append((msg.topic, bytes(msg.payload), time.time(), msg.mid, msg.qos))
+            self.inbox.append((msg.topic, bytes(msg.payload), time.time(), msg.mid, msg.qos, bool(msg.retain)))
         except Exception:
             self.callback_errors += 1
             log.exception("mqtt: on_message failed")

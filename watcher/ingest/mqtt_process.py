@@ -5,7 +5,7 @@ Parent side: ``MqttProcess`` has the same surface as ``MqttLink`` (start, alive,
 resubscribe, connected, last_error, connects). Child side: ``_child_main`` runs an
 ``MqttLink`` and relays over one duplex pipe:
 
-    child -> parent: ("msgs", [(topic, payload, received_ts, mid, qos), ...])
+    child -> parent: ("msgs", [(topic, payload, received_ts, mid, qos, retain), ...])
                      ("state", {"connected": bool, "last_error": str|None, "connects": int, ...})
     parent -> child: ("ack", [(mid, qos), ...]) | ("subscribe", [filters]) | ("stop", None)
 
@@ -149,7 +149,7 @@ class MqttProcess:
             while True:
                 kind, body = self._conn.recv()
                 if kind == "msgs":
-                    self.inbox.extend(Message(t, p, r, mid, qos) for t, p, r, mid, qos in body)
+                    self.inbox.extend(Message(t, p, r, mid, qos, ret) for t, p, r, mid, qos, ret in body)
                 elif kind == "state":
                     was = self.connected.is_set()
                     self.last_error = body["last_error"]
