@@ -99,3 +99,56 @@ def test_install_upgrade_and_uninstall_keep_the_data(tmp_path):
     assert not (root / "opt/watcher").exists() and not (root / "etc/systemd/system/watcher.service").exists()
     assert (root / "var/lib/watcher/watcher.db").read_text() == "data"
     assert (root / "etc/watcher/watcher.toml").exists()
+
+
+LIMIT_KEYS = (
+    "persistence",
+    "autosave_interval",
+    "max_queued_messages",
+    "max_queued_bytes",
+    "max_inflight_messages",
+    "max_packet_size",
+    "memory_limit",
+)
+
+
+def test_shipped_broker_limits_refuse_oversized_messages(tmp_path):
+    """The shipped mosquitto.conf's limits, in a real mosquitto: a message larger than watcher
+    accepts is refused by the broker (never queued or held), a normal one goes through."""
+    import paho.mqtt.client as mqtt
+
+    from tests.broker import MOSQUITTO, free_port
+
+    shipped = (ROOT / "deploy" / "mosquitto" / "mosquitto.conf").read_text().splitlines()
+    limits = [line for line in shipped if line.split(" ")[0] in LIMIT_KEYS]
+    assert {line.split(" ")[0] for line in limits} == set(LIMIT_KEYS)  # every limit is set in the shipped file
+    port = free_port()
+    (tmp_path / "persist").mkdir()
+    conf = tmp_path / "m.conf"
+    conf.write_text(
+        "\n".join(limits)
+        + f"\nuser root\npersistence_location {tmp_path / 'persist'}/\nallow_anonymous true\nlistener {port} 127.0.0.1\n"
+    )
+    broker = subprocess.Popen([MOSQUITTO, "-c", str(conf)], stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    got: list[int] = []
+    try:
+        import time
+
+        time.sleep(0.5)
+        sub = mqtt.Client(mqtt.CallbackAPIVersion.VERSION2, client_id="sub", protocol=mqtt.MQTTv5)
+        sub.on_message = lambda c, u, m: got.append(len(m.payload))
+        sub.connect("127.0.0.1", port)
+        sub.subscribe("kp/#", qos=1)
+        sub.loop_start()
+        for size in (60_000, 200_000, 16 * 1024 * 1024):
+            pub = mqtt.Client(mqtt.CallbackAPIVersion.VERSION2, client_id=f"pub{size}", protocol=mqtt.MQTTv311)
+            pub.connect("127.0.0.1", port)
+            pub.loop_start()
+            pub.publish("kp/bulk-a/s1/air", b"x" * size, qos=1).wait_for_publish(3)
+            pub.loop_stop()
+        time.sleep(1.0)
+        sub.loop_stop()
+    finally:
+        broker.terminate()
+        broker.wait(10)
+    assert got == [60_000]

@@ -413,3 +413,30 @@ def test_retained_readings_of_receive_time_sources_are_refused_at_reconnect(tmp_
     assert 'watcher_rejections_total{reason="retained"} 1.0' in status
     out = subprocess.run([sys.executable, "-m", "watcher", "check-config", str(config)], capture_output=True, text=True)
     assert "receive time (retained messages refused)" in out.stdout, out.stdout + out.stderr
+
+
+def test_idle_http_connections_are_bounded_and_dropped(tmp_path, broker):
+    """300 connections to the health port that never send a request: watcher holds at most a
+    handful of descriptors for them, drops them after the request timeout, and answers again."""
+    import socket
+
+    from watcher.health import MAX_CONNECTIONS, REQUEST_TIMEOUT_S
+
+    config = write_config(tmp_path, broker, reorder_s=0.0)
+    w = WatcherProcess(config)
+    w.wait_ready()
+    fds_before = len(list(Path(f"/proc/{w.proc.pid}/fd").iterdir()))
+    idle = []
+    for _ in range(300):
+        s = socket.create_connection(("127.0.0.1", w.health_port))
+        idle.append(s)
+    time.sleep(1.0)
+    fds_during = len(list(Path(f"/proc/{w.proc.pid}/fd").iterdir()))
+    t0 = time.monotonic()
+    wait_for(lambda: w.get("/healthz")[0] == 200, REQUEST_TIMEOUT_S + 10, "an answer again")
+    waited = time.monotonic() - t0
+    for s in idle:
+        s.close()
+    assert w.stop() == 0
+    assert fds_during - fds_before <= MAX_CONNECTIONS + 4, (fds_before, fds_during)
+    assert waited <= REQUEST_TIMEOUT_S + 5

@@ -205,7 +205,9 @@ class _Reader:
 
 
 _REQUIRED = object()
-_SECRET_WORD = re.compile(r"(^|_)(pass|passwd|password|passphrase|secret|token|api_?key|key|auth|bearer|cred|credentials?)($|_)")
+_SECRET_WORD = re.compile(
+    r"(^|_)(pass|passwd|password|passphrase|secret|token|api_?key|key|auth|bearer|cred|credentials?)($|_)"
+)
 
 
 def _secret_shaped(key: str) -> bool:

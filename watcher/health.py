@@ -76,6 +76,37 @@ class _ZoneCollector:
         yield budget
 
 
+REQUEST_TIMEOUT_S = 10.0
+MAX_CONNECTIONS = 16
+
+
+class _BoundedServer(ThreadingHTTPServer):
+    """At most MAX_CONNECTIONS served at once; more are closed at once. Idle sockets once held
+    800 threads and file descriptors and starved alert delivery of descriptors."""
+
+    daemon_threads = True
+
+    def __init__(self, *args, **kw):
+        self._slots = threading.BoundedSemaphore(MAX_CONNECTIONS)
+        super().__init__(*args, **kw)
+
+    def process_request(self, request, client_address):
+        if not self._slots.acquire(blocking=False):
+            self.shutdown_request(request)
+            return
+        try:
+            super().process_request(request, client_address)
+        except Exception:
+            self._slots.release()
+            raise
+
+    def process_request_thread(self, request, client_address):
+        try:
+            super().process_request_thread(request, client_address)
+        finally:
+            self._slots.release()
+
+
 class HealthServer:
     """Serves /healthz, /readyz and /metrics from a daemon thread."""
 
@@ -83,6 +114,8 @@ class HealthServer:
         metrics_ref, health, ready = metrics, health_fn, ready_fn
 
         class Handler(BaseHTTPRequestHandler):
+            timeout = REQUEST_TIMEOUT_S  # an idle or slow client is dropped after this
+
             def do_GET(self):  # noqa: N802 (http.server's name)
                 if self.path == "/metrics":
                     self._send(200, generate_latest(metrics_ref.registry), CONTENT_TYPE)
@@ -102,7 +135,7 @@ class HealthServer:
             def log_message(self, *args):
                 pass
 
-        self.httpd = ThreadingHTTPServer((host, port), Handler)
+        self.httpd = _BoundedServer((host, port), Handler)
         self.port = self.httpd.server_address[1]
         self.thread = threading.Thread(target=self.httpd.serve_forever, name="health", daemon=True)
 
