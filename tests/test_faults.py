@@ -36,10 +36,11 @@ from tests.service_harness import (
     write_config,
 )
 from tests.test_monitor import make
-from watcher.engine.batch import Message
+from watcher.engine.batch import Engine, Message
 from watcher.engine.held import readmit
 from watcher.ingest.payload import Limits, Rejected, Source, parse_message
 from watcher.ingest.topics import parse_pattern
+from watcher.store import chain
 
 NOW = 1_795_000_000.0
 LIMITS = Limits()
@@ -114,9 +115,11 @@ def test_topics_with_wildcards_or_control_characters_never_match(topic):
 def test_each_bad_class_is_rejected_with_its_reason_in_process(tmp_path):
     """The same generated corpus the broker run uses, straight into the engine: every class
     rejected with the words its reason must hold; topics the broker itself refuses (control
-    characters, wildcards) are refused here too."""
+    characters, wildcards) are refused here too. (Every rejection stored one by one: the rate
+    limit per topic is off here and tested on its own.)"""
     cfg, store, engine = make(
         tmp_path,
+        ingest={"rejections_per_topic_per_min": 0},
         zones=[{"id": "bulk-a", "setpoint_c": -25.0}, {"id": "dispatch", "setpoint_c": -25.0}],
         sources=[
             {"pattern": "kp/{zone}/{sensor}/air", "signal": "air_c", "value": "temp_c", "time": "ts"},
@@ -440,3 +443,36 @@ def test_idle_http_connections_are_bounded_and_dropped(tmp_path, broker):
     assert w.stop() == 0
     assert fds_during - fds_before <= MAX_CONNECTIONS + 4, (fds_before, fds_during)
     assert waited <= REQUEST_TIMEOUT_S + 5
+
+
+def test_rejections_past_a_topics_rate_are_counted_not_stored_one_by_one(tmp_path):
+    """A gateway floods one topic with 5,000 bad messages: 60 a minute are stored in full, the
+    rest become rows that say how many they stand for; every message is accounted for, and
+    another topic's rejections are stored in full beside them."""
+    cfg, store, engine = make(tmp_path)
+    flood = [Message("kp/bulk-a/s1/air", b"garbage", NOW + i * 0.001, i, 1) for i in range(5000)]
+    other = [Message("kp/bulk-a/s2/air", b"{}", NOW, 9000 + i, 1) for i in range(10)]
+    for lo in range(0, 5000, 500):
+        engine.process(flood[lo : lo + 500] + (other if lo == 0 else []), now=NOW)
+    rows = store.conn.execute("SELECT topic, n, reason FROM rejections ORDER BY id").fetchall()
+    per_topic = {t: sum(n for tt, n, _ in rows if tt == t) for t in {r[0] for r in rows}}
+    assert per_topic == {"kp/bulk-a/s1/air": 5000, "kp/bulk-a/s2/air": 10}
+    flood_rows = [r for r in rows if r[0] == "kp/bulk-a/s1/air"]
+    assert len(flood_rows) == 60 + 10  # 60 in full, then one counting row per batch
+    assert "within the minute" in flood_rows[-1][2] and "invalid JSON" in flood_rows[-1][2]
+    findings, _ = chain.verify(store.conn)
+    assert findings == []
+
+
+def test_a_zone_takes_at_most_its_cap_of_sensor_names(tmp_path):
+    """A runaway gateway inventing sensor names: past ingest.max_sensors_per_zone new names are
+    rejected with the reason; known sensors still go in, and the cap survives a restart."""
+    cfg, store, engine = make(tmp_path, ingest={"max_sensors_per_zone": 5})
+    msgs = [_air(k, NOW - 600 + k, NOW, f"s{k}") for k in range(8)] + [_air(20, NOW - 500, NOW, "s1")]
+    r = engine.process(msgs, now=NOW)
+    assert (r.counts["accepted"], r.counts["rejected"]) == (6, 3)
+    reasons = [x[0] for x in store.conn.execute("SELECT reason FROM rejections")]
+    assert all("already has 5 sensors" in x and "max_sensors_per_zone" in x for x in reasons)
+    again = Engine(cfg, store, checkpoint_s=0.0)
+    assert again.process([_air(30, NOW - 400, NOW, "s9")], now=NOW).counts["rejected"] == 1
+    assert again.process([_air(31, NOW - 300, NOW, "s2")], now=NOW).counts["accepted"] == 1

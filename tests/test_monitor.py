@@ -27,7 +27,7 @@ DEFAULT_SOURCES = [
 ]
 
 
-def make(tmp_path, rules=(), keep=(), channels=(), zones=None, sources=None):
+def make(tmp_path, rules=(), keep=(), channels=(), zones=None, sources=None, ingest=None):
     write_secret(tmp_path / "pw", "x")
     notify = []
     for name, url, tags in channels:
@@ -37,7 +37,7 @@ def make(tmp_path, rules=(), keep=(), channels=(), zones=None, sources=None):
         {
             "broker": {"password_file": str(tmp_path / "pw")},
             "storage": {"path": str(tmp_path / "w.db")},
-            "ingest": {"reorder_window_s": 0.0, "max_gap_s": 900.0},
+            "ingest": {"reorder_window_s": 0.0, "max_gap_s": 900.0, **(ingest or {})},
             "sites": [{"id": "kp", "timezone": "UTC"}],
             "zones": zones or [{"id": "bulk-a", "setpoint_c": -25.0}],
             "sources": sources or DEFAULT_SOURCES,

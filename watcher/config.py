@@ -69,6 +69,8 @@ class Ingest:
     stall_limit_s: float = 600.0
     hold_days: float = 7.0
     hold_max: int = 100_000
+    max_sensors_per_zone: int = 64
+    rejections_per_topic_per_min: int = 60
     limits: Limits = Limits()
 
 
@@ -330,6 +332,8 @@ def config_from_dict(data: dict, path: str = "config") -> Config:
         stall_limit_s=i.number("stall_limit_s", 600.0, 10.0, 86400.0),
         hold_days=i.number("hold_days", 7.0, 0.01, 400.0),
         hold_max=int(i.integer("hold_max", 100_000, 0, 10_000_000)),
+        max_sensors_per_zone=int(i.integer("max_sensors_per_zone", 64, 1, 10_000)),
+        rejections_per_topic_per_min=int(i.integer("rejections_per_topic_per_min", 60, 0, 1_000_000)),
         limits=Limits(
             max_payload_bytes=int(i.integer("max_payload_bytes", 65536, 64, 16 * 1024 * 1024)),
             future_skew_s=i.number("future_skew_s", 300.0, 0.0, 86400.0),

@@ -18,6 +18,7 @@ from dataclasses import dataclass, field
 from watcher.config import Config
 from watcher.engine.lots import parse_payload, record_event
 from watcher.engine.monitor import Monitor
+from watcher.engine.rejects import Excess, RejectionLimiter
 from watcher.engine.zones import ZoneRunner, spec_key
 from watcher.errors import InputError
 from watcher.ingest.message import Message
@@ -65,6 +66,7 @@ def reason_class(reason: str) -> str:
         "state",
         "value is",
         "retained",
+        "already has",
     ):
         if key in reason:
             return key.replace(" ", "_")
@@ -82,6 +84,7 @@ class Engine:
         self._load(z.id for z in config.zones)
         self.monitor = self._monitor()
         self.held_count = store.count("held")
+        self.limiter = RejectionLimiter(config.ingest.rejections_per_topic_per_min)
 
     def _monitor(self) -> Monitor:
         m = Monitor(self.config, self.store)
@@ -122,6 +125,7 @@ class Engine:
                         "zone %s: settings changed since the last checkpoint, recomputing from stored readings", zid
                     )
             self._replay_into(runner, after)
+            runner.sensor_names = self.store.sensor_names(zid)
             self.runners[zid] = runner
 
     def _replay_into(self, runner: ZoneRunner, after_ts: float | None) -> None:
@@ -156,6 +160,7 @@ class Engine:
     def recompute(self, zone_id: str) -> ZoneRunner:
         """Rebuild one zone from its anchor and every raw reading stored after it."""
         runner, after = self._from_anchor(zone_id)
+        runner.sensor_names = self.store.sensor_names(zone_id)
         for sensor, signal, ts, value in self.store.readings_for(zone_id, after):
             runner.accept(Reading(zone_id, sensor, signal, ts, value))
         total, last = self.store.zone_summary(zone_id)
@@ -174,8 +179,17 @@ class Engine:
                         "reconnect and would make a dead sensor look alive (publish without retain, or add a time field)"
                     )
                 reading = parse_message(source, names, msg.payload, msg.received_ts, self.config.ingest.limits)
-                if reading.zone not in self.runners:
+                runner = self.runners.get(reading.zone)
+                if runner is None:
                     raise Rejected(f"unknown zone {reading.zone[:64]!r}")
+                if reading.sensor not in runner.sensor_names:
+                    cap = self.config.ingest.max_sensors_per_zone
+                    if len(runner.sensor_names) >= cap:
+                        raise Rejected(
+                            f"sensor {reading.sensor[:64]!r}: zone {reading.zone} already has {cap} sensors "
+                            "(ingest.max_sensors_per_zone; raise it if these sensors are real)"
+                        )
+                    runner.sensor_names.add(reading.sensor)
                 return reading
         raise Rejected("no source pattern matches the topic")
 
@@ -209,14 +223,17 @@ class Engine:
                 result.rejections[reason_class(str(exc))] += 1
                 result.counts["rejected"] += 1
         touched: set[str] = set()
+        excess: dict[str, Excess] = {}
         with self._transaction(touched):
             for item, msg in parsed:
                 if item is None:
-                    self._command(msg, result)
+                    self._command(msg, result, excess)
                 elif isinstance(item, str):
-                    self.store.insert_rejection(msg.received_ts, msg.topic, item, msg.payload)
+                    self._reject(msg, item, excess)
                 elif isinstance(item, tuple):
                     self.store.hold(msg.received_ts, msg.topic, msg.payload, item[1])
+            for topic, ex in excess.items():
+                self.store.insert_rejection(ex.first_ts, topic, self.limiter.summary(ex), ex.payload, n=ex.n)
             good = [(item, msg.received_ts, msg.topic) for item, msg in parsed if isinstance(item, Reading)]
             self._store_readings(good, result, touched)
             self._finish(touched, result, now)
@@ -235,7 +252,15 @@ class Engine:
             self.held_count = self.store.count("held")
             raise
 
-    def _command(self, msg: Message, result: BatchResult) -> None:
+    def _reject(self, msg: Message, reason: str, excess: dict[str, Excess]) -> None:
+        """Store one rejection, or count it in its topic's row once the topic is over its rate."""
+        if self.limiter.admit(msg.topic, msg.received_ts):
+            self.store.insert_rejection(msg.received_ts, msg.topic, reason, msg.payload)
+            return
+        ex = excess.setdefault(msg.topic, Excess(msg.received_ts, reason, msg.payload))
+        ex.n, ex.reason, ex.payload = ex.n + 1, reason, msg.payload
+
+    def _command(self, msg: Message, result: BatchResult, excess: dict[str, Excess]) -> None:
         """An acknowledgement or a lot event. On `<topic>/<user>` the last level names the
         sender: the broker's ACL lets only that user write there (deploy/mosquitto/acl), so it
         is recorded as the identity the broker vouches for."""
@@ -253,7 +278,7 @@ class Engine:
             self.monitor.command(msg.payload, msg.received_ts, sender=sender)
             result.counts["command"] += 1
         except InputError as exc:
-            self.store.insert_rejection(msg.received_ts, msg.topic, str(exc), msg.payload)
+            self._reject(msg, str(exc), excess)
             result.rejections["ack_command" if base == ack else "lot_event"] += 1
             result.counts["rejected"] += 1
 

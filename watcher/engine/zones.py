@@ -50,6 +50,7 @@ class ZoneRunner:
         self.last_ts: float | None = None
         self.last_air_c: float | None = None
         self.last_product_c: float | None = None
+        self.sensor_names: set[str] = set()  # every sensor name the zone has taken (capped by the engine)
         self._last_air_seen = -math.inf
         self._last_probe_seen = -math.inf
 

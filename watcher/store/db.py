@@ -402,6 +402,10 @@ class Store(OutboxRows, AlertRows, EventRows, LotRows):
     def unhold(self, ids: list[int]) -> None:
         self.conn.executemany("DELETE FROM held WHERE id = ?", [(i,) for i in ids])
 
+    def sensor_names(self, zone: str) -> set[str]:
+        sql = "SELECT DISTINCT sensor FROM readings WHERE zone = ? UNION SELECT DISTINCT sensor FROM readings_hourly WHERE zone = ?"
+        return {r[0] for r in self.conn.execute(sql, (zone, zone))}
+
     def newest_reading_ts(self) -> float | None:
         """The newest reading time any checkpoint has seen (what the data say the time is)."""
         return self.conn.execute("SELECT max(last_ts) FROM zone_state").fetchone()[0]
