@@ -8,7 +8,7 @@
 #   bash deploy/install.sh --root DIR         the same into DIR, without systemctl (for tests)
 #
 # Layout: /opt/watcher/venv (the program), /opt/watcher/docs, /etc/watcher/watcher.toml
-# (0640), /etc/watcher/credentials/ (0700, secrets 0600, read by systemd's LoadCredential=),
+# (0644: no secrets in it), /etc/watcher/credentials/ (0700, secrets 0600, read by systemd's LoadCredential=),
 # /etc/systemd/system/watcher.service. The service runs as a dynamic user with its state in
 # /var/lib/watcher (StateDirectory=).
 set -euo pipefail
@@ -53,10 +53,13 @@ rm -rf "$OPT/docs" && cp -r "$SRC/docs" "$OPT/docs"
 
 install -d -m 0755 "$ETC"
 install -d -m 0700 "$ETC/credentials"
+# 0644: the unit's DynamicUser is neither root nor in root's group, so a 0640 root:root file is
+# unreadable to it. The file holds no secrets (they are credentials, below).
 if [ ! -e "$ETC/watcher.toml" ]; then
-  install -m 0640 "$SRC/config.example.toml" "$ETC/watcher.toml"
+  install -m 0644 "$SRC/config.example.toml" "$ETC/watcher.toml"
   echo "install.sh: wrote $ETC/watcher.toml from the example: edit it, then \`watcher check-config\` it"
 else
+  chmod 0644 "$ETC/watcher.toml"
   echo "install.sh: kept your $ETC/watcher.toml"
 fi
 for cred in broker-password notify-qa-mail notify-night-chat; do

@@ -226,3 +226,31 @@ def test_retention_folds_old_readings_and_keeps_recomputation_exact(tmp_path):
     for lo in range(0, len(full_msgs), 2000):
         full.process(full_msgs[lo : lo + 2000], now)
     same_state(state_of(eng), state_of(full))
+
+
+def test_a_duplicate_with_another_value_is_recorded_not_only_counted(tmp_path):
+    """The same sensor and time again with a different value: the first stays, the conflict is
+    a rejection naming both values (it was only a metric before)."""
+    _, store, eng = make(tmp_path)
+    eng.process([msg("bulk-a", 1, value=-25.0)], NOW)
+    again = eng.process([msg("bulk-a", 1, value=-19.5), msg("bulk-a", 1, value=-25.0)], NOW)
+    assert again.counts["duplicate"] == 2 and again.rejections["conflicting_duplicate"] == 1
+    (reason,) = [r[0] for r in store.conn.execute("SELECT reason FROM rejections")]
+    assert "stored -25.0, got -19.5" in reason
+    assert store.conn.execute("SELECT value FROM readings").fetchall() == [(-25.0,)]
+
+
+def test_database_file_is_private_and_a_bad_path_is_a_clear_error(tmp_path):
+    import os
+    import stat
+
+    from watcher.store.db import Store, StoreError
+
+    old = os.umask(0o022)
+    try:
+        Store(str(tmp_path / "new.db")).close()
+    finally:
+        os.umask(old)
+    assert stat.S_IMODE((tmp_path / "new.db").stat().st_mode) == 0o600
+    with pytest.raises(StoreError, match="/proc/watcher.db: cannot open the database"):
+        Store("/proc/watcher.db")

@@ -139,6 +139,12 @@ def test_budget_and_record_heads(w47):
     findings, _ = chain.verify(db)
     assert findings == [] and chain.check_reports(db) == []
     assert "not a legal limit for ice cream" in " ".join(data["cautions"])
+    assert all(len(v) == 3 and v[2] >= 1 for v in data["integrity"]["heads"].values())  # lengths pinned too
+
+
+def test_summary_files_are_readable_by_owner_and_group_only(w47):
+    _, _, _, paths, _, _ = w47
+    assert paths and {p.stat().st_mode & 0o777 for p in paths} == {0o640}
 
 
 def test_a_zone_without_events(w47):

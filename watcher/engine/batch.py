@@ -325,6 +325,13 @@ class Engine:
         late = runner.is_late(reading)
         if not self.store.insert_reading(reading, received_ts, topic, late):
             result.counts["duplicate"] += 1
+            stored = self.store.stored_value(reading)
+            if stored is not None and stored != reading.value:
+                # The same sensor and time with another value: the first stays (the record is
+                # append-only); the conflict is recorded, not just counted.
+                why = f"conflicts with the stored reading at that time (stored {stored!r}, got {reading.value!r}); first kept"
+                self.store.insert_rejection(received_ts, topic, f"sensor {reading.sensor!r}: {why}", b"")
+                result.rejections["conflicting_duplicate"] += 1
             return
         touched.add(reading.zone)
         self.monitor.observe(reading, received_ts)

@@ -277,7 +277,7 @@ def to_json(r: Report) -> dict:
 
 def write(r: Report, out_dir: str | Path, formats=FORMATS) -> list[Path]:
     out = Path(out_dir)
-    out.mkdir(parents=True, exist_ok=True)
+    out.mkdir(mode=0o750, parents=True, exist_ok=True)
     stem = f"{r.site.id}-{r.week.label}"
     paths = []
     if "html" in formats:
@@ -293,4 +293,6 @@ def write(r: Report, out_dir: str | Path, formats=FORMATS) -> list[Path]:
             p = out / f"{stem}-{name}.csv"
             (df if df is not None else pd.DataFrame()).to_csv(p, index=False)
             paths.append(p)
+    for p in paths:  # the site's record: owner and group only, also when run by hand outside systemd
+        p.chmod(0o640)
     return paths

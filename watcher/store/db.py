@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import io
 import json
+import os
 import sqlite3
 from collections.abc import Iterable, Iterator
 from contextlib import contextmanager
@@ -299,6 +300,8 @@ class Store(OutboxRows, AlertRows, EventRows, LotRows):
         try:
             if not readonly:
                 Path(path).parent.mkdir(parents=True, exist_ok=True)
+                if not Path(path).exists():  # the record: owner only (WAL and SHM files follow its mode)
+                    os.close(os.open(path, os.O_CREAT | os.O_WRONLY, 0o600))
             elif not Path(path).is_file():
                 raise StoreError(f"{path}: no database here yet (has `watcher run` or `watcher replay` written one?)")
             self.conn = _connect(path, readonly)
@@ -308,7 +311,7 @@ class Store(OutboxRows, AlertRows, EventRows, LotRows):
                 self.conn.execute("PRAGMA journal_mode = WAL")
                 self.conn.execute("PRAGMA synchronous = FULL")
                 migrations.apply(self.db)
-        except sqlite3.Error as exc:
+        except (sqlite3.Error, OSError) as exc:
             raise StoreError(f"{path}: cannot open the database ({exc})") from exc
 
     def close(self) -> None:
@@ -401,6 +404,13 @@ class Store(OutboxRows, AlertRows, EventRows, LotRows):
 
     def unhold(self, ids: list[int]) -> None:
         self.conn.executemany("DELETE FROM held WHERE id = ?", [(i,) for i in ids])
+
+    def stored_value(self, reading) -> float | None:
+        row = self.conn.execute(
+            "SELECT value FROM readings WHERE zone = ? AND sensor = ? AND signal = ? AND ts = ?",
+            (reading.zone, reading.sensor, reading.signal, reading.ts),
+        ).fetchone()
+        return None if row is None else row[0]
 
     def sensor_names(self, zone: str) -> set[str]:
         sql = "SELECT DISTINCT sensor FROM readings WHERE zone = ? UNION SELECT DISTINCT sensor FROM readings_hourly WHERE zone = ?"
