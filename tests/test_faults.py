@@ -476,3 +476,8 @@ def test_a_zone_takes_at_most_its_cap_of_sensor_names(tmp_path):
     again = Engine(cfg, store, checkpoint_s=0.0)
     assert again.process([_air(30, NOW - 400, NOW, "s9")], now=NOW).counts["rejected"] == 1
     assert again.process([_air(31, NOW - 300, NOW, "s2")], now=NOW).counts["accepted"] == 1
+
+
+def test_broker_killed_mid_stream_loses_only_its_unsaved_window(tmp_path):
+    outcome = faults.broker_killed_mid_stream(tmp_path, rounds=2)
+    check_outcome(outcome)

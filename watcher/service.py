@@ -327,6 +327,7 @@ class Service:
             if time.monotonic() >= next_retention:
                 self._retention()
                 next_retention = time.monotonic() + RETENTION_EVERY_S
+                self.last_progress = time.monotonic()  # a long pass is work, not a stall
             if time.monotonic() >= next_tick:
                 self._watch_clock()
                 self._tick()
