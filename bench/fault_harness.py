@@ -60,7 +60,7 @@ def run_checks(path: str, keywords: str | None) -> list[tuple[str, str]]:
     out = subprocess.run(
         cmd + (["-k", keywords] if keywords else []), cwd=ROOT, capture_output=True, text=True, timeout=900
     )
-    found = re.findall(rf"^(PASSED|FAILED|ERROR|SKIPPED) {re.escape(path)}::(\S+)", out.stdout, re.M)
+    found = re.findall(rf"^(PASSED|FAILED|ERROR|SKIPPED) {re.escape(path)}::(.+?)(?: - .*)?$", out.stdout, re.M)
     return [(name, result) for result, name in found]
 
 
@@ -93,7 +93,8 @@ def render(outcomes, failures, checks, tamper, started: float, args) -> str:
             "## Bad input classes",
             "",
             "Each class is generated with random variations (tests/abuse.py), sent through the broker",
-            "and must come back as a stored rejection whose reason holds these words:",
+            "and must come back as a stored rejection whose reason holds these words (the two timestamp",
+            "classes as held readings with that reason: their time disagrees with the service clock):",
             "",
             "| Class | Reason contains |",
             "|---|---|",

@@ -626,6 +626,7 @@ def service_clock_wrong(folder: Path) -> Outcome:
     stepped back (NTP), a clock-jump alert is raised and every held reading goes in. Then the
     clock is stepped an hour slow: readings stamped now are held as 'in the future' and go in
     once the clock is right again. Nothing is lost, nothing is rejected."""
+    folder.mkdir(parents=True, exist_ok=True)
     db = folder / "watcher.db"
     offset = folder / "faketime-offset"
     offset.write_text("+0\n")

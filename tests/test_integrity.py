@@ -83,6 +83,7 @@ def test_intact_record_verifies(filled):
         ("UPDATE lot_events SET zone = 'bulk-a' WHERE kind = 'move'", "lot_events"),
         ('UPDATE lots SET initial = \'{"kind": "fresh"}\'', "lots"),  # the declared state, quietly reset
     ],
+    ids=["reading-value", "reading-deleted", "alert-log-by", "event-end", "lot-move-zone", "lot-start-state"],
 )
 def test_an_altered_row_is_named(filled, edit, chain_name):
     """Changing a value, deleting a row, or rewriting a log entry: verify exits 1 and names the
