@@ -26,7 +26,7 @@ from watcher.engine.batch import Engine, Message
 from watcher.errors import StoreError, WatcherError
 from watcher.health import HealthServer, Metrics
 from watcher.ingest.mqtt_process import MqttProcess
-from watcher.ingest.suspects import SET_ASIDE_AFTER, Suspects
+from watcher.ingest.suspects import Suspects
 from watcher.store.db import Store
 
 log = logging.getLogger("watcher.service")
@@ -185,19 +185,25 @@ class Service:
         self._acknowledge(batch, result)
 
     def _handle_suspects(self, batch: list[Message]) -> list[Message]:
-        """Commit the suspects in the batch on their own; return the others."""
-        rest = []
-        for m in batch:
-            starts = self.suspects.failed_starts(m)
-            if starts >= SET_ASIDE_AFTER:
-                reason = f"handling it stopped the service {starts} starts in a row; set aside"
-                log.error("message on %s: %s", m.topic, reason)
-                self._set_aside(m, reason)
-            elif starts >= 2:
-                self._commit([m], careful=False)
-            else:
-                rest.append(m)
-        return rest
+        """Messages in hand when the last process died are tried first in a throwaway process;
+        one that ends or hangs it is set aside. Returns the batch without those."""
+        from watcher.engine.trial import find_breakers
+
+        suspects = [m for m in batch if self.suspects.starts(m)]
+        if not suspects:
+            return batch
+        log.warning("trying %d message(s) that were in hand when the last process died", len(suspects))
+        breakers = find_breakers(self.config.path, suspects)
+        for i, why in breakers.items():
+            m = suspects[i]
+            reason = (
+                f"handling it ends the service ({why}; in hand when {self.suspects.starts(m)} start(s) died); set aside"
+            )
+            log.error("message on %s: %s", m.topic, reason)
+            self._set_aside(m, reason)
+        set_aside = {id(suspects[i]) for i in breakers}
+        self.suspects.done([m for m in suspects if id(m) not in set_aside])  # cleared by the trial
+        return [m for m in batch if id(m) not in set_aside]
 
     def _set_aside(self, msg: Message, reason: str) -> None:
         self.suspects.holding([msg])
