@@ -269,3 +269,13 @@ def test_an_empty_tls_table_is_refused_not_plain_text(tmp_path, tls):
     with pytest.raises(ConfigError) as info:
         config_from_dict(data, "c.toml")
     assert "broker.tls.ca_file" in str(info.value)
+
+
+def test_a_budget_rule_keeps_latching_when_its_threshold_changes(tmp_path):
+    """Texture damage does not heal: `lot-80` with a site's own threshold still latches (the
+    configuration used to recompute latch from the metric name and dropped it for lot rules)."""
+    data = base(tmp_path)
+    data["alerts"] = {"rules": [{"id": "lot-80", "above": 70.0}, {"id": "budget-50", "above": 40.0}]}
+    rules = {r.id: r for r in config_from_dict(data, "c.toml").alerting.rules}
+    assert rules["lot-80"].latch and rules["lot-80"].threshold == 70.0
+    assert rules["budget-50"].latch and not rules["days-left"].latch

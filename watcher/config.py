@@ -18,6 +18,7 @@ from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
 from watcher.alerts.channels import Channel
 from watcher.alerts.messages import auto_label
+from watcher.alerts.metrics import metric as metric_named
 from watcher.alerts.policy import METRICS, SEVERITIES, Rule, default_rules
 from watcher.errors import ConfigError, ProfileError
 from watcher.events.detect import DefrostShape
@@ -496,7 +497,7 @@ def _alerting(r: _Reader, zone_ids: set[str]) -> Alerting:
             for_s=for_min * 60.0,
             hysteresis=hysteresis,
             clear_for_s=rr.number("clear_after_min", base.clear_for_s / 60.0 if base else 0.0, 0.0, 7 * 1440.0) * 60.0,
-            latch=metric == "budget_used_pct",  # texture damage does not heal
+            latch=metric_named(metric).latch,  # texture damage does not heal, whatever the threshold
             label=rr.text("label", base.label if unchanged else auto_label(metric, op, threshold, for_min * 60.0)),
             zones=zones,
         )

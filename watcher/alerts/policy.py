@@ -12,28 +12,16 @@ from __future__ import annotations
 
 from dataclasses import dataclass, replace
 
+from watcher.alerts.metrics import METRICS as _METRICS
+from watcher.alerts.metrics import PER_LOT, WALL_CLOCK
+
 SEVERITIES = ("info", "warning", "critical")
-# Judged on the service's own clock (the rest on the zone's data time, so a replay or a sensor
-# clock that runs late still gives the right durations).
-WALL_CLOCK_METRICS = ("reading_age_s", "broker_down_s", "rejections_per_h", "undelivered_s", "commit_failing_s")
-WALL_CLOCK_METRICS += ("clock_jump_s", "held_readings")
-LOT_METRICS = ("lot_budget_used_pct", "lot_days_to_limit")  # judged per lot (alert zone "lot:<id>")
-METRICS = (
-    (
-        "budget_used_pct",
-        "days_to_limit",
-        "event_budget_share_pct",
-        "event_excess_um",
-        "air_c",
-        "product_c",
-        "door_open_s",
-        "defrost_s",
-        "defrosts_today",
-        "sensor_spread_k",
-    )
-    + WALL_CLOCK_METRICS
-    + LOT_METRICS
-)
+# The metrics and their properties live in metrics.py; these are their names by clock (zone
+# rules are judged on the zone's data time, so a replay or a late sensor clock still gives the
+# right durations; wall-clock rules on the service's own clock; lot rules per lot).
+METRICS = tuple(_METRICS)
+WALL_CLOCK_METRICS = WALL_CLOCK
+LOT_METRICS = PER_LOT  # judged per lot (alert zone "lot:<id>")
 
 
 @dataclass(frozen=True)

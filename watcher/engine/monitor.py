@@ -15,6 +15,7 @@ from dataclasses import asdict, dataclass, field, replace
 
 from watcher.alerts import messages
 from watcher.alerts.channels import route
+from watcher.alerts.metrics import metric
 from watcher.alerts.policy import LOT_METRICS, WALL_CLOCK_METRICS, AlertState, Rule, acknowledge, evaluate
 from watcher.config import Config
 from watcher.engine.analysis import CONTEXT_S, analyse, analysis_points, take_snapshot
@@ -315,7 +316,7 @@ class Monitor:
                 threshold=rule.threshold,
                 status="open",
                 # For a duration, the condition began `value` seconds ago (the door opened then).
-                since_s=act.at_s - act.value if rule.metric.endswith("_s") else st.since_s,
+                since_s=act.at_s - act.value if metric(rule.metric).unit == "duration" else st.since_s,
                 raised_s=act.at_s,
                 value=act.value,
                 worst_value=act.value,
