@@ -104,3 +104,19 @@ def test_door_states(raw, value):
     assert parse(s, json.dumps({"state": raw}).encode()).value == value
     with pytest.raises(Rejected, match="state"):
         parse(s, b'{"state": "ajar"}')
+
+
+def test_the_mqtt_process_stays_light():
+    """The network process imports paho and ingest's own small modules only: not the
+    configuration reader, the model or numpy (bench/mqtt_child.py measures its start)."""
+    import subprocess
+    import sys
+
+    code = (
+        "import sys, watcher.ingest.mqtt_process, watcher.ingest.mqtt\n"
+        "heavy = [m for m in ('numpy', 'watcher.config', 'watcher.model', 'watcher.engine', 'watcher.store') "
+        "if m in sys.modules]\n"
+        "print(','.join(heavy))"
+    )
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert out.stdout.strip() == ""

@@ -23,36 +23,12 @@ from watcher.alerts.policy import METRICS, SEVERITIES, Rule, default_rules
 from watcher.errors import ConfigError, ProfileError
 from watcher.events.detect import DefrostShape
 from watcher.ingest.payload import SIGNALS, Limits, Source
+from watcher.ingest.settings import Broker, Tls
 from watcher.ingest.topics import parse_pattern, topic_is_clean
 from watcher.model.integrator import DEFAULT_POSITIONS, Position
 from watcher.model.profiles import Profile
 
 log = logging.getLogger("watcher.config")
-
-
-@dataclass(frozen=True)
-class Tls:
-    ca_file: str
-    cert_file: str | None = None
-    key_file: str | None = None
-
-
-@dataclass(frozen=True)
-class Broker:
-    host: str = "127.0.0.1"
-    port: int = 1883
-    client_id: str = "watcher"
-    keepalive_s: int = 30
-    username: str | None = None
-    password: str | None = field(default=None, repr=False)
-    session_expiry_s: int = 7 * 86400
-    receive_maximum: int = 1000
-    status_topic: str = "watcher/status"
-    ack_topic: str = "watcher/ack"
-    lot_topic: str = "watcher/lots"
-    reconnect_min_s: float = 1.0
-    reconnect_max_s: float = 60.0
-    tls: Tls | None = None
 
 
 @dataclass(frozen=True)

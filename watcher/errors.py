@@ -7,6 +7,10 @@
     |   +-- TrialError           a storage-trial table cannot be fitted
     |   +-- ConfigError          the service configuration is invalid
     +-- ModelError               the numerical core met a state it cannot continue from
+    +-- Rejected                 an MQTT message that cannot become a reading (stored with the reason)
+    |   +-- OutOfClock           its time disagrees with the service clock (held, not rejected)
+    +-- NotFound                 an alert, lot or other record named by id that does not exist or
+                                 is not in the state asked for
     +-- StoreError               the database cannot be opened or written (disk full, locked, I/O):
                                  the only failure the writer retries; anything else raised while
                                  handling a message is that message's fault and sets it aside
@@ -61,3 +65,17 @@ class StoreError(WatcherError):
     """The database could not be opened or written. Raised at the store's boundary only (sqlite3
     and OS errors are translated there), so the writer can tell a storage fault, which it
     retries, from a message that cannot be handled, which it sets aside."""
+
+
+class Rejected(WatcherError):
+    """A message that cannot become a reading; the reason is short and stored with it."""
+
+
+class OutOfClock(Rejected):
+    """A reading whose own time lies outside the window around the service clock. It is held,
+    not rejected: either clock may be the wrong one, and the reading is re-admitted when the
+    two agree (watcher.engine.held)."""
+
+
+class NotFound(WatcherError):
+    """A record named by id that does not exist, or is not in the state the request needs."""

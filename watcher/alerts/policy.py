@@ -14,6 +14,7 @@ from dataclasses import dataclass, replace
 
 from watcher.alerts.metrics import METRICS as _METRICS
 from watcher.alerts.metrics import PER_LOT, WALL_CLOCK
+from watcher.errors import NotFound
 
 SEVERITIES = ("info", "warning", "critical")
 # The metrics and their properties live in metrics.py; these are their names by clock (zone
@@ -143,11 +144,11 @@ def evaluate(
 
 
 def acknowledge(states: dict, zone: str, rule_id: str, by: str, now_s: float) -> dict:
-    """Mark an open alert acknowledged (stops repeats and escalation); raise KeyError if none."""
+    """Mark an open alert acknowledged (stops repeats and escalation); NotFound if none."""
     key = (zone, rule_id)
     st = states.get(key)
     if st is None or st.status != "open":
-        raise KeyError(f"no open alert for zone {zone!r}, rule {rule_id!r}")
+        raise NotFound(f"no open alert for zone {zone!r}, rule {rule_id!r}")
     states = dict(states)
     states[key] = replace(st, status="acknowledged", acked_by=by, acked_s=now_s)
     return states

@@ -21,7 +21,7 @@ from watcher.config import Config
 from watcher.engine.analysis import CONTEXT_S, analyse, analysis_points, take_snapshot
 from watcher.engine.lots import LotKeeper
 from watcher.engine.zones import ZoneRunner, spec_key
-from watcher.errors import InputError
+from watcher.errors import InputError, NotFound
 from watcher.ingest.jsondoc import BadJson, load_json, storable
 from watcher.lots.events import last_zone
 from watcher.ranges import cautious_days
@@ -410,7 +410,7 @@ class Monitor:
         key = (alert["zone"], alert["rule"])
         try:
             self.states = acknowledge(self.states, *key, by, wall_s)
-        except KeyError:
+        except NotFound:
             return f"refused: alert {alert_id} is not open in the running service"
         self.store.save_alert_state(*key, asdict(self.states[key]))
         self.store.alert_update(alert_id, status="acknowledged", acked_s=wall_s, acked_by=by, ack_note=note)

@@ -22,7 +22,7 @@ import paho.mqtt.client as mqtt
 from paho.mqtt.packettypes import PacketTypes
 from paho.mqtt.properties import Properties
 
-from watcher.config import Broker
+from watcher.ingest.settings import Broker
 
 log = logging.getLogger("watcher.mqtt")
 

@@ -23,8 +23,8 @@ import multiprocessing as mp
 import threading
 import time
 
-from watcher.config import Broker
 from watcher.ingest.message import Message
+from watcher.ingest.settings import Broker
 
 log = logging.getLogger("watcher.mqtt")
 _RELAY_EVERY_S = 0.005

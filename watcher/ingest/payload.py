@@ -10,7 +10,10 @@ import math
 from dataclasses import dataclass
 from datetime import UTC, datetime
 
+from watcher.errors import OutOfClock, Rejected
 from watcher.ingest.jsondoc import BadJson, load_json
+
+__all__ = ["OutOfClock", "Reading", "Rejected", "Source", "Limits", "parse_message"]
 
 SIGNALS = ("air_c", "product_c", "door", "defrost")
 TEMPERATURE_SIGNALS = ("air_c", "product_c")
@@ -50,16 +53,6 @@ class Limits:
     future_skew_s: float = 300.0
     past_limit_s: float = 400 * 86400.0
     temp_range_c: tuple[float, float] = (-60.0, 40.0)
-
-
-class Rejected(Exception):
-    """A message that cannot become a reading; the reason is short and stored with it."""
-
-
-class OutOfClock(Rejected):
-    """A reading whose own time lies outside the window around the service clock. It is held,
-    not rejected: either clock may be the wrong one, and the reading is re-admitted when the
-    two agree (watcher.engine.held)."""
 
 
 def _dig(obj, path: tuple[str, ...], what: str):
