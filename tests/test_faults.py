@@ -462,6 +462,15 @@ def test_rejections_past_a_topics_rate_are_counted_not_stored_one_by_one(tmp_pat
     assert "within the minute" in flood_rows[-1][2] and "invalid JSON" in flood_rows[-1][2]
     findings, _ = chain.verify(store.conn)
     assert findings == []
+    # Every place that counts rejections counts messages, not rows: the service-wide rule's
+    # figure, `watcher status`, and the weekly summary's table.
+    import pandas as pd
+
+    from watcher.report.figures import rejection_table
+
+    assert store.rejections_since(NOW - 3600) == 5010
+    table = rejection_table(pd.DataFrame(rows, columns=["topic", "n", "reason"]))
+    assert table["messages"].sum() == 5010 and table.iloc[0]["messages"] == 5000
 
 
 def test_a_zone_takes_at_most_its_cap_of_sensor_names(tmp_path):

@@ -20,7 +20,9 @@ from pathlib import Path
 
 from watcher import demo as site
 from watcher.config import load_config
+from watcher.errors import StoreError
 from watcher.report.week import last_complete_week
+from watcher.store.db import Store
 
 BATCH = 2000
 # Checkpoint at every batch: a live service checkpoints every 10 s, which at one reading a
@@ -49,14 +51,12 @@ class AlertPrinter:
         if not self.db.exists():
             return 0
         try:
-            con = sqlite3.connect(f"file:{self.db}?mode=ro", uri=True, timeout=5)
-            rows = con.execute(
-                "SELECT l.id, l.step, l.at_s, a.zone, a.severity, a.label FROM alert_log l JOIN alerts a "
-                "ON a.id = l.alert_id WHERE l.id > ? AND l.step IN ('raise', 'clear') ORDER BY l.id",
-                (self.seen,),
-            ).fetchall()
-            con.close()
-        except sqlite3.Error:
+            store = Store(str(self.db), readonly=True)
+            try:
+                rows = store.alert_steps_after(self.seen, ("raise", "clear"))
+            finally:
+                store.close()
+        except (StoreError, sqlite3.Error):
             return 0
         for row_id, step, at_s, zone, severity, label in rows:
             when = dt.datetime.fromtimestamp(at_s, dt.UTC).astimezone(__import__("zoneinfo").ZoneInfo(self.tz))
@@ -171,13 +171,12 @@ def _through_broker(exe, port, cfg, msgs, printer, progress) -> dict:
 def _stored(db: str) -> int:
     """Messages the service has dealt with: stored as readings, lot events or rejections."""
     try:
-        con = sqlite3.connect(f"file:{db}?mode=ro", uri=True, timeout=5)
-        n = con.execute(
-            "SELECT (SELECT count(*) FROM readings) + (SELECT count(*) FROM rejections) + (SELECT count(*) FROM lot_events)"
-        ).fetchone()[0]
-        con.close()
-        return n
-    except sqlite3.Error:
+        store = Store(str(db), readonly=True)
+        try:
+            return store.messages_handled()
+        finally:
+            store.close()
+    except (StoreError, sqlite3.Error):
         return 0
 
 

@@ -51,7 +51,7 @@ def read_status(config_path: str | None, db_path: str | None, now: float | None 
             "database": path,
             "now_s": now,
             "zones": zones,
-            "rejections_total": store.count("rejections"),
+            "rejections_total": store.rejections_since(-float("inf")),
             "open_alerts": [
                 {k: a[k] for k in ("id", "zone", "severity", "status", "label", "raised_s", "acked_by")}
                 for a in store.alerts_list(open_only=True)

@@ -347,12 +347,7 @@ class Monitor:
 
     def _cleared_id(self, key) -> int | None:
         """The alert id a clear refers to (the policy has already reset the state)."""
-        row = self.store.conn.execute(
-            "SELECT id FROM alerts WHERE zone = ? AND rule = ? AND status IN ('open', 'acknowledged') "
-            "ORDER BY id DESC LIMIT 1",
-            key,
-        ).fetchone()
-        return None if row is None else row[0]
+        return self.store.alert_open_id(*key)
 
     def _notify(self, kind: str, alert: dict, wall_s: float, n: int = 0, by=None, note=None) -> None:
         key = alert["zone"]

@@ -24,6 +24,7 @@ from watcher.ranges import RANGE_KEYS
 from watcher.report.week import Week
 from watcher.simulation import position_rows, worst_position
 from watcher.store.db import Store, unpack_state
+from watcher.store.week_rows import week_tables
 
 
 @dataclass
@@ -60,62 +61,23 @@ class SiteWeek:
     models: dict[str, ZoneModel] = field(default_factory=dict)
 
 
-def _frame(conn, sql: str, args: tuple) -> pd.DataFrame:
-    cur = conn.execute(sql, args)
-    return pd.DataFrame(cur.fetchall(), columns=[d[0] for d in cur.description])
-
-
-def _in(n: int) -> str:
-    return ", ".join("?" * n)
+def _frame(table) -> pd.DataFrame:
+    columns, rows = table
+    return pd.DataFrame(rows, columns=columns)
 
 
 def load(store: Store, cfg: Config, site: Site, week: Week) -> SiteWeek:
     zones = [z for z in cfg.zones if z.site == site.id]
     ids = tuple(z.id for z in zones)
-    conn = store.conn
-    s, e = week.start_s, week.end_s
-    readings = _frame(
-        conn,
-        f"SELECT zone, sensor, signal, ts, value, received_ts, late FROM readings WHERE zone IN ({_in(len(ids))}) "
-        "AND ts >= ? AND ts < ? ORDER BY zone, ts",
-        (*ids, s, e),
-    )
-    events = _frame(
-        conn,
-        f"SELECT id, zone, kind, start_ts, end_ts, detail FROM events WHERE zone IN ({_in(len(ids))}) "
-        "AND start_ts < ? AND (end_ts IS NULL OR end_ts > ?) ORDER BY start_ts",
-        (*ids, e, s),
-    )
+    days = tuple(d for d, _, _ in week.days())
+    tables = {k: _frame(t) for k, t in week_tables(store.conn, ids, week.start_s, week.end_s, days).items()}
+    events = tables["events"]
     details = [json.loads(d) for d in events["detail"]] if len(events) else []
     for key in ("source", "peak_c", "excess_um", "budget_share_pct", "cost"):
         events[key] = [d.get(key) for d in details] if len(events) else []
     events = events.drop(columns=["detail"])
-    alerts = _frame(
-        conn,
-        f"SELECT * FROM alerts WHERE (zone IN ({_in(len(ids) + 1)}) OR zone IN (SELECT 'lot:' || lot FROM lot_events "
-        f"WHERE zone IN ({_in(len(ids))}))) AND raised_s < ? AND (cleared_s IS NULL OR cleared_s >= ?) ORDER BY raised_s",
-        (*ids, "service", *ids, e, s),
-    )
-    alert_log = _frame(
-        conn,
-        f"SELECT alert_id, step, at_s, wall_s, by, note FROM alert_log WHERE alert_id IN ({_in(len(alerts))}) ORDER BY id",
-        tuple(int(a) for a in alerts["id"]),
-    )
-    gaps = _frame(
-        conn,
-        f"SELECT zone, start_ts, end_ts, seconds FROM gaps WHERE zone IN ({_in(len(ids))}) AND start_ts < ? AND end_ts > ? "
-        "ORDER BY start_ts",
-        (*ids, e, s),
-    )
-    rejections = _frame(
-        conn, "SELECT received_ts, topic, reason FROM rejections WHERE received_ts >= ? AND received_ts < ?", (s, e)
-    )
-    days = tuple(d for d, _, _ in week.days())
-    daily = _frame(
-        conn,
-        f"SELECT * FROM daily_growth WHERE zone IN ({_in(len(ids))}) AND day IN ({_in(len(days))}) ORDER BY zone, day",
-        (*ids, *days),
-    )
+    readings, alerts, alert_log = tables["readings"], tables["alerts"], tables["alert_log"]
+    gaps, rejections, daily = tables["gaps"], tables["rejections"], tables["daily"]
     sw = SiteWeek(site, week, zones, readings, events, alerts, alert_log, gaps, rejections, daily)
     for z in zones:
         sw.models[z.id] = zone_model(store, z, week)

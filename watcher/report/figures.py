@@ -163,4 +163,5 @@ def completeness(readings: pd.DataFrame, week_s: float) -> pd.DataFrame:
 def rejection_table(rej: pd.DataFrame) -> pd.DataFrame:
     if rej.empty:
         return pd.DataFrame(columns=["reason", "messages"])
-    return rej["reason"].map(reason_class).value_counts().rename_axis("reason").reset_index(name="messages")
+    counts = rej.assign(reason=rej["reason"].map(reason_class)).groupby("reason")["n"].sum()  # a row stands for n
+    return counts.sort_values(ascending=False).rename_axis("reason").reset_index(name="messages")

@@ -4,7 +4,6 @@ tagged `reports` (the HTML attached). Used by `watcher report` and by the servic
 
 from __future__ import annotations
 
-import json
 import logging
 from pathlib import Path
 
@@ -25,17 +24,8 @@ def produce(
     paths = write(report, out_dir, formats)
     html_path = next((p for p in paths if p.suffix == ".html"), None)
     with store.atomic():
-        store.conn.execute(
-            "INSERT INTO reports (site, week, generated_s, heads, digest, files) VALUES (?,?,?,?,?,?)",
-            (
-                site.id,
-                week.label,
-                now_s,
-                json.dumps(report.heads),
-                report.digest,
-                json.dumps({"paths": [str(p) for p in paths], "auto": auto}),
-            ),
-        )
+        files = {"paths": [str(p) for p in paths], "auto": auto}
+        store.report_add(site.id, week.label, now_s, report.heads, report.digest, files)
         if send:
             store.outbox_add(
                 f"Weekly texture summary {week.label}: {site.name or site.id}",

@@ -23,10 +23,6 @@ def due_weeks(store: Store, cfg: Config, now_s: float) -> list[tuple[Site, Week]
         due = dt.datetime.combine(due_day, dt.time(cfg.reports.at_minutes // 60, cfg.reports.at_minutes % 60))
         if now_s < due.replace(tzinfo=ZoneInfo(site.timezone)).timestamp():
             continue
-        done = store.conn.execute(
-            "SELECT 1 FROM reports WHERE site = ? AND week = ? AND json_extract(files, '$.auto') = 1",
-            (site.id, week.label),
-        ).fetchone()
-        if not done:
+        if not store.report_scheduled(site.id, week.label):
             out.append((site, week))
     return out

@@ -168,8 +168,38 @@ class EventRows:
             out.append((sensor, signal, ts, value, since if since is not None else ts))
         return out
 
+    def alert_open_id(self, zone: str, rule: str) -> int | None:
+        """The newest open or acknowledged alert of that zone and rule."""
+        row = self.conn.execute(
+            "SELECT id FROM alerts WHERE zone = ? AND rule = ? AND status IN ('open', 'acknowledged') "
+            "ORDER BY id DESC LIMIT 1",
+            (zone, rule),
+        ).fetchone()
+        return None if row is None else row[0]
+
+    def alert_steps_after(self, log_id: int, steps: tuple[str, ...]) -> list[tuple]:
+        """(log id, step, at_s, zone, severity, label) of alert log rows after log_id."""
+        return self.conn.execute(
+            "SELECT l.id, l.step, l.at_s, a.zone, a.severity, a.label FROM alert_log l JOIN alerts a "
+            f"ON a.id = l.alert_id WHERE l.id > ? AND l.step IN ({', '.join('?' * len(steps))}) ORDER BY l.id",
+            (log_id, *steps),
+        ).fetchall()
+
+    def report_add(self, site: str, week: str, generated_s: float, heads: dict, digest: str, files: dict) -> None:
+        self.conn.execute(
+            "INSERT INTO reports (site, week, generated_s, heads, digest, files) VALUES (?,?,?,?,?,?)",
+            (site, week, generated_s, json.dumps(heads), digest, json.dumps(files)),
+        )
+
+    def report_scheduled(self, site: str, week: str) -> bool:
+        """True once the schedule (not a person) has produced that site's summary for the week."""
+        sql = "SELECT 1 FROM reports WHERE site = ? AND week = ? AND json_extract(files, '$.auto') = 1"
+        return self.conn.execute(sql, (site, week)).fetchone() is not None
+
     def rejections_since(self, since_s: float) -> int:
-        return self.conn.execute("SELECT count(*) FROM rejections WHERE received_ts >= ?", (since_s,)).fetchone()[0]
+        """Messages rejected since then (a rate-limited row stands for n of them)."""
+        sql = "SELECT coalesce(sum(n), 0) FROM rejections WHERE received_ts >= ?"
+        return self.conn.execute(sql, (since_s,)).fetchone()[0]
 
     def snapshot_save(self, zone: str, t_s: float, spec_key: str, blob: bytes) -> None:
         self.conn.execute(

@@ -412,6 +412,14 @@ class Store(OutboxRows, AlertRows, EventRows, LotRows):
         ).fetchone()
         return None if row is None else row[0]
 
+    def messages_handled(self) -> int:
+        """Messages the service has dealt with: readings, rejected (a row may stand for n), held,
+        lot events."""
+        return self.conn.execute(
+            "SELECT (SELECT count(*) FROM readings) + (SELECT coalesce(sum(n), 0) FROM rejections) "
+            "+ (SELECT count(*) FROM held) + (SELECT count(*) FROM lot_events)"
+        ).fetchone()[0]
+
     def sensor_names(self, zone: str) -> set[str]:
         sql = "SELECT DISTINCT sensor FROM readings WHERE zone = ? UNION SELECT DISTINCT sensor FROM readings_hourly WHERE zone = ?"
         return {r[0] for r in self.conn.execute(sql, (zone, zone))}
