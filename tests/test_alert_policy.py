@@ -83,6 +83,7 @@ def test_missing_observations_change_nothing():
 
 
 def test_acknowledging_nothing_is_an_error():
+    """Acknowledging a rule with no open alert is refused with NotFound."""
     with pytest.raises(NotFound, match="no open alert"):  # was KeyError: control flow by KeyError is gone
         acknowledge({}, "bulk-a", "air-benchmark", "x", 0)
 

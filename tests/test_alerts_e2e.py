@@ -106,6 +106,7 @@ def count(subjects, *words) -> int:
 
 
 def test_alert_mail_within_two_seconds_ack_stops_reminders_and_clear_notice(tmp_path, broker):
+    """A real air fault: the alert mail arrives within two seconds, an acknowledgement stops the reminders, and the clear notice goes out."""
     smtp, hook = SmtpReceiver(), Receiver()
     config = alert_config(tmp_path, broker, smtp.url(), hook.url())
     w = WatcherProcess(config)

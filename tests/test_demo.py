@@ -30,6 +30,7 @@ def facts(folder) -> tuple[set, dict, int]:
 
 
 def test_demo_through_a_broker_and_without_one(tmp_path):
+    """`watcher demo` runs end to end through a private mosquitto (every message stored, alerts printed as they fire, a summary written) and without one."""
     broker_run = demo(tmp_path / "broker")
     assert broker_run.returncode == 0, broker_run.stderr[-3000:]
     out = broker_run.stdout

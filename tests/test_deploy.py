@@ -31,6 +31,7 @@ def unit_here(tmp_path: Path) -> Path:
 
 
 def test_unit_verifies(tmp_path):
+    """The shipped unit passes `systemd-analyze verify` and keeps its hardening and bounds lines."""
     out = subprocess.run([analyze(), "verify", str(unit_here(tmp_path))], capture_output=True, text=True, timeout=60)
     assert out.returncode == 0, out.stderr
     text = UNIT.read_text()

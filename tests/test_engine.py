@@ -241,6 +241,7 @@ def test_a_duplicate_with_another_value_is_recorded_not_only_counted(tmp_path):
 
 
 def test_database_file_is_private_and_a_bad_path_is_a_clear_error(tmp_path):
+    """A new database is created 0600 whatever the umask; a path that cannot be created is a StoreError, not a traceback."""
     import os
     import stat
 

@@ -89,6 +89,7 @@ def _valid_or_rejected(source: Source, payload: bytes) -> None:
 @settings(max_examples=600, deadline=None)
 @given(st.binary(max_size=300))
 def test_any_bytes_become_a_reading_or_a_reasoned_rejection(payload):
+    """Any payload bytes give a plausible reading or a rejection with a reason, never another exception."""
     for source in (AIR, TAGGED, DOOR):
         _valid_or_rejected(source, payload)
 
@@ -96,6 +97,7 @@ def test_any_bytes_become_a_reading_or_a_reasoned_rejection(payload):
 @settings(max_examples=600, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 @given(value=json_values, ts=json_values, unit=json_values, extra=st.dictionaries(st.text(max_size=5), json_values))
 def test_any_json_document_becomes_a_reading_or_a_reasoned_rejection(value, ts, unit, extra):
+    """Any JSON document gives a plausible reading or a rejection with a reason, never another exception."""
     for doc in ({**extra, "t": value, "ts": ts}, {"v": value, "unit": unit, "ts": NOW}, value):
         text = json.dumps(doc, allow_nan=True).encode()
         _valid_or_rejected(AIR, text)
@@ -105,6 +107,7 @@ def test_any_json_document_becomes_a_reading_or_a_reasoned_rejection(value, ts, 
 @settings(max_examples=400, deadline=None)
 @given(st.text(max_size=60))
 def test_topics_with_wildcards_or_control_characters_never_match(topic):
+    """A topic with wildcards or control characters never yields zone or sensor names."""
     names = AIR.pattern.match(topic)
     if names is not None:
         assert all(
@@ -154,6 +157,7 @@ def test_each_bad_class_is_rejected_with_its_reason_in_process(tmp_path):
 
 
 def test_ten_thousand_generated_messages_through_a_real_broker(tmp_path):
+    """10,000 generated messages, most of them bad, through a real broker: each recorded with its reason, nothing lost."""
     check_outcome(faults.bad_input(tmp_path, 10_000))
 
 
@@ -162,20 +166,24 @@ def test_ten_thousand_generated_messages_through_a_real_broker(tmp_path):
 
 @pytest.mark.parametrize("crash", [False, True], ids=["raises", "crashes"])
 def test_a_message_that_breaks_the_handler_is_set_aside(tmp_path, crash):
+    """A message that makes the handler raise or the process crash is set aside; every good reading around it is stored."""
     check_outcome(faults.poison_message(tmp_path, crash))
 
 
 def test_watcher_killed_at_random_moments(tmp_path):
+    """Ten SIGKILLs at random moments of a stream: every reading stored once, state equal to a recomputation."""
     check_outcome(faults.kill_watcher(tmp_path, rounds=10))
 
 
 @pytest.mark.parametrize("hard", [False, True], ids=["sigterm", "sigkill"])
 def test_broker_down_while_publishers_keep_publishing(tmp_path, hard):
+    """The broker stopped or killed while a publisher keeps publishing: every reading arrives."""
     check_outcome(faults.broker_down(tmp_path, rounds=2, hard=hard))
 
 
 @pytest.mark.parametrize("mode", ["drop", "stall", "slow"])
 def test_network_between_watcher_and_broker(tmp_path, mode):
+    """A dropped, stalled or slowed link: every reading arrives and a dead link is noticed within the keepalive."""
     outcome = faults.network(tmp_path, rounds=1, mode=mode)
     check_outcome(outcome)
     # keepalive 5 s: watcher pings after 2 s of silence and gives up 2 s later (+1 s for polling)
@@ -184,6 +192,7 @@ def test_network_between_watcher_and_broker(tmp_path, mode):
 
 @pytest.mark.skipif(faults.can_mount() is not None, reason=str(faults.can_mount()))
 def test_disk_full_stops_acks_alerts_around_the_database_and_resumes(tmp_path):
+    """A full disk stops acknowledgements, sends the storage alert around the database, and resumes once freed."""
     check_outcome(faults.disk_full(tmp_path))
 
 
@@ -194,12 +203,14 @@ def test_database_locked_by_another_process(tmp_path):
 
 
 def test_a_hanging_receiver_never_blocks_ingestion(tmp_path):
+    """A webhook that never answers does not hold up readings."""
     outcome = faults.hanging_receiver(tmp_path)
     check_outcome(outcome)
     assert outcome.recovery_s[0] < 30.0
 
 
 def test_invalid_configuration_on_sighup(tmp_path):
+    """SIGHUP with an invalid configuration keeps the running one and logs why."""
     check_outcome(faults.invalid_reload(tmp_path, rounds=3))
 
 
@@ -365,6 +376,7 @@ def test_acknowledgements_come_only_from_the_command_topic(tmp_path):
 
 
 def test_http_endpoint_binds_to_loopback_by_default(tmp_path, broker):
+    """The health endpoint listens on loopback only unless configured otherwise."""
     config = write_config(tmp_path, broker)
     assert "host =" not in config.read_text().split("[health]")[1].split("[")[0]  # the default is used
     w = WatcherProcess(config)
@@ -383,6 +395,7 @@ def test_http_endpoint_binds_to_loopback_by_default(tmp_path, broker):
 
 @pytest.mark.skipif(faults.FAKETIME_LIB is None, reason="libfaketime is not installed (apt-get install faketime)")
 def test_a_wrong_service_clock_loses_and_deletes_nothing(tmp_path):
+    """A service clock 401 days ahead, then an hour slow: retention deletes nothing and every reading is held, then stored."""
     check_outcome(faults.service_clock_wrong(tmp_path))
 
 
@@ -488,5 +501,6 @@ def test_a_zone_takes_at_most_its_cap_of_sensor_names(tmp_path):
 
 
 def test_broker_killed_mid_stream_loses_only_its_unsaved_window(tmp_path):
+    """The broker killed mid-stream: every message it delivered to watcher is stored; its own losses are counted apart."""
     outcome = faults.broker_killed_mid_stream(tmp_path, rounds=2)
     check_outcome(outcome)

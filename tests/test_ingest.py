@@ -47,6 +47,7 @@ def test_unusable_patterns_are_refused(bad):
 
 
 def test_clean_topics():
+    """Configured topics may not hold wildcards, empty levels or control characters."""
     assert topic_is_clean("watcher/status")
     assert not topic_is_clean("watcher/+") and not topic_is_clean("a//b") and not topic_is_clean("a/\x00")
 
@@ -93,6 +94,7 @@ def test_bad_payloads_are_rejected_with_a_reason(payload, reason):
 
 
 def test_oversized_payload_is_rejected():
+    """A payload over max_payload_bytes is rejected with the sizes named."""
     with pytest.raises(Rejected, match="exceeds 64"):
         parse(src(), b'{"t": -20}' + b" " * 100, limits=Limits(max_payload_bytes=64))
 

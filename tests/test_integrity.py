@@ -61,6 +61,7 @@ def test_negative_zero_is_hashed_as_sqlite_stores_it(tmp_path):
 
 
 def test_intact_record_verifies(filled):
+    """A record written by normal work verifies intact, with the rows checked per chain."""
     out = verify_cli(filled)
     assert out.returncode == 0, out.stdout + out.stderr
     assert "readings/bulk-a" in out.stdout and "601 rows checked" in out.stdout  # 600 + the late one
@@ -97,6 +98,7 @@ def test_an_altered_row_is_named(filled, edit, chain_name):
 
 
 def test_altered_value_names_exactly_that_row(filled):
+    """Altering one reading's value names exactly that row and nothing else."""
     with sqlite3.connect(filled) as db:
         (row_id,) = db.execute(
             "SELECT id FROM readings WHERE zone = 'bulk-a' ORDER BY id LIMIT 1 OFFSET 250"
@@ -118,6 +120,7 @@ def test_retention_keeps_the_chain_verifiable(tmp_path):
 
 
 def test_since_starts_part_way(filled):
+    """--since starts each chain at that date: an edit before it is not reported."""
     with sqlite3.connect(filled) as db:
         db.execute(
             "UPDATE readings SET value = 0 WHERE zone = 'bulk-a' AND id = (SELECT min(id) FROM readings WHERE zone = 'bulk-a')"

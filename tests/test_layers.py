@@ -21,3 +21,15 @@ def test_no_sql_outside_the_store():
             if ".execute(" in line or SQL.search(line):
                 offenders.append(f"{path.relative_to(ROOT.parent)}:{n}: {line.strip()[:80]}")
     assert offenders == []
+
+
+def test_every_test_says_what_it_checks():
+    """Each test has a docstring saying the behaviour it checks (the contributor guide asks for it)."""
+    import ast
+
+    bare = []
+    for path in sorted((ROOT.parent / "tests").glob("test_*.py")):
+        for node in ast.parse(path.read_text()).body:
+            if isinstance(node, ast.FunctionDef) and node.name.startswith("test_") and not ast.get_docstring(node):
+                bare.append(f"{path.name}::{node.name}")
+    assert bare == []

@@ -62,6 +62,7 @@ def feed(engine, days: float, step_min: int = 60, lots: dict[int, list[Message]]
 
 
 def test_events_are_validated_with_the_field_named():
+    """Each malformed lot event is refused naming the field, the value and what was expected."""
     zones, products = {"bulk-a", "dispatch"}, {"dairy-ice-cream"}
 
     def parse(doc):
@@ -92,6 +93,7 @@ def test_events_are_validated_with_the_field_named():
 
 
 def test_a_lots_events_must_follow_each_other():
+    """A lot's events must follow its history: no reuse of ids, no event before the last, no move to the same zone."""
     ev = lambda kind, zone, ts: parse_event(  # noqa: E731
         {"event": kind, "lot": "L-7", "zone": zone, "time": ts}, "t", {"a", "b"}, {"dairy-ice-cream"}, NOW
     )
@@ -172,6 +174,7 @@ def figures(store, lot):
 
 
 def test_each_lot_keeps_its_own_population_and_the_physics_holds(site):
+    """Lots in one zone keep their own states: a used lot stays ahead of a fresh one, a moved lot follows its rooms."""
     cfg, store, _ = site
     fa, fd, used, mover = (figures(store, x) for x in ("FRESH-A", "FRESH-D", "USED-A", "MOVER"))
     # Same zone, same air, different states: the used lot stays ahead of the fresh one.
@@ -186,6 +189,7 @@ def test_each_lot_keeps_its_own_population_and_the_physics_holds(site):
 
 
 def test_lot_state_equals_a_one_pass_recomputation(site):
+    """Each lot's live state equals a one-pass recomputation from its events and the stored readings."""
     cfg, store, _ = site
     for lot in ("FRESH-A", "FRESH-D", "USED-A", "MOVER"):
         t_s = figures(store, lot)["t_s"]
@@ -201,6 +205,7 @@ def test_lot_state_equals_a_one_pass_recomputation(site):
 
 
 def test_lot_rules_and_refused_lot_events(site):
+    """Lot rules raise for the lot that crossed its threshold only; refused lot events are stored with their reason."""
     cfg, store, _ = site
     alerts = {(a["zone"], a["rule"]) for a in store.alerts_list()}
     assert ("lot:USED-A", "lot-80") in alerts  # declared 79.8 %, crossed 80 % in six days at -25 C
@@ -257,6 +262,7 @@ def run(*args, config):
 
 
 def test_lot_commands_import_and_ranking(tmp_path):
+    """The lot commands record, import and rank lots, and refuse bad input with exit code 2."""
     cfg, store, engine = make(tmp_path, zones=ZONES)
     store.close()
     config = tmp_path / "w.toml"

@@ -30,6 +30,7 @@ EVENTS = [
 
 
 def test_raise_message_says_what_happened_cost_and_checks():
+    """A raise message says what happened, what it cost, what to check and how to acknowledge, with the caution."""
     body = messages.body(
         "raise",
         ALERT,
@@ -67,6 +68,7 @@ def test_raise_message_says_what_happened_cost_and_checks():
 
 
 def test_clear_and_ack_notices_are_short():
+    """Clear and acknowledgement notices are short and say who and when."""
     clear = messages.body(
         "clear",
         {**ALERT, "value": 0.0, "cleared_s": 1_795_001_500.0},
@@ -92,6 +94,7 @@ def test_clear_and_ack_notices_are_short():
 
 
 def test_values_carry_units():
+    """Every metric's value is shown with its unit."""
     assert messages.fmt_value("air_c", -17.96) == "-18.0 C"
     assert messages.fmt_value("budget_used_pct", 80.04) == "80.0 %"
     assert messages.fmt_value("event_excess_um", 1.234) == "1.23 um"

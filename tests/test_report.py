@@ -40,6 +40,7 @@ def zone(data, zid):
 
 
 def test_door_and_defrost_figures_match_the_events_table(w47):
+    """The summary's door and defrost figures equal those computed here from the events table."""
     _, _, week, _, data, db = w47
     rows = db.execute(
         "SELECT kind, start_ts, coalesce(end_ts, ?) FROM events WHERE zone = 'bulk-a' AND start_ts < ? AND "
@@ -82,6 +83,7 @@ def test_temperature_figures_match_the_readings(w47):
 
 
 def test_growth_completeness_gaps_alerts_match_their_tables(w47):
+    """The summary's growth, completeness, gaps and alerts equal the stored rows they come from."""
     _, _, week, _, data, db = w47
     days = [d for d, _, _ in week.days()]
     growth = {r["day"]: r for r in zone(data, "bulk-a")["growth"]}
@@ -143,6 +145,7 @@ def test_budget_and_record_heads(w47):
 
 
 def test_summary_files_are_readable_by_owner_and_group_only(w47):
+    """The summary's files are written 0640, also outside systemd."""
     _, _, _, paths, _, _ = w47
     assert paths and {p.stat().st_mode & 0o777 for p in paths} == {0o640}
 
@@ -156,6 +159,7 @@ def test_a_zone_without_events(w47):
 
 
 def test_csv_files_hold_the_tables(w47):
+    """The CSV tables are written, one row per day of growth as in the JSON."""
     paths, data = w47[3], w47[4]
     names = {p.name for p in paths}
     assert "kestrel-2026-W47-bulk-a-growth.csv" in names and "kestrel-2026-W47-alerts.csv" in names

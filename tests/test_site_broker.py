@@ -54,6 +54,7 @@ def client(user: str, port: int, certs=None) -> mqtt.Client:
 
 
 def test_acl_lets_each_sensor_write_only_its_zone_and_operators_acknowledge(tmp_path):
+    """The shipped ACL on a real mosquitto: each sensor writes only its zone, only operators acknowledge, on their own topic."""
     proc, port, tls_port, certs = start_site_broker(tmp_path)
     got: list[str] = []
     try:

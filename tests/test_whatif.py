@@ -66,6 +66,7 @@ def run(spec, change, t=None, air=None, events=None):
 
 
 def test_no_change_gives_exactly_the_recorded_result(spec):
+    """A what-if with no change gives exactly the recorded result."""
     r = run(spec, Change())
     assert r["recorded"] == r["changed"]
     # The additive rule rides beside the model and misses part of what the warm spells cost.
@@ -76,6 +77,7 @@ def test_no_change_gives_exactly_the_recorded_result(spec):
 
 @pytest.mark.parametrize("offset", [-0.5, -2.0, -5.0])
 def test_a_colder_setpoint_never_costs_more(spec, offset):
+    """A colder setpoint never costs more budget and leaves more days; a warmer one the reverse."""
     r = run(spec, Change(setpoint_offset_k=offset))
     assert r["changed"]["budget_used_end_pct"] < r["recorded"]["budget_used_end_pct"]
     assert r["changed"]["days_to_limit_end"] > r["recorded"]["days_to_limit_end"]
@@ -84,6 +86,7 @@ def test_a_colder_setpoint_never_costs_more(spec, offset):
 
 
 def test_taking_out_the_excursion_never_costs_more_and_here_saves(spec):
+    """Taking an excursion out never costs more, and here saves its whole share."""
     r = run(spec, Change(drop_event_ids=(999,)))
     assert r["changed"]["budget_used_end_pct"] < r["recorded"]["budget_used_end_pct"]
     assert r["recorded"]["excess_pct"]["excursion"] > 0.1
@@ -92,6 +95,7 @@ def test_taking_out_the_excursion_never_costs_more_and_here_saves(spec):
 
 
 def test_door_practice(spec):
+    """A strip curtain or fewer door openings never cost more than the recorded practice."""
     rec = run(spec, Change())["recorded"]
     strip = run(spec, Change(door_factor=0.07))["changed"]  # ~93 % less infiltration [pub: Pham & Oliver 1983]
     fewer = run(spec, Change(fewer_doors_pct=50.0))["changed"]
