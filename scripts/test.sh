@@ -18,4 +18,5 @@ need chromium chromium "the weekly summary is rendered in headless Chromium"
 need faketime faketime "the clock tests run watcher with its wall clock offset and stepped (libfaketime)"
 bash scripts/setup-venv.sh test
 .venv/bin/ruff check watcher tests bench
+.venv/bin/lint-imports --no-cache
 exec .venv/bin/python -m pytest "$@"
