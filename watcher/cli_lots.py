@@ -8,6 +8,7 @@ import time
 
 import click
 
+from watcher.caution import SHORT
 from watcher.cli import _config_option, _fmt, _stamp, main
 from watcher.errors import InputError
 from watcher.ranges import figure_text
@@ -161,7 +162,7 @@ def lot_show(lot_id, as_json, config_path) -> None:
         f"{figure_text(f, 'days_to_limit', '.0f', 'no limit in sight')} days to the limit at current "
         "conditions (90 % range in brackets)."
     )
-    click.echo("  A texture prediction, not a food-safety verdict; release decisions follow your food-safety plan.")
+    click.echo("  " + SHORT)
 
 
 @main.command("lots")
@@ -195,7 +196,7 @@ def lots_cmd(zone, everything, as_json, config_path) -> None:
         )
     click.echo(
         "Days left: at current conditions; brackets: 90 % range from the profile's uncertainty (ranked by the "
-        "central figure). Texture only: not a food-safety or release verdict."
+        "central figure). " + SHORT
     )
 
 

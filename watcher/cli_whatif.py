@@ -7,6 +7,7 @@ from pathlib import Path
 
 import click
 
+from watcher.caution import SHORT
 from watcher.cli import _config_option, _fmt, main
 from watcher.errors import InputError
 
@@ -124,5 +125,5 @@ def what_if(zone, start, end, setpoint_offset, defrosts_per_day, defrost_min, de
             f"{b['excess_pct'][cause]:>12.2f}{diff:>+12.2f}"
         )
     click.echo(f"\nChart: {chart}")
-    click.echo("A model estimate of texture only; it does not show that a change is safe or allowed. Check changes to")
-    click.echo("setpoints and defrosts with your refrigeration technician and your food-safety plan.")
+    click.echo("It does not show that a change is safe or allowed: check changes to setpoints and defrosts with your")
+    click.echo("refrigeration technician. " + SHORT)

@@ -11,17 +11,14 @@ import math
 import numpy as np
 
 from watcher import MODEL_VERSION
+from watcher.caution import CAUTION as _CAUTION
 from watcher.files.series import Series
 from watcher.model.additive import additive_budget_pct
 from watcher.model.integrator import DEFAULT_POSITIONS, Position, Spec, advance, new_state, outputs
 from watcher.model.profiles import Profile
 from watcher.ranges import RANGE_KEYS
 
-CAUTION = (
-    "Texture-quality prediction only, not a food-safety verdict: safety, hold/release and recall "
-    "decisions follow your food-safety plan and local regulations. -18 C is a benchmark for "
-    "quick-frozen foods, not a legal limit for ice cream. Calibrate the profile with your own trial."
-)
+CAUTION = _CAUTION + " Calibrate the profile with your own trial."
 FIGURES = (
     "mean_diameter_um",
     "d90_um",

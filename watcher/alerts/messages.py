@@ -6,13 +6,8 @@ import datetime as dt
 from zoneinfo import ZoneInfo
 
 from watcher.alerts.metrics import duration, metric
+from watcher.caution import CAUTION
 from watcher.ranges import figure_text
-
-CAUTION = (
-    "Texture prediction, not a food-safety verdict: hold/release and safety decisions follow your "
-    "food-safety plan and local rules. -18 C is a benchmark for quick-frozen foods, not a legal "
-    "limit for ice cream. Refrigeration faults are for a licensed technician."
-)
 
 
 def auto_label(name: str, op: str, threshold: float, for_s: float = 0.0) -> str:
