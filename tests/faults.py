@@ -116,12 +116,19 @@ def kill_watcher(folder: Path, rounds: int, seed: int = 20261202) -> Outcome:
         pub = Publisher(broker)
         w = WatcherProcess(config)
         w.wait_ready()
-        sent, recovery = 0, []
-        for _ in range(rounds):
+        sent, recovery, mid_batch = 0, [], 0
+        inhand = folder / "watcher.db.inhand"
+        for k in range(rounds):
             pub.send(messages(ZONES, sent, 120))
             sent += 120
-            time.sleep(rng.uniform(0.0, 0.5))
+            if k % 2:  # at a random moment
+                time.sleep(rng.uniform(0.0, 0.5))
+            else:  # while the writer holds a batch (its in-hand file lists it)
+                deadline = time.monotonic() + 2.0
+                while time.monotonic() < deadline and '"in_hand": []' in _read(inhand):
+                    time.sleep(0.0005)
             w.kill()
+            mid_batch += '"in_hand": []' not in _read(inhand)  # the file as the killed process left it
             t0 = time.monotonic()
             w = WatcherProcess(config)
             w.wait_ready()
@@ -135,10 +142,19 @@ def kill_watcher(folder: Path, rounds: int, seed: int = 20261202) -> Outcome:
     return Outcome(
         "watcher killed (SIGKILL) mid-stream",
         rounds,
-        f"{len(ZONES) * sent} readings published; every one stored once; zone state equal to a full recomputation",
+        f"{len(ZONES) * sent} readings published; {mid_batch} of the kills hit a batch in hand (not yet acknowledged); "
+        "every reading stored once; zone state equal to a full recomputation",
         lost,
         recovery,
+        extra={"killed_mid_batch": mid_batch},
     )
+
+
+def _read(path: Path) -> str:
+    try:
+        return path.read_text()
+    except OSError:
+        return '"in_hand": []'
 
 
 def broker_down(folder: Path, rounds: int, hard: bool) -> Outcome:

@@ -172,7 +172,9 @@ def test_a_message_that_breaks_the_handler_is_set_aside(tmp_path, crash):
 
 def test_watcher_killed_at_random_moments(tmp_path):
     """Ten SIGKILLs at random moments of a stream: every reading stored once, state equal to a recomputation."""
-    check_outcome(faults.kill_watcher(tmp_path, rounds=10))
+    outcome = faults.kill_watcher(tmp_path, rounds=10)
+    check_outcome(outcome)
+    assert outcome.extra["killed_mid_batch"] >= 1  # a kill with a batch in hand, proven by the in-hand file
 
 
 @pytest.mark.parametrize("hard", [False, True], ids=["sigterm", "sigkill"])
