@@ -32,8 +32,8 @@ log = logging.getLogger("watcher.engine")
 # crash would. Read once at import.
 _RAISE_ON = os.environ.get("WATCHER_TEST_RAISE_ON", "").encode() or None
 _CRASH_ON = os.environ.get("WATCHER_TEST_CRASH_ON", "").encode() or None
-FEED_AT_PENDING = 5000
-CLOCK_TRUST_S = 86400.0  # retention believes the clock only this far past the newest reading  # readings waiting in a zone before it is fed between checkpoints
+FEED_AT_PENDING = 5000  # readings waiting in a zone before it is fed between checkpoints
+CLOCK_TRUST_S = 86400.0  # retention believes the clock only this far past the newest reading
 
 
 @dataclass
