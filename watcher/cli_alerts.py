@@ -158,7 +158,8 @@ def verify(since, config_path, db_path) -> None:
         click.echo(f"{name:<32} {n:>10} rows checked")
     if not findings:
         click.echo(
-            "Record intact: every chain recomputes to its stored hashes and nothing checked is missing" + (f" (from {since})." if since else ".")
+            "Record intact: every chain recomputes to its stored hashes and nothing checked is missing"
+            + (f" (from {since})." if since else ".")
         )
         return
     for f in findings:

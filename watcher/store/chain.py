@@ -357,7 +357,12 @@ def check_reports(conn) -> list[Finding]:
             if len(printed) > 2 and have.get(name, 0) < printed[2]:
                 missing = printed[2] - have.get(name, 0)
                 out.append(
-                    Finding(name, row_id, f"{missing} row{'s' if missing != 1 else ''} fewer than {where} printed ({printed[2]})", "MISSING")
+                    Finding(
+                        name,
+                        row_id,
+                        f"{missing} row{'s' if missing != 1 else ''} fewer than {where} printed ({printed[2]})",
+                        "MISSING",
+                    )
                 )
     return out
 
