@@ -37,10 +37,6 @@ def usable(url: str) -> bool:
     return apprise.Apprise.instantiate(url, suppress_exceptions=True) is not None
 
 
-def masked(url: str) -> str:
-    return mask_url(url)
-
-
 class Notifier:
     """One apprise object per channel, so each outbox row reaches exactly its channel."""
 
@@ -50,7 +46,7 @@ class Notifier:
         for ch in channels:
             a = apprise.Apprise()
             if not a.add(ch.url):
-                raise ValueError(f"notification channel {ch.name} ({masked(ch.url)}): apprise cannot use this URL")
+                raise ValueError(f"notification channel {ch.name} ({mask_url(ch.url)}): apprise cannot use this URL")
             if ch.min_interval_s is not None:
                 for plugin in a:
                     plugin.request_rate_per_sec = ch.min_interval_s  # apprise's name; it is seconds between sends
