@@ -268,7 +268,7 @@ def assert_state_equals_recomputation(config_path, zones=("bulk-a", "dispatch"))
     cfg = load_config(str(config_path))
     store = Store(cfg.storage.path)
     try:
-        rows = store.zone_rows()
+        rows = store.zones.rows()
         engine = Engine(cfg, store)
         for zid in zones:
             fresh = engine.recompute(zid).state

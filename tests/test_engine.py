@@ -68,7 +68,7 @@ def test_duplicates_are_dropped_by_natural_key(tmp_path):
     again = eng.process([msg("bulk-a", k) for k in range(50, 150)], NOW)
     assert first.counts["accepted"] == 100
     assert again.counts == {"duplicate": 50, "accepted": 50}
-    assert store.count("readings") == 150
+    assert store.record.count("readings") == 150
 
 
 def test_order_within_the_reorder_window_does_not_matter(tmp_path):
@@ -108,7 +108,7 @@ def test_gap_is_recorded_and_air_held(tmp_path):
     """No air reading for longer than max_gap_s is stored as a data gap."""
     _, store, eng = make(tmp_path, reorder=0.0)
     eng.process([msg("bulk-a", k) for k in list(range(100)) + list(range(160, 200))], NOW)
-    gaps = store.gaps("bulk-a")
+    gaps = store.gaps.list("bulk-a")
     assert [(g[1], g[2]) for g in gaps] == [(T0 + 60 * 99, T0 + 60 * 160)]
 
 
@@ -157,7 +157,7 @@ def test_failed_commit_stores_nothing_and_memory_follows_the_record(tmp_path):
     batch = [msg("bulk-a", k) for k in range(500, 700)] + [msg("bulk-a", 700, -30.0)]
     with pytest.raises(Exception, match="disk full"):
         eng.process(batch, NOW)
-    assert store.count("readings") == 500
+    assert store.record.count("readings") == 500
     assert state_of(eng).t_s == T0 + 60 * 499
     store.conn.execute("DROP TRIGGER full")
     eng.process(batch, NOW)
@@ -210,13 +210,13 @@ def test_retention_folds_old_readings_and_keeps_recomputation_exact(tmp_path):
     held = msgs.pop(hours - 100)  # will arrive late, after the retention step
     for lo in range(0, len(msgs), 2000):
         eng.process(msgs[lo : lo + 2000], now)
-    total_before = store.zone_summary("bulk-a")[0]
+    total_before = store.readings.summary("bulk-a")[0]
     folded = eng.apply_retention(now)
     cutoff = now - 366 * 86400
     assert folded == sum(1 for h in range(hours) if T0 + 3600 * h <= cutoff)
     assert store.conn.execute("SELECT min(ts) FROM readings").fetchone()[0] > cutoff
     assert store.conn.execute("SELECT sum(n) FROM readings_hourly").fetchone()[0] == folded
-    assert store.zone_summary("bulk-a")[0] == total_before  # every reading is still accounted for
+    assert store.readings.summary("bulk-a")[0] == total_before  # every reading is still accounted for
     same_state(eng.recompute("bulk-a").state, state_of(eng))
     result = eng.process([Message(held.topic, held.payload, now)], now)
     assert result.counts == {"late": 1}
@@ -245,7 +245,8 @@ def test_database_file_is_private_and_a_bad_path_is_a_clear_error(tmp_path):
     import os
     import stat
 
-    from watcher.store.db import Store, StoreError
+    from watcher.errors import StoreError
+    from watcher.store.db import Store
 
     old = os.umask(0o022)
     try:

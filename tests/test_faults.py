@@ -237,17 +237,17 @@ def test_sensor_clock_ahead_or_behind(tmp_path):
     assert "in the future" in reason and "tolerance 300 s" in reason
     assert readmit(engine, NOW + 300).counts["readmitted"] == 0  # still 300 s too early: kept
     assert readmit(engine, NOW + 650).counts["readmitted"] == 1  # within the tolerance now
-    assert store.count("held") == 0 and engine.held_count == 0
+    assert store.record.count("held") == 0 and engine.held_count == 0
     stored = store.conn.execute("SELECT count(*) FROM readings WHERE sensor = 'ahead-15min'").fetchone()[0]
     assert stored == 1
     engine.process([_air(103, NOW + 30 * 86400, NOW, "ahead-30d")], now=NOW)
     assert readmit(engine, NOW + 6 * 86400).counts["rejected"] == 0
     assert readmit(engine, NOW + 7 * 86400).counts["rejected"] == 1  # hold_days (7) without agreement
     reason = store.conn.execute("SELECT reason FROM rejections ORDER BY id DESC").fetchone()[0]
-    assert "clocks never agreed" in reason and store.count("held") == 0
+    assert "clocks never agreed" in reason and store.record.count("held") == 0
     engine.process([_air(102, NOW - 1800 + 30, NOW, "behind-30min")], now=NOW)  # late
     engine.checkpoint_all(NOW)
-    fresh, saved = engine.recompute("bulk-a").state, store.zone_rows()["bulk-a"].state
+    fresh, saved = engine.recompute("bulk-a").state, store.zones.rows()["bulk-a"].state
     assert float(saved["t_s"]) == fresh.t_s and abs(saved["ub"] - fresh.ub).max() <= 1e-9 * abs(fresh.ub).max()
 
 
@@ -259,23 +259,23 @@ def test_service_clock_jumps(tmp_path):
     engine.process([_air(k, NOW - 600 + 60 * k, NOW - 600 + 60 * k) for k in range(10)], now=NOW)
     with store.atomic():
         engine.monitor.tick(NOW, True, True)
-    assert store.alerts_list(open_only=True) == []
+    assert store.alerts.list(open_only=True) == []
     jumped = NOW + 3600
     with store.atomic():
         engine.monitor.tick(jumped, True, True)
-    opened = store.alerts_list(open_only=True)
+    opened = store.alerts.list(open_only=True)
     assert [a["rule"] for a in opened] == ["sensor-stale"]
     engine.process([_air(50, jumped - 10, jumped)], now=jumped)
     with store.atomic():
         engine.monitor.tick(jumped + 1, True, True)
-    assert store.alerts_list(open_only=True) == []
+    assert store.alerts.list(open_only=True) == []
     back = NOW - 86400
     with store.atomic():
         engine.monitor.tick(back, True, True)
     engine.process([_air(51, back - 5, back)], now=back)
     with store.atomic():
         engine.monitor.tick(back + 1, True, True)
-    assert store.alerts_list(open_only=True) == []
+    assert store.alerts.list(open_only=True) == []
     values = [r[0] for r in store.conn.execute("SELECT value FROM alert_log WHERE value IS NOT NULL")]
     assert all(v >= 0 for v in values)
 
@@ -368,11 +368,11 @@ def test_acknowledgements_come_only_from_the_command_topic(tmp_path):
     """An ack-shaped message on a sensor topic is a bad reading, not an acknowledgement."""
     cfg, store, engine = make(tmp_path, rules=[{"id": "air-benchmark", "above": -30.0, "for_min": 0}])
     engine.process([_air(k, NOW - 600 + 60 * k, NOW) for k in range(5)], now=NOW)
-    (alert,) = store.alerts_list(open_only=True)
+    (alert,) = store.alerts.list(open_only=True)
     forged = json.dumps({"alert": alert["id"], "by": "intruder"}).encode()
     engine.process([Message("kp/bulk-a/s1/air", forged, NOW, 99, 1)], now=NOW)
     engine.monitor.apply_commands(NOW + 1)
-    assert store.alert_get(alert["id"])["status"] == "open"
+    assert store.alerts.get(alert["id"])["status"] == "open"
     reason = store.conn.execute("SELECT reason FROM rejections ORDER BY id DESC").fetchone()[0]
     assert "missing field" in reason
 
@@ -483,7 +483,7 @@ def test_rejections_past_a_topics_rate_are_counted_not_stored_one_by_one(tmp_pat
 
     from watcher.report.figures import rejection_table
 
-    assert store.rejections_since(NOW - 3600) == 5010
+    assert store.rejections.since(NOW - 3600) == 5010
     table = rejection_table(pd.DataFrame(rows, columns=["topic", "n", "reason"]))
     assert table["messages"].sum() == 5010 and table.iloc[0]["messages"] == 5000
 

@@ -16,7 +16,7 @@ from watcher.store import chain
 def an_alert(store, **fields) -> int:
     """An alerts row that agrees with the log rows a test writes for it (verify cross-checks them)."""
     row = dict(zone="bulk-a", rule="air-warm", severity="warning", label="Air warm", metric="air_c", threshold=-18.0)
-    return store.alert_insert(**row, **{"status": "open", "raised_s": 1.0, **fields})
+    return store.alerts.add(**row, **{"status": "open", "raised_s": 1.0, **fields})
 
 
 def verify_cli(db) -> subprocess.CompletedProcess:
@@ -34,9 +34,9 @@ def filled(tmp_path):
     engine.process([Message("kp/bulk-a/s1/air", b'{"t": "warm"}', NOW, 1, 1)], now=NOW)  # a rejection
     with store.atomic():
         an_alert(store)
-        store.alert_log_add(1, "raise", 1.0, 2.0, 3.5)
-        store.event_upsert("bulk-a", "door", 100.0, 160.0, {"source": "signal"})
-        store.event_upsert("bulk-a", "door", 100.0, 170.0, {"cost": "final"})
+        store.alerts.log_add(1, "raise", 1.0, 2.0, 3.5)
+        store.events.upsert("bulk-a", "door", 100.0, 160.0, {"source": "signal"})
+        store.events.upsert("bulk-a", "door", 100.0, 170.0, {"cost": "final"})
         for doc in (
             {"event": "arrive", "lot": "L-1", "zone": "bulk-a", "time": NOW - 3600, "initial": {"budget_used_pct": 30}},
             {"event": "move", "lot": "L-1", "zone": "dispatch", "time": NOW - 1800},
@@ -52,9 +52,9 @@ def test_negative_zero_is_hashed_as_sqlite_stores_it(tmp_path):
     _, store, _ = make(tmp_path, reorder=0.0)
     with store.atomic():
         an_alert(store, status="cleared", cleared_s=5.0, acked_s=7.0, acked_by="qa")
-        store.alert_log_add(1, "raise", 1.0, 2.0, 3.5)
-        store.alert_log_add(1, "clear", 5.0, 6.0, -0.0)
-        store.alert_log_add(1, "ack", 7.0, 8.0, None, "qa", "note")
+        store.alerts.log_add(1, "raise", 1.0, 2.0, 3.5)
+        store.alerts.log_add(1, "clear", 5.0, 6.0, -0.0)
+        store.alerts.log_add(1, "ack", 7.0, 8.0, None, "qa", "note")
     store.close()
     out = verify_cli(tmp_path / "w.db")
     assert out.returncode == 0 and "Record intact" in out.stdout, out.stdout
@@ -114,7 +114,7 @@ def test_retention_keeps_the_chain_verifiable(tmp_path):
     engine.process([msg("bulk-a", k) for k in range(0, 300)], now=NOW)
     engine.process([msg("bulk-a", 10, value=-21.0, sensor="s2")], now=NOW)  # an old reading inserted late
     with store.atomic():
-        assert store.downsample("bulk-a", 1_795_000_000.0 + 60 * 120, NOW + 400 * 86400) > 0
+        assert store.readings.fold("bulk-a", 1_795_000_000.0 + 60 * 120, NOW + 400 * 86400) > 0
     findings, counts = chain.verify(store.conn, now_s=NOW + 400 * 86400)
     assert findings == [] and counts["readings/bulk-a"] == 300 - 121
 

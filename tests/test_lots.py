@@ -170,7 +170,7 @@ def site(tmp_path_factory):
 
 
 def figures(store, lot):
-    return store.lot_state_get(lot)[2]
+    return store.lots.state_get(lot)[2]
 
 
 def test_each_lot_keeps_its_own_population_and_the_physics_holds(site):
@@ -194,9 +194,9 @@ def test_lot_state_equals_a_one_pass_recomputation(site):
     for lot in ("FRESH-A", "FRESH-D", "USED-A", "MOVER"):
         t_s = figures(store, lot)["t_s"]
         fresh = recompute_lot(cfg, store, lot, t_s)
-        saved = store.lot_state_get(lot)
+        saved = store.lots.state_get(lot)
         from watcher.model.integrator import State
-        from watcher.store.db import unpack_state
+        from watcher.store.zones import unpack_state
 
         state = State.from_arrays(unpack_state(saved[1]))
         assert state.t_s == fresh.t_s
@@ -207,7 +207,7 @@ def test_lot_state_equals_a_one_pass_recomputation(site):
 def test_lot_rules_and_refused_lot_events(site):
     """Lot rules raise for the lot that crossed its threshold only; refused lot events are stored with their reason."""
     cfg, store, _ = site
-    alerts = {(a["zone"], a["rule"]) for a in store.alerts_list()}
+    alerts = {(a["zone"], a["rule"]) for a in store.alerts.list()}
     assert ("lot:USED-A", "lot-80") in alerts  # declared 79.8 %, crossed 80 % in six days at -25 C
     assert not any(zone == "lot:FRESH-A" for zone, _ in alerts)
     body = store.conn.execute("SELECT title, body FROM outbox WHERE title LIKE '%lot USED-A%'").fetchone()
@@ -229,7 +229,7 @@ def test_batching_does_not_change_lot_state(tmp_path):
             900: [lot_msg({"event": "move", "lot": "L-1", "zone": "bulk-a", "time": T0 + 900 * 60 + 17})],
         }
         feed(engine, 2, step_min=step, lots=events)
-        out.append(store.lot_state_get("L-1"))
+        out.append(store.lots.state_get("L-1"))
     assert out[0][0] == out[1][0]
     assert out[0][2]["budget_used_pct"] == pytest.approx(out[1][2]["budget_used_pct"], rel=1e-9)
 
@@ -243,7 +243,7 @@ def test_a_late_event_sends_the_lot_back_to_its_arrival(tmp_path):
     with store.atomic():
         record_event(store, cfg, {"event": "move", "lot": "L-9", "zone": "bulk-a", "time": T0 + 3600}, "cli", "cli",
                      None, NOW)  # fmt: skip
-    assert store.lot_state_get("L-9") is None  # to be recomputed
+    assert store.lots.state_get("L-9") is None  # to be recomputed
     keeper = LotKeeper(cfg, store)
     with store.atomic():
         keeper.bring_up("L-9", T0 + DAY, engine._fed_of, NOW)
@@ -328,7 +328,8 @@ def test_lot_state_survives_sigkill_like_zone_state(tmp_path, broker):
     from tests.service_harness import Publisher, WatcherProcess, messages, readings_count, wait_for, write_config
     from watcher.config import load_config
     from watcher.model.integrator import State
-    from watcher.store.db import Store, unpack_state
+    from watcher.store.db import Store
+    from watcher.store.zones import unpack_state
 
     config = write_config(tmp_path, broker, reorder_s=0.0)
     pub = Publisher(broker)
@@ -359,15 +360,15 @@ def test_lot_state_survives_sigkill_like_zone_state(tmp_path, broker):
     store = Store(cfg.storage.path)
     try:
         for lot in ("K-1", "K-2"):
-            saved = store.lot_state_get(lot)
+            saved = store.lots.state_get(lot)
             assert saved is not None, lot
             state = State.from_arrays(unpack_state(saved[1]))
             fresh = recompute_lot(cfg, store, lot, state.t_s)
             assert state.t_s == fresh.t_s
             np.testing.assert_allclose(state.ub, fresh.ub, rtol=1e-9)
             np.testing.assert_allclose(state.nc, fresh.nc, rtol=1e-9, atol=1e-12 * fresh.nc.max())
-        assert store.lot_state_get("K-2")[0] == T0 + 7 * 240 * 60 + 10  # stopped at its departure
-        assert store.lot_state_get("K-1")[0] >= T0 + 60 * (sent - 20)  # brought up to the data at the stop
+        assert store.lots.state_get("K-2")[0] == T0 + 7 * 240 * 60 + 10  # stopped at its departure
+        assert store.lots.state_get("K-1")[0] >= T0 + 60 * (sent - 20)  # brought up to the data at the stop
     finally:
         store.close()
 

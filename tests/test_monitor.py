@@ -117,7 +117,7 @@ def test_daily_growth_by_cause(four_days):
     """Days covered by data and their 24-h tail get baseline and excess by cause; the excursion
     day carries excursion cost; causes plus remainder add up to the day's excess."""
     _, store, _ = four_days
-    days = {r["day"]: r for r in store.daily_rows("bulk-a")}
+    days = {r["day"]: r for r in store.daily.rows("bulk-a")}
     # The excursion runs 2026-11-19 23:06 to 2026-11-20 03:06 UTC: both days carry their part.
     assert {"2026-11-19", "2026-11-20"} <= set(days)
     for day, r in days.items():
@@ -159,10 +159,10 @@ def test_reanalysis_after_a_restart_adds_nothing(four_days, tmp_path):
     """A new engine on the same database (a restart) finds the same events and writes no new
     daily rows or alerts."""
     cfg, store, _ = four_days
-    before = (store.count("events"), store.count("daily_growth"), store.count("alerts"))
+    before = (store.record.count("events"), store.record.count("daily_growth"), store.record.count("alerts"))
     engine = Engine(cfg, store, checkpoint_s=0.0)
     engine.checkpoint_all(NOW + 10)
-    assert (store.count("events"), store.count("daily_growth"), store.count("alerts")) == before
+    assert (store.record.count("events"), store.record.count("daily_growth"), store.record.count("alerts")) == before
 
 
 def test_stale_sensor_and_broker_down_on_the_service_clock(tmp_path):
@@ -171,22 +171,22 @@ def test_stale_sensor_and_broker_down_on_the_service_clock(tmp_path):
     play(engine, 0, 30, now=NOW, received=NOW)
     with store.atomic():
         engine.monitor.tick(NOW + 600, True, True)
-    assert store.count("alerts") == 0
+    assert store.record.count("alerts") == 0
     with store.atomic():
         engine.monitor.tick(NOW + 901, True, True)
         engine.monitor.tick(NOW + 1000, False, True)
         engine.monitor.tick(NOW + 1301, False, True)
-    alerts = {a["rule"]: a for a in store.alerts_list()}
+    alerts = {a["rule"]: a for a in store.alerts.list()}
     assert alerts["sensor-stale"]["zone"] == "bulk-a" and alerts["sensor-stale"]["value"] == 901.0
     assert alerts["broker-down"]["zone"] == "service" and alerts["broker-down"]["status"] == "open"
     with store.atomic():
         engine.monitor.tick(NOW + 1302, True, True)
-    assert store.alert_get(alerts["broker-down"]["id"])["status"] == "cleared"
+    assert store.alerts.get(alerts["broker-down"]["id"])["status"] == "cleared"
     # A reading arriving clears the stale alert (judged at the next tick).
     play(engine, 30, 31, received=NOW + 1400)
     with store.atomic():
         engine.monitor.tick(NOW + 1401, True, True)
-    assert store.alert_get(alerts["sensor-stale"]["id"])["status"] == "cleared"
+    assert store.alerts.get(alerts["sensor-stale"]["id"])["status"] == "cleared"
 
 
 def test_two_sensors_that_disagree(tmp_path):
@@ -194,7 +194,7 @@ def test_two_sensors_that_disagree(tmp_path):
     cfg, store, engine = make(tmp_path, keep=("sensors-disagree",))
     for k in range(40):
         engine.process([msg(k, -25.0, "s1"), msg(k, -21.0, "s2")], now=NOW)
-    (alert,) = store.alerts_list()
+    (alert,) = store.alerts.list()
     assert alert["rule"] == "sensors-disagree" and alert["value"] == pytest.approx(4.0)
     assert alert["raised_s"] - alert["since_s"] >= 900.0
 
@@ -205,11 +205,11 @@ def test_failing_channel_raises_undelivered_through_the_others(tmp_path):
     channels = [("chat", "json://127.0.0.1:9/a", ("alerts",)), ("mail", "json://127.0.0.1:9/b", ("alerts",))]
     cfg, store, engine = make(tmp_path, keep=("undelivered",), channels=channels)
     with store.atomic():
-        store.outbox_add("t", "b", ["alerts"], NOW, ["chat"])
+        store.outbox.add("t", "b", ["alerts"], NOW, ["chat"])
         (row_id,) = rows(store, "SELECT id FROM outbox")[0]
-        store.outbox_record(row_id, "pending", "failure", "Connection refused", NOW, NOW + 30)
+        store.outbox.record(row_id, "pending", "failure", "Connection refused", NOW, NOW + 30)
         engine.monitor.tick(NOW + 601, True, True)
-    (alert,) = store.alerts_list()
+    (alert,) = store.alerts.list()
     assert alert["rule"] == "undelivered" and alert["zone"] == "service"
     assert rows(store, "SELECT channel FROM outbox WHERE alert_id = ?", alert["id"]) == [("mail",)]
 
@@ -219,11 +219,11 @@ def test_latched_budget_alert_stays_quiet_after_ack(tmp_path):
     rules = [{"id": "budget-50", "above": 0.001}]  # reached at once on a fresh zone
     cfg, store, engine = make(tmp_path, rules=rules)
     play(engine, 0, 120)
-    (alert,) = store.alerts_list()
+    (alert,) = store.alerts.list()
     with store.atomic():
-        store.command_add(alert["id"], "QA", None, "cli", None, NOW)
+        store.commands.add(alert["id"], "QA", None, "cli", None, NOW)
     play(engine, 120, 600)
-    assert [a["status"] for a in store.alerts_list()] == ["acknowledged"]
+    assert [a["status"] for a in store.alerts.list()] == ["acknowledged"]
     assert rows(store, "SELECT result FROM alert_commands") == [("acknowledged",)]
 
 
@@ -237,12 +237,12 @@ def test_door_contact_events_and_live_duration(tmp_path):
     play(engine, 0, 10)
     engine.process([door(10, 1)], now=NOW)
     play(engine, 10, 21, hour_batches=False)
-    assert store.count("alerts") == 1  # open 10 min at minute 20
+    assert store.record.count("alerts") == 1  # open 10 min at minute 20
     engine.process([door(25, 0)], now=NOW)
     play(engine, 21, 40, hour_batches=False)
     engine.checkpoint_all(NOW)
     assert rows(store, "SELECT kind, start_ts, end_ts FROM events") == [("door", T0 + 600, T0 + 1500)]
-    assert store.alerts_list()[0]["status"] == "cleared"
+    assert store.alerts.list()[0]["status"] == "cleared"
     db = sqlite3.connect(store.path)
     assert [r[0] for r in db.execute("SELECT step FROM alert_log ORDER BY id")] == ["raise", "clear"]
 
@@ -256,9 +256,9 @@ def test_an_open_door_survives_a_restart(tmp_path):
     play(engine, 5, 9, hour_batches=False)
     restarted = Engine(cfg, store, checkpoint_s=0.0)
     play(restarted, 9, 15, hour_batches=False)  # minute 14: the door has been open 9 minutes
-    assert store.count("alerts") == 0
+    assert store.record.count("alerts") == 0
     play(restarted, 15, 16, hour_batches=False)
-    (alert,) = store.alerts_list()
+    (alert,) = store.alerts.list()
     assert alert["rule"] == "door-open" and alert["since_s"] == T0 + 300
 
 

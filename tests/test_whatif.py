@@ -162,7 +162,7 @@ def test_the_command_on_a_recorded_zone(tmp_path):
     for lo in range(0, len(msgs), 60):
         engine.process(msgs[lo : lo + 60], now=T0 + 30 * DAY)
     engine.checkpoint_all(T0 + 30 * DAY)
-    fault = next(e for e in store.events_for("bulk-a", T0) if e["kind"] == "excursion")
+    fault = next(e for e in store.events.of_zone("bulk-a", T0) if e["kind"] == "excursion")
     store.close()
 
     def what_if(*args):

@@ -42,7 +42,7 @@ def ack(alert_id, by, note, wait_s, config_path, db_path) -> None:
         raise InputError("--note", f"{len(note)} characters", f"at most {MAX_NOTE}")
     store = Store(_db(config_path, db_path))
     try:
-        alert = store.alert_get(alert_id)
+        alert = store.alerts.get(alert_id)
         if alert is None:
             click.echo(f"watcher: no alert {alert_id} (see `watcher alerts`)", err=True)
             sys.exit(1)
@@ -50,12 +50,12 @@ def ack(alert_id, by, note, wait_s, config_path, db_path) -> None:
             click.echo(f"watcher: alert {alert_id} is {alert['status']}; nothing to acknowledge", err=True)
             sys.exit(1)
         with store.atomic():
-            cmd = store.command_add(alert_id, by.strip(), note, "cli", getpass.getuser(), time.time())
+            cmd = store.commands.add(alert_id, by.strip(), note, "cli", getpass.getuser(), time.time())
         deadline = time.monotonic() + wait_s
-        result = store.command_result(cmd)
+        result = store.commands.result(cmd)
         while result is None and time.monotonic() < deadline:
             time.sleep(0.2)
-            result = store.command_result(cmd)
+            result = store.commands.result(cmd)
     finally:
         store.close()
     if result is None:
@@ -77,11 +77,11 @@ def alerts(open_only, as_json, config_path, db_path) -> None:
 
     store = Store(_db(config_path, db_path), readonly=True)
     try:
-        rows = store.alerts_list(open_only)
+        rows = store.alerts.list(open_only)
         if as_json:
             for r in rows:
                 r["log"] = [
-                    dict(zip(("step", "at_s", "wall_s", "value", "by", "note"), x)) for x in store.alert_log(r["id"])
+                    dict(zip(("step", "at_s", "wall_s", "value", "by", "note"), x)) for x in store.alerts.log(r["id"])
                 ]
             click.echo(json.dumps(rows, indent=2))
             return
@@ -138,7 +138,6 @@ def verify(since, config_path, db_path) -> None:
     """Recompute the record's hash chains and name the first row that no longer matches."""
     import datetime as dt
 
-    from watcher.store import chain, crosscheck
     from watcher.store.db import Store
 
     since_ts = None
@@ -149,9 +148,7 @@ def verify(since, config_path, db_path) -> None:
             raise InputError("--since", since, "a date such as 2026-11-23") from None
     store = Store(_db(config_path, db_path), readonly=True)
     try:
-        findings, counts = chain.verify(store.conn, since_ts)
-        findings += chain.check_reports(store.conn) + chain.check_lots(store.conn)
-        findings += crosscheck.check_alerts(store.conn) + crosscheck.check_outbox(store.conn)
+        findings, counts = store.record.verify(since_ts)
     finally:
         store.close()
     for name, n in sorted(counts.items()):

@@ -214,7 +214,7 @@ def _overview(config_path: str) -> list[dict]:
 
     store = Store(load_config(config_path).storage.path, readonly=True)
     try:
-        return store.lots_overview()
+        return store.lots.overview()
     finally:
         store.close()
 

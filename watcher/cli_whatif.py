@@ -49,7 +49,8 @@ def what_if(zone, start, end, setpoint_offset, defrosts_per_day, defrost_min, de
     from watcher.engine.zones import ZoneRunner, spec_key
     from watcher.files.series import parse_time
     from watcher.model.integrator import State, advance, new_state
-    from watcher.store.db import Store, unpack_state
+    from watcher.store.db import Store
+    from watcher.store.zones import unpack_state
     from watcher.whatif import Change, compare
 
     cfg = load_config(config_path)
@@ -78,12 +79,12 @@ def what_if(zone, start, end, setpoint_offset, defrosts_per_day, defrost_min, de
             )
         events = [
             {"id": e["id"], "kind": e["kind"], "start_ts": e["start_ts"], "end_ts": e["end_ts"]}
-            for e in store.events_for(zone, t0, t1)
+            for e in store.events.of_zone(zone, t0, t1)
         ]
         unknown = set(drop) - {e["id"] for e in events}
         if unknown:
             raise InputError("--without-event", sorted(unknown), f"ids of events of {zone} in the period")
-        snap = store.snapshot_before(zone, t0, spec_key(z))
+        snap = store.snapshots.before(zone, t0, spec_key(z))
         state = None if snap is None else State.from_arrays(unpack_state(snap[1]))
         if state is not None and state.t_s < t0:  # bring the stored state up to the start
             pre_t, pre_air = air_samples(store, zone, state.t_s, t0)

@@ -53,7 +53,7 @@ class AlertPrinter:
         try:
             store = Store(str(self.db), readonly=True)
             try:
-                rows = store.alert_steps_after(self.seen, ("raise", "clear"))
+                rows = store.alerts.steps_after(self.seen, ("raise", "clear"))
             finally:
                 store.close()
         except (StoreError, sqlite3.Error):
@@ -173,7 +173,7 @@ def _stored(db: str) -> int:
     try:
         store = Store(str(db), readonly=True)
         try:
-            return store.messages_handled()
+            return store.record.messages_handled()
         finally:
             store.close()
     except (StoreError, sqlite3.Error):

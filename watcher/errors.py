@@ -14,6 +14,8 @@
     +-- StoreError               the database cannot be opened or written (disk full, locked, I/O):
                                  the only failure the writer retries; anything else raised while
                                  handling a message is that message's fault and sets it aside
+    +-- RecordRefused            the database refused a row for what it holds (a constraint, a
+                                 value that cannot be bound): the data's fault, never retried
 
 Library errors are translated at the boundary with ``raise ... from exc``.
 """
@@ -79,3 +81,8 @@ class OutOfClock(Rejected):
 
 class NotFound(WatcherError):
     """A record named by id that does not exist, or is not in the state the request needs."""
+
+
+class RecordRefused(WatcherError):
+    """The database refused what was written (a broken constraint, a value sqlite3 cannot bind):
+    translated at the store's boundary like StoreError, but the data's fault, so not retried."""

@@ -365,7 +365,7 @@ class Service:
         that hangs delays only other notifications, never readings."""
         store = Store(self.config.storage.path)
         with store.atomic():
-            again = store.outbox_recover()
+            again = store.outbox.recover()
         if again:
             log.warning("%d notifications were cut off by a restart mid-send; sending them again", again)
         channels, notifier = None, None

@@ -18,12 +18,12 @@ def read_status(config_path: str | None, db_path: str | None, now: float | None 
     max_gap = cfg.ingest.max_gap_s if cfg else DEFAULT_MAX_GAP_S
     store = Store(path, readonly=True)
     try:
-        rows = store.zone_rows()
+        rows = store.zones.rows()
         zone_ids = [z.id for z in cfg.zones] if cfg else sorted(rows)
         zones = []
         for zid in zone_ids:
             row = rows.get(zid)
-            total, last_ts = store.zone_summary(zid)
+            total, last_ts = store.readings.summary(zid)
             fig = row.figures if row else {}
             age = None if last_ts is None else max(0.0, now - last_ts)
             zones.append(
@@ -43,7 +43,7 @@ def read_status(config_path: str | None, db_path: str | None, now: float | None 
                     "last_reading_age_s": age,
                     "readings_total": total,
                     "open_gap": age is None or age > max_gap,
-                    "gaps": [{"start_s": g[1], "end_s": g[2], "seconds": g[3]} for g in store.gaps(zid)[-5:]],
+                    "gaps": [{"start_s": g[1], "end_s": g[2], "seconds": g[3]} for g in store.gaps.list(zid)[-5:]],
                     "figures_updated_s": row.updated_ts if row else None,
                 }
             )
@@ -51,12 +51,12 @@ def read_status(config_path: str | None, db_path: str | None, now: float | None 
             "database": path,
             "now_s": now,
             "zones": zones,
-            "rejections_total": store.rejections_since(-float("inf")),
+            "rejections_total": store.rejections.since(-float("inf")),
             "open_alerts": [
                 {k: a[k] for k in ("id", "zone", "severity", "status", "label", "raised_s", "acked_by")}
-                for a in store.alerts_list(open_only=True)
+                for a in store.alerts.list(open_only=True)
             ],
-            "gaps_total": store.count("gaps"),
+            "gaps_total": store.record.count("gaps"),
         }
     finally:
         store.close()

@@ -27,7 +27,8 @@ import numpy as np
 from watcher.events.attribution import attribute, day_growth, default_tail_s
 from watcher.events.detect import Event, excursions, infer_defrosts, state_intervals
 from watcher.model.integrator import Spec, State
-from watcher.store.db import Store, pack_state, unpack_state
+from watcher.store.db import Store
+from watcher.store.zones import pack_state, unpack_state
 
 BIN_S = 60.0
 CONTEXT_S = 2 * 86400.0  # air before the span, for the detector's baseline and regularity
@@ -73,7 +74,7 @@ def air_samples(store: Store, zone_id: str, after_s: float, upto_s: float) -> tu
     """The zone's air as one sample per whole one-minute bin, stamped at the bin's end (when its
     mean is known), for the samples in (after_s, upto_s]. The same readings always give the same
     samples, however the span is cut (lots and the what-if replay rely on it)."""
-    starts, air = binned_air(store.signal_rows(zone_id, ("air_c",), after_s - BIN_S, upto_s))
+    starts, air = binned_air(store.readings.signals(zone_id, ("air_c",), after_s - BIN_S, upto_s))
     t = starts + BIN_S
     keep = (t > after_s) & (t <= upto_s)
     return t[keep], air[keep]
@@ -93,9 +94,9 @@ def _intervals(rows, kind: str) -> list[Event]:
 def detect(store: Store, zone, events_cfg, span_start: float, fed_ts: float) -> list[Event]:
     """All events overlapping (span_start, fed_ts], with context before the span."""
     since = span_start - CONTEXT_S
-    t, air = binned_air(store.signal_rows(zone.id, ("air_c",), since, fed_ts))
-    doors = _intervals(store.signal_rows(zone.id, ("door",), since, fed_ts), "door")
-    defrost_rows = store.signal_rows(zone.id, ("defrost",), since, fed_ts)
+    t, air = binned_air(store.readings.signals(zone.id, ("air_c",), since, fed_ts))
+    doors = _intervals(store.readings.signals(zone.id, ("door",), since, fed_ts), "door")
+    defrost_rows = store.readings.signals(zone.id, ("defrost",), since, fed_ts)
     if defrost_rows:
         defrosts = _intervals(defrost_rows, "defrost")
     elif events_cfg.infer_defrosts and t.size:
@@ -116,7 +117,7 @@ def _overlap(a: Event, stored: dict, fed_ts: float) -> bool:
 def merge_events(store: Store, zone_id: str, found: list[Event], span_start: float, fed_ts: float) -> None:
     """Store what was found; update overlapping stored events; drop stored inferred events of
     the span that are no longer found (the detector saw more data and changed its mind)."""
-    stored = store.events_for(zone_id, span_start)
+    stored = store.events.of_zone(zone_id, span_start)
     matched: set[int] = set()
     for e in found:
         detail = {"source": e.source, "peak_c": None if e.peak_c is None else round(e.peak_c, 3)}
@@ -126,21 +127,21 @@ def merge_events(store: Store, zone_id: str, found: list[Event], span_start: flo
             if same["start_ts"] == e.start_s and same["end_ts"] == e.end_s:
                 continue
             if same["start_ts"] != e.start_s:
-                store.event_delete(same["id"])  # the key moved; costs are redone
-        store.event_upsert(zone_id, e.kind, e.start_s, e.end_s, detail)
+                store.events.delete(same["id"])  # the key moved; costs are redone
+        store.events.upsert(zone_id, e.kind, e.start_s, e.end_s, detail)
     for s in stored:
         if s["id"] not in matched and s.get("source") == "inferred" and s["start_ts"] >= span_start:
-            store.event_delete(s["id"])
+            store.events.delete(s["id"])
 
 
 def _history(store: Store, zone_id: str, t0: float, t1: float) -> tuple[np.ndarray, np.ndarray]:
-    t, air = binned_air(store.signal_rows(zone_id, ("air_c",), t0, t1))
+    t, air = binned_air(store.readings.signals(zone_id, ("air_c",), t0, t1))
     keep = t > t0
     return t[keep], air[keep]
 
 
 def _start_state(store: Store, zone_id: str, key: str, at_s: float) -> State | None:
-    snap = store.snapshot_before(zone_id, at_s, key)
+    snap = store.snapshots.before(zone_id, at_s, key)
     return None if snap is None else State.from_arrays(unpack_state(snap[1]))
 
 
@@ -150,13 +151,13 @@ def cost_events(store: Store, zone, spec: Spec, key: str, fed_ts: float) -> list
     so a final cost does not raise a second alert for the same event)."""
     tail = default_tail_s(spec)
     todo = []
-    for s in store.events_for(zone.id, fed_ts - SNAPSHOT_KEEP_S):
+    for s in store.events.of_zone(zone.id, fed_ts - SNAPSHOT_KEEP_S):
         if s["end_ts"] is None or s.get("cost") == "final":
             continue
         final = s["end_ts"] + tail <= fed_ts
         if final or s.get("cost") is None:
             todo.append((s, final))
-    first = store.snapshot_first_ts(zone.id, key)
+    first = store.snapshots.first_ts(zone.id, key)
     done = []
     for final in (True, False):
         group = [s for s, f in todo if f is final and first is not None and s["start_ts"] >= first]
@@ -182,7 +183,7 @@ def cost_events(store: Store, zone, spec: Spec, key: str, fed_ts: float) -> list
                 "excess_um": round(c.excess_um, 4),
                 "budget_share_pct": round(c.budget_share_pct, 4),
             }
-            store.event_upsert(zone.id, s["kind"], s["start_ts"], s["end_ts"], detail)
+            store.events.upsert(zone.id, s["kind"], s["start_ts"], s["end_ts"], detail)
             done.append({**s, **detail, "first_cost": s.get("cost") is None})
     return done
 
@@ -204,7 +205,7 @@ def local_days(tz: str, t0: float, t1: float) -> list[tuple[str, float, float]]:
 def daily_figures(store: Store, zone, spec: Spec, key: str, tz: str, fed_ts: float) -> list[str]:
     """Write daily_growth rows for days whose recovery tail the data now cover."""
     tail = default_tail_s(spec)
-    have = store.daily_days(zone.id)
+    have = store.daily.days(zone.id)
     written = []
     carried = None  # the previous day's end state, when that day was computed in this pass
     for day, start_s, end_s in local_days(tz, fed_ts - DAYS_BACK * 86400.0, fed_ts - tail):
@@ -224,12 +225,12 @@ def daily_figures(store: Store, zone, spec: Spec, key: str, tz: str, fed_ts: flo
         # event that spans midnight (the event's whole cost is on the event's row).
         events = [
             Event(s["kind"], max(s["start_ts"], start_s), min(s["end_ts"], end_s))
-            for s in store.events_for(zone.id, start_s, end_s)
+            for s in store.events.of_zone(zone.id, start_s, end_s)
             if s["end_ts"] is not None
         ]
         g = day_growth(spec, start, t, air, zone.setpoint_c, start_s, end_s, events)
         carried = g.end_state
-        store.daily_save(
+        store.daily.save(
             {
                 "zone": zone.id,
                 "day": day,
@@ -254,15 +255,15 @@ def take_snapshot(store: Store, zone_id: str, key: str, state: State | None, las
     time of the newest snapshot."""
     if state is None or math.isfinite(last_s) and state.t_s // 3600.0 <= last_s // 3600.0:
         return last_s
-    store.snapshot_save(zone_id, state.t_s, key, pack_state(state.arrays()))
-    store.snapshots_drop(zone_id, before_ts=state.t_s - SNAPSHOT_KEEP_S)
+    store.snapshots.save(zone_id, state.t_s, key, pack_state(state.arrays()))
+    store.snapshots.drop(zone_id, before_ts=state.t_s - SNAPSHOT_KEEP_S)
     return state.t_s
 
 
 def defrosts_on_day(store: Store, zone_id: str, tz: str, at_s: float) -> int:
     day_start = dt.datetime.combine(dt.datetime.fromtimestamp(at_s, ZoneInfo(tz)).date(), dt.time(), ZoneInfo(tz))
     t0 = day_start.timestamp()
-    return sum(1 for e in store.events_for(zone_id, t0) if e["kind"] == "defrost" and e["start_ts"] >= t0)
+    return sum(1 for e in store.events.of_zone(zone_id, t0) if e["kind"] == "defrost" and e["start_ts"] >= t0)
 
 
 def analyse(

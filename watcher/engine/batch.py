@@ -24,7 +24,8 @@ from watcher.errors import InputError
 from watcher.ingest.message import Message
 from watcher.ingest.payload import OutOfClock, Reading, Rejected, parse_message
 from watcher.ingest.topics import topic_is_clean
-from watcher.store.db import Store, ZoneRow
+from watcher.store.db import Store
+from watcher.store.zones import ZoneRow
 
 log = logging.getLogger("watcher.engine")
 # Fault injection for the tests of the writer's isolation (never set in production): a message
@@ -83,7 +84,7 @@ class Engine:
         self.last_figures: dict[str, dict] = {}
         self._load(z.id for z in config.zones)
         self.monitor = self._monitor()
-        self.held_count = store.count("held")
+        self.held_count = store.record.count("held")
         self.limiter = RejectionLimiter(config.ingest.rejections_per_topic_per_min)
 
     def _monitor(self) -> Monitor:
@@ -97,7 +98,7 @@ class Engine:
 
     def reload_all(self) -> None:
         """After a failed outer transaction: every zone and the monitor back to the record."""
-        self.store.forget_heads()
+        self.store.readings.forget_heads()
         self._load(self.runners)
         self.monitor = self._monitor()
 
@@ -111,7 +112,7 @@ class Engine:
         return ZoneRunner(z, self.config.ingest.reorder_window_s, self.config.ingest.max_gap_s)
 
     def _load(self, zone_ids) -> None:
-        rows = self.store.zone_rows()
+        rows = self.store.zones.rows()
         for zid in zone_ids:
             runner = self._new_runner(zid)
             row = rows.get(zid)
@@ -125,25 +126,25 @@ class Engine:
                         "zone %s: settings changed since the last checkpoint, recomputing from stored readings", zid
                     )
             self._replay_into(runner, after)
-            runner.sensor_names = self.store.sensor_names(zid)
+            runner.sensor_names = self.store.readings.sensors(zid)
             self.runners[zid] = runner
 
     def _replay_into(self, runner: ZoneRunner, after_ts: float | None) -> None:
         """Feed a zone's stored model readings newer than after_ts (all when None)."""
-        for sensor, signal, ts, value in self.store.readings_for(runner.zone.id, after_ts):
+        for sensor, signal, ts, value in self.store.readings.of_zone(runner.zone.id, after_ts):
             runner.accept(Reading(runner.zone.id, sensor, signal, ts, value))
-        total, last = self.store.zone_summary(runner.zone.id)
+        total, last = self.store.readings.summary(runner.zone.id)
         runner.readings_total, runner.last_ts = total, last
         runner.advance()
         for start, end in runner.new_gaps:  # most are stored already; the rest were pending
-            self.store.insert_gap(runner.zone.id, start, end)
+            self.store.gaps.add(runner.zone.id, start, end)
         runner.new_gaps.clear()
 
     def _from_anchor(self, zone_id: str) -> tuple[ZoneRunner, float | None]:
         """A runner at the zone's retention anchor (the exact state at the last downsampling
         cut-off), or a fresh one when the zone has none."""
         runner = self._new_runner(zone_id)
-        anchor = self.store.anchor(zone_id)
+        anchor = self.store.zones.anchor(zone_id)
         if anchor is None:
             return runner, None
         key, fed_ts, state, sensors = anchor
@@ -160,10 +161,10 @@ class Engine:
     def recompute(self, zone_id: str) -> ZoneRunner:
         """Rebuild one zone from its anchor and every raw reading stored after it."""
         runner, after = self._from_anchor(zone_id)
-        runner.sensor_names = self.store.sensor_names(zone_id)
-        for sensor, signal, ts, value in self.store.readings_for(zone_id, after):
+        runner.sensor_names = self.store.readings.sensors(zone_id)
+        for sensor, signal, ts, value in self.store.readings.of_zone(zone_id, after):
             runner.accept(Reading(zone_id, sensor, signal, ts, value))
-        total, last = self.store.zone_summary(zone_id)
+        total, last = self.store.readings.summary(zone_id)
         runner.readings_total, runner.last_ts = total, last
         runner.advance()
         return runner
@@ -231,9 +232,9 @@ class Engine:
                 elif isinstance(item, str):
                     self._reject(msg, item, excess)
                 elif isinstance(item, tuple):
-                    self.store.hold(msg.received_ts, msg.topic, msg.payload, item[1])
+                    self.store.held.add(msg.received_ts, msg.topic, msg.payload, item[1])
             for topic, ex in excess.items():
-                self.store.insert_rejection(ex.first_ts, topic, self.limiter.summary(ex), ex.payload, n=ex.n)
+                self.store.rejections.add(ex.first_ts, topic, self.limiter.summary(ex), ex.payload, n=ex.n)
             good = [(item, msg.received_ts, msg.topic) for item, msg in parsed if isinstance(item, Reading)]
             self._store_readings(good, result, touched)
             self._finish(touched, result, now)
@@ -246,16 +247,16 @@ class Engine:
             with self.store.atomic():
                 yield
         except Exception:
-            self.store.forget_heads()
+            self.store.readings.forget_heads()
             self._load(touched)
             self.monitor = self._monitor()
-            self.held_count = self.store.count("held")
+            self.held_count = self.store.record.count("held")
             raise
 
     def _reject(self, msg: Message, reason: str, excess: dict[str, Excess]) -> None:
         """Store one rejection, or count it in its topic's row once the topic is over its rate."""
         if self.limiter.admit(msg.topic, msg.received_ts):
-            self.store.insert_rejection(msg.received_ts, msg.topic, reason, msg.payload)
+            self.store.rejections.add(msg.received_ts, msg.topic, reason, msg.payload)
             return
         ex = excess.setdefault(msg.topic, Excess(msg.received_ts, reason, msg.payload))
         ex.n, ex.reason, ex.payload = ex.n + 1, reason, msg.payload
@@ -286,7 +287,7 @@ class Engine:
         """Record a message that could not be handled as a rejection, in its own transaction."""
         result = BatchResult()
         with self.store.atomic():
-            self.store.insert_rejection(msg.received_ts, msg.topic, reason, msg.payload)
+            self.store.rejections.add(msg.received_ts, msg.topic, reason, msg.payload)
         result.counts["rejected"] += 1
         result.rejections["set_aside"] += 1
         return result
@@ -308,7 +309,7 @@ class Engine:
             return
         keys = {(r.zone, r.sensor, r.signal, r.ts) for r, _, _ in items}
         if len(keys) == len(items) and not any(self.runners[r.zone].is_late(r) for r, _, _ in items):
-            if self.store.insert_readings_all_new(items):
+            if self.store.readings.add_all_new(items):
                 for r, received_ts, _ in items:
                     self.runners[r.zone].accept(r)
                     self.monitor.observe(r, received_ts)
@@ -323,14 +324,14 @@ class Engine:
     ) -> None:
         runner = self.runners[reading.zone]
         late = runner.is_late(reading)
-        if not self.store.insert_reading(reading, received_ts, topic, late):
+        if not self.store.readings.add(reading, received_ts, topic, late):
             result.counts["duplicate"] += 1
-            stored = self.store.stored_value(reading)
+            stored = self.store.readings.value_of(reading)
             if stored is not None and stored != reading.value:
                 # The same sensor and time with another value: the first stays (the record is
                 # append-only); the conflict is recorded, not just counted.
                 why = f"conflicts with the stored reading at that time (stored {stored!r}, got {reading.value!r}); first kept"
-                self.store.insert_rejection(received_ts, topic, f"sensor {reading.sensor!r}: {why}", b"")
+                self.store.rejections.add(received_ts, topic, f"sensor {reading.sensor!r}: {why}", b"")
                 result.rejections["conflicting_duplicate"] += 1
             return
         touched.add(reading.zone)
@@ -363,7 +364,7 @@ class Engine:
     def _feed(self, runner: ZoneRunner) -> None:
         runner.advance()
         for start, end in runner.new_gaps:
-            self.store.insert_gap(runner.zone.id, start, end)
+            self.store.gaps.add(runner.zone.id, start, end)
         runner.new_gaps.clear()
 
     def checkpoint(self, zid: str, now: float) -> None:
@@ -372,7 +373,7 @@ class Engine:
         self._feed(runner)
         figures = runner.figures()
         self.last_figures[zid] = figures
-        self.store.save_zone(
+        self.store.zones.save(
             ZoneRow(
                 zone=zid,
                 spec_key=spec_key(runner.zone),
@@ -397,7 +398,7 @@ class Engine:
         newest reading by more than a day (a dead RTC battery once put it 401 days ahead and
         retention deleted every raw reading) is not believed; the newest reading's time plus a
         day is used, and the disagreement logged."""
-        newest = self.store.newest_reading_ts()
+        newest = self.store.readings.newest_ts()
         if newest is None:
             return 0
         if now > newest + CLOCK_TRUST_S:
@@ -412,7 +413,7 @@ class Engine:
             runner, after = self._from_anchor(zid)
             if after is not None and after >= cutoff:
                 continue
-            rows = list(self.store.readings_for(zid, after, cutoff))
+            rows = list(self.store.readings.of_zone(zid, after, cutoff))
             if not rows:
                 continue
             for sensor, signal, ts, value in rows:
@@ -420,16 +421,16 @@ class Engine:
             runner.max_ts = max(runner.max_ts, cutoff + runner.window)  # release everything up to the cut-off
             runner.advance()
             with self.store.atomic():
-                self.store.save_anchor(
+                self.store.zones.anchor_save(
                     zid,
                     spec_key(runner.zone),
                     None if runner.fed_ts == float("-inf") else runner.fed_ts,
                     None if runner.state is None else runner.state.arrays(),
                     runner.sensors_blob(),
                 )
-                folded += self.store.downsample(zid, runner.fed_ts, now)
+                folded += self.store.readings.fold(zid, runner.fed_ts, now)
         with self.store.atomic():
-            self.store.prune_rejections(cutoff, now)
+            self.store.rejections.prune(cutoff, now)
         return folded
 
     def checkpoint_all(self, now: float | None = None) -> None:

@@ -29,7 +29,7 @@ def readmit(engine: Engine, now_s: float) -> BatchResult:
     admit: list[Message] = []
     done: list[int] = []
     expired: list[tuple] = []
-    for row_id, received_ts, topic, payload, reason in engine.store.held_rows(READMIT_BATCH):
+    for row_id, received_ts, topic, payload, reason in engine.store.held.oldest(READMIT_BATCH):
         msg = Message(topic, bytes(payload), now_s)
         try:
             engine.parse(msg)
@@ -56,12 +56,12 @@ def readmit(engine: Engine, now_s: float) -> BatchResult:
     try:
         with engine.store.atomic():
             for received_ts, topic, payload, reason in expired:
-                engine.store.insert_rejection(received_ts, topic, reason, bytes(payload))
-            engine.store.unhold(done)
+                engine.store.rejections.add(received_ts, topic, reason, bytes(payload))
+            engine.store.held.remove(done)
             if admit:
                 result = engine.process(admit, now_s)
     except Exception:
-        engine.held_count = engine.store.count("held")
+        engine.held_count = engine.store.record.count("held")
         engine.reload_all()
         raise
     engine.held_count = max(0, engine.held_count - len(done))

@@ -22,7 +22,8 @@ from watcher.ingest.jsondoc import BadJson, load_json
 from watcher.lots.events import LotEvent, check_next, last_zone, parse_event, stays
 from watcher.lots.model import lot_figures, lot_spec, start_state
 from watcher.model.integrator import State, advance
-from watcher.store.db import Store, pack_state, unpack_state
+from watcher.store.db import Store
+from watcher.store.zones import pack_state, unpack_state
 
 log = logging.getLogger("watcher.lots")
 
@@ -30,8 +31,8 @@ log = logging.getLogger("watcher.lots")
 def record_event(store: Store, config, doc, where: str, source: str, sender: str | None, received_s: float) -> LotEvent:
     """Validate a lot event against the configuration and the lot's history, then store it."""
     ev = parse_event(doc, where, {z.id for z in config.zones}, set(builtin_names()), received_s)
-    check_next(store.lot_history(ev.lot), ev, where)
-    store.lot_add_event(ev, source, sender, received_s)
+    check_next(store.lots.history(ev.lot), ev, where)
+    store.lots.event_add(ev, source, sender, received_s)
     return ev
 
 
@@ -57,19 +58,19 @@ class LotKeeper:
         """Bring the lots that sat in this zone up to at_s (as far as their zones have data).
         Returns (lot, zone it is in, figures) for each lot that moved on."""
         out = []
-        for lot in self.store.lots_touching(zone_id):
+        for lot in self.store.lots.touching(zone_id):
             done = self.bring_up(lot, at_s, fed_of, now_s)
             if done is not None:
                 out.append((lot, *done))
         return out
 
     def bring_up(self, lot: str, target_s: float, fed_of, now_s: float) -> tuple[str, dict] | None:
-        info = self.store.lot_info(lot)
-        history = self.store.lot_history(lot)
+        info = self.store.lots.info(lot)
+        history = self.store.lots.history(lot)
         if info is None or not history:
             return None
         spec = self.spec(info["product"])
-        row = self.store.lot_state_get(lot)
+        row = self.store.lots.state_get(lot)
         periods = stays(history)
         if row is None:
             state = self.start(spec, info, periods)
@@ -80,7 +81,7 @@ class LotKeeper:
         if state.t_s == start_t and row is not None:
             return None
         figures = lot_figures(spec, state)
-        self.store.lot_state_save(lot, state.t_s, pack_state(state.arrays()), figures, now_s)
+        self.store.lots.state_save(lot, state.t_s, pack_state(state.arrays()), figures, now_s)
         return last_zone(history), figures
 
     def walk(self, spec, state: State, periods, target_s: float, fed_of) -> State:
@@ -112,7 +113,7 @@ class LotKeeper:
         return new
 
     def _air_before(self, zone: str, t_s: float) -> float:
-        rows = self.store.signal_rows(zone, ("air_c",), t_s - 6 * 3600.0, t_s)
+        rows = self.store.readings.signals(zone, ("air_c",), t_s - 6 * 3600.0, t_s)
         if rows:
             return float(rows[-1][3])
         return self.config.zone(zone).setpoint_c
@@ -121,7 +122,7 @@ class LotKeeper:
 def recompute_lot(config, store: Store, lot: str, target_s: float) -> State:
     """A lot's state from its arrival to target_s in one pass (what a restart must agree with)."""
     keeper = LotKeeper(config, store)
-    info = store.lot_info(lot)
+    info = store.lots.info(lot)
     spec = keeper.spec(info["product"])
-    periods = stays(store.lot_history(lot))
+    periods = stays(store.lots.history(lot))
     return keeper.walk(spec, keeper.start(spec, info, periods), periods, target_s, lambda zone: math.inf)

@@ -107,13 +107,13 @@ class Monitor:
         self.store = store
         self.rules = list(config.alerting.rules)
         ids = {r.id for r in self.rules}
-        self.states = {k: _state_from(d) for k, d in store.alert_states().items() if k[1] in ids}
+        self.states = {k: _state_from(d) for k, d in store.alerts.states().items() if k[1] in ids}
         self.live = {z.id: Live() for z in config.zones}
-        marks = store.marks()
+        marks = store.zones.marks()
         for zid, lz in self.live.items():
-            for sensor, signal, ts, value, since in store.switch_state(zid):
+            for sensor, signal, ts, value, since in store.readings.switch_state(zid):
                 lz.switches[(signal, sensor)] = [ts, value, since]
-            lz.received = store.last_received(zid)
+            lz.received = store.readings.last_received(zid)
             lz.analysed_ts = marks.get((zid, "analysed_ts"), -math.inf)
             lz.snapshot_ts = marks.get((zid, "snapshot_ts"), -math.inf)
         self.broker_down_since: float | None = None
@@ -133,7 +133,7 @@ class Monitor:
     def command(self, payload: bytes, received_s: float, source: str = "mqtt", sender: str | None = None) -> None:
         """Queue an acknowledgement (applied by apply_commands); raises InputError if malformed."""
         alert_id, by, note = parse_ack(payload)
-        self.store.command_add(alert_id, by, note, source, sender, received_s)
+        self.store.commands.add(alert_id, by, note, source, sender, received_s)
 
     # --- per zone, after each batch that touched it -------------------------------------------
     def zone_step(
@@ -160,7 +160,7 @@ class Monitor:
         snap = take_snapshot(self.store, zid, spec_key(runner.zone), runner.state, lz.snapshot_ts)
         if snap != lz.snapshot_ts:
             lz.snapshot_ts = snap
-            self.store.set_mark(zid, "snapshot_ts", snap)
+            self.store.zones.mark_set(zid, "snapshot_ts", snap)
         every, fed = self.config.events.analyse_every_s, runner.fed_ts
         points = analysis_points(lz.analysed_ts, fed, every)
         if final and fed > lz.analysed_ts and (not points or points[-1] < fed):
@@ -194,7 +194,7 @@ class Monitor:
             at_s,
         )
         lz.analysed_ts = at_s
-        self.store.set_mark(zid, "analysed_ts", at_s)
+        self.store.zones.mark_set(zid, "analysed_ts", at_s)
         lz.defrosts_today = found.defrosts_today
         new = [e for e in found.costed if e["first_cost"]]
         if new:
@@ -202,8 +202,8 @@ class Monitor:
 
     def forget_after(self, zone_id: str, ts: float) -> None:
         """A late reading at ts changed the zone's past: snapshots from then on no longer hold."""
-        self.store.snapshots_drop(zone_id, after_ts=ts)
-        self.store.lot_states_drop_after(zone_id, ts)
+        self.store.snapshots.drop(zone_id, after_ts=ts)
+        self.store.lots.states_drop_after(zone_id, ts)
         lz = self.live[zone_id]
         lz.snapshot_ts = min(lz.snapshot_ts, ts - 1.0)
         lz.analysed_ts = min(lz.analysed_ts, ts - 1.0)
@@ -242,11 +242,11 @@ class Monitor:
         for zid, lz in self.live.items():
             ages = [wall_s - t for t in lz.received.values() if wall_s - t < FORGET_SENSOR_S]
             self._evaluate(rules, zid, {"reading_age_s": max(ages) if ages else None}, wall_s, wall_s)
-        failing = self.store.failing_channels()
+        failing = self.store.outbox.failing_channels()
         service = {
             "broker_down_s": 0.0 if self.broker_down_since is None else wall_s - self.broker_down_since,
             "commit_failing_s": 0.0 if self.commit_failing_since is None else wall_s - self.commit_failing_since,
-            "rejections_per_h": float(self.store.rejections_since(wall_s - 3600.0)),
+            "rejections_per_h": float(self.store.rejections.since(wall_s - 3600.0)),
             "undelivered_s": max((wall_s - t for t in failing.values()), default=0.0),
             "clock_jump_s": self._recent_jump(wall_s),
             "held_readings": float(self.held_count()),
@@ -269,7 +269,7 @@ class Monitor:
         if rule is None:
             return None
         fields = dict(zone=SERVICE, rule=rule.id, severity=rule.severity, label=rule.label, metric=rule.metric)
-        alert_id = self.store.alert_insert(
+        alert_id = self.store.alerts.add(
             **fields,
             threshold=rule.threshold,
             status="cleared",
@@ -280,12 +280,14 @@ class Monitor:
             worst_value=ep.worst_s,
         )
         note = "sent around the database, which could not be written: " + ep.error[:200]
-        self.store.alert_log_add(alert_id, "raise", ep.raised_s, ep.raised_s, ep.worst_s, note=note)
+        self.store.alerts.log_add(alert_id, "raise", ep.raised_s, ep.raised_s, ep.worst_s, note=note)
         for at_s, channel, ok, result in ep.sends:
-            self.store.alert_log_add(alert_id, "sent" if ok else "send-failed", at_s, at_s, note=f"{channel}: {result}")
-        self.store.alert_log_add(alert_id, "clear", wall_s, wall_s, 0.0)
+            self.store.alerts.log_add(
+                alert_id, "sent" if ok else "send-failed", at_s, at_s, note=f"{channel}: {result}"
+            )
+        self.store.alerts.log_add(alert_id, "clear", wall_s, wall_s, 0.0)
         log.warning("alert %d recorded after storage came back (readings not stored for %.0f s)", alert_id, ep.worst_s)
-        self._notify("clear", {**self.store.alert_get(alert_id), "op": rule.op}, wall_s)
+        self._notify("clear", {**self.store.alerts.get(alert_id), "op": rule.op}, wall_s)
         return alert_id
 
     # --- lifecycle ---------------------------------------------------------------------------------
@@ -297,7 +299,7 @@ class Monitor:
             old = self.states.get(key)
             if old is None or _comparable(st) != _comparable(old):
                 if old is not None or st.status != "quiet":
-                    self.store.save_alert_state(*key, asdict(st))
+                    self.store.alerts.state_save(*key, asdict(st))
             self.states[key] = st
         by_id = {r.id: r for r in rules}
         for act in actions:
@@ -307,7 +309,7 @@ class Monitor:
         key = (act.zone, act.rule)
         st = self.states[key]
         if act.kind == "raise":
-            alert_id = self.store.alert_insert(
+            alert_id = self.store.alerts.add(
                 zone=act.zone,
                 rule=rule.id,
                 severity=rule.severity,
@@ -323,12 +325,12 @@ class Monitor:
             )
             st = replace(st, alert_id=alert_id)
             self.states[key] = st
-            self.store.save_alert_state(*key, asdict(st))
+            self.store.alerts.state_save(*key, asdict(st))
             log.warning("alert %d raised: zone %s, %s (%s)", alert_id, act.zone, rule.label, act.value)
         alert_id = st.alert_id if act.kind != "clear" else self._cleared_id(key)
         if alert_id is None:
             return
-        alert = self.store.alert_get(alert_id)
+        alert = self.store.alerts.get(alert_id)
         worst = alert["worst_value"] if alert["worst_value"] is not None else act.value
         worst = max(worst, act.value) if rule.op == ">=" else min(worst, act.value)
         fields = {"value": act.value, "worst_value": worst}
@@ -341,19 +343,19 @@ class Monitor:
         elif act.kind == "clear":
             fields.update(status="cleared", cleared_s=act.at_s)
             log.info("alert %d cleared: zone %s, %s", alert_id, act.zone, rule.label)
-        self.store.alert_update(alert_id, **fields)
-        self.store.alert_log_add(alert_id, act.kind, act.at_s, wall_s, act.value)
+        self.store.alerts.update(alert_id, **fields)
+        self.store.alerts.log_add(alert_id, act.kind, act.at_s, wall_s, act.value)
         self._notify(act.kind, {**alert, **fields, "op": rule.op}, wall_s, n)
 
     def _cleared_id(self, key) -> int | None:
         """The alert id a clear refers to (the policy has already reset the state)."""
-        return self.store.alert_open_id(*key)
+        return self.store.alerts.open_id(*key)
 
     def _notify(self, kind: str, alert: dict, wall_s: float, n: int = 0, by=None, note=None) -> None:
         key = alert["zone"]
         lot = key[4:] if key.startswith("lot:") else None
         if lot is not None:  # a lot's alert: told where the lot is, with the lot's own figures
-            key = last_zone(self.store.lot_history(lot)) or key
+            key = last_zone(self.store.lots.history(lot)) or key
         zone = self.config.zone(key)
         zone_name = zone.name if zone else "watcher service"
         site = self.config.site_of(key) if zone else (self.config.sites[0] if self.config.sites else None)
@@ -363,14 +365,14 @@ class Monitor:
         figures = {**(lz.figures or {}), "air_c": lz.air_c} if lz else None
         events = []
         if zone is not None and lz is not None:
-            events = self.store.events_for(zone.id, (lz.figures or {}).get("model_time_s", wall_s) - 86400.0)
+            events = self.store.events.of_zone(zone.id, (lz.figures or {}).get("model_time_s", wall_s) - 86400.0)
         if lot is not None:
             zone_name, place = f"lot {lot} ({zone_name})", f"{place}, lot {lot}"
-            state = self.store.lot_state_get(lot)
+            state = self.store.lots.state_get(lot)
             figures = {**(state[2] if state else {}), "air_c": lz.air_c if lz else None}
         tags = ["escalation"] if kind == "escalate" else ["alerts", alert["severity"], f"zone:{key}"]
-        exclude = set(self.store.failing_channels()) if alert["metric"] == "undelivered_s" else set()
-        self.store.outbox_add(
+        exclude = set(self.store.outbox.failing_channels()) if alert["metric"] == "undelivered_s" else set()
+        self.store.outbox.add(
             messages.title(kind, alert, zone_name, n),
             messages.body(
                 kind,
@@ -393,11 +395,11 @@ class Monitor:
 
     # --- acknowledgements --------------------------------------------------------------------------
     def apply_commands(self, wall_s: float) -> None:
-        for cmd_id, alert_id, by, note, source, sender in self.store.commands_pending():
-            self.store.command_done(cmd_id, wall_s, self._ack(alert_id, by, note, source, sender, wall_s))
+        for cmd_id, alert_id, by, note, source, sender in self.store.commands.pending():
+            self.store.commands.done(cmd_id, wall_s, self._ack(alert_id, by, note, source, sender, wall_s))
 
     def _ack(self, alert_id: int, by: str, note, source: str, sender, wall_s: float) -> str:
-        alert = self.store.alert_get(alert_id)
+        alert = self.store.alerts.get(alert_id)
         if alert is None:
             return f"refused: no alert {alert_id}"
         if alert["status"] != "open":
@@ -407,10 +409,10 @@ class Monitor:
             self.states = acknowledge(self.states, *key, by, wall_s)
         except NotFound:
             return f"refused: alert {alert_id} is not open in the running service"
-        self.store.save_alert_state(*key, asdict(self.states[key]))
-        self.store.alert_update(alert_id, status="acknowledged", acked_s=wall_s, acked_by=by, ack_note=note)
+        self.store.alerts.state_save(*key, asdict(self.states[key]))
+        self.store.alerts.update(alert_id, status="acknowledged", acked_s=wall_s, acked_by=by, ack_note=note)
         via = f"via {source}" + (f" from {sender}" if sender else "")
-        self.store.alert_log_add(alert_id, "ack", wall_s, wall_s, None, by, f"{via}: {note}" if note else via)
+        self.store.alerts.log_add(alert_id, "ack", wall_s, wall_s, None, by, f"{via}: {note}" if note else via)
         log.info("alert %d acknowledged by %s (%s)", alert_id, by, via)
         self._notify("ack", {**alert, "acked_s": wall_s}, wall_s, by=by, note=note)
         return "acknowledged"

@@ -184,7 +184,7 @@ def build(store: Store, cfg: Config, site: Site, week: Week, generated_s: float)
     alerts = alert_table(sw.alerts, site.timezone, week.end_s)
     comp = completeness(sw.readings, week.end_s - week.start_s)
     gaps = sw.gaps.assign(minutes=(sw.gaps["seconds"] / 60.0).round(1)) if len(sw.gaps) else sw.gaps
-    heads = chain.heads(store.conn)
+    heads = store.record.heads()
     lots = lots_table(store, cfg, site, week)
     return Report(
         site=site,

@@ -23,8 +23,8 @@ from watcher.model.thermal import lag_series
 from watcher.ranges import RANGE_KEYS
 from watcher.report.week import Week
 from watcher.simulation import position_rows, worst_position
-from watcher.store.db import Store, unpack_state
-from watcher.store.week_rows import week_tables
+from watcher.store.db import Store
+from watcher.store.zones import unpack_state
 
 
 @dataclass
@@ -70,7 +70,7 @@ def load(store: Store, cfg: Config, site: Site, week: Week) -> SiteWeek:
     zones = [z for z in cfg.zones if z.site == site.id]
     ids = tuple(z.id for z in zones)
     days = tuple(d for d, _, _ in week.days())
-    tables = {k: _frame(t) for k, t in week_tables(store.conn, ids, week.start_s, week.end_s, days).items()}
+    tables = {k: _frame(t) for k, t in store.reports.week_tables(ids, week.start_s, week.end_s, days).items()}
     events = tables["events"]
     details = [json.loads(d) for d in events["detail"]] if len(events) else []
     for key in ("source", "peak_c", "excess_um", "budget_share_pct", "cost"):
@@ -87,15 +87,15 @@ def load(store: Store, cfg: Config, site: Site, week: Week) -> SiteWeek:
 def zone_model(store: Store, zone: Zone, week: Week) -> ZoneModel | None:
     spec = Spec(zone.profile, zone.positions)
     key = spec_key(zone)
-    snap = store.snapshot_before(zone.id, week.start_s, key)
+    snap = store.snapshots.before(zone.id, week.start_s, key)
     note = "from the model state saved before the week began"
     if snap is None:
-        snap = store.snapshot_first_after(zone.id, week.start_s, week.end_s, key)
+        snap = store.snapshots.first_after(zone.id, week.start_s, week.end_s, key)
         note = "from the first model state saved inside the week (no earlier state: figures cover part of the week)"
     if snap is None:
         return None
     state = State.from_arrays(unpack_state(snap[1]))
-    t, air = binned_air(store.signal_rows(zone.id, ("air_c",), state.t_s, week.end_s))
+    t, air = binned_air(store.readings.signals(zone.id, ("air_c",), state.t_s, week.end_s))
     t, air = t[t > state.t_s], air[t > state.t_s]
     before = t <= week.start_s
     if before.any():

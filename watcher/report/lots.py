@@ -36,7 +36,7 @@ def lots_table(store, cfg, site, week) -> pd.DataFrame:
     zone_ids = {z.id for z in cfg.zones if z.site == site.id}
     keeper = LotKeeper(cfg, store)
     rows = []
-    for item in store.lots_overview():
+    for item in store.lots.overview():
         periods = stays(item["history"])
         here = [
             (z, a, b) for z, a, b in periods if z in zone_ids and a < week.end_s and (b is None or b > week.start_s)

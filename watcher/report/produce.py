@@ -25,9 +25,9 @@ def produce(
     html_path = next((p for p in paths if p.suffix == ".html"), None)
     with store.atomic():
         files = {"paths": [str(p) for p in paths], "auto": auto}
-        store.report_add(site.id, week.label, now_s, report.heads, report.digest, files)
+        store.reports.add(site.id, week.label, now_s, report.heads, report.digest, files)
         if send:
-            store.outbox_add(
+            store.outbox.add(
                 f"Weekly texture summary {week.label}: {site.name or site.id}",
                 report.summary
                 + "\n\nThe full summary is attached (HTML; opens in any browser, prints on A4 or Letter).",

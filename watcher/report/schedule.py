@@ -23,6 +23,6 @@ def due_weeks(store: Store, cfg: Config, now_s: float) -> list[tuple[Site, Week]
         due = dt.datetime.combine(due_day, dt.time(cfg.reports.at_minutes // 60, cfg.reports.at_minutes % 60))
         if now_s < due.replace(tzinfo=ZoneInfo(site.timezone)).timestamp():
             continue
-        if not store.report_scheduled(site.id, week.label):
+        if not store.reports.scheduled(site.id, week.label):
             out.append((site, week))
     return out

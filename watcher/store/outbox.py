@@ -8,11 +8,12 @@ from __future__ import annotations
 
 import json
 
+from watcher.store.alerts import log_step
+from watcher.store.repo import Repo
 
-class OutboxRows:
-    conn = None  # set by Store
 
-    def outbox_add(
+class Outbox(Repo):
+    def add(
         self,
         title: str,
         body: str,
@@ -47,7 +48,7 @@ class OutboxRows:
             added += cur.rowcount
         return added
 
-    def outbox_due(self, now_s: float, limit: int = 50) -> list[tuple]:
+    def due(self, now_s: float, limit: int = 50) -> list[tuple]:
         """(id, channel, title, body, attempts, attach, maybe_repeat) of pending rows due now, oldest first."""
         return self.conn.execute(
             "SELECT id, channel, title, body, attempts, attach, maybe_repeat FROM outbox "
@@ -55,16 +56,16 @@ class OutboxRows:
             (now_s, limit),
         ).fetchall()
 
-    def outbox_mark_sending(self, row_id: int) -> None:
+    def mark_sending(self, row_id: int) -> None:
         self.conn.execute("UPDATE outbox SET status = 'sending' WHERE id = ?", (row_id,))
 
-    def outbox_recover(self) -> int:
+    def recover(self) -> int:
         """Rows cut off mid-send by a crash go out again, flagged as possible repeats."""
         return self.conn.execute(
             "UPDATE outbox SET status = 'pending', maybe_repeat = 1 WHERE status = 'sending'"
         ).rowcount
 
-    def outbox_record(self, row_id: int, status: str, result: str, log: str, now_s: float, next_try_s: float) -> None:
+    def record(self, row_id: int, status: str, result: str, log: str, now_s: float, next_try_s: float) -> None:
         self.conn.execute(
             "UPDATE outbox SET status = ?, attempts = attempts + 1, last_result = ?, last_log = ?, next_try_s = ?, "
             "sent_s = CASE WHEN ? = 'sent' THEN ? ELSE sent_s END, "
@@ -76,7 +77,7 @@ class OutboxRows:
                 "SELECT alert_id, channel FROM outbox WHERE id = ?", (row_id,)
             ).fetchone()
             if alert_id is not None:
-                self.alert_log_add(alert_id, "sent", now_s, now_s, note=channel)
+                log_step(self.conn, alert_id, "sent", now_s, now_s, note=channel)
 
     def failing_channels(self) -> dict[str, float]:
         """Channels with a message still pending after a failed attempt: name -> oldest created_s."""

@@ -1,4 +1,4 @@
-"""Rows for lots: the lots, their events (arrive, move, depart) and each lot's model state."""
+"""Lots: the lots, their events (arrive, move, depart) and each lot's model state."""
 
 from __future__ import annotations
 
@@ -6,19 +6,18 @@ import json
 
 from watcher.lots.events import last_zone
 from watcher.store import chain
+from watcher.store.repo import Repo
 
 LOT_EVENT_INSERT = chain.insert_sql("lot_events", chain.LOT_EVENT_FIELDS, zone_scoped=False)
 
 
-class LotRows:
-    conn = None  # set by Store
-
-    def lot_history(self, lot: str) -> list[tuple[str, str | None, float]]:
+class Lots(Repo):
+    def history(self, lot: str) -> list[tuple[str, str | None, float]]:
         return self.conn.execute(
             "SELECT kind, zone, ts FROM lot_events WHERE lot = ? ORDER BY ts, id", (lot,)
         ).fetchall()
 
-    def lot_add_event(self, ev, source: str, sender: str | None, received_s: float) -> None:
+    def event_add(self, ev, source: str, sender: str | None, received_s: float) -> None:
         """Record a validated event; an event before the lot's computed state sends the lot
         back to be recomputed from its arrival."""
         detail = None
@@ -32,13 +31,13 @@ class LotRows:
         self.conn.execute(LOT_EVENT_INSERT, chain.params(values))
         self.conn.execute("DELETE FROM lot_state WHERE lot = ? AND t_s > ?", (ev.lot, ev.ts))
 
-    def lot_info(self, lot: str) -> dict | None:
+    def info(self, lot: str) -> dict | None:
         row = self.conn.execute("SELECT product, initial, note, created_s FROM lots WHERE lot = ?", (lot,)).fetchone()
         if row is None:
             return None
         return {"lot": lot, "product": row[0], "initial": json.loads(row[1]), "note": row[2], "created_s": row[3]}
 
-    def lots_touching(self, zone: str) -> list[str]:
+    def touching(self, zone: str) -> list[str]:
         """Lots with any stay in the zone whose computed state has not passed that stay."""
         return [
             r[0]
@@ -50,28 +49,28 @@ class LotRows:
             )
         ]
 
-    def lot_state_get(self, lot: str) -> tuple[float, bytes, dict] | None:
+    def state_get(self, lot: str) -> tuple[float, bytes, dict] | None:
         row = self.conn.execute("SELECT t_s, state, figures FROM lot_state WHERE lot = ?", (lot,)).fetchone()
         return None if row is None else (row[0], row[1], json.loads(row[2]))
 
-    def lot_state_save(self, lot: str, t_s: float, blob: bytes, figures: dict, now_s: float) -> None:
+    def state_save(self, lot: str, t_s: float, blob: bytes, figures: dict, now_s: float) -> None:
         self.conn.execute(
             "INSERT OR REPLACE INTO lot_state (lot, t_s, state, figures, updated_s) VALUES (?,?,?,?,?)",
             (lot, t_s, blob, json.dumps(figures), now_s),
         )
 
-    def lot_states_drop_after(self, zone: str, ts: float) -> None:
+    def states_drop_after(self, zone: str, ts: float) -> None:
         """A zone's past changed at ts (a late reading): lots that sat there since are recomputed."""
         self.conn.execute(
             "DELETE FROM lot_state WHERE t_s > ? AND lot IN (SELECT lot FROM lot_events WHERE zone = ?)", (ts, zone)
         )
 
-    def lots_overview(self) -> list[dict]:
+    def overview(self) -> list[dict]:
         """Every lot with its current zone, arrival, departure and last computed figures."""
         out = []
         for lot, product in self.conn.execute("SELECT lot, product FROM lots ORDER BY lot"):
-            history = self.lot_history(lot)
-            state = self.lot_state_get(lot)
+            history = self.history(lot)
+            state = self.state_get(lot)
             last_kind, _, last_ts = history[-1] if history else (None, None, None)
             out.append(
                 {

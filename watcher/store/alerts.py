@@ -1,0 +1,149 @@
+"""Alerts (with their chained log and their state per rule), the commands that acknowledge them,
+and events (with their chained log)."""
+
+from __future__ import annotations
+
+import json
+
+from watcher.store import chain
+from watcher.store.repo import Repo, marks
+
+ALERT_LOG_INSERT = chain.insert_sql("alert_log", chain.ALERT_LOG_FIELDS, zone_scoped=False)
+EVENT_LOG_INSERT = chain.insert_sql("event_log", chain.EVENT_LOG_FIELDS, zone_scoped=False)
+
+ALERT_COLUMNS = (
+    "id",
+    "zone",
+    "rule",
+    "severity",
+    "label",
+    "metric",
+    "threshold",
+    "status",
+    "since_s",
+    "raised_s",
+    "value",
+    "worst_value",
+    "acked_s",
+    "acked_by",
+    "ack_note",
+    "cleared_s",
+    "escalated_s",
+    "repeats",
+)
+
+
+class Alerts(Repo):
+    def states(self) -> dict[tuple[str, str], dict]:
+        return {(z, r): json.loads(s) for z, r, s in self.conn.execute("SELECT zone, rule, state FROM alert_state")}
+
+    def state_save(self, zone: str, rule: str, state: dict) -> None:
+        self.conn.execute(
+            "INSERT OR REPLACE INTO alert_state (zone, rule, state) VALUES (?,?,?)", (zone, rule, json.dumps(state))
+        )
+
+    def add(self, **row) -> int:
+        cols = ", ".join(row)
+        cur = self.conn.execute(f"INSERT INTO alerts ({cols}) VALUES ({marks(len(row))})", tuple(row.values()))
+        return int(cur.lastrowid)
+
+    def update(self, alert_id: int, **fields) -> None:
+        sets = ", ".join(f"{k} = ?" for k in fields)
+        self.conn.execute(f"UPDATE alerts SET {sets} WHERE id = ?", (*fields.values(), alert_id))
+
+    def log_add(self, alert_id: int, step: str, at_s: float, wall_s: float, value=None, by=None, note=None):
+        log_step(self.conn, alert_id, step, at_s, wall_s, value, by, note)
+
+    def list(self, open_only: bool = False, limit: int = 500) -> list[dict]:
+        sql = f"SELECT {', '.join(ALERT_COLUMNS)} FROM alerts"
+        if open_only:
+            sql += " WHERE status IN ('open', 'acknowledged')"
+        rows = self.conn.execute(sql + " ORDER BY id DESC LIMIT ?", (limit,))
+        return [dict(zip(ALERT_COLUMNS, r)) for r in rows]
+
+    def get(self, alert_id: int) -> dict | None:
+        row = self.conn.execute(f"SELECT {', '.join(ALERT_COLUMNS)} FROM alerts WHERE id = ?", (alert_id,)).fetchone()
+        return None if row is None else dict(zip(ALERT_COLUMNS, row))
+
+    def log(self, alert_id: int) -> list[tuple]:
+        return self.conn.execute(
+            "SELECT step, at_s, wall_s, value, by, note FROM alert_log WHERE alert_id = ? ORDER BY id", (alert_id,)
+        ).fetchall()
+
+    def open_id(self, zone: str, rule: str) -> int | None:
+        """The newest open or acknowledged alert of that zone and rule."""
+        row = self.conn.execute(
+            "SELECT id FROM alerts WHERE zone = ? AND rule = ? AND status IN ('open', 'acknowledged') "
+            "ORDER BY id DESC LIMIT 1",
+            (zone, rule),
+        ).fetchone()
+        return None if row is None else row[0]
+
+    def steps_after(self, log_id: int, steps: tuple[str, ...]) -> list[tuple]:
+        """(log id, step, at_s, zone, severity, label) of alert log rows after log_id."""
+        return self.conn.execute(
+            "SELECT l.id, l.step, l.at_s, a.zone, a.severity, a.label FROM alert_log l JOIN alerts a "
+            f"ON a.id = l.alert_id WHERE l.id > ? AND l.step IN ({marks(len(steps))}) ORDER BY l.id",
+            (log_id, *steps),
+        ).fetchall()
+
+
+class Commands(Repo):
+    """Acknowledgements asked for (by the command line or MQTT), done by the writer."""
+
+    def add(self, alert_id: int, by: str, note: str | None, source: str, sender: str | None, now_s: float):
+        cur = self.conn.execute(
+            "INSERT INTO alert_commands (alert_id, by, note, source, sender, received_s) VALUES (?,?,?,?,?,?)",
+            (alert_id, by, note, source, sender, now_s),
+        )
+        return int(cur.lastrowid)
+
+    def pending(self) -> list[tuple]:
+        return self.conn.execute(
+            "SELECT id, alert_id, by, note, source, sender FROM alert_commands WHERE done_s IS NULL ORDER BY id"
+        ).fetchall()
+
+    def done(self, command_id: int, now_s: float, result: str) -> None:
+        self.conn.execute("UPDATE alert_commands SET done_s = ?, result = ? WHERE id = ?", (now_s, result, command_id))
+
+    def result(self, command_id: int) -> str | None:
+        row = self.conn.execute("SELECT result FROM alert_commands WHERE id = ?", (command_id,)).fetchone()
+        return None if row is None else row[0]
+
+
+class Events(Repo):
+    def upsert(self, zone: str, kind: str, start_ts: float, end_ts: float | None, detail: dict) -> None:
+        """Insert or update an event; detail keys merge into what is stored (costs are kept)."""
+        self.conn.execute(
+            "INSERT INTO events (zone, kind, start_ts, end_ts, detail) VALUES (?,?,?,?,?) "
+            "ON CONFLICT(zone, kind, start_ts) DO UPDATE SET end_ts = excluded.end_ts, "
+            "detail = json_patch(events.detail, excluded.detail)",
+            (zone, kind, start_ts, end_ts, json.dumps(detail)),
+        )
+        row = self.conn.execute(
+            "SELECT id, end_ts, detail FROM events WHERE zone = ? AND kind = ? AND start_ts = ?", (zone, kind, start_ts)
+        ).fetchone()
+        self.conn.execute(EVENT_LOG_INSERT, chain.params((row[0], "set", zone, kind, start_ts, row[1], row[2])))
+
+    def of_zone(self, zone: str, since_ts: float, until_ts: float | None = None) -> list[dict]:
+        """Events of a zone that end after since_ts (or are still open) and start before until_ts."""
+        sql = "SELECT id, kind, start_ts, end_ts, detail FROM events WHERE zone = ? AND (end_ts IS NULL OR end_ts >= ?)"
+        args: list = [zone, since_ts]
+        if until_ts is not None:
+            sql += " AND start_ts < ?"
+            args.append(until_ts)
+        rows = self.conn.execute(sql + " ORDER BY start_ts", args)
+        return [{"id": r[0], "kind": r[1], "start_ts": r[2], "end_ts": r[3], **json.loads(r[4])} for r in rows]
+
+    def delete(self, event_id: int) -> None:
+        row = self.conn.execute(
+            "SELECT zone, kind, start_ts, end_ts, detail FROM events WHERE id = ?", (event_id,)
+        ).fetchone()
+        if row is not None:
+            self.conn.execute(EVENT_LOG_INSERT, chain.params((event_id, "delete", *row)))
+        self.conn.execute("DELETE FROM events WHERE id = ?", (event_id,))
+
+
+def log_step(conn, alert_id: int, step: str, at_s: float, wall_s: float, value=None, by=None, note=None) -> None:
+    """One chained row of an alert's log (the outbox adds `sent` steps through this too)."""
+    conn.execute(ALERT_LOG_INSERT, chain.params((alert_id, step, at_s, wall_s, value, by, note)))

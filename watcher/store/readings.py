@@ -1,0 +1,216 @@
+"""Readings (chained per zone), the messages rejected or held instead of them, and retention's
+fold of old raw readings into hourly rows."""
+
+from __future__ import annotations
+
+from collections.abc import Iterator
+
+from watcher.store import chain
+from watcher.store.repo import Repo, marks, text
+
+READING_INSERT = chain.insert_sql("readings", chain.READING_FIELDS, zone_scoped=True, verb="INSERT OR IGNORE")
+READING_INSERT_CHAINED = (
+    f"INSERT OR IGNORE INTO readings ({', '.join(chain.READING_FIELDS)}, chain) "
+    f"VALUES ({marks(len(chain.READING_FIELDS) + 1)})"
+)
+REJECTION_INSERT = chain.insert_sql("rejections", chain.REJECTION_FIELDS, zone_scoped=False)
+PAYLOAD_KEEP_BYTES = 512
+
+
+class Readings(Repo):
+    def __init__(self, conn):
+        super().__init__(conn)
+        self._heads: dict[str, str | None] = {}  # chain heads, valid while data_version holds
+        self._heads_version = None
+
+    def add(self, reading, received_ts: float, topic: str, late: bool) -> bool:
+        """Insert one reading; False when its natural key is already stored (a duplicate)."""
+        self._heads.pop(reading.zone, None)  # chained in SQL: the cached head moves
+        values = (
+            reading.zone,
+            reading.sensor,
+            reading.signal,
+            reading.ts,
+            reading.value,
+            received_ts,
+            topic,
+            int(late),
+        )
+        cur = self.conn.execute(READING_INSERT, chain.params(values, reading.zone))
+        return cur.rowcount == 1
+
+    def add_all_new(self, items) -> bool:
+        """Insert (reading, received_ts, topic) rows in one statement if none is stored yet;
+        otherwise insert nothing and return False (the caller goes row by row).
+
+        The chain is computed here in Python from each zone's stored head (a callback from
+        SQLite per row costs more). That is safe with other writers: in WAL mode a write from a
+        stale snapshot fails (SQLITE_BUSY_SNAPSHOT), the batch is retried and re-reads the heads.
+        """
+        self.conn.execute("SAVEPOINT bulk")
+        version = self.conn.execute("PRAGMA data_version").fetchone()[0]
+        if version != self._heads_version:  # another connection has committed: heads may have moved
+            self._heads, self._heads_version = {}, version
+        heads = {}
+        for zone in {r.zone for r, _, _ in items}:
+            if zone not in self._heads:
+                row = self.conn.execute("SELECT chain FROM readings WHERE zone = ? ORDER BY id DESC LIMIT 1", (zone,))
+                self._heads[zone] = (row.fetchone() or (None,))[0]
+            heads[zone] = self._heads[zone]
+        rows = []
+        for r, rts, topic in items:
+            values = (r.zone, r.sensor, r.signal, r.ts, r.value, rts, topic, 0)
+            heads[r.zone] = chain.chain_hash(heads[r.zone], *values)
+            rows.append((*values, heads[r.zone]))
+        before = self.conn.total_changes
+        self.conn.executemany(READING_INSERT_CHAINED, rows)
+        if self.conn.total_changes - before == len(items):
+            self.conn.execute("RELEASE SAVEPOINT bulk")
+            self._heads.update(heads)
+            return True
+        self.conn.execute("ROLLBACK TO SAVEPOINT bulk")
+        self.conn.execute("RELEASE SAVEPOINT bulk")
+        return False
+
+    def forget_heads(self) -> None:
+        """After a failed transaction: the cached chain heads may name rows that were rolled back."""
+        self._heads, self._heads_version = {}, None
+
+    def value_of(self, reading) -> float | None:
+        """The stored value under the reading's natural key, if any."""
+        row = self.conn.execute(
+            "SELECT value FROM readings WHERE zone = ? AND sensor = ? AND signal = ? AND ts = ?",
+            (reading.zone, reading.sensor, reading.signal, reading.ts),
+        ).fetchone()
+        return None if row is None else row[0]
+
+    def sensors(self, zone: str) -> set[str]:
+        sql = "SELECT DISTINCT sensor FROM readings WHERE zone = ? UNION SELECT DISTINCT sensor FROM readings_hourly WHERE zone = ?"
+        return {r[0] for r in self.conn.execute(sql, (zone, zone))}
+
+    def newest_ts(self) -> float | None:
+        """The newest reading time any checkpoint has seen (what the data say the time is)."""
+        return self.conn.execute("SELECT max(last_ts) FROM zone_state").fetchone()[0]
+
+    def of_zone(self, zone: str, after_ts: float | None = None, upto_ts: float | None = None) -> Iterator[tuple]:
+        """(sensor, signal, ts, value) of a zone's raw model readings in time order."""
+        sql = "SELECT sensor, signal, ts, value FROM readings WHERE zone = ? AND signal IN ('air_c', 'product_c')"
+        args: list = [zone]
+        if after_ts is not None:
+            sql += " AND ts > ?"
+            args.append(after_ts)
+        if upto_ts is not None:
+            sql += " AND ts <= ?"
+            args.append(upto_ts)
+        yield from self.conn.execute(sql + " ORDER BY ts, sensor, signal", args)
+
+    def signals(self, zone: str, signals: tuple[str, ...], after_ts: float, upto_ts: float) -> list[tuple]:
+        """(sensor, signal, ts, value) of the given signals in (after_ts, upto_ts], in time order."""
+        return self.conn.execute(
+            f"SELECT sensor, signal, ts, value FROM readings WHERE zone = ? AND signal IN ({marks(len(signals))}) "
+            "AND ts > ? AND ts <= ? ORDER BY ts, sensor",
+            (zone, *signals, after_ts, upto_ts),
+        ).fetchall()
+
+    def summary(self, zone: str) -> tuple[int, float | None]:
+        """Readings stored for the zone (raw, plus those folded into hourly rows) and the newest time."""
+        count, last = self.conn.execute("SELECT count(*), max(ts) FROM readings WHERE zone = ?", (zone,)).fetchone()
+        folded = self.conn.execute(
+            "SELECT coalesce(sum(n), 0) FROM readings_hourly WHERE zone = ?", (zone,)
+        ).fetchone()[0]
+        return count + folded, last
+
+    def last_received(self, zone: str, recent_s: float = 2 * 86400.0) -> dict[str, float]:
+        """Each sensor's newest receive time, among readings up to recent_s older than the
+        zone's newest (an index range, not a scan of the zone's whole history)."""
+        rows = self.conn.execute(
+            "SELECT sensor, max(received_ts) FROM readings WHERE zone = ? AND ts >= "
+            "(SELECT max(ts) FROM readings WHERE zone = ?) - ? GROUP BY sensor",
+            (zone, zone, recent_s),
+        )
+        return dict(rows.fetchall())
+
+    def switch_state(self, zone: str) -> list[tuple[str, str, float, float, float]]:
+        """Per door/defrost sensor: (sensor, signal, last ts, last value, since) where since is
+        the first reading after the last 'off' one (when the current 'on' began)."""
+        out = []
+        for sensor, signal, ts, value in self.conn.execute(
+            "SELECT sensor, signal, max(ts), value FROM readings WHERE zone = ? AND signal IN ('door', 'defrost') "
+            "AND ts >= (SELECT max(ts) FROM readings WHERE zone = ?) - 30 * 86400.0 GROUP BY sensor, signal",
+            (zone, zone),
+        ).fetchall():
+            since = self.conn.execute(
+                "SELECT min(ts) FROM readings WHERE zone = ? AND sensor = ? AND signal = ? AND ts > coalesce("
+                "(SELECT max(ts) FROM readings WHERE zone = ? AND sensor = ? AND signal = ? AND value < 0.5), -1e300)",
+                (zone, sensor, signal, zone, sensor, signal),
+            ).fetchone()[0]
+            out.append((sensor, signal, ts, value, since if since is not None else ts))
+        return out
+
+    def fold(self, zone: str, upto_ts: float, wall_s: float) -> int:
+        """Fold a zone's raw readings with ts <= upto_ts into hourly aggregates; return how many."""
+        self.forget_heads()
+        self.conn.execute(
+            "INSERT INTO readings_hourly (zone, sensor, signal, hour_ts, mean, min, max, n) "
+            "SELECT zone, sensor, signal, CAST(ts / 3600 AS INTEGER) * 3600.0, avg(value), min(value), max(value), count(*) "
+            "FROM readings WHERE zone = ? AND ts <= ? GROUP BY zone, sensor, signal, CAST(ts / 3600 AS INTEGER) "
+            "ON CONFLICT(zone, sensor, signal, hour_ts) DO UPDATE SET "
+            "mean = (mean * n + excluded.mean * excluded.n) / (n + excluded.n), min = min(min, excluded.min), "
+            "max = max(max, excluded.max), n = n + excluded.n",
+            (zone, upto_ts),
+        )
+        return cut(self.conn, "readings", zone, "ts", upto_ts, wall_s)
+
+
+class Rejections(Repo):
+    def add(self, received_ts: float, topic: str, reason: str, payload: bytes, n: int = 1) -> None:
+        """One rejected message (or n like it, when a topic's rejections are rate-limited)."""
+        kept = payload[:PAYLOAD_KEEP_BYTES].decode("utf-8", errors="backslashreplace")
+        values = (received_ts, text(topic[:512]), text(reason), kept, n)
+        self.conn.execute(REJECTION_INSERT, chain.params(values))
+
+    def since(self, since_ts: float) -> int:
+        """Messages rejected since then (a rate-limited row stands for n of them)."""
+        sql = "SELECT coalesce(sum(n), 0) FROM rejections WHERE received_ts >= ?"
+        return self.conn.execute(sql, (since_ts,)).fetchone()[0]
+
+    def prune(self, upto_ts: float, wall_s: float) -> int:
+        """Delete rejections received at or before upto_ts (with the raw readings' retention)."""
+        return cut(self.conn, "rejections", "", "received_ts", upto_ts, wall_s)
+
+
+class Held(Repo):
+    """Messages whose time disagrees with the service clock, kept until the clocks agree."""
+
+    def add(self, received_ts: float, topic: str, payload: bytes, reason: str) -> None:
+        self.conn.execute(
+            "INSERT INTO held (received_ts, topic, payload, reason) VALUES (?,?,?,?)",
+            (received_ts, text(topic), payload, text(reason)),
+        )
+
+    def oldest(self, limit: int) -> list[tuple]:
+        """(id, received_ts, topic, payload, reason), oldest first."""
+        return self.conn.execute(
+            "SELECT id, received_ts, topic, payload, reason FROM held ORDER BY id LIMIT ?", (limit,)
+        ).fetchall()
+
+    def remove(self, ids: list[int]) -> None:
+        self.conn.executemany("DELETE FROM held WHERE id = ?", [(i,) for i in ids])
+
+
+def cut(conn, table: str, zone: str, time_col: str, upto_ts: float, wall_s: float) -> int:
+    """Delete a chain's rows at or before the cut-off, keeping the chain verifiable: each
+    surviving row's link to a deleted predecessor, and the pass itself (cut-off, rows, when),
+    go into the chained fold record (store/chain.py checks them)."""
+    scope, args = ("zone = ? AND ", (zone,)) if table == "readings" else ("", ())
+    n = conn.execute(f"SELECT count(*) FROM {table} WHERE {scope}{time_col} <= ?", (*args, upto_ts)).fetchone()[0]
+    if not n:
+        return 0
+    links = conn.execute(
+        f"SELECT id, prev FROM (SELECT id, {time_col} AS t, lag(chain) OVER (ORDER BY id) AS prev, "
+        f"lag({time_col}) OVER (ORDER BY id) AS prev_t FROM {table} WHERE {scope}1) WHERE t > ? AND prev_t <= ?",
+        (*args, upto_ts, upto_ts),
+    ).fetchall()
+    chain.add_fold(conn, table, zone, links, n, upto_ts, wall_s)
+    conn.execute(f"DELETE FROM {table} WHERE {scope}{time_col} <= ?", (*args, upto_ts))
+    return n

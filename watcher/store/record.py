@@ -1,0 +1,56 @@
+"""The record as a whole: how many messages it has dealt with, the chain heads a summary pins,
+and `verify` (every chain, the fold passes, lengths, and the checks between tables)."""
+
+from __future__ import annotations
+
+from watcher.store import chain, crosscheck
+from watcher.store.repo import Repo
+
+COUNTED_TABLES = frozenset(
+    {
+        "readings",
+        "readings_hourly",
+        "rejections",
+        "held",
+        "gaps",
+        "events",
+        "alerts",
+        "alert_log",
+        "outbox",
+        "lots",
+        "lot_events",
+        "lot_state",
+        "zone_state",
+        "zone_snapshots",
+        "daily_growth",
+        "reports",
+        "chain_folds",
+    }
+)
+
+
+class Record(Repo):
+    def messages_handled(self) -> int:
+        """Messages the service has dealt with: readings, rejected (a row may stand for n), held,
+        lot events."""
+        return self.conn.execute(
+            "SELECT (SELECT count(*) FROM readings) + (SELECT coalesce(sum(n), 0) FROM rejections) "
+            "+ (SELECT count(*) FROM held) + (SELECT count(*) FROM lot_events)"
+        ).fetchone()[0]
+
+    def count(self, table: str) -> int:
+        """Rows in one of the record's tables (a name outside the schema is refused)."""
+        if table not in COUNTED_TABLES:
+            raise ValueError(f"no table {table!r} to count")
+        return self.conn.execute(f"SELECT count(*) FROM {table}").fetchone()[0]
+
+    def heads(self) -> dict[str, list]:
+        """Each chain's [last row, its hash, rows] (a summary pins these)."""
+        return chain.heads(self.conn)
+
+    def verify(self, since_ts: float | None = None) -> tuple[list[chain.Finding], dict[str, int]]:
+        """Everything `watcher verify` checks: the findings, and rows checked per chain."""
+        findings, counts = chain.verify(self.conn, since_ts)
+        findings += chain.check_reports(self.conn) + chain.check_lots(self.conn)
+        findings += crosscheck.check_alerts(self.conn) + crosscheck.check_outbox(self.conn)
+        return findings, counts

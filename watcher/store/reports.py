@@ -1,0 +1,86 @@
+"""Weekly summaries: the record of those produced, and the rows a summary reads, as
+(columns, rows) per table: the SQL stays in the store, the report turns them into frames
+(report/data.py)."""
+
+from __future__ import annotations
+
+import json
+
+from watcher.store.repo import Repo, marks
+
+Table = tuple[list[str], list[tuple]]
+
+
+def _table(conn, sql: str, args: tuple) -> Table:
+    cur = conn.execute(sql, args)
+    return [d[0] for d in cur.description], cur.fetchall()
+
+
+class Reports(Repo):
+    def add(self, site: str, week: str, generated_s: float, heads: dict, digest: str, files: dict) -> None:
+        self.conn.execute(
+            "INSERT INTO reports (site, week, generated_s, heads, digest, files) VALUES (?,?,?,?,?,?)",
+            (site, week, generated_s, json.dumps(heads), digest, json.dumps(files)),
+        )
+
+    def scheduled(self, site: str, week: str) -> bool:
+        """True once the schedule (not a person) has produced that site's summary for the week."""
+        sql = "SELECT 1 FROM reports WHERE site = ? AND week = ? AND json_extract(files, '$.auto') = 1"
+        return self.conn.execute(sql, (site, week)).fetchone() is not None
+
+    def week_tables(
+        self, zone_ids: tuple[str, ...], start_s: float, end_s: float, days: tuple[str, ...]
+    ) -> dict[str, Table]:
+        return week_tables(self.conn, zone_ids, start_s, end_s, days)
+
+
+def week_tables(
+    conn, zone_ids: tuple[str, ...], start_s: float, end_s: float, days: tuple[str, ...]
+) -> dict[str, Table]:
+    """Readings, events, alerts (with the service's and the site's lots'), their log, gaps,
+    rejections and daily growth of a site's zones for [start_s, end_s)."""
+    ids, s, e = zone_ids, start_s, end_s
+    out = {
+        "readings": _table(
+            conn,
+            f"SELECT zone, sensor, signal, ts, value, received_ts, late FROM readings WHERE zone IN ({marks(len(ids))}) "
+            "AND ts >= ? AND ts < ? ORDER BY zone, ts",
+            (*ids, s, e),
+        ),
+        "events": _table(
+            conn,
+            f"SELECT id, zone, kind, start_ts, end_ts, detail FROM events WHERE zone IN ({marks(len(ids))}) "
+            "AND start_ts < ? AND (end_ts IS NULL OR end_ts > ?) ORDER BY start_ts",
+            (*ids, e, s),
+        ),
+        "alerts": _table(
+            conn,
+            f"SELECT * FROM alerts WHERE (zone IN ({marks(len(ids) + 1)}) OR zone IN (SELECT 'lot:' || lot FROM lot_events "
+            f"WHERE zone IN ({marks(len(ids))}))) AND raised_s < ? AND (cleared_s IS NULL OR cleared_s >= ?) ORDER BY raised_s",
+            (*ids, "service", *ids, e, s),
+        ),
+        "gaps": _table(
+            conn,
+            f"SELECT zone, start_ts, end_ts, seconds FROM gaps WHERE zone IN ({marks(len(ids))}) AND start_ts < ? "
+            "AND end_ts > ? ORDER BY start_ts",
+            (*ids, e, s),
+        ),
+        "rejections": _table(
+            conn,
+            "SELECT received_ts, topic, reason, n FROM rejections WHERE received_ts >= ? AND received_ts < ?",
+            (s, e),
+        ),
+        "daily": _table(
+            conn,
+            f"SELECT * FROM daily_growth WHERE zone IN ({marks(len(ids))}) AND day IN ({marks(len(days))}) ORDER BY zone, day",
+            (*ids, *days),
+        ),
+    }
+    cols, rows = out["alerts"]
+    alert_ids = tuple(int(r[cols.index("id")]) for r in rows)
+    out["alert_log"] = _table(
+        conn,
+        f"SELECT alert_id, step, at_s, wall_s, by, note FROM alert_log WHERE alert_id IN ({marks(len(alert_ids))}) ORDER BY id",
+        alert_ids,
+    )
+    return out

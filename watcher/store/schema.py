@@ -1,0 +1,211 @@
+"""The database schema as numbered migrations (sqlite-utils applies the ones not yet applied,
+in order). A migration is never edited once released: change the schema with a new one."""
+
+from __future__ import annotations
+
+import sqlite_utils
+from sqlite_utils.migrations import Migrations
+
+from watcher.store import chain
+
+migrations = Migrations("watcher")
+
+
+@migrations()
+def m001_core(db: sqlite_utils.Database) -> None:
+    db.executescript(
+        """
+        CREATE TABLE readings (
+            id INTEGER PRIMARY KEY,
+            zone TEXT NOT NULL, sensor TEXT NOT NULL, signal TEXT NOT NULL,
+            ts REAL NOT NULL, value REAL NOT NULL,
+            received_ts REAL NOT NULL, topic TEXT NOT NULL,
+            late INTEGER NOT NULL DEFAULT 0
+        );
+        CREATE UNIQUE INDEX readings_natural ON readings(zone, sensor, signal, ts);
+        CREATE INDEX readings_zone_ts ON readings(zone, ts);
+        CREATE TABLE rejections (
+            id INTEGER PRIMARY KEY, received_ts REAL NOT NULL, topic TEXT NOT NULL,
+            reason TEXT NOT NULL, payload TEXT NOT NULL
+        );
+        CREATE INDEX rejections_received ON rejections(received_ts);
+        CREATE TABLE gaps (
+            id INTEGER PRIMARY KEY, zone TEXT NOT NULL, start_ts REAL NOT NULL,
+            end_ts REAL NOT NULL, seconds REAL NOT NULL
+        );
+        CREATE UNIQUE INDEX gaps_zone_start ON gaps(zone, start_ts);
+        CREATE TABLE zone_state (
+            zone TEXT PRIMARY KEY, spec_key TEXT NOT NULL, fed_ts REAL, state BLOB,
+            sensors TEXT NOT NULL, figures TEXT NOT NULL, readings_total INTEGER NOT NULL,
+            last_ts REAL, last_air_c REAL, last_product_c REAL, updated_ts REAL NOT NULL
+        );
+        CREATE TABLE events (
+            id INTEGER PRIMARY KEY, zone TEXT NOT NULL, kind TEXT NOT NULL,
+            start_ts REAL NOT NULL, end_ts REAL, detail TEXT NOT NULL DEFAULT '{}'
+        );
+        """
+    )
+
+
+@migrations()
+def m002_retention(db: sqlite_utils.Database) -> None:
+    db.executescript(
+        """
+        CREATE TABLE readings_hourly (
+            zone TEXT NOT NULL, sensor TEXT NOT NULL, signal TEXT NOT NULL, hour_ts REAL NOT NULL,
+            mean REAL NOT NULL, min REAL NOT NULL, max REAL NOT NULL, n INTEGER NOT NULL
+        );
+        CREATE UNIQUE INDEX readings_hourly_key ON readings_hourly(zone, sensor, signal, hour_ts);
+        CREATE TABLE zone_anchor (
+            zone TEXT PRIMARY KEY, spec_key TEXT NOT NULL, fed_ts REAL, state BLOB, sensors TEXT NOT NULL
+        );
+        """
+    )
+
+
+@migrations()
+def m003_outbox(db: sqlite_utils.Database) -> None:
+    db.executescript(
+        """
+        CREATE TABLE outbox (
+            id INTEGER PRIMARY KEY, created_s REAL NOT NULL, tags TEXT NOT NULL, title TEXT NOT NULL,
+            body TEXT NOT NULL, status TEXT NOT NULL DEFAULT 'pending', attempts INTEGER NOT NULL DEFAULT 0,
+            next_try_s REAL NOT NULL, last_result TEXT, last_log TEXT, sent_s REAL
+        );
+        CREATE INDEX outbox_due ON outbox(status, next_try_s);
+        """
+    )
+
+
+@migrations()
+def m004_alerts(db: sqlite_utils.Database) -> None:
+    db.executescript(
+        """
+        ALTER TABLE outbox ADD COLUMN channel TEXT;
+        ALTER TABLE outbox ADD COLUMN dedupe TEXT;
+        ALTER TABLE outbox ADD COLUMN alert_id INTEGER;
+        ALTER TABLE outbox ADD COLUMN attach TEXT;
+        ALTER TABLE outbox ADD COLUMN maybe_repeat INTEGER NOT NULL DEFAULT 0;
+        ALTER TABLE outbox ADD COLUMN last_failure TEXT;
+        CREATE UNIQUE INDEX outbox_dedupe ON outbox(dedupe);
+        CREATE UNIQUE INDEX events_key ON events(zone, kind, start_ts);
+        CREATE TABLE alerts (
+            id INTEGER PRIMARY KEY, zone TEXT NOT NULL, rule TEXT NOT NULL, severity TEXT NOT NULL,
+            label TEXT NOT NULL, metric TEXT NOT NULL, threshold REAL NOT NULL, status TEXT NOT NULL,
+            since_s REAL, raised_s REAL NOT NULL, value REAL, worst_value REAL, acked_s REAL, acked_by TEXT,
+            ack_note TEXT, cleared_s REAL, escalated_s REAL, repeats INTEGER NOT NULL DEFAULT 0
+        );
+        CREATE INDEX alerts_status ON alerts(status);
+        CREATE TABLE alert_log (
+            id INTEGER PRIMARY KEY, alert_id INTEGER NOT NULL, step TEXT NOT NULL, at_s REAL NOT NULL,
+            wall_s REAL NOT NULL, value REAL, by TEXT, note TEXT
+        );
+        CREATE INDEX alert_log_alert ON alert_log(alert_id);
+        CREATE TABLE alert_state (zone TEXT NOT NULL, rule TEXT NOT NULL, state TEXT NOT NULL, PRIMARY KEY (zone, rule));
+        CREATE TABLE alert_commands (
+            id INTEGER PRIMARY KEY, alert_id INTEGER NOT NULL, by TEXT NOT NULL, note TEXT, source TEXT NOT NULL,
+            sender TEXT, received_s REAL NOT NULL, done_s REAL, result TEXT
+        );
+        CREATE TABLE zone_snapshots (
+            zone TEXT NOT NULL, t_s REAL NOT NULL, spec_key TEXT NOT NULL, state BLOB NOT NULL, PRIMARY KEY (zone, t_s)
+        );
+        CREATE TABLE zone_marks (zone TEXT NOT NULL, mark TEXT NOT NULL, value REAL, PRIMARY KEY (zone, mark));
+        CREATE TABLE daily_growth (
+            zone TEXT NOT NULL, day TEXT NOT NULL, position TEXT NOT NULL, start_s REAL NOT NULL, end_s REAL NOT NULL,
+            baseline_um REAL NOT NULL, defrost_um REAL NOT NULL, door_um REAL NOT NULL, excursion_um REAL NOT NULL,
+            unattributed_um REAL NOT NULL, total_excess_um REAL NOT NULL, events INTEGER NOT NULL,
+            PRIMARY KEY (zone, day)
+        );
+        """
+    )
+
+
+@migrations()
+def m005_record_chain(db: sqlite_utils.Database) -> None:
+    db.executescript(
+        """
+        ALTER TABLE readings ADD COLUMN chain TEXT;
+        CREATE INDEX readings_zone_id ON readings(zone, id);
+        ALTER TABLE alert_log ADD COLUMN chain TEXT;
+        CREATE TABLE event_log (
+            id INTEGER PRIMARY KEY, event_id INTEGER NOT NULL, op TEXT NOT NULL, zone TEXT NOT NULL,
+            kind TEXT NOT NULL, start_ts REAL NOT NULL, end_ts REAL, detail TEXT NOT NULL, chain TEXT
+        );
+        CREATE TABLE chain_folds (tbl TEXT NOT NULL, zone TEXT NOT NULL, next_id INTEGER NOT NULL, prev_chain TEXT);
+        CREATE TABLE reports (
+            site TEXT NOT NULL, week TEXT NOT NULL, generated_s REAL NOT NULL, heads TEXT NOT NULL,
+            digest TEXT NOT NULL, files TEXT NOT NULL, PRIMARY KEY (site, week, generated_s)
+        );
+        """
+    )
+
+
+@migrations()
+def m006_lots(db: sqlite_utils.Database) -> None:
+    db.executescript(
+        """
+        CREATE TABLE lots (
+            lot TEXT PRIMARY KEY, product TEXT NOT NULL, initial TEXT NOT NULL, note TEXT, created_s REAL NOT NULL
+        );
+        CREATE TABLE lot_events (
+            id INTEGER PRIMARY KEY, lot TEXT NOT NULL, kind TEXT NOT NULL, zone TEXT, ts REAL NOT NULL,
+            source TEXT NOT NULL, sender TEXT, received_s REAL NOT NULL, note TEXT
+        );
+        CREATE INDEX lot_events_lot ON lot_events(lot, ts);
+        CREATE INDEX lot_events_zone ON lot_events(zone);
+        CREATE TABLE lot_state (
+            lot TEXT PRIMARY KEY, t_s REAL NOT NULL, state BLOB NOT NULL, figures TEXT NOT NULL, updated_s REAL NOT NULL
+        );
+        """
+    )
+
+
+@migrations()
+def m007_lot_chain(db: sqlite_utils.Database) -> None:
+    db.executescript(
+        """
+        ALTER TABLE lot_events ADD COLUMN detail TEXT;
+        ALTER TABLE lot_events ADD COLUMN chain TEXT;
+        """
+    )
+
+
+@migrations()
+def m008_record_seal(db: sqlite_utils.Database) -> None:
+    """Rejections chained (with how many messages a row stands for); retention's folds chained
+    and recorded per pass (cut-off, rows folded, when); where each chain's hashing began."""
+    db.executescript(
+        """
+        ALTER TABLE rejections ADD COLUMN n INTEGER NOT NULL DEFAULT 1;
+        ALTER TABLE rejections ADD COLUMN chain TEXT;
+        ALTER TABLE chain_folds ADD COLUMN cutoff_ts REAL;
+        ALTER TABLE chain_folds ADD COLUMN folded INTEGER NOT NULL DEFAULT 0;
+        ALTER TABLE chain_folds ADD COLUMN wall_s REAL;
+        ALTER TABLE chain_folds ADD COLUMN chain TEXT;
+        CREATE TABLE record_meta (key TEXT PRIMARY KEY, value REAL NOT NULL);
+        """
+    )
+    conn = db.conn
+    for table, id_col in chain.CHAINED_TABLES:
+        first = conn.execute(f"SELECT coalesce(max({id_col}), 0) + 1 FROM {table} WHERE chain IS NULL").fetchone()[0]
+        conn.execute("INSERT INTO record_meta (key, value) VALUES (?, ?)", (f"chained_from:{table}", first))
+    # Raw readings folded before passes were recorded: one pass row per zone says how many.
+    for zone, n, last in conn.execute(
+        "SELECT zone, sum(n), max(hour_ts) FROM readings_hourly GROUP BY zone"
+    ).fetchall():
+        chain.add_fold(conn, "readings", zone, [], n, last + 3600.0, None)
+    legacy = conn.execute("SELECT coalesce(max(rowid), 0) FROM chain_folds").fetchone()[0]
+    conn.execute("INSERT INTO record_meta (key, value) VALUES ('legacy_folds_until', ?)", (legacy,))
+
+
+@migrations()
+def m009_held(db: sqlite_utils.Database) -> None:
+    """Readings whose time disagrees with the service clock, kept until the clocks agree."""
+    db.executescript(
+        """
+        CREATE TABLE held (
+            id INTEGER PRIMARY KEY, received_ts REAL NOT NULL, topic TEXT NOT NULL, payload BLOB NOT NULL,
+            reason TEXT NOT NULL
+        );
+        """
+    )
