@@ -9,16 +9,9 @@ import time
 
 import click
 
-from watcher.cli import _config_option, _stamp, db_options, main
+from watcher.cli.app import main
+from watcher.cli.common import config_option, database_of, db_options, stamp, table
 from watcher.errors import InputError
-
-
-def _db(config_path: str | None, db_path: str | None) -> str:
-    from watcher.config import default_db_path, load_config
-
-    if db_path:
-        return db_path
-    return load_config(config_path).storage.path if config_path else default_db_path()
 
 
 @main.command()
@@ -40,7 +33,7 @@ def ack(alert_id, by, note, wait_s, config_path, db_path) -> None:
         raise InputError("--by", by, f"a name of 1-{MAX_NAME} characters")
     if note is not None and len(note) > MAX_NOTE:
         raise InputError("--note", f"{len(note)} characters", f"at most {MAX_NOTE}")
-    store = Store(_db(config_path, db_path))
+    store = Store(database_of(config_path, db_path))
     try:
         alert = store.alerts.get(alert_id)
         if alert is None:
@@ -75,7 +68,7 @@ def alerts(open_only, as_json, config_path, db_path) -> None:
     """List alerts, newest first (read-only)."""
     from watcher.store.db import Store
 
-    store = Store(_db(config_path, db_path), readonly=True)
+    store = Store(database_of(config_path, db_path), readonly=True)
     try:
         rows = store.alerts.list(open_only)
         if as_json:
@@ -90,19 +83,24 @@ def alerts(open_only, as_json, config_path, db_path) -> None:
     if not rows:
         click.echo("No open alerts." if open_only else "No alerts recorded.")
         return
-    head = f"{'id':>5} {'status':<12} {'severity':<8} {'zone':<12} {'raised':<20} {'value':>10}  what"
-    click.echo(head)
-    click.echo("-" * len(head))
-    for r in rows:
-        who = f" (ack: {r['acked_by']})" if r["acked_by"] else ""
-        click.echo(
-            f"{r['id']:>5} {r['status']:<12} {r['severity']:<8} {r['zone']:<12} {_stamp(r['raised_s']):<20} "
-            f"{r['value'] if r['value'] is None else format(r['value'], '.4g'):>10}  {r['label']}{who}"
-        )
+    lines = [
+        [
+            str(r["id"]),
+            r["status"],
+            r["severity"],
+            r["zone"],
+            stamp(r["raised_s"]),
+            "-" if r["value"] is None else format(r["value"], ".4g"),
+            r["label"] + (f" (ack: {r['acked_by']})" if r["acked_by"] else ""),
+        ]
+        for r in rows
+    ]
+    head = ["id", "status", "severity", "zone", "raised", "value", "what"]
+    click.echo(table(lines, head, ["right", "left", "left", "left", "left", "right", "left"]))
 
 
 @main.command("test-notify")
-@_config_option()
+@config_option()
 @click.option("--tag", default=None, help="Only channels with this tag.")
 def test_notify(config_path, tag) -> None:
     """Send a test message to each notification channel now, and report each result."""
@@ -121,7 +119,7 @@ def test_notify(config_path, tag) -> None:
         d = notifier.send(
             c.name,
             "watcher test message",
-            f"A test from watcher at {_stamp(time.time())} to channel {c.name} (tags: {', '.join(c.tags)}). "
+            f"A test from watcher at {stamp(time.time())} to channel {c.name} (tags: {', '.join(c.tags)}). "
             "No action needed.",
         )
         failed += not d.ok
@@ -146,7 +144,7 @@ def verify(since, config_path, db_path) -> None:
             since_ts = dt.datetime.fromisoformat(since).replace(tzinfo=dt.UTC).timestamp()
         except ValueError:
             raise InputError("--since", since, "a date such as 2026-11-23") from None
-    store = Store(_db(config_path, db_path), readonly=True)
+    store = Store(database_of(config_path, db_path), readonly=True)
     try:
         findings, counts = store.record.verify(since_ts)
     finally:
@@ -166,7 +164,7 @@ def verify(since, config_path, db_path) -> None:
 
 
 @main.command()
-@_config_option()
+@config_option()
 @click.option("--week", "week_label", default=None, help="ISO week such as 2026-W48 (default: the last complete week).")
 @click.option("--site", "site_id", default=None, help="One site (default: every site).")
 @click.option("--out", "out_dir", default=None, help="Folder for the files (default: [reports] dir).")

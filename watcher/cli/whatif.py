@@ -8,7 +8,8 @@ from pathlib import Path
 import click
 
 from watcher.caution import SHORT
-from watcher.cli import _config_option, _fmt, main
+from watcher.cli.app import main
+from watcher.cli.common import config_option, fmt, table
 from watcher.errors import InputError
 
 ROWS = (
@@ -39,7 +40,7 @@ ROWS = (
 )
 @click.option("--out", type=click.Path(file_okay=False), default=".", show_default=True, help="Folder for the chart.")
 @click.option("--json", "as_json", is_flag=True)
-@_config_option()
+@config_option()
 def what_if(zone, start, end, setpoint_offset, defrosts_per_day, defrost_min, defrost_peak_c, door_factor, fewer_doors,
             drop, out, as_json, config_path) -> None:  # fmt: skip
     """Replay a zone's recorded period with an operating change and compare the texture
@@ -115,16 +116,14 @@ def what_if(zone, start, end, setpoint_offset, defrosts_per_day, defrost_min, de
     click.echo(f"{z.name}, {result['period_days']:.1f} days replayed from {origin}.")
     click.echo(f"Change: {result['change']}\n")
     a, b = result["recorded"], result["changed"]
-    click.echo(f"{'':<54}{'as recorded':>12}{'changed':>12}{'difference':>12}")
-    for key, label, fmt in ROWS:
+    lines = []
+    for key, label, spec in ROWS:
         diff = None if a[key] is None or b[key] is None else b[key] - a[key]
-        click.echo(f"{label:<54}{_fmt(a[key], fmt):>12}{_fmt(b[key], fmt):>12}{_fmt(diff, '+' + fmt):>12}")
+        lines.append([label, fmt(a[key], spec), fmt(b[key], spec), fmt(diff, "+" + spec)])
     for cause in a["excess_pct"]:
-        diff = b["excess_pct"][cause] - a["excess_pct"][cause]
-        click.echo(
-            f"{'excess from ' + cause + 's, % of budget':<54}{a['excess_pct'][cause]:>12.2f}"
-            f"{b['excess_pct'][cause]:>12.2f}{diff:>+12.2f}"
-        )
+        x, y = a["excess_pct"][cause], b["excess_pct"][cause]
+        lines.append([f"excess from {cause}s, % of budget", f"{x:.2f}", f"{y:.2f}", f"{y - x:+.2f}"])
+    click.echo(table(lines, ["", "as recorded", "changed", "difference"], ["left", "right", "right", "right"]))
     click.echo(f"\nChart: {chart}")
     click.echo("It does not show that a change is safe or allowed: check changes to setpoints and defrosts with your")
     click.echo("refrigeration technician. " + SHORT)

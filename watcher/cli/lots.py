@@ -9,7 +9,8 @@ import time
 import click
 
 from watcher.caution import SHORT
-from watcher.cli import _config_option, _fmt, _stamp, main
+from watcher.cli.app import main
+from watcher.cli.common import config_option, fmt, stamp, table
 from watcher.errors import InputError
 from watcher.ranges import figure_text
 
@@ -67,7 +68,7 @@ def lot() -> None:
     "--history", type=click.Path(exists=True, dir_okay=False), help="CSV (time, air_c) of its storage so far."
 )
 @click.option("--note", default=None)
-@_config_option()
+@config_option()
 def lot_arrive(lot_id, zone, at, product, mean_um, budget_used, history, note, config_path) -> None:
     """A lot arrives: fresh from hardening unless a starting state is given."""
     doc = {"event": "arrive", "lot": lot_id, "zone": zone, "time": _at(at), "product": product, "note": note}
@@ -81,7 +82,7 @@ def lot_arrive(lot_id, zone, at, product, mean_um, budget_used, history, note, c
 @click.option("--to", "zone", required=True, help="The zone it moves to.")
 @click.option("--at", "at", default=None, help="When (default: now).")
 @click.option("--note", default=None)
-@_config_option()
+@config_option()
 def lot_move(lot_id, zone, at, note, config_path) -> None:
     """A lot moves to another zone."""
     _record(
@@ -96,7 +97,7 @@ def lot_move(lot_id, zone, at, note, config_path) -> None:
 @click.argument("lot_id")
 @click.option("--at", "at", default=None, help="When (default: now).")
 @click.option("--note", default=None)
-@_config_option()
+@config_option()
 def lot_depart(lot_id, at, note, config_path) -> None:
     """A lot leaves the store: its figures stop there and stay on record."""
     _record(
@@ -107,7 +108,7 @@ def lot_depart(lot_id, at, note, config_path) -> None:
 
 @lot.command("import")
 @click.argument("csv_path", type=click.Path(exists=True, dir_okay=False))
-@_config_option()
+@config_option()
 def lot_import(csv_path, config_path) -> None:
     """Import lot events from a CSV (columns: event, lot, zone, time, and optionally product,
     mean_diameter_um, budget_used_pct, note), in file order. All rows or none."""
@@ -139,7 +140,7 @@ def lot_import(csv_path, config_path) -> None:
 @lot.command("show")
 @click.argument("lot_id")
 @click.option("--json", "as_json", is_flag=True)
-@_config_option()
+@config_option()
 def lot_show(lot_id, as_json, config_path) -> None:
     """One lot: where it has been, and its texture figures as last computed by the service."""
     row = next((r for r in _overview(config_path) if r["lot"] == lot_id), None)
@@ -152,13 +153,13 @@ def lot_show(lot_id, as_json, config_path) -> None:
     f = row["figures"] or {}
     click.echo(f"Lot {lot_id} ({row['product']}), {'in ' + row['zone'] if row['present'] else 'departed'}")
     for kind, zone, ts in row["history"]:
-        click.echo(f"  {_stamp(ts)}  {kind:<7} {zone or ''}")
+        click.echo(f"  {stamp(ts)}  {kind:<7} {zone or ''}")
     if not f:
         click.echo("  Not computed yet: the service computes lots at its next analysis pass.")
         return
     click.echo(
-        f"  As of {_stamp(f['t_s'])}: {figure_text(f, 'budget_used_pct', '.1f')} % of the texture budget "
-        f"used ({f['worst_position']}), mean crystal {_fmt(f['mean_diameter_um'], '.1f')} um, "
+        f"  As of {stamp(f['t_s'])}: {figure_text(f, 'budget_used_pct', '.1f')} % of the texture budget "
+        f"used ({f['worst_position']}), mean crystal {fmt(f['mean_diameter_um'], '.1f')} um, "
         f"{figure_text(f, 'days_to_limit', '.0f', 'no limit in sight')} days to the limit at current "
         "conditions (90 % range in brackets)."
     )
@@ -169,7 +170,7 @@ def lot_show(lot_id, as_json, config_path) -> None:
 @click.option("--zone", default=None, help="Only lots in this zone.")
 @click.option("--all", "everything", is_flag=True, help="Include departed lots.")
 @click.option("--json", "as_json", is_flag=True)
-@_config_option()
+@config_option()
 def lots_cmd(zone, everything, as_json, config_path) -> None:
     """Lots ranked by texture life left: the first should leave first."""
     rows = [r for r in _overview(config_path) if (everything or r["present"]) and (zone is None or r["zone"] == zone)]
@@ -180,20 +181,23 @@ def lots_cmd(zone, everything, as_json, config_path) -> None:
     if not rows:
         click.echo("No lots recorded" + (f" in {zone}" if zone else "") + " (see `watcher lot arrive`).")
         return
-    where = [r["zone"] if r["present"] else f"{r['zone']} (gone)" for r in rows]
-    w_lot = max(14, *(len(r["lot"]) for r in rows))
-    w_zone = max(12, *(len(x) for x in where))
-    click.echo(
-        f"{'#':>3}  {'lot':<{w_lot}} {'zone':<{w_zone}} {'product':<18} {'budget used %':>20} {'mean um':>8} "
-        f"{'days left':>16}  as of"
-    )
-    for i, (r, place) in enumerate(zip(rows, where), 1):
+    lines = []
+    for i, r in enumerate(rows, 1):
         f = r["figures"] or {}
-        click.echo(
-            f"{i:>3}  {r['lot']:<{w_lot}} {place:<{w_zone}} {r['product']:<18} "
-            f"{figure_text(f, 'budget_used_pct', '.1f'):>20} {_fmt(f.get('mean_diameter_um'), '8.1f')} "
-            f"{figure_text(f, 'days_to_limit', '.0f'):>16}  {_stamp(f['t_s']) if f else 'not computed yet'}"
+        lines.append(
+            [
+                str(i),
+                r["lot"],
+                r["zone"] if r["present"] else f"{r['zone']} (gone)",
+                r["product"],
+                figure_text(f, "budget_used_pct", ".1f"),
+                fmt(f.get("mean_diameter_um"), ".1f"),
+                figure_text(f, "days_to_limit", ".0f"),
+                stamp(f["t_s"]) if f else "not computed yet",
+            ]
         )
+    head = ["#", "lot", "zone", "product", "budget used %", "mean um", "days left", "as of"]
+    click.echo(table(lines, head, ["right", "left", "left", "left", "right", "right", "right", "left"]))
     click.echo(
         "Days left: at current conditions; brackets: 90 % range from the profile's uncertainty (ranked by the "
         "central figure). " + SHORT

@@ -1,0 +1,177 @@
+"""`watcher demo`, `check-config`, `run`, `status` and `replay`: the service and its record."""
+
+from __future__ import annotations
+
+import json
+import sys
+
+import click
+
+from watcher.cli.app import main
+from watcher.cli.common import config_option, db_options, fmt, stamp, table
+from watcher.ranges import figure_text
+
+
+@main.command()
+@click.option("--out", "out_dir", default="watcher-demo", show_default=True, help="Folder for the database and report.")
+@click.option("--no-broker", is_flag=True, help="Feed the engine in this process even when mosquitto is installed.")
+@click.option("--now", "now_s", type=float, default=None, hidden=True, help="End of the demo data (epoch s; tests).")
+def demo(out_dir, no_broker, now_s) -> None:
+    """Run the whole pipeline on a fictional cold store: about two weeks in under a minute."""
+    import logging
+    import time
+
+    from watcher.demo_run import run
+    from watcher.simulation import CAUTION
+
+    logging.basicConfig(level=logging.ERROR)  # the demo prints alerts itself
+    shown, began = [0.0], time.monotonic()
+
+    def progress(share: float) -> None:
+        if share - shown[0] >= 0.1 or share >= 1.0 and shown[0] < 1.0:
+            click.echo(f"  ... {share:4.0%} of the messages stored ({time.monotonic() - began:.0f} s)", err=True)
+            shown[0] = share
+
+    result = run(out_dir, not no_broker, click.echo, progress, now_s)
+    click.echo("")
+    click.echo(f"Done in {result['seconds']:.0f} s.")
+    click.echo(f"Weekly summary for {result['week']}: {result['report']}")
+    click.echo(f"Database: {result['database']}   Configuration: {result['config']}")
+    click.echo("Try next:")
+    click.echo(f"  watcher status --config {result['config']}")
+    click.echo(f"  watcher alerts --config {result['config']}")
+    click.echo(f"  watcher lots --config {result['config']}")
+    click.echo(f"  watcher report --config {result['config']} --week {result['week']}")
+    click.echo(f"  watcher verify --config {result['config']}")
+    click.echo(CAUTION)
+
+
+@main.command("check-config")
+@click.argument("config_path", metavar="FILE", type=click.Path(dir_okay=False))
+def check_config(config_path) -> None:
+    """Validate a configuration file and show what would be subscribed and how topics map."""
+    from watcher.config import load_config
+
+    cfg = load_config(config_path)
+    click.echo(f"{config_path}: valid.")
+    click.echo(
+        f"Broker   {cfg.broker.host}:{cfg.broker.port} as {cfg.broker.client_id!r}"
+        f"{' with TLS' if cfg.broker.tls else ''}{', user ' + cfg.broker.username if cfg.broker.username else ''}; "
+        f"status on {cfg.broker.status_topic} (retained)"
+    )
+    click.echo(f"Database {cfg.storage.path}; raw readings kept {cfg.storage.raw_retention_days} days")
+    click.echo("")
+    click.echo("Subscriptions (QoS 1) and how each topic maps:")
+    for s in cfg.sources:
+        zone = "{zone} level" if "zone" in s.pattern.placeholders else f"zone {s.zone}"
+        sensor = "{sensor} level" if "sensor" in s.pattern.placeholders else f"sensor {s.sensor or s.signal}"
+        value = "plain number" if s.fmt == "number" else f"JSON field {'.'.join(s.value_path)}"
+        when = (
+            "receive time (retained messages refused)"
+            if s.time_path is None
+            else f"JSON field {'.'.join(s.time_path)} ({s.time_format})"
+        )
+        unit = f" in {s.unit}" if s.signal in ("air_c", "product_c") else ""
+        click.echo(f"  {s.pattern.filter:<32} {s.signal:<9} {zone}; {sensor}; value: {value}{unit}; time: {when}")
+    click.echo("")
+    click.echo("Zones:")
+    for z in cfg.zones:
+        pos = ", ".join(p.name + (" (probe)" if p.probe else f" (tau {p.tau_s / 3600:g} h)") for p in z.positions)
+        click.echo(
+            f"  {z.id:<12} {z.name} @ {z.site}: setpoint {z.setpoint_c:g} C, profile {z.profile.name}, positions {pos}"
+        )
+
+
+@main.command()
+@config_option()
+@click.option("--log-level", default="INFO", show_default=True, help="DEBUG, INFO, WARNING or ERROR.")
+def run(config_path, log_level) -> None:
+    """Run the service in the foreground (systemd runs it as Type=notify)."""
+    from watcher.config import load_config
+    from watcher.service import Service, setup_logging
+
+    setup_logging(log_level)
+    cfg = load_config(config_path)
+    sys.exit(Service(cfg).run_forever())
+
+
+@main.command()
+@db_options
+@click.option("--json", "as_json", is_flag=True, help="Print JSON.")
+def status(config_path, db_path, as_json) -> None:
+    """Show each zone's temperatures, crystal size, budget and data freshness (read-only)."""
+    from watcher.status import read_status
+
+    report = read_status(config_path, db_path)
+    if as_json:
+        click.echo(json.dumps(report, indent=2))
+        return
+    click.echo(f"Database {report['database']} (read-only), as of {stamp(report['now_s'])}")
+    lines = []
+    for z in report["zones"]:
+        age = z["last_reading_age_s"]
+        data = "no data" if age is None else "gap open" if z["open_gap"] else "ok"
+        days_none = "never" if z["state"] == "frozen" else "-"  # 'never': no coarsening below Tg'; '-': no figures yet
+        lines.append(
+            [
+                z["id"],
+                fmt(z["air_c"], ".1f"),
+                fmt(z["product_c"], ".1f"),
+                fmt(z["mean_diameter_um"], ".1f"),
+                figure_text(z, "budget_used_pct", ".1f"),
+                figure_text(z, "days_to_limit", ".0f", days_none),
+                _age(age),
+                str(z["readings_total"]),
+                data,
+            ]
+        )
+    head = [
+        "zone",
+        "air C",
+        "product C",
+        "mean um",
+        "budget % (90 % range)",
+        "days left (range)",
+        "last reading",
+        "readings",
+        "data",
+    ]
+    click.echo(table(lines, head, ["left"] + ["right"] * 7 + ["left"]))
+    click.echo(
+        "Days left: if the product stayed at its current temperature. Ranges: 90 % range from the profile's "
+        "uncertainty; alerts on days left use the cautious (lower) end."
+    )
+    click.echo(f"Rejected messages stored: {report['rejections_total']}; data gaps recorded: {report['gaps_total']}.")
+    alerts = report["open_alerts"]
+    if alerts:
+        click.echo(f"Open alerts ({len(alerts)}; `watcher alerts --open` for more):")
+        for a in alerts[:10]:
+            ack = f", acknowledged by {a['acked_by']}" if a["acked_by"] else ""
+            click.echo(f"  {a['id']:>5} {a['severity']:<8} {a['zone']:<12} {a['label']}{ack}")
+    else:
+        click.echo("No open alerts.")
+    from watcher.simulation import CAUTION
+
+    click.echo(CAUTION)
+
+
+@main.command()
+@config_option()
+@click.argument("readings_path", metavar="READINGS.csv", type=click.Path(dir_okay=False))
+def replay(config_path, readings_path) -> None:
+    """Run recorded readings (CSV: time,zone,signal,value[,sensor]) through the service's engine."""
+    from watcher.config import load_config
+    from watcher.replay import replay_file
+
+    cfg = load_config(config_path)
+    counts = replay_file(cfg, readings_path, progress=click.progressbar)
+    click.echo(", ".join(f"{k}: {v}" for k, v in sorted(counts.items())) or "nothing to replay")
+    click.echo(f"Database {cfg.storage.path}; see `watcher status --config {config_path}`.")
+
+
+def _age(age_s: float | None) -> str:
+    if age_s is None:
+        return "-"
+    if age_s < 120:
+        return f"{age_s:.0f} s ago"
+    return f"{age_s / 60:.0f} min ago" if age_s < 7200 else f"{age_s / 3600:.1f} h ago"
