@@ -30,6 +30,58 @@ def test_valid_config_reads_secret_from_file(tmp_path):
     assert cfg.sources[0].pattern.filter == "kp/+/+/air"
 
 
+def test_a_minimal_file_gives_the_declared_defaults(tmp_path):
+    """Each default is written once, beside its type: a file that sets nothing else reads back
+    exactly the dataclasses' defaults (no second copy in the reader can drift)."""
+    from watcher.config import Alerting, Events, Health, Ingest, Reports
+    from watcher.ingest.settings import Broker
+
+    data = base(tmp_path)
+    data["broker"] = {}
+    cfg = config_from_dict(data, "c.toml")
+    assert cfg.broker == Broker()
+    assert (cfg.ingest, cfg.health, cfg.alerting, cfg.events) == (Ingest(), Health(), Alerting(), Events())
+    assert cfg.reports == Reports()
+
+
+def test_every_declared_setting_is_shown_in_the_example():
+    """config.example.toml shows every declared key in its table (set or commented out)."""
+    import re
+    from pathlib import Path
+
+    from watcher.config import Alerting, Events, Health, Ingest, Reports, Site, Storage
+    from watcher.declare import declared
+    from watcher.events.detect import DefrostShape
+    from watcher.ingest.payload import Limits
+    from watcher.ingest.settings import Broker, Tls
+
+    text = (Path(__file__).resolve().parent.parent / "config.example.toml").read_text()
+    tables: dict[str, set[str]] = {}
+    table = ""
+    for line in text.splitlines():
+        head = re.match(r"^\s*\[\[?([A-Za-z0-9_.]+)\]?\]", line)
+        if head:
+            table = head.group(1)
+        key = re.match(r"^\s*#?\s*([A-Za-z_][A-Za-z0-9_]*)\s*=", line)
+        if key and not head:
+            tables.setdefault(table, set()).add(key.group(1))
+    where = {
+        Broker: "broker",
+        Tls: "broker.tls",
+        Storage: "storage",
+        Ingest: "ingest",
+        Limits: "ingest",
+        Health: "health",
+        Site: "sites",
+        Alerting: "alerts",
+        Events: "events",
+        DefrostShape: "events",
+        Reports: "reports",
+    }
+    missing = [f"{t}.{d.key}" for cls, t in where.items() for d in declared(cls) if d.key not in tables.get(t, set())]
+    assert not missing, missing
+
+
 def test_password_from_systemd_credentials(tmp_path, monkeypatch):
     """password_credential reads $CREDENTIALS_DIRECTORY/NAME; without the variable it is refused."""
     data = base(tmp_path)

@@ -1,8 +1,9 @@
 """Write docs/configuration.md from the configuration reader itself.
 
-Every key the reader asks for, with its type, range and default, is recorded while
-config.example.toml is read; the descriptions are that file's own end-of-line comments. A test
-regenerates the page and compares, so the reference cannot drift from the code.
+Every key the reader asks for, with its type, range, default and meaning, is recorded while
+config.example.toml is read: plain settings come from their declarations (watcher.declare),
+the rest from the reader's own calls. A test regenerates the page and compares, so the
+reference cannot drift from the code.
 Usage: python -m watcher.config_doc > docs/configuration.md
 """
 
@@ -15,29 +16,15 @@ import tempfile
 import tomllib
 from pathlib import Path
 
-from watcher import config as config_module
+from watcher.config import config_from_dict
+from watcher.config import reader as config_reader
 
 ROOT = Path(__file__).resolve().parent.parent
 EXAMPLE = ROOT / "config.example.toml"
 
 
-def _comments(text: str) -> dict[tuple[str, str], str]:
-    """(table, key) -> the comment at the end of the key's line in the example."""
-    out: dict[tuple[str, str], str] = {}
-    table = ""
-    for line in text.splitlines():
-        head = re.match(r"^\s*\[\[?([A-Za-z0-9_.]+)\]?\]", line)
-        if head:
-            table = head.group(1)
-            continue
-        m = re.match(r"^\s*#?\s*([A-Za-z_][A-Za-z0-9_]*)\s*=.*?#\s*(.+)$", line)
-        if m and (table, m.group(1)) not in out:
-            out[(table, m.group(1))] = m.group(2).strip()
-    return out
-
-
 def _shown(default) -> str:
-    if default is config_module._REQUIRED:
+    if default is config_reader.REQUIRED:
         return "required"
     if default is None:
         return "unset"
@@ -61,20 +48,19 @@ def render() -> str:
         saved = {k: os.environ.get(k) for k in ("CREDENTIALS_DIRECTORY", "STATE_DIRECTORY")}
         os.environ["CREDENTIALS_DIRECTORY"] = str(creds)
         os.environ.pop("STATE_DIRECTORY", None)
-        config_module.RECORDER = []
+        config_reader.RECORDER = []
         try:
-            config_module.config_from_dict(data, "config.example.toml")
-            recorded = config_module.RECORDER
+            config_from_dict(data, "config.example.toml")
+            recorded = config_reader.RECORDER
         finally:
-            config_module.RECORDER = None
+            config_reader.RECORDER = None
             for k, v in saved.items():
                 if v is None:
                     os.environ.pop(k, None)
                 else:
                     os.environ[k] = v
-    comments = _comments(text)
     tables: dict[str, dict[str, tuple]] = {}
-    for where, key, default, expected in recorded:
+    for where, key, default, expected, doc in recorded:
         table = re.sub(r"\[\d+\]", "", where)
         if expected == "a table" or expected.startswith("a list of [[") or expected.startswith("a list of {"):
             if key != "positions":
@@ -83,14 +69,14 @@ def render() -> str:
         shown = _shown(default)
         if entry is not None and entry[1] != shown:
             shown = "depends on the rule" if table == "alerts.rules" else "varies"
-        tables[table][key] = (expected, shown, comments.get((table, key), ""))
+        tables[table][key] = (expected, shown, doc)
     lines = [
         "# Configuration reference",
         "",
-        "Generated from the configuration reader by `python -m watcher.config_doc` (a test checks that",
-        "it is current). Every key, its type and range, its default, and the note from",
-        "`config.example.toml`. Unknown keys, wrong types and values out of range stop start-up with",
-        "exit code 2 and a message naming the file, the key path, the value and what was expected.",
+        "Generated from the settings' declarations and the configuration reader by",
+        "`python -m watcher.config_doc` (a test checks that it is current). Every key, its type and",
+        "range, its default and what it means. Unknown keys, wrong types and values out of range stop",
+        "start-up with exit code 2 and a message naming the file, the key path, the value and what was expected.",
         "",
     ]
     for table in sorted(tables, key=lambda t: (t != "", t)):

@@ -23,6 +23,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from watcher.declare import setting
+
 RECOVERY_TOLERANCE_K = 0.3  # sensor noise allowed while the air pulls down after a defrost
 
 
@@ -43,9 +45,20 @@ class Event:
 class DefrostShape:
     """What an inferred defrost looks like (defaults: 15-45 min, a rise of a few K [from memory, low confidence])."""
 
-    rise_k: float = 1.5  # air above the baseline by more than this starts an episode
-    min_s: float = 10 * 60.0
-    max_s: float = 90 * 60.0
+    rise_k: float = setting(
+        1.5, "air this far above its running cold level starts a warm episode", key="defrost_rise_k", lo=0.1, hi=30.0
+    )
+    min_s: float = setting(
+        10 * 60.0,
+        "an inferred defrost lasts at least ... (minutes)",
+        key="defrost_min_min",
+        scale=60.0,
+        lo=1.0,
+        hi=600.0,
+    )
+    max_s: float = setting(
+        90 * 60.0, "... and at most this long (minutes)", key="defrost_max_min", scale=60.0, lo=1.0, hi=600.0
+    )
     min_peak_k: float = 2.0
     max_peak_k: float = 15.0
     baseline_window_s: float = 6 * 3600.0

@@ -10,6 +10,7 @@ import math
 from dataclasses import dataclass
 from datetime import UTC, datetime
 
+from watcher.declare import setting
 from watcher.errors import OutOfClock, Rejected
 from watcher.ingest.jsondoc import BadJson, load_json
 
@@ -49,10 +50,19 @@ class Reading:
 
 @dataclass(frozen=True)
 class Limits:
-    max_payload_bytes: int = 65536
-    future_skew_s: float = 300.0
-    past_limit_s: float = 400 * 86400.0
-    temp_range_c: tuple[float, float] = (-60.0, 40.0)
+    max_payload_bytes: int = setting(65536, "larger payloads are rejected", lo=64, hi=16 * 1024 * 1024)
+    future_skew_s: float = setting(
+        300.0, "timestamps further ahead of the receive time are rejected", lo=0.0, hi=86400.0
+    )
+    past_limit_s: float = setting(
+        400 * 86400.0,
+        "timestamps older than this are rejected (days)",
+        key="past_limit_days",
+        scale=86400.0,
+        lo=1.0,
+        hi=36500.0,
+    )
+    temp_range_c: tuple[float, float] = (-60.0, 40.0)  # read from temperature_range_c = [low, high]
 
 
 def _dig(obj, path: tuple[str, ...], what: str):
