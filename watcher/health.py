@@ -48,6 +48,12 @@ class Metrics:
         self.notifications = Counter(
             "watcher_notifications", "Notification attempts by outcome (sent, retried, failed)", ["outcome"], registry=r
         )
+        self.report_checks = Counter(
+            "watcher_report_checks",
+            "Checks of the weekly summary schedule, by outcome (produced, nothing_due, failed)",
+            ["outcome"],
+            registry=r,
+        )
         self.zone_figures: dict[str, dict] = {}
         self.zone_last_ts: dict[str, float] = {}
         r.register(_ZoneCollector(self))

@@ -14,7 +14,6 @@ import collections
 import logging
 import os
 import signal
-import socket
 import threading
 import time
 from dataclasses import replace
@@ -28,6 +27,7 @@ from watcher.health import HealthServer, Metrics
 from watcher.ingest.mqtt_process import MqttProcess
 from watcher.ingest.suspects import Suspects
 from watcher.store.db import Store
+from watcher.systemd import sd_notify
 
 log = logging.getLogger("watcher.service")
 RETENTION_EVERY_S = 6 * 3600.0
@@ -36,37 +36,6 @@ DELIVER_EVERY_S = 0.5
 REPORT_CHECK_S = 60.0
 READMIT_EVERY_S = 60.0
 CLOCK_JUMP_S = 60.0
-
-
-def sd_notify(message: str) -> bool:
-    """Send one datagram to $NOTIFY_SOCKET (systemd Type=notify); False when there is none."""
-    addr = os.environ.get("NOTIFY_SOCKET")
-    if not addr:
-        return False
-    if addr.startswith("@"):
-        addr = "\0" + addr[1:]
-    try:
-        with socket.socket(socket.AF_UNIX, socket.SOCK_DGRAM) as sock:
-            sock.setblocking(False)  # a receiver that stops reading must not freeze the main thread
-            sock.connect(addr)
-            sock.sendall(message.encode())
-        return True
-    except BlockingIOError:
-        log.warning("sd_notify: the notify socket is full; %s not sent", message)
-        return False
-    except OSError as exc:
-        log.warning("sd_notify failed: %s", exc)
-        return False
-
-
-def setup_logging(level: str = "INFO") -> None:
-    """One structured line per event on stdout, for journald."""
-    logging.basicConfig(
-        level=getattr(logging, level.upper(), logging.INFO),
-        format="%(asctime)s level=%(levelname)s logger=%(name)s %(message)s",
-        datefmt="%Y-%m-%dT%H:%M:%S%z",
-        force=True,
-    )
 
 
 class Service:
@@ -393,7 +362,8 @@ class Service:
         store = Store(self.config.storage.path)
         while not self.stopping.is_set():
             try:
-                for site, week in due_weeks(store, self.config, time.time()):
+                due = due_weeks(store, self.config, time.time())
+                for site, week in due:
                     from watcher.report.produce import produce  # pandas and matplotlib load only now
 
                     produce(
@@ -407,7 +377,9 @@ class Service:
                         send=True,
                         auto=True,
                     )
+                self.metrics.report_checks.labels("produced" if due else "nothing_due").inc()
             except Exception as exc:
+                self.metrics.report_checks.labels("failed").inc()
                 log.error("weekly summary failed (trying again in a minute): %s", exc)
             self.stopping.wait(REPORT_CHECK_S)
         store.close()

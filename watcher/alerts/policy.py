@@ -22,7 +22,7 @@ SEVERITIES = ("info", "warning", "critical")
 # right durations; wall-clock rules on the service's own clock; lot rules per lot).
 METRICS = tuple(_METRICS)
 WALL_CLOCK_METRICS = WALL_CLOCK
-LOT_METRICS = PER_LOT  # judged per lot (alert zone "lot:<id>")
+LOT_METRICS = PER_LOT  # judged per lot (the alert's subject is the lot: store/subjects.py)
 
 
 @dataclass(frozen=True)

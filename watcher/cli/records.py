@@ -26,7 +26,7 @@ def ack(alert_id, by, note, wait_s, config_path, db_path) -> None:
     The running service applies the acknowledgement (it owns the alert state); when it is not
     running, the acknowledgement waits in the database and is applied at its next start.
     """
-    from watcher.engine.monitor import MAX_NAME, MAX_NOTE
+    from watcher.engine.alert_keeper import MAX_NAME, MAX_NOTE
     from watcher.store.db import Store
 
     if not by.strip() or len(by) > MAX_NAME:

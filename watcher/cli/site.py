@@ -9,6 +9,7 @@ import click
 
 from watcher.cli.app import main
 from watcher.cli.common import config_option, db_options, fmt, stamp, table
+from watcher.ingest.payload import FORMATS
 from watcher.ranges import figure_text
 
 
@@ -65,7 +66,7 @@ def check_config(config_path) -> None:
     for s in cfg.sources:
         zone = "{zone} level" if "zone" in s.pattern.placeholders else f"zone {s.zone}"
         sensor = "{sensor} level" if "sensor" in s.pattern.placeholders else f"sensor {s.sensor or s.signal}"
-        value = "plain number" if s.fmt == "number" else f"JSON field {'.'.join(s.value_path)}"
+        value = FORMATS[s.fmt].describe(s)
         when = (
             "receive time (retained messages refused)"
             if s.time_path is None
@@ -88,7 +89,8 @@ def check_config(config_path) -> None:
 def run(config_path, log_level) -> None:
     """Run the service in the foreground (systemd runs it as Type=notify)."""
     from watcher.config import load_config
-    from watcher.service import Service, setup_logging
+    from watcher.service import Service
+    from watcher.systemd import setup_logging
 
     setup_logging(log_level)
     cfg = load_config(config_path)

@@ -11,7 +11,7 @@ from watcher.alerts.policy import METRICS, SEVERITIES, Rule, default_rules
 from watcher.config.reader import REQUIRED, Reader, choice_text, read_secret
 from watcher.config.settings import REPORT_FORMATS, WEEKDAYS, Alerting, Events, Reports
 from watcher.events.detect import DefrostShape
-from watcher.ingest.payload import SIGNALS, Source
+from watcher.ingest.payload import FORMATS, SIGNALS, Source
 from watcher.ingest.topics import parse_pattern
 from watcher.model.integrator import DEFAULT_POSITIONS, Position
 
@@ -213,14 +213,16 @@ def source(r: Reader, zone_ids: set[str]) -> Source:
         r.fail("zone", fixed_zone, "one of the [[zones]] ids")
     if pattern.placeholders - {"zone", "sensor", "site"}:
         r.fail("pattern", text, "placeholders among {site}, {zone}, {sensor}")
-    fmt = _choice(r, "format", "json", ("json", "number"), "a JSON object, or a plain number")
+    fmt = _choice(
+        r, "format", "json", tuple(FORMATS), "how the payload carries the value: a JSON object, or a plain number"
+    )
     unit = _choice(r, "unit", "C", ("C", "F", "K"), "the temperature unit")
     unit_path = r.text("unit_field", doc="JSON field path of a unit the payload names itself; overrides unit")
-    if unit_path and fmt == "number":
+    if unit_path and not FORMATS[fmt].fields:
         r.fail("unit_field", unit_path, "no unit field for plain-number payloads (use unit)")
     time_path = r.text("time", doc="JSON field path of the timestamp; leave out to use the receive time")
     time_format = _choice(r, "time_format", "iso", ("iso", "epoch_s", "epoch_ms"), "how the timestamp is written")
-    if fmt == "number" and time_path:
+    if time_path and not FORMATS[fmt].fields:
         r.fail("time", time_path, "no timestamp field for plain-number payloads (the receive time is used)")
     value = r.text("value", "value", 'JSON field path of the value, dot-separated ("reading.value")')
     return Source(

@@ -88,13 +88,9 @@ class Engine:
         self.limiter = RejectionLimiter(config.ingest.rejections_per_topic_per_min)
 
     def _monitor(self) -> Monitor:
-        m = Monitor(self.config, self.store)
-        m.fed_of = self._fed_of
-        m.held_count = lambda: self.held_count
         old = getattr(self, "monitor", None)
-        if old is not None:
-            m.last_jump = old.last_jump  # a clock jump is not in the record; keep it across reloads
-        return m
+        last_jump = old.last_jump if old is not None else None  # not in the record; kept across reloads
+        return Monitor(self.config, self.store, self._fed_of, lambda: self.held_count, last_jump)
 
     def reload_all(self) -> None:
         """After a failed outer transaction: every zone and the monitor back to the record."""

@@ -7,6 +7,7 @@ door and defrost states as 1.0 (open / on) or 0.0 (closed / off).
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 from dataclasses import dataclass
 from datetime import UTC, datetime
 
@@ -14,7 +15,7 @@ from watcher.declare import setting
 from watcher.errors import OutOfClock, Rejected
 from watcher.ingest.jsondoc import BadJson, load_json
 
-__all__ = ["OutOfClock", "Reading", "Rejected", "Source", "Limits", "parse_message"]
+__all__ = ["FORMATS", "OutOfClock", "PayloadFormat", "Reading", "Rejected", "Source", "Limits", "parse_message"]
 
 SIGNALS = ("air_c", "product_c", "door", "defrost")
 TEMPERATURE_SIGNALS = ("air_c", "product_c")
@@ -29,7 +30,7 @@ class Source:
 
     pattern: object  # TopicPattern
     signal: str
-    fmt: str = "json"  # "json" or "number"
+    fmt: str = "json"  # a FORMATS name
     value_path: tuple[str, ...] = ("value",)
     unit: str = "C"  # "C", "F" or "K"
     unit_path: tuple[str, ...] | None = None  # the payload names its unit here (else `unit` applies)
@@ -127,6 +128,46 @@ def _timestamp(raw, fmt: str) -> float:
     return value / 1000.0 if fmt == "epoch_ms" else value
 
 
+@dataclass(frozen=True)
+class PayloadFormat:
+    """One way a payload carries its value. read(source, payload, text) gives the raw value,
+    its unit and the reading's own time (None: the receive time), or raises Rejected."""
+
+    name: str
+    read: Callable[[Source, bytes, str], tuple[object, str, float | None]]
+    fields: bool  # the payload has named fields (value, unit and time paths apply)
+    describe: Callable[[Source], str]  # for `watcher check-config`
+
+
+def _read_number(source: Source, payload: bytes, text: str) -> tuple[object, str, None]:
+    try:
+        raw = float(text.strip())
+    except ValueError:
+        raise Rejected(f"payload {text[:40]!r} is not a number") from None
+    if not math.isfinite(raw):
+        raise Rejected("value is not finite")
+    return raw, source.unit, None
+
+
+def _read_json(source: Source, payload: bytes, text: str) -> tuple[object, str, float | None]:
+    try:
+        doc = load_json(payload)
+    except BadJson as exc:
+        raise Rejected(str(exc)) from None
+    unit = source.unit if source.unit_path is None else _unit(_dig(doc, source.unit_path, "unit"))
+    ts = None if source.time_path is None else _timestamp(_dig(doc, source.time_path, "timestamp"), source.time_format)
+    return _dig(doc, source.value_path, "value"), unit, ts
+
+
+FORMATS = {
+    f.name: f
+    for f in (
+        PayloadFormat("json", _read_json, True, lambda s: f"JSON field {'.'.join(s.value_path)}"),
+        PayloadFormat("number", _read_number, False, lambda s: "plain number"),
+    )
+}
+
+
 def parse_message(source: Source, names: dict[str, str], payload: bytes, received_ts: float, limits: Limits) -> Reading:
     """One reading from one message, or Rejected with the reason."""
     if len(payload) > limits.max_payload_bytes:
@@ -135,26 +176,8 @@ def parse_message(source: Source, names: dict[str, str], payload: bytes, receive
         text = payload.decode("utf-8")
     except UnicodeDecodeError:
         raise Rejected("payload is not UTF-8") from None
-    ts = received_ts
-    unit = source.unit
-    if source.fmt == "number":
-        try:
-            raw = float(text.strip())
-        except ValueError:
-            raise Rejected(f"payload {text[:40]!r} is not a number") from None
-        if not math.isfinite(raw):
-            raise Rejected("value is not finite")
-        value_raw = raw
-    else:
-        try:
-            doc = load_json(payload)
-        except BadJson as exc:
-            raise Rejected(str(exc)) from None
-        value_raw = _dig(doc, source.value_path, "value")
-        if source.unit_path is not None:
-            unit = _unit(_dig(doc, source.unit_path, "unit"))
-        if source.time_path is not None:
-            ts = _timestamp(_dig(doc, source.time_path, "timestamp"), source.time_format)
+    value_raw, unit, ts = FORMATS[source.fmt].read(source, payload, text)
+    ts = received_ts if ts is None else ts
     if source.signal in TEMPERATURE_SIGNALS:
         value = _to_celsius(_number(value_raw, "value"), unit)
         lo, hi = limits.temp_range_c

@@ -7,6 +7,7 @@ from __future__ import annotations
 import json
 
 from watcher.store.repo import Repo, marks
+from watcher.store.subjects import LOT_PREFIX, SERVICE_KEY
 
 Table = tuple[list[str], list[tuple]]
 
@@ -55,9 +56,9 @@ def week_tables(
         ),
         "alerts": _table(
             conn,
-            f"SELECT * FROM alerts WHERE (zone IN ({marks(len(ids) + 1)}) OR zone IN (SELECT 'lot:' || lot FROM lot_events "
+            f"SELECT * FROM alerts WHERE (zone IN ({marks(len(ids) + 1)}) OR zone IN (SELECT '{LOT_PREFIX}' || lot FROM lot_events "
             f"WHERE zone IN ({marks(len(ids))}))) AND raised_s < ? AND (cleared_s IS NULL OR cleared_s >= ?) ORDER BY raised_s",
-            (*ids, "service", *ids, e, s),
+            (*ids, SERVICE_KEY, *ids, e, s),
         ),
         "gaps": _table(
             conn,
