@@ -47,32 +47,50 @@ class ZoneSection:
 
 
 @dataclass
+class Section:
+    """One of the summary's site-wide tables: its rows are made once, in build(), and the HTML,
+    CSV and JSON renderers all read them from here. Adding a table is adding a Section."""
+
+    key: str  # CSV file stem and JSON key
+    title: str  # HTML heading
+    frame: pd.DataFrame
+    empty: str = ""  # HTML text when there are no rows ("": the table is left out)
+    note: str = ""  # shown above the table (and kept in JSON when rows_key is set)
+    level: int = 2  # 3: a part of the section before it
+    rows_key: str | None = None  # JSON: {"note": ..., rows_key: rows} instead of the rows alone
+
+
+@dataclass
 class Report:
     site: Site
     week: Week
     generated_s: float
     summary: str
     zones: list[ZoneSection]
-    alerts: pd.DataFrame
-    completeness: pd.DataFrame
-    gaps: pd.DataFrame
-    rejections: pd.DataFrame
+    sections: list[Section]
     heads: dict
     digest: str
     versions: dict
     cautions: list[str]
-    lots: pd.DataFrame = field(default_factory=pd.DataFrame)
-    lots_note: str = ""
+
+    def section(self, key: str) -> Section:
+        return next(x for x in self.sections if x.key == key)
+
+    @property
+    def alerts(self) -> pd.DataFrame:
+        return self.section("alerts").frame
+
+    @property
+    def lots(self) -> pd.DataFrame:
+        return self.section("lots").frame
+
+    @property
+    def lots_note(self) -> str:
+        return self.section("lots").note
 
     def tables(self) -> dict[str, pd.DataFrame]:
         """Every table, by file name stem (the CSV files)."""
-        out = {
-            "lots": self.lots,
-            "alerts": self.alerts,
-            "completeness": self.completeness,
-            "gaps": self.gaps,
-            "rejections": self.rejections,
-        }
+        out = {x.key: x.frame for x in self.sections}
         for z in self.zones:
             out[f"{z.zone}-temperatures"] = z.temperatures
             out[f"{z.zone}-growth"] = z.growth
@@ -192,10 +210,25 @@ def build(store: Store, cfg: Config, site: Site, week: Week, generated_s: float)
         generated_s=generated_s,
         summary=summary_text(site, week, zones, alerts, comp, gaps),
         zones=zones,
-        alerts=alerts,
-        completeness=comp,
-        gaps=gaps,
-        rejections=rejection_table(sw.rejections),
+        sections=[
+            Section("lots", "Lots", lots, note=lots_note(lots), rows_key="ranked"),
+            Section("alerts", "Alerts", alerts, "No alerts were active this week."),
+            Section(
+                "completeness",
+                "Data completeness",
+                comp,
+                "No readings this week.",
+                "Expected readings are counted at each sensor's own median interval over the whole week.",
+            ),
+            Section("gaps", "Gaps", gaps, "No data gaps recorded.", level=3),
+            Section(
+                "rejections",
+                "Rejected messages by reason",
+                rejection_table(sw.rejections),
+                "No messages were rejected.",
+                level=3,
+            ),
+        ],
         heads=heads,
         digest=chain.digest(heads),
         versions={"watcher": __version__, "model": MODEL_VERSION, "profiles": sorted({z.profile for z in zones})},
@@ -203,6 +236,4 @@ def build(store: Store, cfg: Config, site: Site, week: Week, generated_s: float)
             CAUTION,
             "Predictions are only as good as the product profile: calibrate it with your own storage trial.",
         ],
-        lots=lots,
-        lots_note=lots_note(lots),
     )

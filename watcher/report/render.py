@@ -175,6 +175,22 @@ def zone_html(z, tz: str) -> str:
     return "\n".join(parts)
 
 
+def _sections_html(r: Report) -> list[str]:
+    """The site-wide tables: a level-2 section opens a <section>, a level-3 one continues it."""
+    out: list[str] = []
+    for x in r.sections:
+        if x.level == 2:
+            out += ["</section>"] if out else []
+            out += ["<section>", f"<h2>{html.escape(x.title)}</h2>"]
+        else:
+            out.append(f"<h3>{html.escape(x.title)}</h3>")
+        if x.note:
+            out.append(f'<p class="note">{html.escape(x.note)}</p>')
+        if x.empty or not x.frame.empty:
+            out.append(table_html(x.frame, x.empty))
+    return out + ["</section>"] if out else out
+
+
 def to_html(r: Report) -> str:
     tz = r.site.timezone
     title = f"Texture watch, week {r.week.label}: {r.site.name or r.site.id}"
@@ -185,20 +201,8 @@ def to_html(r: Report) -> str:
         "<h2>At a glance</h2>",
         table_html(_glance(r)),
         *[zone_html(z, tz) for z in r.zones],
-        "<section><h2>Lots</h2>",
-        f'<p class="note">{html.escape(r.lots_note)}</p>',
-        table_html(r.lots, "") if not r.lots.empty else "",
-        "</section>",
-        "<section><h2>Alerts</h2>",
-        table_html(r.alerts, "No alerts were active this week."),
-        "</section><section><h2>Data completeness</h2>",
-        '<p class="note">Expected readings are counted at each sensor\'s own median interval over the whole week.</p>',
-        table_html(r.completeness, "No readings this week."),
-        "<h3>Gaps</h3>",
-        table_html(r.gaps, "No data gaps recorded."),
-        "<h3>Rejected messages by reason</h3>",
-        table_html(r.rejections, "No messages were rejected."),
-        "</section><section><h2>Record integrity</h2>",
+        *_sections_html(r),
+        "<section><h2>Record integrity</h2>",
         "<p>Each chain's newest row and its length (rows ever held, those retention folded included) when this "
         "summary was made. <code>watcher verify</code> recomputes the chains and checks these values: a later "
         "change to the stored record, or rows cut from it, shows.</p>",
@@ -264,11 +268,10 @@ def to_json(r: Report) -> dict:
             }
             for z in r.zones
         ],
-        "alerts": _records(r.alerts),
-        "completeness": _records(r.completeness),
-        "gaps": _records(r.gaps),
-        "rejections": _records(r.rejections),
-        "lots": {"note": r.lots_note, "ranked": _records(r.lots)},
+        **{
+            x.key: {"note": x.note, x.rows_key: _records(x.frame)} if x.rows_key else _records(x.frame)
+            for x in r.sections
+        },
         "integrity": {"heads": r.heads, "digest": r.digest},
         "versions": r.versions,
         "cautions": r.cautions,
