@@ -39,18 +39,18 @@ REASONS = {
 }
 
 
-def corpus(rng: random.Random, count: int, now_s: float) -> list[tuple[str, bytes, str]]:
+def corpus(rng: random.Random, count: int, now_ts: float) -> list[tuple[str, bytes, str]]:
     """`count` messages: about one in six good, the rest spread over the bad classes."""
     out = []
     classes = list(REASONS)
     for i in range(count):
         zone = rng.choice(ZONES)
-        ts = now_s - 2 * 86400 + i  # unique per message: good ones never collide as duplicates
+        ts = now_ts - 2 * 86400 + i  # unique per message: good ones never collide as duplicates
         if rng.random() < 1 / 6:
             out.append(_good(rng, zone, i, ts))
             continue
         kind = rng.choice(classes)
-        out.append((*_bad(rng, kind, zone, i, ts, now_s), kind))
+        out.append((*_bad(rng, kind, zone, i, ts, now_ts), kind))
     return out
 
 
@@ -65,7 +65,7 @@ def _good(rng, zone, i, ts):
     return f"kp/{zone}/fz{i % 5}/tagged", json.dumps({"v": v, "unit": unit, "ts": ts}).encode(), "good"
 
 
-def _bad(rng, kind, zone, i, ts, now_s) -> tuple[str, bytes]:
+def _bad(rng, kind, zone, i, ts, now_ts) -> tuple[str, bytes]:
     air = f"kp/{zone}/fz{i % 5}/air"
     doc = {"temp_c": -25.0, "ts": ts}
     text = json.dumps(doc)
@@ -93,9 +93,9 @@ def _bad(rng, kind, zone, i, ts, now_s) -> tuple[str, bytes]:
     if kind == "missing timestamp":
         return air, json.dumps({"temp_c": -25.0}).encode()
     if kind == "timestamp far in the past":
-        return air, json.dumps({"temp_c": -25.0, "ts": now_s - rng.randrange(401, 5000) * 86400}).encode()
+        return air, json.dumps({"temp_c": -25.0, "ts": now_ts - rng.randrange(401, 5000) * 86400}).encode()
     if kind == "timestamp in the future":
-        return air, json.dumps({"temp_c": -25.0, "ts": now_s + rng.randrange(3600, 30 * 86400)}).encode()
+        return air, json.dumps({"temp_c": -25.0, "ts": now_ts + rng.randrange(3600, 30 * 86400)}).encode()
     if kind == "unknown unit":
         unit = rng.choice(["R", "degX", "kelvins?", 123, None, ""])
         return f"kp/{zone}/fz{i % 5}/tagged", json.dumps({"v": -25.0, "unit": unit, "ts": ts}).encode()

@@ -16,9 +16,9 @@ def dairy():
     return load_profile(None)
 
 
-def run_history(spec: Spec, t_s, air_c, setpoint_c=None, probe_c=None, chunks=None):
+def run_history(spec: Spec, time_ts, air_c, setpoint_c=None, probe_c=None, chunks=None):
     """Integrate one or more zones (air_c (Z, K) or (K,)) and return (state, outputs)."""
-    t = np.asarray(t_s, dtype=float)
+    t = np.asarray(time_ts, dtype=float)
     air = np.atleast_2d(np.asarray(air_c, dtype=float))
     probe = None if probe_c is None else np.atleast_2d(np.asarray(probe_c, dtype=float))
     sp = air[:, 0] if setpoint_c is None else setpoint_c

@@ -407,7 +407,7 @@ def database_locked(folder: Path, hold_s: float, stall_limit_s: float = 600.0) -
         f"waited for the database and applied; {seen}; backup intact",
         lost,
         [recovery],
-        extra={"unhealthy_at_s": unhealthy_at},
+        extra={"unhealthy_ts": unhealthy_at},
     )
 
 

@@ -26,7 +26,7 @@ def days_to_limit_at(profile, temp_c: float, max_days: float = 20_000.0, macro_d
         hit = np.flatnonzero(b >= 1.0)
         if hit.size:
             k = hit[0]
-            t0, b0 = (prev_t, prev_b) if k == 0 else (trace.t_s[k - 1], b[k - 1])
-            return float((t0 + (1.0 - b0) / (b[k] - b0) * (trace.t_s[k] - t0)) / DAY_S)
-        prev_t, prev_b = float(trace.t_s[-1]), float(b[-1])
+            t0, b0 = (prev_t, prev_b) if k == 0 else (trace.time_ts[k - 1], b[k - 1])
+            return float((t0 + (1.0 - b0) / (b[k] - b0) * (trace.time_ts[k] - t0)) / DAY_S)
+        prev_t, prev_b = float(trace.time_ts[-1]), float(b[-1])
     return float("inf")

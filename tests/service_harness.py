@@ -274,7 +274,7 @@ def assert_state_equals_recomputation(config_path, zones=("bulk-a", "dispatch"))
             fresh = engine.recompute(zid).state
             saved = rows[zid].state
             assert fresh is not None and saved is not None
-            assert float(saved["t_s"]) == fresh.t_s
+            assert float(saved["time_ts"]) == fresh.time_ts
             np.testing.assert_allclose(saved["ub"], fresh.ub, rtol=1e-9, atol=1e-9 * np.abs(fresh.ub).max())
             np.testing.assert_allclose(saved["nc"], fresh.nc, rtol=1e-9, atol=1e-12 * fresh.nc.max())
     finally:

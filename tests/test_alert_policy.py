@@ -24,7 +24,7 @@ def test_raised_only_after_the_hold_time():
     _, short = run([AIR], [(0, {"air_c": -15}), (600, {"air_c": -15}), (1200, {"air_c": -25})])
     assert short == []
     _, long = run([AIR], [(t, {"air_c": -15}) for t in range(0, 2400, 300)])
-    assert [a.kind for a in long] == ["raise"] and long[0].at_s == 1800
+    assert [a.kind for a in long] == ["raise"] and long[0].at_ts == 1800
 
 
 def test_hysteresis_prevents_flapping_and_clear_is_notified():

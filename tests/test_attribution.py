@@ -72,7 +72,7 @@ def test_a_day_splits_into_baseline_and_causes(spec):
         Event("defrost", DAY + 6 * 3600, DAY + 6 * 3600 + 1800, source="signal"),
         Event("door", DAY + 12 * 3600, DAY + 12 * 3600 + 600, source="signal"),
     ]
-    t, air = history([(e.start_s, e.end_s, 8.0) for e in day_events], days=3.0)
+    t, air = history([(e.start_ts, e.end_ts, 8.0) for e in day_events], days=3.0)
     start = new_state(spec, 0.0, -25.0, -25.0)
     g = day_growth(spec, start, t, air, -25.0, DAY, 2 * DAY, day_events)
     assert g.baseline_um > 0

@@ -25,7 +25,7 @@ def synthetic_trial(profile, temps_c, days):
     for temp in temps_c:
         state = new_state(spec, 0.0, temp, temp, temp)
         for d in days:
-            t = np.arange(state.t_s + 3600.0, d * 86400.0 + 1, 3600.0)
+            t = np.arange(state.time_ts + 3600.0, d * 86400.0 + 1, 3600.0)
             state, _ = advance(spec, state, t, np.full((1, t.size), temp), np.full((1, t.size), temp))
             rows.append((d, temp, float(outputs(spec, state)["mean_diameter_um"][0, 0])))
     d, t, m = map(np.array, zip(*rows))

@@ -26,14 +26,14 @@ def test_outbox_retries_until_the_receiver_answers(tmp_path, receiver):
     )
     receiver.mode = "fail"
     assert deliver_due(store, notifier, 1000.0) == {"sent": 0, "retried": 1, "failed": 0}
-    row = store.conn.execute("SELECT status, attempts, next_try_s, last_result, last_log FROM outbox").fetchone()
+    row = store.conn.execute("SELECT status, attempts, next_try_ts, last_result, last_log FROM outbox").fetchone()
     assert row[:4] == ("pending", 1, 1030.0, "failure") and "500" in row[4]
     assert deliver_due(store, notifier, 1010.0) == {"sent": 0, "retried": 0, "failed": 0}  # not due yet
     receiver.mode = "ok"
     assert deliver_due(store, notifier, 1031.0) == {"sent": 1, "retried": 0, "failed": 0}
     assert receiver.bodies[0]["title"] == "Bulk store A: texture budget 80 %"
     assert "81 %" in receiver.bodies[0]["message"]
-    assert store.conn.execute("SELECT status, sent_s FROM outbox").fetchone() == ("sent", 1031.0)
+    assert store.conn.execute("SELECT status, sent_ts FROM outbox").fetchone() == ("sent", 1031.0)
 
 
 def test_a_hanging_receiver_times_out(tmp_path, receiver):

@@ -53,7 +53,7 @@ def state_of(engine, zone="bulk-a"):
 def same_state(a, b):
     """Equal to 1e-9 relative (the service's contract): splitting the same readings into other
     chunks only changes the order of floating-point sums."""
-    assert a.t_s == b.t_s
+    assert a.time_ts == b.time_ts
     np.testing.assert_allclose(a.ub, b.ub, rtol=1e-9, atol=1e-9 * np.abs(b.ub).max())
     # Weights to 1e-9 of the row's largest, like the boundaries: the lowest live cell's weight
     # is its share above u = 0, and a boundary that low (d ~ 5 um) carries ~2e-9 relative
@@ -158,7 +158,7 @@ def test_failed_commit_stores_nothing_and_memory_follows_the_record(tmp_path):
     with pytest.raises(Exception, match="disk full"):
         eng.process(batch, NOW)
     assert store.record.count("readings") == 500
-    assert state_of(eng).t_s == T0 + 60 * 499
+    assert state_of(eng).time_ts == T0 + 60 * 499
     store.conn.execute("DROP TRIGGER full")
     eng.process(batch, NOW)
     (tmp_path / "d").mkdir()

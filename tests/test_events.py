@@ -52,15 +52,15 @@ def synthetic(days=7, step=60.0, noise=0.3, defrosts_per_day=4, door_rate_per_h=
 
 
 def score(found, truth, days):
-    hits = sum(any(f.start_s <= b and f.end_s >= a for f in found) for a, b in truth)
-    false = sum(not any(f.start_s <= b and f.end_s >= a for a, b in truth) for f in found)
+    hits = sum(any(f.start_ts <= b and f.end_ts >= a for f in found) for a, b in truth)
+    false = sum(not any(f.start_ts <= b and f.end_ts >= a for a, b in truth) for f in found)
     return hits / len(truth), false / days
 
 
 def test_door_openings_come_from_contact_signals():
     """Each open->closed pair is one opening; a door still open at the end is open-ended."""
     ev = state_intervals(np.array([0, 60, 120, 180, 240, 300]), np.array([0, 1, 1, 0, 1, 1]), "door")
-    assert [(e.start_s, e.end_s) for e in ev] == [(60.0, 180.0), (240.0, None)]
+    assert [(e.start_ts, e.end_ts) for e in ev] == [(60.0, 180.0), (240.0, None)]
     assert ev[0].duration_s == 120.0
 
 
@@ -85,7 +85,7 @@ def test_inferred_defrosts_rates(label, noise, use_door_signal, max_false_per_da
         results.append(score(found, truth, days))
         # The fault is never explained away as a defrost: it is still reported as an excursion.
         faults = excursions(t, air, -25.0, door_events + found)
-        assert any(e.start_s <= fault[1] and (e.end_s is None or e.end_s >= fault[0]) for e in faults)
+        assert any(e.start_ts <= fault[1] and (e.end_ts is None or e.end_ts >= fault[0]) for e in faults)
     detection, false_per_day = np.mean(results, axis=0)
     record_rate(f"defrost inference, 10 weeks, {label}", detection, false_per_day)
     assert detection >= 0.95
@@ -108,15 +108,15 @@ def test_excursion_is_the_unexplained_warm_period():
     found = excursions(t, air, -25.0, door_events + defrosts)
     assert len(found) == 1
     # The fault warms the air by 3 K an hour, so it crosses setpoint + 3 K about an hour in.
-    assert fault[0] + 1800 <= found[0].start_s <= fault[0] + 5400
-    assert found[0].end_s >= fault[1] - 600
+    assert fault[0] + 1800 <= found[0].start_ts <= fault[0] + 5400
+    assert found[0].end_ts >= fault[1] - 600
     assert found[0].peak_c > -18.0
 
 
 def test_signal_defrosts_need_no_inference():
     """Defrost-state signals become defrost events directly."""
     ev = state_intervals(np.array([0.0, 600.0, 2400.0, 3000.0]), np.array([0, 1, 0, 0]), "defrost")
-    assert [(e.kind, e.start_s, e.end_s) for e in ev] == [("defrost", 600.0, 2400.0)]
+    assert [(e.kind, e.start_ts, e.end_ts) for e in ev] == [("defrost", 600.0, 2400.0)]
 
 
 def test_shape_bounds_are_respected():

@@ -248,7 +248,7 @@ def test_sensor_clock_ahead_or_behind(tmp_path):
     engine.process([_air(102, NOW - 1800 + 30, NOW, "behind-30min")], now=NOW)  # late
     engine.checkpoint_all(NOW)
     fresh, saved = engine.recompute("bulk-a").state, store.zones.rows()["bulk-a"].state
-    assert float(saved["t_s"]) == fresh.t_s and abs(saved["ub"] - fresh.ub).max() <= 1e-9 * abs(fresh.ub).max()
+    assert float(saved["time_ts"]) == fresh.time_ts and abs(saved["ub"] - fresh.ub).max() <= 1e-9 * abs(fresh.ub).max()
 
 
 def test_service_clock_jumps(tmp_path):

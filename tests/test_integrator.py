@@ -99,14 +99,14 @@ def test_cycling_never_grows_less_than_constant_at_the_mean(dairy, mean_c, amp_k
     assert out["mean_diameter_um"][0, 0] > out["mean_diameter_um"][1, 0]
 
 
-def protocol_buyck(t_s):
+def protocol_buyck(time_ts):
     """Square wave -23.3 <-> -12.2 C, switching every 24 h (Buyck et al. 2011) [published protocol]."""
-    return np.where(((t_s // DAY) % 2) == 0, -23.3, -12.2)
+    return np.where(((time_ts // DAY) % 2) == 0, -23.3, -12.2)
 
 
-def protocol_regand(t_s):
+def protocol_regand(time_ts):
     """48 h cycle: -20 C 12 h, ramp to -10 C over 12 h, hold 12 h, ramp back 12 h (Regand & Goff 2006) [published, as quoted]."""
-    h = (t_s / 3600.0) % 48.0
+    h = (time_ts / 3600.0) % 48.0
     return np.select([h < 12, h < 24, h < 36], [-20.0, -20.0 + (h - 12) * 10 / 12, -10.0], -10.0 - (h - 36) * 10 / 12)
 
 
@@ -144,7 +144,7 @@ def test_thaw_is_reported_plainly(dairy):
     state, out = run_history(spec, t, air, setpoint_c=-25.0)
     assert out["thawed"][0, 0]
     assert np.isnan(out["mean_diameter_um"][0, 0]) and np.isnan(out["budget_used_pct"][0, 0])
-    assert not np.isnan(state.thawed_at_s[0, 0])
+    assert not np.isnan(state.thawed_ts[0, 0])
     # Refreezing does not bring the crystals back: the position stays thawed.
     t2 = t[-1] + np.arange(300.0, DAY, 300.0)
     state2, _ = advance(spec, state, t2, np.full((1, t2.size), -25.0))
@@ -189,7 +189,7 @@ def test_days_to_limit_is_conservative_and_exact_on_the_asymptote(dairy):
         # Hold -15 C and find the day the settled mean first reaches the 50 um limit.
         day = 0.0
         while out["mean_diameter_um"][0, 0] < 50.0:
-            t2 = state.t_s + np.arange(3600.0, DAY + 1, 3600.0)
+            t2 = state.time_ts + np.arange(3600.0, DAY + 1, 3600.0)
             state, _ = advance(spec, state, t2, np.full((1, t2.size), -15.0))
             out = outputs(spec, state)
             day += 1
@@ -219,7 +219,7 @@ def test_trace_records_every_completed_hour(dairy):
     t = t0 + np.arange(60.0, DAY + 1, 60.0)
     air = np.where((t - t0) % 21600 < 1800, -19.0, -25.0)
     state, trace = advance(spec, state, t, air[None, :], trace=True)
-    assert trace.t_s.size == 24 and np.all(np.diff(trace.t_s) == 3600.0) and trace.t_s[0] == t0 + 3600
+    assert trace.time_ts.size == 24 and np.all(np.diff(trace.time_ts) == 3600.0) and trace.time_ts[0] == t0 + 3600
     assert trace.mean_diameter_um.shape == (24, 1, 3) and trace.product_c.shape == (24, 1, 2)
     np.testing.assert_array_equal(trace.budget_fraction[-1], state.peak_budget)
     assert np.all(np.diff(trace.budget_fraction[:, 0, 0]) >= 0)

@@ -16,7 +16,7 @@ from watcher.store import chain
 def an_alert(store, **fields) -> int:
     """An alerts row that agrees with the log rows a test writes for it (verify cross-checks them)."""
     row = dict(zone="bulk-a", rule="air-warm", severity="warning", label="Air warm", metric="air_c", threshold=-18.0)
-    return store.alerts.add(**row, **{"status": "open", "raised_s": 1.0, **fields})
+    return store.alerts.add(**row, **{"status": "open", "raised_ts": 1.0, **fields})
 
 
 def verify_cli(db) -> subprocess.CompletedProcess:
@@ -51,7 +51,7 @@ def test_negative_zero_is_hashed_as_sqlite_stores_it(tmp_path):
     SQLite stores it as 0.0, and the chain hashes what is stored (this broke the demo's record)."""
     _, store, _ = make(tmp_path, reorder=0.0)
     with store.atomic():
-        an_alert(store, status="cleared", cleared_s=5.0, acked_s=7.0, acked_by="qa")
+        an_alert(store, status="cleared", cleared_ts=5.0, acked_ts=7.0, acked_by="qa")
         store.alerts.log_add(1, "raise", 1.0, 2.0, 3.5)
         store.alerts.log_add(1, "clear", 5.0, 6.0, -0.0)
         store.alerts.log_add(1, "ack", 7.0, 8.0, None, "qa", "note")
@@ -115,7 +115,7 @@ def test_retention_keeps_the_chain_verifiable(tmp_path):
     engine.process([msg("bulk-a", 10, value=-21.0, sensor="s2")], now=NOW)  # an old reading inserted late
     with store.atomic():
         assert store.readings.fold("bulk-a", 1_795_000_000.0 + 60 * 120, NOW + 400 * 86400) > 0
-    findings, counts = chain.verify(store.conn, now_s=NOW + 400 * 86400)
+    findings, counts = chain.verify(store.conn, now_ts=NOW + 400 * 86400)
     assert findings == [] and counts["readings/bulk-a"] == 300 - 121
 
 
@@ -158,7 +158,7 @@ def _report_then_truncate(db) -> None:
     chain.register(db)
     heads = chain.heads(db)
     db.execute(
-        "INSERT INTO reports (site, week, generated_s, heads, digest, files) VALUES ('kp', '2026-W47', ?, ?, ?, '[]')",
+        "INSERT INTO reports (site, week, generated_ts, heads, digest, files) VALUES ('kp', '2026-W47', ?, ?, ?, '[]')",
         (NOW, json.dumps(heads), chain.digest(heads)),
     )
     db.execute(
@@ -206,7 +206,7 @@ def _report_then_truncate(db) -> None:
             "no raise step",
         ),
         (
-            lambda db: db.execute("UPDATE alerts SET status = 'cleared', cleared_s = 9"),
+            lambda db: db.execute("UPDATE alerts SET status = 'cleared', cleared_ts = 9"),
             "MISSING alerts row 1",
             "cleared without",
         ),

@@ -49,14 +49,14 @@ def test_default_profile_cautious_end_still_holds_a_year_at_minus_25(dairy):
     assert out["budget_used_pct_low"][0, 0] < out["budget_used_pct"][0, 0] < out["budget_used_pct_high"][0, 0]
 
 
-def _buyck(t_s):
+def _buyck(time_ts):
     """Square wave -23.3 <-> -12.2 C, switching every 24 h [published protocol: Buyck et al. 2011]."""
-    return np.where(((t_s // DAY_S) % 2) == 0, -23.3, -12.2)
+    return np.where(((time_ts // DAY_S) % 2) == 0, -23.3, -12.2)
 
 
-def _regand(t_s):
+def _regand(time_ts):
     """48 h: -20 C 12 h, ramp to -10 C over 12 h, hold 12 h, ramp back [published, as quoted: Regand & Goff 2006]."""
-    h = (t_s / 3600.0) % 48.0
+    h = (time_ts / 3600.0) % 48.0
     return np.select([h < 12, h < 24, h < 36], [-20.0, -20.0 + (h - 12) * 10 / 12, -10.0], -10.0 - (h - 36) * 10 / 12)
 
 

@@ -130,7 +130,7 @@ def test_declared_starting_states():
     lot = start_state(spec, T0, -20.0, -25.0, history)
     zone = new_state(spec, T0 - 10 * DAY, -20.0, -25.0)
     zone, _ = advance(spec, zone, np.append(t[t < T0], T0), np.full((1, int((t < T0).sum()) + 1), -20.0))
-    assert lot.t_s == T0
+    assert lot.time_ts == T0
     np.testing.assert_allclose(lot.ub, zone.ub, rtol=1e-12)
     assert lot_figures(spec, lot)["budget_used_pct"] > 5.0  # ten days at -20 C used a visible share
 
@@ -182,24 +182,26 @@ def test_each_lot_keeps_its_own_population_and_the_physics_holds(site):
     assert used["product_c"] == pytest.approx(fa["product_c"], abs=1e-9)
     # Colder storage never costs more: -25 C for six days against -18 C for two (then gone).
     assert fd["budget_used_pct"] > fa["budget_used_pct"]
-    assert fd["t_s"] == T0 + 3 * DAY  # stopped at its departure
+    assert fd["time_ts"] == T0 + 3 * DAY  # stopped at its departure
     # Two days cold, four warm: between the lot kept cold all along and a warm one (by time).
     assert fa["budget_used_pct"] < mover["budget_used_pct"]
-    assert mover["t_s"] == fa["t_s"] and T0 + 6 * DAY - 120 <= fa["t_s"] <= T0 + 6 * DAY  # to the last whole bin
+    assert (
+        mover["time_ts"] == fa["time_ts"] and T0 + 6 * DAY - 120 <= fa["time_ts"] <= T0 + 6 * DAY
+    )  # to the last whole bin
 
 
 def test_lot_state_equals_a_one_pass_recomputation(site):
     """Each lot's live state equals a one-pass recomputation from its events and the stored readings."""
     cfg, store, _ = site
     for lot in ("FRESH-A", "FRESH-D", "USED-A", "MOVER"):
-        t_s = figures(store, lot)["t_s"]
-        fresh = recompute_lot(cfg, store, lot, t_s)
+        time_ts = figures(store, lot)["time_ts"]
+        fresh = recompute_lot(cfg, store, lot, time_ts)
         saved = store.lots.state_get(lot)
         from watcher.model.integrator import State
         from watcher.store.zones import unpack_state
 
         state = State.from_arrays(unpack_state(saved[1]))
-        assert state.t_s == fresh.t_s
+        assert state.time_ts == fresh.time_ts
         np.testing.assert_allclose(state.ub, fresh.ub, rtol=1e-9)
         np.testing.assert_allclose(state.nc, fresh.nc, rtol=1e-9, atol=1e-12 * fresh.nc.max())
 
@@ -248,7 +250,9 @@ def test_a_late_event_sends_the_lot_back_to_its_arrival(tmp_path):
     with store.atomic():
         keeper.bring_up("L-9", T0 + DAY, engine._fed_of, NOW)
     after = figures(store, "L-9")
-    assert after["t_s"] == before["t_s"] and after["budget_used_pct"] < before["budget_used_pct"]  # colder since 1 h
+    assert (
+        after["time_ts"] == before["time_ts"] and after["budget_used_pct"] < before["budget_used_pct"]
+    )  # colder since 1 h
 
 
 # --- the commands --------------------------------------------------------------------------------------
@@ -363,8 +367,8 @@ def test_lot_state_survives_sigkill_like_zone_state(tmp_path, broker):
             saved = store.lots.state_get(lot)
             assert saved is not None, lot
             state = State.from_arrays(unpack_state(saved[1]))
-            fresh = recompute_lot(cfg, store, lot, state.t_s)
-            assert state.t_s == fresh.t_s
+            fresh = recompute_lot(cfg, store, lot, state.time_ts)
+            assert state.time_ts == fresh.time_ts
             np.testing.assert_allclose(state.ub, fresh.ub, rtol=1e-9)
             np.testing.assert_allclose(state.nc, fresh.nc, rtol=1e-9, atol=1e-12 * fresh.nc.max())
         assert store.lots.state_get("K-2")[0] == T0 + 7 * 240 * 60 + 10  # stopped at its departure

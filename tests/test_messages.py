@@ -10,8 +10,8 @@ ALERT = {
     "metric": "door_open_s",
     "threshold": 600.0,
     "value": 840.0,
-    "since_s": 1_795_000_000.0,
-    "raised_s": 1_795_000_600.0,
+    "since_ts": 1_795_000_000.0,
+    "raised_ts": 1_795_000_600.0,
     "op": ">=",
 }
 FIGURES = {"budget_used_pct": 41.3, "worst_position": "surface", "mean_diameter_um": 42.2, "days_to_limit": 61.0}
@@ -71,7 +71,7 @@ def test_clear_and_ack_notices_are_short():
     """Clear and acknowledgement notices are short and say who and when."""
     clear = messages.body(
         "clear",
-        {**ALERT, "value": 0.0, "cleared_s": 1_795_001_500.0},
+        {**ALERT, "value": 0.0, "cleared_ts": 1_795_001_500.0},
         "Kestrel Point - Dispatch",
         "UTC",
         None,
@@ -81,7 +81,7 @@ def test_clear_and_ack_notices_are_short():
     assert "Cleared at 2026-11-18 11:31: door open now 0 s." in clear and "watcher ack" not in clear
     ack = messages.body(
         "ack",
-        {**ALERT, "acked_s": 1_795_000_700.0},
+        {**ALERT, "acked_ts": 1_795_000_700.0},
         "Kestrel Point",
         "UTC",
         None,

@@ -107,7 +107,7 @@ def test_events_are_found_once_with_costs(four_days):
     assert len(excursion) == 1 and abs(excursion[0][1] - EXCURSION[0]) <= 120
     detail = json.loads(excursion[0][3])
     assert detail["cost"] == "final" and detail["source"] == "inferred"
-    first_snapshot = rows(store, "SELECT min(t_s) FROM zone_snapshots")[0][0]
+    first_snapshot = rows(store, "SELECT min(time_ts) FROM zone_snapshots")[0][0]
     costs = [json.loads(e[3]).get("budget_share_pct") for e in defrosts if e[1] >= first_snapshot]
     assert all(c is not None for c in costs)  # each event after the first snapshot has a cost
     assert detail["budget_share_pct"] > 5 * max(costs)
@@ -196,7 +196,7 @@ def test_two_sensors_that_disagree(tmp_path):
         engine.process([msg(k, -25.0, "s1"), msg(k, -21.0, "s2")], now=NOW)
     (alert,) = store.alerts.list()
     assert alert["rule"] == "sensors-disagree" and alert["value"] == pytest.approx(4.0)
-    assert alert["raised_s"] - alert["since_s"] >= 900.0
+    assert alert["raised_ts"] - alert["since_ts"] >= 900.0
 
 
 def test_failing_channel_raises_undelivered_through_the_others(tmp_path):
@@ -259,7 +259,7 @@ def test_an_open_door_survives_a_restart(tmp_path):
     assert store.record.count("alerts") == 0
     play(restarted, 15, 16, hour_batches=False)
     (alert,) = store.alerts.list()
-    assert alert["rule"] == "door-open" and alert["since_s"] == T0 + 300
+    assert alert["rule"] == "door-open" and alert["since_ts"] == T0 + 300
 
 
 def test_the_same_readings_give_the_same_events_however_they_are_batched(tmp_path):

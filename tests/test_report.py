@@ -45,7 +45,7 @@ def test_door_and_defrost_figures_match_the_events_table(w47):
     rows = db.execute(
         "SELECT kind, start_ts, coalesce(end_ts, ?) FROM events WHERE zone = 'bulk-a' AND start_ts < ? AND "
         "(end_ts IS NULL OR end_ts > ?)",
-        (week.end_s, week.end_s, week.start_s),
+        (week.end_ts, week.end_ts, week.start_ts),
     ).fetchall()
     doors = [(e - s) for k, s, e in rows if k == "door"]
     defrosts = [(e - s) for k, s, e in rows if k == "defrost"]
@@ -69,14 +69,14 @@ def test_temperature_figures_match_the_readings(w47):
     rows = np.array(
         db.execute(
             "SELECT ts, value FROM readings WHERE zone = 'bulk-a' AND signal = 'air_c' AND ts >= ? AND ts < ? ORDER BY ts",
-            (week.start_s, week.end_s),
+            (week.start_ts, week.end_ts),
         ).fetchall()
     )
     air = next(r for r in zone(data, "bulk-a")["temperatures"] if r["series"] == "air")
     assert air["samples"] == len(rows)
     assert (air["min_c"], air["max_c"]) == (rows[:, 1].min(), rows[:, 1].max())
     assert air["mean_c"] == pytest.approx(rows[:, 1].mean())
-    held = np.diff(np.append(rows[:, 0], week.end_s))
+    held = np.diff(np.append(rows[:, 0], week.end_ts))
     key = next(k for k in air if k.startswith("hours above -18 C"))
     assert air[key] == pytest.approx(held[rows[:, 1] > -18.0].sum() / 3600.0)
     assert air[key] == pytest.approx(3.0, abs=0.05)  # the 3-hour fault at -16 C; defrosts peak at -18.0
@@ -103,23 +103,24 @@ def test_growth_completeness_gaps_alerts_match_their_tables(w47):
     comp = {(r["zone"], r["sensor"], r["signal"]): r for r in data["completeness"]}
     for zid, sensor, signal, n in db.execute(
         "SELECT zone, sensor, signal, count(*) FROM readings WHERE ts >= ? AND ts < ? GROUP BY zone, sensor, signal",
-        (week.start_s, week.end_s),
+        (week.start_ts, week.end_ts),
     ):
         assert comp[(zid, sensor, signal)]["received"] == n
     assert comp[("bulk-a", "s1", "air_c")]["expected"] == 7 * 1440
     assert comp[("bulk-a", "s1", "air_c")]["received"] == 7 * 1440 - 120  # the 2-hour outage
     assert comp[("bulk-a", "dock", "door")]["expected"] is None  # reports on change only
     gaps = db.execute(
-        "SELECT zone, start_ts, end_ts FROM gaps WHERE start_ts < ? AND end_ts > ?", (week.end_s, week.start_s)
+        "SELECT zone, start_ts, end_ts FROM gaps WHERE start_ts < ? AND end_ts > ?", (week.end_ts, week.start_ts)
     ).fetchall()
     assert [(g["zone"], g["start_ts"], g["end_ts"]) for g in data["gaps"]] == gaps
     assert gaps[0][0] == "bulk-a" and gaps[0][2] - gaps[0][1] == pytest.approx(121 * 60)
     alerts = db.execute(
-        "SELECT id FROM alerts WHERE raised_s < ? AND (cleared_s IS NULL OR cleared_s >= ?)", (week.end_s, week.start_s)
+        "SELECT id FROM alerts WHERE raised_ts < ? AND (cleared_ts IS NULL OR cleared_ts >= ?)",
+        (week.end_ts, week.start_ts),
     ).fetchall()
     assert sorted(a["id"] for a in data["alerts"]) == sorted(a for (a,) in alerts)
     n_rej = db.execute(
-        "SELECT count(*) FROM rejections WHERE received_ts >= ? AND received_ts < ?", (week.start_s, week.end_s)
+        "SELECT count(*) FROM rejections WHERE received_ts >= ? AND received_ts < ?", (week.start_ts, week.end_ts)
     ).fetchone()[0]
     assert sum(r["messages"] for r in data["rejections"]) == n_rej
 
@@ -217,7 +218,7 @@ def test_daylight_saving_week(tmp_path):
     of 25 hours, and door openings counted by local hour."""
     cfg, store = play_site(tmp_path, ts(2026, 10, 17), 11.0, (0.0, 0.0), (0.0, 0.0))
     week = week_of("2026-W43", "Europe/London")
-    assert week.end_s - week.start_s == 169 * 3600
+    assert week.end_ts - week.start_ts == 169 * 3600
     days = week.days()
     assert [d for d, _, _ in days][-1] == "2026-10-25" and days[-1][2] - days[-1][1] == 25 * 3600
     paths = produce(store, cfg, cfg.sites[0], week, ts(2026, 10, 28), str(tmp_path / "out"), ("json",), False, False)
@@ -230,7 +231,7 @@ def test_daylight_saving_week(tmp_path):
     local_hours = db.execute(
         "SELECT CAST(strftime('%H', start_ts, 'unixepoch') AS INTEGER) + CASE WHEN start_ts < ? THEN 1 ELSE 0 END "
         "FROM events WHERE zone = 'bulk-a' AND kind = 'door' AND start_ts >= ? AND start_ts < ?",
-        (ts(2026, 10, 25, 1), week.start_s, week.end_s),
+        (ts(2026, 10, 25, 1), week.start_ts, week.end_ts),
     ).fetchall()
     by_hour = {h["hour"]: h["openings"] for h in zone(data, "bulk-a")["doors_by_hour"]}
     for hour in range(24):
@@ -238,7 +239,7 @@ def test_daylight_saving_week(tmp_path):
     # The daily figure covers the long day. (Its baseline is not compared with the day before:
     # the population's daily increments jitter by 10-20 %, see docs/events.md.)
     (span,) = db.execute(
-        "SELECT end_s - start_s FROM daily_growth WHERE zone = 'dispatch' AND day = '2026-10-25'"
+        "SELECT end_ts - start_ts FROM daily_growth WHERE zone = 'dispatch' AND day = '2026-10-25'"
     ).fetchone()
     assert span == 25 * 3600
     assert "2026-10-25" in {r["day"] for r in zone(data, "dispatch")["growth"]}

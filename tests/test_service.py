@@ -70,7 +70,7 @@ def test_end_to_end_status_matches_simulate(tmp_path, broker):
     assert report["rejections_total"] == 2
     for i, z in enumerate(report["zones"]):
         assert z["readings_total"] == n + (2 if z["id"] == "bulk-a" else 0)
-        fed = [k for k in range(n) if T0 + 60 * k <= z["model_time_s"]]
+        fed = [k for k in range(n) if T0 + 60 * k <= z["model_time_ts"]]
         assert len(fed) == n - 1  # the newest minute still waits in the 60-s reorder window
         ts = np.array([T0 + 60 * k for k in fed])
         air = np.array([air_value(i, k) for k in fed])

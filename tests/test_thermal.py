@@ -10,15 +10,15 @@ from watcher.model.integrator import Position, Spec
 from watcher.model.thermal import lag_series, lag_step
 
 
-def analytic_pulse(t_s, base_c, rise_k, start_s, length_s, tau_s):
+def analytic_pulse(time_ts, base_c, rise_k, start_ts, length_s, tau_s):
     """First-order response to a rectangular air pulse [derived: solution of dT/dt = (A - T)/tau]."""
-    t = np.asarray(t_s, dtype=float)
+    t = np.asarray(time_ts, dtype=float)
     out = np.full(t.shape, base_c)
-    on = (t > start_s) & (t <= start_s + length_s)
-    out[on] = base_c + rise_k * (1 - np.exp(-(t[on] - start_s) / tau_s))
+    on = (t > start_ts) & (t <= start_ts + length_s)
+    out[on] = base_c + rise_k * (1 - np.exp(-(t[on] - start_ts) / tau_s))
     peak = rise_k * (1 - math.exp(-length_s / tau_s))
-    off = t > start_s + length_s
-    out[off] = base_c + peak * np.exp(-(t[off] - start_s - length_s) / tau_s)
+    off = t > start_ts + length_s
+    out[off] = base_c + peak * np.exp(-(t[off] - start_ts - length_s) / tau_s)
     return out
 
 

@@ -25,40 +25,40 @@ class DemoZone:
     name: str
     setpoint_c: float
     regime: str
-    t_s: np.ndarray
+    time_ts: np.ndarray
     air_c: np.ndarray
     doors: list[tuple[float, float]]  # door-contact intervals (open, closed)
     defrosts: list[tuple[float, float]]  # defrost-signal intervals (on, off); empty: no signal
 
 
-def _defrosts(t_s, start_s, per_day: int, minutes: float, rise_k: float, offset_h: float = 0.0):
+def _defrosts(time_ts, start_ts, per_day: int, minutes: float, rise_k: float, offset_h: float = 0.0):
     """Air rise during defrost (a ramp up over the defrost, recovery over as long again) and
     the defrost intervals."""
     period = 86400.0 / per_day
-    phase = (t_s - start_s - offset_h * 3600.0) % period
+    phase = (time_ts - start_ts - offset_h * 3600.0) % period
     dur = minutes * 60.0
     up = np.clip(phase / dur, 0.0, 1.0) * (phase < dur)
     down = np.clip(1.0 - (phase - dur) / dur, 0.0, 1.0) * ((phase >= dur) & (phase < 2 * dur))
-    starts = t_s[(phase < t_s[1] - t_s[0])] if t_s.size > 1 else t_s[:0]
-    intervals = [(float(s), float(s + dur)) for s in starts if s + dur <= t_s[-1]]  # none ends in the future
+    starts = time_ts[(phase < time_ts[1] - time_ts[0])] if time_ts.size > 1 else time_ts[:0]
+    intervals = [(float(s), float(s + dur)) for s in starts if s + dur <= time_ts[-1]]  # none ends in the future
     return rise_k * (up + down), intervals
 
 
-def build(start_s: float, days: float, step_s: float = 60.0, seed: int = 7) -> list[DemoZone]:
+def build(start_ts: float, days: float, step_s: float = 60.0, seed: int = 7) -> list[DemoZone]:
     rng = np.random.default_rng(seed)
-    t = start_s + np.arange(0.0, days * 86400.0, step_s)
-    hour = ((t - start_s) / 3600.0) % 24.0
-    day = (t - start_s) / 86400.0
+    t = start_ts + np.arange(0.0, days * 86400.0, step_s)
+    hour = ((t - start_ts) / 3600.0) % 24.0
+    day = (t - start_ts) / 86400.0
 
     def noisy(x):
         return np.round(x + rng.normal(0.0, 0.15, x.size), 2)
 
-    h_rise, _ = _defrosts(t, start_s, 1, 20, 3.0, offset_h=2.0)
-    b_rise, b_defrosts = _defrosts(t, start_s, 4, 30, 6.0)
-    d_rise, d_defrosts = _defrosts(t, start_s, 3, 25, 5.0, offset_h=1.0)
+    h_rise, _ = _defrosts(t, start_ts, 1, 20, 3.0, offset_h=2.0)
+    b_rise, b_defrosts = _defrosts(t, start_ts, 4, 30, 6.0)
+    d_rise, d_defrosts = _defrosts(t, start_ts, 3, 25, 5.0, offset_h=1.0)
     # Door openings in the working day (06-18 h, six days a week), about three an hour: open
     # 1-4 minutes; the air jumps and decays in about 5 minutes.
-    working = (hour >= 6) & (hour < 18) & (((t - start_s) // 86400) % 7 < 6)
+    working = (hour >= 6) & (hour < 18) & (((t - start_ts) // 86400) % 7 < 6)
     opens = np.flatnonzero(working & (rng.random(t.size) < step_s / 1200.0))
     doors, jump = [], np.zeros(t.size)
     for i in opens:
@@ -101,7 +101,7 @@ def messages(zones: list[DemoZone]) -> list[tuple[float, str, bytes]]:
     for z in zones:
         out += [
             (float(ts), f"kestrel/{z.zone_id}/air-1/air", json.dumps({"temp": float(v), "ts": float(ts)}).encode())
-            for ts, v in zip(z.t_s, z.air_c)
+            for ts, v in zip(z.time_ts, z.air_c)
         ]
         for a, b in z.doors:
             out.append((a, f"kestrel/{z.zone_id}/dock/door", json.dumps({"state": "open", "ts": a}).encode()))
@@ -109,23 +109,23 @@ def messages(zones: list[DemoZone]) -> list[tuple[float, str, bytes]]:
         for a, b in z.defrosts:
             out.append((a, f"kestrel/{z.zone_id}/evaporator/defrost", json.dumps({"state": "on", "ts": a}).encode()))
             out.append((b, f"kestrel/{z.zone_id}/evaporator/defrost", json.dumps({"state": "off", "ts": b}).encode()))
-    out += lot_messages(zones[0].t_s[0], zones[0].t_s[-1])
+    out += lot_messages(zones[0].time_ts[0], zones[0].time_ts[-1])
     out.sort(key=lambda m: m[0])
     return out
 
 
-def lot_messages(start_s: float, end_s: float) -> list[tuple[float, str, bytes]]:
+def lot_messages(start_ts: float, end_ts: float) -> list[tuple[float, str, bytes]]:
     """Invented lots of the demo site, as a warehouse system would publish them: put away in
     the bulk store from hardening, one bought in half-used, one moved to dispatch, one shipped."""
     day = 86400.0
     events = [
-        (start_s + 0.1 * day, {"event": "arrive", "lot": "KP-0417", "zone": "bulk-a"}),
+        (start_ts + 0.1 * day, {"event": "arrive", "lot": "KP-0417", "zone": "bulk-a"}),
         (
-            start_s + 0.2 * day,
+            start_ts + 0.2 * day,
             {"event": "arrive", "lot": "KP-0418", "zone": "bulk-a", "initial": {"budget_used_pct": 20}},
         ),
         (
-            start_s + 0.3 * day,
+            start_ts + 0.3 * day,
             {
                 "event": "arrive",
                 "lot": "EXT-77",
@@ -134,10 +134,10 @@ def lot_messages(start_s: float, end_s: float) -> list[tuple[float, str, bytes]]
                 "note": "bought in",
             },
         ),  # fmt: skip
-        (start_s + 1.0 * day, {"event": "arrive", "lot": "KP-0421", "zone": "hardening"}),
-        (start_s + 2.0 * day, {"event": "move", "lot": "KP-0421", "zone": "bulk-a"}),
-        (end_s - 4.0 * day, {"event": "move", "lot": "KP-0418", "zone": "dispatch"}),
-        (end_s - 1.0 * day, {"event": "depart", "lot": "KP-0418"}),
+        (start_ts + 1.0 * day, {"event": "arrive", "lot": "KP-0421", "zone": "hardening"}),
+        (start_ts + 2.0 * day, {"event": "move", "lot": "KP-0421", "zone": "bulk-a"}),
+        (end_ts - 4.0 * day, {"event": "move", "lot": "KP-0418", "zone": "dispatch"}),
+        (end_ts - 1.0 * day, {"event": "depart", "lot": "KP-0418"}),
     ]
     return [(ts, "watcher/lots", json.dumps({**doc, "time": ts}).encode()) for ts, doc in events]
 

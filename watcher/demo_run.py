@@ -58,8 +58,8 @@ class AlertPrinter:
                 store.close()
         except (StoreError, sqlite3.Error):
             return 0
-        for row_id, step, at_s, zone, severity, label in rows:
-            when = dt.datetime.fromtimestamp(at_s, dt.UTC).astimezone(__import__("zoneinfo").ZoneInfo(self.tz))
+        for row_id, step, at_ts, zone, severity, label in rows:
+            when = dt.datetime.fromtimestamp(at_ts, dt.UTC).astimezone(__import__("zoneinfo").ZoneInfo(self.tz))
             mark = f"ALERT {severity.upper()}" if step == "raise" else "cleared"
             self.say(f"  {when:%a %d %b %H:%M}  {mark:<16} {zone:<10} {label}")
             self.seen = row_id
@@ -79,7 +79,7 @@ def run(
         (folder / old).unlink(missing_ok=True)
     now = time.time() if now is None else now  # fixed by tests so that two runs see the same data
     week = last_complete_week(now, site.TIMEZONE)
-    start = week.start_s - 2 * 86400.0
+    start = week.start_ts - 2 * 86400.0
     days = (now - 300.0 - start) // 60.0 * 60.0 / 86400.0
     zones = site.build(start, days)
     msgs = site.messages(zones)

@@ -224,9 +224,9 @@ class Service:
         for reason, n in result.rejections.items():
             self.metrics.rejections.labels(reason).inc(n)
         self.mqtt.ack(batch)
-        acked_s = time.time()
+        acked_ts = time.time()
         for m in batch:
-            self.metrics.ack_seconds.observe(acked_s - m.received_ts)
+            self.metrics.ack_seconds.observe(acked_ts - m.received_ts)
         self._publish_zone_metrics()
 
     def _record_bypass(self) -> None:

@@ -69,10 +69,12 @@ def simulate(
     spec = Spec(profile, positions)
     setpoint = float(np.median(series.air_c)) if setpoint_c is None else float(setpoint_c)
     probe = series.product_c
-    state = new_state(spec, series.t_s[0], series.air_c[0], setpoint, None if probe is None else probe[0])
-    state, _ = advance(spec, state, series.t_s[1:], series.air_c[None, 1:], None if probe is None else probe[None, 1:])
+    state = new_state(spec, series.time_ts[0], series.air_c[0], setpoint, None if probe is None else probe[0])
+    state, _ = advance(
+        spec, state, series.time_ts[1:], series.air_c[None, 1:], None if probe is None else probe[None, 1:]
+    )
     rows = position_rows(spec, outputs(spec, state))
-    rule = additive_budget_pct(spec, series.t_s, series.air_c[None, :])[0]
+    rule = additive_budget_pct(spec, series.time_ts, series.air_c[None, :])[0]
     for row, pct in zip(rows.values(), rule):
         row["additive_rule_budget_pct"] = _clean(pct)
     worst = worst_position(rows)
@@ -87,9 +89,9 @@ def simulate(
         positions=rows,
         profile=profile.name,
         setpoint_c=setpoint,
-        samples=int(series.t_s.size),
-        start_s=float(series.t_s[0]),
-        end_s=float(series.t_s[-1]),
+        samples=int(series.time_ts.size),
+        start_ts=float(series.time_ts[0]),
+        end_ts=float(series.time_ts[-1]),
         limit_mean_diameter_um=profile.limit_mean_diameter_um,
         model_version=MODEL_VERSION,
         caution=CAUTION,

@@ -39,21 +39,21 @@ def read_status(config_path: str | None, db_path: str | None, now: float | None 
                     "state": fig.get("state", "waiting"),
                     "worst_position": fig.get("worst_position"),
                     "positions": fig.get("positions", {}),
-                    "model_time_s": fig.get("model_time_s"),
+                    "model_time_ts": fig.get("model_time_ts"),
                     "last_reading_age_s": age,
                     "readings_total": total,
                     "open_gap": age is None or age > max_gap,
-                    "gaps": [{"start_s": g[1], "end_s": g[2], "seconds": g[3]} for g in store.gaps.list(zid)[-5:]],
-                    "figures_updated_s": row.updated_ts if row else None,
+                    "gaps": [{"start_ts": g[1], "end_ts": g[2], "seconds": g[3]} for g in store.gaps.list(zid)[-5:]],
+                    "figures_updated_ts": row.updated_ts if row else None,
                 }
             )
         return {
             "database": path,
-            "now_s": now,
+            "now_ts": now,
             "zones": zones,
             "rejections_total": store.rejections.since(-float("inf")),
             "open_alerts": [
-                {k: a[k] for k in ("id", "zone", "severity", "status", "label", "raised_s", "acked_by")}
+                {k: a[k] for k in ("id", "zone", "severity", "status", "label", "raised_ts", "acked_by")}
                 for a in store.alerts.list(open_only=True)
             ],
             "gaps_total": store.record.count("gaps"),

@@ -54,8 +54,8 @@ class Change:
         return "; ".join(parts) or "no change"
 
 
-def _window(t: np.ndarray, start_s: float, end_s: float) -> np.ndarray:
-    return (t > start_s) & (t <= end_s)
+def _window(t: np.ndarray, start_ts: float, end_ts: float) -> np.ndarray:
+    return (t > start_ts) & (t <= end_ts)
 
 
 def changed_air(t: np.ndarray, air: np.ndarray, setpoint_c: float, events: list[dict], change: Change) -> np.ndarray:
@@ -137,7 +137,7 @@ def compare(
     state = tile_state(start, rows.shape[0])
     end, trace = advance(spec, state, t, rows, trace=True)
     out = outputs(spec, end)
-    days = (t[-1] - start.t_s) / 86400.0
+    days = (t[-1] - start.time_ts) / 86400.0
     l0, lim = spec.profile.initial.mean_diameter_um, spec.profile.limit_mean_diameter_um
     span = lim**3 - l0**3
     start_out = outputs(spec, start)
@@ -145,7 +145,7 @@ def compare(
     start_mean = start_out["mean_diameter_um"][0]  # settled, per position
     rule = additive_budget_pct(
         spec,
-        np.concatenate(([start.t_s], t)),
+        np.concatenate(([start.time_ts], t)),
         np.vstack([np.concatenate(([start.air_c[0]], r)) for r in (air, new_air)]),
         np.repeat(start.product_c[:1], 2, axis=0),
         start_budget,
@@ -181,7 +181,7 @@ def compare(
         "change": change.describe(),
         "recorded": recorded,
         "changed": changed,
-        "trace_t_s": trace.t_s.tolist(),
+        "trace_ts": trace.time_ts.tolist(),
         "trace_recorded_pct": (100.0 * np.nanmax(trace.budget_fraction[:, 0, :-1], axis=1)).tolist(),
         "trace_changed_pct": (100.0 * np.nanmax(trace.budget_fraction[:, ROWS_PER_CASE, :-1], axis=1)).tolist(),
         "air_recorded_c": air,

@@ -23,8 +23,8 @@ log = logging.getLogger("watcher.bypass")
 
 @dataclass
 class Episode:
-    since_s: float
-    raised_s: float | None = None
+    since_ts: float
+    raised_ts: float | None = None
     worst_s: float = 0.0
     error: str = ""
     sends: list[tuple[float, str, bool, str]] = field(default_factory=list)  # (at, channel, ok, result)
@@ -39,22 +39,22 @@ class StorageBypass:
         self._lock = threading.Lock()
         self._sender: threading.Thread | None = None
 
-    def failing(self, since_s: float, now_s: float, error: str) -> None:
+    def failing(self, since_ts: float, now_ts: float, error: str) -> None:
         """Called by the writer after each failed commit."""
         if self.rule is None:
             return
         with self._lock:
-            if self.episode is None or self.episode.since_s != since_s:
-                self.episode = Episode(since_s)
-                self._next_send_s = since_s + self.rule.threshold
+            if self.episode is None or self.episode.since_ts != since_ts:
+                self.episode = Episode(since_ts)
+                self._next_send_s = since_ts + self.rule.threshold
             ep = self.episode
-            ep.worst_s, ep.error = max(ep.worst_s, now_s - since_s), error
-            if now_s < self._next_send_s or (self._sender is not None and self._sender.is_alive()):
+            ep.worst_s, ep.error = max(ep.worst_s, now_ts - since_ts), error
+            if now_ts < self._next_send_s or (self._sender is not None and self._sender.is_alive()):
                 return
-            repeat = ep.raised_s is not None
-            ep.raised_s = ep.raised_s or now_s
-            self._next_send_s = now_s + self.config.alerting.repeat_s
-        self._sender = threading.Thread(target=self._send, args=(ep, now_s, repeat), name="bypass", daemon=True)
+            repeat = ep.raised_ts is not None
+            ep.raised_ts = ep.raised_ts or now_ts
+            self._next_send_s = now_ts + self.config.alerting.repeat_s
+        self._sender = threading.Thread(target=self._send, args=(ep, now_ts, repeat), name="bypass", daemon=True)
         self._sender.start()
 
     def recovered(self) -> Episode | None:
@@ -63,12 +63,12 @@ class StorageBypass:
             ep, self.episode = self.episode, None
         if ep is not None and self._sender is not None:
             self._sender.join(60.0)
-        return ep if ep is not None and ep.raised_s is not None else None
+        return ep if ep is not None and ep.raised_ts is not None else None
 
-    def _send(self, ep: Episode, now_s: float, repeat: bool) -> None:
+    def _send(self, ep: Episode, now_ts: float, repeat: bool) -> None:
         rule = self.rule
         tags = ["alerts", rule.severity, "zone:service"]
-        title, body = messages.storage_bypass(rule, ep.since_s, now_s, ep.error, self._tz(), repeat)
+        title, body = messages.storage_bypass(rule, ep.since_ts, now_ts, ep.error, self._tz(), repeat)
         try:
             notifier = Notifier(list(self.config.channels))
         except Exception as exc:
@@ -79,7 +79,7 @@ class StorageBypass:
                 log.error("storage alert: no channel carries %s; nobody was told", ", ".join(tags))
                 continue
             d = notifier.send(name, title, body)
-            ep.sends.append((now_s, name, d.ok, d.result))
+            ep.sends.append((now_ts, name, d.ok, d.result))
             (log.warning if d.ok else log.error)("storage alert sent around the database to %s: %s", name, d.result)
 
     def _tz(self) -> str:

@@ -70,27 +70,27 @@ REPEAT_NOTE = "(This message may repeat one sent just before a restart.)\n\n"
 
 
 def deliver_due(
-    store: Store, notifier: Notifier, now_s: float, max_attempts: int = 60, retry_first_s: float = RETRY_FIRST_S
+    store: Store, notifier: Notifier, now_ts: float, max_attempts: int = 60, retry_first_s: float = RETRY_FIRST_S
 ) -> dict[str, int]:
     """Send what is due; record each attempt. Returns counts of sent, retried and failed."""
     counts = {"sent": 0, "retried": 0, "failed": 0}
-    for row_id, channel, title, body, attempts, attach, maybe_repeat in store.outbox.due(now_s):
+    for row_id, channel, title, body, attempts, attach, maybe_repeat in store.outbox.due(now_ts):
         with store.atomic():
             store.outbox.mark_sending(row_id)
         d = notifier.send(channel, title, (REPEAT_NOTE if maybe_repeat else "") + body, attach)
         with store.atomic():
             if d.ok:
-                store.outbox.record(row_id, "sent", d.result, d.log, now_s, now_s)
+                store.outbox.record(row_id, "sent", d.result, d.log, now_ts, now_ts)
                 counts["sent"] += 1
                 continue
             tries = attempts + 1
             if tries >= max_attempts:
-                store.outbox.record(row_id, "failed", d.result, d.log, now_s, now_s)
+                store.outbox.record(row_id, "failed", d.result, d.log, now_ts, now_ts)
                 counts["failed"] += 1
                 log.error("notification %d to %s given up after %d attempts: %s", row_id, channel, tries, d.result)
             else:
                 delay = min(retry_first_s * 2 ** (tries - 1), RETRY_MAX_S)
-                store.outbox.record(row_id, "pending", d.result, d.log, now_s, now_s + delay)
+                store.outbox.record(row_id, "pending", d.result, d.log, now_ts, now_ts + delay)
                 counts["retried"] += 1
                 log.warning(
                     "notification %d to %s not delivered (%s); retrying in %.0f s", row_id, channel, d.result, delay

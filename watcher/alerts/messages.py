@@ -56,14 +56,16 @@ def body(
     lines = [place, ""]
     now_value = metric_of.format(alert.get("value"))
     if kind == "clear":
-        lines.append(f"Cleared at {local(alert.get('cleared_s'), tz)}: {metric_of.words} now {now_value}.")
+        lines.append(f"Cleared at {local(alert.get('cleared_ts'), tz)}: {metric_of.words} now {now_value}.")
     elif kind == "ack":
-        lines.append(f"Acknowledged by {by} at {local(alert.get('acked_s'), tz)}." + (f" Note: {note}" if note else ""))
+        lines.append(
+            f"Acknowledged by {by} at {local(alert.get('acked_ts'), tz)}." + (f" Note: {note}" if note else "")
+        )
     else:
         op = "at or above" if alert.get("op", ">=") == ">=" else "at or below"
         lines.append(
             f"What happened: {alert['label']}. Now {now_value} ({op} {metric_of.format(alert['threshold'])}), "
-            f"since {local(alert.get('since_s') or alert['raised_s'], tz)} ({tz})."
+            f"since {local(alert.get('since_ts') or alert['raised_ts'], tz)} ({tz})."
         )
     temps = []
     if figures and figures.get("air_c") is not None:
@@ -105,13 +107,13 @@ def body(
     return "\n".join(lines)
 
 
-def storage_bypass(rule, since_s: float, now_s: float, error: str, tz: str, repeat: bool) -> tuple[str, str]:
+def storage_bypass(rule, since_ts: float, now_ts: float, error: str, tz: str, repeat: bool) -> tuple[str, str]:
     """Title and body of the storage alert sent around the database (watcher.alerts.bypass)."""
     alert = {"severity": rule.severity, "label": rule.label}
     head = title("repeat" if repeat else "raise", alert, "watcher service", 1 if repeat else 0)
     lines = [
-        f"What happened: {rule.label}. Readings have not been stored since {local(since_s, tz)} ({tz}), "
-        f"{duration(now_s - since_s)} so far. The last error: {error[:300]}",
+        f"What happened: {rule.label}. Readings have not been stored since {local(since_ts, tz)} ({tz}), "
+        f"{duration(now_ts - since_ts)} so far. The last error: {error[:300]}",
         "Nothing is acknowledged while this lasts, so the broker keeps the readings (up to its queue limit) "
         "and watcher stores them as soon as the database can be written again.",
         f"What to check: {metric('commit_failing_s').check}",

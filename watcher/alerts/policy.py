@@ -64,15 +64,15 @@ class AlertState:
     zone: str
     rule: str
     status: str = "quiet"  # quiet | pending | open | acknowledged
-    since_s: float | None = None  # when the condition started holding
-    raised_s: float | None = None
-    notified_s: float | None = None
+    since_ts: float | None = None  # when the condition started holding
+    raised_ts: float | None = None
+    notified_ts: float | None = None
     escalated: bool = False
     acked_by: str | None = None
-    acked_s: float | None = None
+    acked_ts: float | None = None
     value: float | None = None
     alert_id: int | None = None  # the stored alert row, once raised
-    clearing_since_s: float | None = None  # when the value went back past the hysteresis
+    clearing_since_ts: float | None = None  # when the value went back past the hysteresis
 
 
 @dataclass(frozen=True)
@@ -82,11 +82,11 @@ class Action:
     rule: str
     severity: str
     value: float | None
-    at_s: float
+    at_ts: float
 
 
 def evaluate(
-    rules: list[Rule], zone: str, observations: dict, now_s: float, states: dict, repeat_s: float, escalate_s: float
+    rules: list[Rule], zone: str, observations: dict, now_ts: float, states: dict, repeat_s: float, escalate_s: float
 ) -> tuple[dict, list[Action]]:
     """Advance every (zone, rule) state by one observation; return new states and actions.
 
@@ -105,52 +105,52 @@ def evaluate(
         value = float(value)
         if st.status in ("quiet", "pending"):
             if rule.holds(value):
-                since = st.since_s if st.status == "pending" else now_s
-                if now_s - since >= rule.for_s:
+                since = st.since_ts if st.status == "pending" else now_ts
+                if now_ts - since >= rule.for_s:
                     st = replace(
                         st,
                         status="open",
-                        since_s=since,
-                        raised_s=now_s,
-                        notified_s=now_s,
+                        since_ts=since,
+                        raised_ts=now_ts,
+                        notified_ts=now_ts,
                         escalated=False,
                         acked_by=None,
-                        acked_s=None,
+                        acked_ts=None,
                         value=value,
                         alert_id=None,
                     )
-                    actions.append(Action("raise", zone, rule.id, rule.severity, value, now_s))
+                    actions.append(Action("raise", zone, rule.id, rule.severity, value, now_ts))
                 else:
-                    st = replace(st, status="pending", since_s=since, value=value)
+                    st = replace(st, status="pending", since_ts=since, value=value)
             elif st.status == "pending":
                 st = AlertState(zone, rule.id)
         else:  # open or acknowledged
             st = replace(st, value=value)
             back = not rule.latch and rule.cleared(value)
-            clearing = (st.clearing_since_s if st.clearing_since_s is not None else now_s) if back else None
-            st = replace(st, clearing_since_s=clearing)
-            if back and now_s - clearing >= rule.clear_for_s:
-                actions.append(Action("clear", zone, rule.id, rule.severity, value, now_s))
+            clearing = (st.clearing_since_ts if st.clearing_since_ts is not None else now_ts) if back else None
+            st = replace(st, clearing_since_ts=clearing)
+            if back and now_ts - clearing >= rule.clear_for_s:
+                actions.append(Action("clear", zone, rule.id, rule.severity, value, now_ts))
                 st = AlertState(zone, rule.id)
             elif st.status == "open":
-                if not st.escalated and now_s - st.raised_s >= escalate_s:
-                    st = replace(st, escalated=True, notified_s=now_s)
-                    actions.append(Action("escalate", zone, rule.id, rule.severity, value, now_s))
-                elif now_s - st.notified_s >= repeat_s:
-                    st = replace(st, notified_s=now_s)
-                    actions.append(Action("repeat", zone, rule.id, rule.severity, value, now_s))
+                if not st.escalated and now_ts - st.raised_ts >= escalate_s:
+                    st = replace(st, escalated=True, notified_ts=now_ts)
+                    actions.append(Action("escalate", zone, rule.id, rule.severity, value, now_ts))
+                elif now_ts - st.notified_ts >= repeat_s:
+                    st = replace(st, notified_ts=now_ts)
+                    actions.append(Action("repeat", zone, rule.id, rule.severity, value, now_ts))
         states[key] = st
     return states, actions
 
 
-def acknowledge(states: dict, zone: str, rule_id: str, by: str, now_s: float) -> dict:
+def acknowledge(states: dict, zone: str, rule_id: str, by: str, now_ts: float) -> dict:
     """Mark an open alert acknowledged (stops repeats and escalation); NotFound if none."""
     key = (zone, rule_id)
     st = states.get(key)
     if st is None or st.status != "open":
         raise NotFound(f"no open alert for zone {zone!r}, rule {rule_id!r}")
     states = dict(states)
-    states[key] = replace(st, status="acknowledged", acked_by=by, acked_s=now_s)
+    states[key] = replace(st, status="acknowledged", acked_by=by, acked_ts=now_ts)
     return states
 
 

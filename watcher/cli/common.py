@@ -47,9 +47,9 @@ def database_of(config_path: str | None, db_path: str | None) -> str:
     return load_config(config_path).storage.path if config_path else default_db_path()
 
 
-def stamp(t_s: float) -> str:
+def stamp(time_ts: float) -> str:
     """An instant as UTC minutes."""
-    return datetime.fromtimestamp(t_s, tz=UTC).strftime("%Y-%m-%d %H:%M UTC")
+    return datetime.fromtimestamp(time_ts, tz=UTC).strftime("%Y-%m-%d %H:%M UTC")
 
 
 def fmt(value, spec: str, none: str = "-") -> str:

@@ -48,7 +48,7 @@ def _initial(mean_um, budget_pct, history) -> dict | None:
         from watcher.files.series import read_series
 
         s = read_series(history)
-        return {"history": [[float(t), float(c)] for t, c in zip(s.t_s, s.air_c)]}
+        return {"history": [[float(t), float(c)] for t, c in zip(s.time_ts, s.air_c)]}
     return None
 
 
@@ -158,7 +158,7 @@ def lot_show(lot_id, as_json, config_path) -> None:
         click.echo("  Not computed yet: the service computes lots at its next analysis pass.")
         return
     click.echo(
-        f"  As of {stamp(f['t_s'])}: {figure_text(f, 'budget_used_pct', '.1f')} % of the texture budget "
+        f"  As of {stamp(f['time_ts'])}: {figure_text(f, 'budget_used_pct', '.1f')} % of the texture budget "
         f"used ({f['worst_position']}), mean crystal {fmt(f['mean_diameter_um'], '.1f')} um, "
         f"{figure_text(f, 'days_to_limit', '.0f', 'no limit in sight')} days to the limit at current "
         "conditions (90 % range in brackets)."
@@ -193,7 +193,7 @@ def lots_cmd(zone, everything, as_json, config_path) -> None:
                 figure_text(f, "budget_used_pct", ".1f"),
                 fmt(f.get("mean_diameter_um"), ".1f"),
                 figure_text(f, "days_to_limit", ".0f"),
-                stamp(f["t_s"]) if f else "not computed yet",
+                stamp(f["time_ts"]) if f else "not computed yet",
             ]
         )
     head = ["#", "lot", "zone", "product", "budget used %", "mean um", "days left", "as of"]

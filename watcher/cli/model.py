@@ -81,9 +81,9 @@ def simulate(profile_name, series_path, setpoint_c, as_json) -> None:
     if as_json:
         click.echo(json.dumps(result, indent=2))
         return
-    days = (result["end_s"] - result["start_s"]) / 86400.0
+    days = (result["end_ts"] - result["start_ts"]) / 86400.0
     click.echo(
-        f"Series   {series_path}: {result['samples']} samples, {stamp(result['start_s'])} to {stamp(result['end_s'])} ({days:.1f} days)"
+        f"Series   {series_path}: {result['samples']} samples, {stamp(result['start_ts'])} to {stamp(result['end_ts'])} ({days:.1f} days)"
     )
     click.echo(
         f"Profile  {result['profile']}; setpoint {result['setpoint_c']:.1f} C; texture limit {result['limit_mean_diameter_um']:.0f} um mean diameter"

@@ -74,7 +74,7 @@ def alerts(open_only, as_json, config_path, db_path) -> None:
         if as_json:
             for r in rows:
                 r["log"] = [
-                    dict(zip(("step", "at_s", "wall_s", "value", "by", "note"), x)) for x in store.alerts.log(r["id"])
+                    dict(zip(("step", "at_ts", "wall_ts", "value", "by", "note"), x)) for x in store.alerts.log(r["id"])
                 ]
             click.echo(json.dumps(rows, indent=2))
             return
@@ -89,7 +89,7 @@ def alerts(open_only, as_json, config_path, db_path) -> None:
             r["status"],
             r["severity"],
             r["zone"],
-            stamp(r["raised_s"]),
+            stamp(r["raised_ts"]),
             "-" if r["value"] is None else format(r["value"], ".4g"),
             r["label"] + (f" (ack: {r['acked_by']})" if r["acked_by"] else ""),
         ]

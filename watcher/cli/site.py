@@ -16,8 +16,8 @@ from watcher.ranges import figure_text
 @main.command()
 @click.option("--out", "out_dir", default="watcher-demo", show_default=True, help="Folder for the database and report.")
 @click.option("--no-broker", is_flag=True, help="Feed the engine in this process even when mosquitto is installed.")
-@click.option("--now", "now_s", type=float, default=None, hidden=True, help="End of the demo data (epoch s; tests).")
-def demo(out_dir, no_broker, now_s) -> None:
+@click.option("--now", "now_ts", type=float, default=None, hidden=True, help="End of the demo data (epoch s; tests).")
+def demo(out_dir, no_broker, now_ts) -> None:
     """Run the whole pipeline on a fictional cold store: about two weeks in under a minute."""
     import logging
     import time
@@ -33,7 +33,7 @@ def demo(out_dir, no_broker, now_s) -> None:
             click.echo(f"  ... {share:4.0%} of the messages stored ({time.monotonic() - began:.0f} s)", err=True)
             shown[0] = share
 
-    result = run(out_dir, not no_broker, click.echo, progress, now_s)
+    result = run(out_dir, not no_broker, click.echo, progress, now_ts)
     click.echo("")
     click.echo(f"Done in {result['seconds']:.0f} s.")
     click.echo(f"Weekly summary for {result['week']}: {result['report']}")
@@ -108,7 +108,7 @@ def status(config_path, db_path, as_json) -> None:
     if as_json:
         click.echo(json.dumps(report, indent=2))
         return
-    click.echo(f"Database {report['database']} (read-only), as of {stamp(report['now_s'])}")
+    click.echo(f"Database {report['database']} (read-only), as of {stamp(report['now_ts'])}")
     lines = []
     for z in report["zones"]:
         age = z["last_reading_age_s"]

@@ -87,8 +87,8 @@ def what_if(zone, start, end, setpoint_offset, defrosts_per_day, defrost_min, de
             raise InputError("--without-event", sorted(unknown), f"ids of events of {zone} in the period")
         snap = store.snapshots.before(zone, t0, spec_key(z))
         state = None if snap is None else State.from_arrays(unpack_state(snap[1]))
-        if state is not None and state.t_s < t0:  # bring the stored state up to the start
-            pre_t, pre_air = air_samples(store, zone, state.t_s, t0)
+        if state is not None and state.time_ts < t0:  # bring the stored state up to the start
+            pre_t, pre_air = air_samples(store, zone, state.time_ts, t0)
             if pre_t.size:
                 state, _ = advance(spec, state, pre_t, pre_air[None, :])
     finally:

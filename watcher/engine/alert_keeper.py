@@ -34,14 +34,14 @@ def _comparable(st: AlertState) -> tuple:
     """The fields worth saving when they change (the observed value changes every batch)."""
     return (
         st.status,
-        st.since_s,
-        st.raised_s,
-        st.notified_s,
+        st.since_ts,
+        st.raised_ts,
+        st.notified_ts,
         st.escalated,
         st.acked_by,
-        st.acked_s,
+        st.acked_ts,
         st.alert_id,
-        st.clearing_since_s,
+        st.clearing_since_ts,
     )
 
 
@@ -70,10 +70,10 @@ class AlertKeeper:
         ids = {r.id for r in self.rules}
         self.states = {k: _state_from(d) for k, d in store.alerts.states().items() if k[1] in ids}
 
-    def evaluate(self, rules: list[Rule], zone: str, obs: dict, now_s: float, wall_s: float) -> None:
+    def evaluate(self, rules: list[Rule], zone: str, obs: dict, now_ts: float, wall_ts: float) -> None:
         a = self.config.alerting
         mine = {(zone, r.id): self.states[(zone, r.id)] for r in rules if (zone, r.id) in self.states}
-        new, actions = evaluate(rules, zone, obs, now_s, mine, a.repeat_s, a.escalate_s)
+        new, actions = evaluate(rules, zone, obs, now_ts, mine, a.repeat_s, a.escalate_s)
         for key, st in new.items():
             old = self.states.get(key)
             if old is None or _comparable(st) != _comparable(old):
@@ -82,9 +82,9 @@ class AlertKeeper:
             self.states[key] = st
         by_id = {r.id: r for r in rules}
         for act in actions:
-            self._act(act, by_id[act.rule], obs, wall_s)
+            self._act(act, by_id[act.rule], obs, wall_ts)
 
-    def _act(self, act, rule: Rule, obs: dict, wall_s: float) -> None:
+    def _act(self, act, rule: Rule, obs: dict, wall_ts: float) -> None:
         key = (act.zone, act.rule)
         st = self.states[key]
         if act.kind == "raise":
@@ -97,8 +97,8 @@ class AlertKeeper:
                 threshold=rule.threshold,
                 status="open",
                 # For a duration, the condition began `value` seconds ago (the door opened then).
-                since_s=act.at_s - act.value if metric(rule.metric).unit == "duration" else st.since_s,
-                raised_s=act.at_s,
+                since_ts=act.at_ts - act.value if metric(rule.metric).unit == "duration" else st.since_ts,
+                raised_ts=act.at_ts,
                 value=act.value,
                 worst_value=act.value,
             )
@@ -118,19 +118,19 @@ class AlertKeeper:
             n = alert["repeats"] + 1
             fields["repeats"] = n
         elif act.kind == "escalate":
-            fields["escalated_s"] = act.at_s
+            fields["escalated_ts"] = act.at_ts
         elif act.kind == "clear":
-            fields.update(status="cleared", cleared_s=act.at_s)
+            fields.update(status="cleared", cleared_ts=act.at_ts)
             log.info("alert %d cleared: zone %s, %s", alert_id, act.zone, rule.label)
         self.store.alerts.update(alert_id, **fields)
-        self.store.alerts.log_add(alert_id, act.kind, act.at_s, wall_s, act.value)
-        self._notify(act.kind, {**alert, **fields, "op": rule.op}, wall_s, n)
+        self.store.alerts.log_add(alert_id, act.kind, act.at_ts, wall_ts, act.value)
+        self._notify(act.kind, {**alert, **fields, "op": rule.op}, wall_ts, n)
 
     def _cleared_id(self, key) -> int | None:
         """The alert id a clear refers to (the policy has already reset the state)."""
         return self.store.alerts.open_id(*key)
 
-    def _notify(self, kind: str, alert: dict, wall_s: float, n: int = 0, by=None, note=None) -> None:
+    def _notify(self, kind: str, alert: dict, wall_ts: float, n: int = 0, by=None, note=None) -> None:
         key = alert["zone"]
         subject = subjects.Subject.of(key)
         lot = subject.id if subject.kind == "lot" else None
@@ -145,7 +145,7 @@ class AlertKeeper:
         figures = {**(lz.figures or {}), "air_c": lz.air_c} if lz else None
         events = []
         if zone is not None and lz is not None:
-            events = self.store.events.of_zone(zone.id, (lz.figures or {}).get("model_time_s", wall_s) - 86400.0)
+            events = self.store.events.of_zone(zone.id, (lz.figures or {}).get("model_time_ts", wall_ts) - 86400.0)
         if lot is not None:
             zone_name, place = f"lot {lot} ({zone_name})", f"{place}, lot {lot}"
             state = self.store.lots.state_get(lot)
@@ -167,17 +167,17 @@ class AlertKeeper:
                 note,
             ),
             tags,
-            wall_s,
+            wall_ts,
             route(list(self.config.channels), tags, exclude),
             dedupe=f"alert:{alert['id']}:{kind}:{n}",
             alert_id=alert["id"],
         )
 
-    def apply_commands(self, wall_s: float) -> None:
+    def apply_commands(self, wall_ts: float) -> None:
         for cmd_id, alert_id, by, note, source, sender in self.store.commands.pending():
-            self.store.commands.done(cmd_id, wall_s, self._ack(alert_id, by, note, source, sender, wall_s))
+            self.store.commands.done(cmd_id, wall_ts, self._ack(alert_id, by, note, source, sender, wall_ts))
 
-    def _ack(self, alert_id: int, by: str, note, source: str, sender, wall_s: float) -> str:
+    def _ack(self, alert_id: int, by: str, note, source: str, sender, wall_ts: float) -> str:
         alert = self.store.alerts.get(alert_id)
         if alert is None:
             return f"refused: no alert {alert_id}"
@@ -185,18 +185,18 @@ class AlertKeeper:
             return f"refused: alert {alert_id} is {alert['status']}"
         key = (alert["zone"], alert["rule"])
         try:
-            self.states = acknowledge(self.states, *key, by, wall_s)
+            self.states = acknowledge(self.states, *key, by, wall_ts)
         except NotFound:
             return f"refused: alert {alert_id} is not open in the running service"
         self.store.alerts.state_save(*key, asdict(self.states[key]))
-        self.store.alerts.update(alert_id, status="acknowledged", acked_s=wall_s, acked_by=by, ack_note=note)
+        self.store.alerts.update(alert_id, status="acknowledged", acked_ts=wall_ts, acked_by=by, ack_note=note)
         via = f"via {source}" + (f" from {sender}" if sender else "")
-        self.store.alerts.log_add(alert_id, "ack", wall_s, wall_s, None, by, f"{via}: {note}" if note else via)
+        self.store.alerts.log_add(alert_id, "ack", wall_ts, wall_ts, None, by, f"{via}: {note}" if note else via)
         log.info("alert %d acknowledged by %s (%s)", alert_id, by, via)
-        self._notify("ack", {**alert, "acked_s": wall_s}, wall_s, by=by, note=note)
+        self._notify("ack", {**alert, "acked_ts": wall_ts}, wall_ts, by=by, note=note)
         return "acknowledged"
 
-    def record_bypass(self, ep, wall_s: float) -> int | None:
+    def record_bypass(self, ep, wall_ts: float) -> int | None:
         """Record a storage episode whose alert went out around the database (alerts.bypass):
         raised, each send, cleared; the clear notice goes through the outbox as usual."""
         rule = next((r for r in self.rules if r.metric == "commit_failing_s"), None)
@@ -207,19 +207,19 @@ class AlertKeeper:
             **fields,
             threshold=rule.threshold,
             status="cleared",
-            since_s=ep.since_s,
-            raised_s=ep.raised_s,
-            cleared_s=wall_s,
+            since_ts=ep.since_ts,
+            raised_ts=ep.raised_ts,
+            cleared_ts=wall_ts,
             value=0.0,
             worst_value=ep.worst_s,
         )
         note = "sent around the database, which could not be written: " + ep.error[:200]
-        self.store.alerts.log_add(alert_id, "raise", ep.raised_s, ep.raised_s, ep.worst_s, note=note)
-        for at_s, channel, ok, result in ep.sends:
+        self.store.alerts.log_add(alert_id, "raise", ep.raised_ts, ep.raised_ts, ep.worst_s, note=note)
+        for at_ts, channel, ok, result in ep.sends:
             self.store.alerts.log_add(
-                alert_id, "sent" if ok else "send-failed", at_s, at_s, note=f"{channel}: {result}"
+                alert_id, "sent" if ok else "send-failed", at_ts, at_ts, note=f"{channel}: {result}"
             )
-        self.store.alerts.log_add(alert_id, "clear", wall_s, wall_s, 0.0)
+        self.store.alerts.log_add(alert_id, "clear", wall_ts, wall_ts, 0.0)
         log.warning("alert %d recorded after storage came back (readings not stored for %.0f s)", alert_id, ep.worst_s)
-        self._notify("clear", {**self.store.alerts.get(alert_id), "op": rule.op}, wall_s)
+        self._notify("clear", {**self.store.alerts.get(alert_id), "op": rule.op}, wall_ts)
         return alert_id

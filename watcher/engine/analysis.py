@@ -38,16 +38,16 @@ FORECAST_STEP_S = 600.0
 MAX_LEAD_S = 2 * 86400.0  # a day's figures start from a model state at most this far before it
 
 
-def analysis_points(after_s: float, fed_s: float, every_s: float) -> list[float]:
-    """The last grid point of data time (a multiple of every_s) in (after_s, fed_s], if any.
+def analysis_points(after_ts: float, fed_ts: float, every_s: float) -> list[float]:
+    """The last grid point of data time (a multiple of every_s) in (after_ts, fed_ts], if any.
     Passes sit on the grid, so feeds whose batches each move less than a grid step (live data,
     the demo's two paths) analyse at the same moments; a zone that moved several steps at once
     (a backlog, a first start) is analysed once, at the last, over everything since its last
     pass (analysing every step passed would multiply the work of a slow backlog drain)."""
-    if not math.isfinite(fed_s):
+    if not math.isfinite(fed_ts):
         return []
-    last = math.floor(fed_s / every_s) * every_s
-    return [last] if last > after_s else []
+    last = math.floor(fed_ts / every_s) * every_s
+    return [last] if last > after_ts else []
 
 
 @dataclass
@@ -70,13 +70,13 @@ def binned_air(rows) -> tuple[np.ndarray, np.ndarray]:
     return keys * BIN_S, sums / counts
 
 
-def air_samples(store: Store, zone_id: str, after_s: float, upto_s: float) -> tuple[np.ndarray, np.ndarray]:
+def air_samples(store: Store, zone_id: str, after_ts: float, upto_ts: float) -> tuple[np.ndarray, np.ndarray]:
     """The zone's air as one sample per whole one-minute bin, stamped at the bin's end (when its
-    mean is known), for the samples in (after_s, upto_s]. The same readings always give the same
+    mean is known), for the samples in (after_ts, upto_ts]. The same readings always give the same
     samples, however the span is cut (lots and the what-if replay rely on it)."""
-    starts, air = binned_air(store.readings.signals(zone_id, ("air_c",), after_s - BIN_S, upto_s))
+    starts, air = binned_air(store.readings.signals(zone_id, ("air_c",), after_ts - BIN_S, upto_ts))
     t = starts + BIN_S
-    keep = (t > after_s) & (t <= upto_s)
+    keep = (t > after_ts) & (t <= upto_ts)
     return t[keep], air[keep]
 
 
@@ -105,13 +105,13 @@ def detect(store: Store, zone, events_cfg, span_start: float, fed_ts: float) -> 
         defrosts = []
     warm = excursions(t, air, zone.setpoint_c, doors + defrosts, events_cfg.excursion_k, events_cfg.excursion_min_s)
     found = doors + defrosts + warm
-    return [e for e in found if e.end_s is None or e.end_s > span_start]
+    return [e for e in found if e.end_ts is None or e.end_ts > span_start]
 
 
 def _overlap(a: Event, stored: dict, fed_ts: float) -> bool:
-    a_end = fed_ts if a.end_s is None else a.end_s
+    a_end = fed_ts if a.end_ts is None else a.end_ts
     b_end = fed_ts if stored["end_ts"] is None else stored["end_ts"]
-    return a.kind == stored["kind"] and a.start_s <= b_end and stored["start_ts"] <= a_end
+    return a.kind == stored["kind"] and a.start_ts <= b_end and stored["start_ts"] <= a_end
 
 
 def merge_events(store: Store, zone_id: str, found: list[Event], span_start: float, fed_ts: float) -> None:
@@ -124,11 +124,11 @@ def merge_events(store: Store, zone_id: str, found: list[Event], span_start: flo
         same = next((s for s in stored if s["id"] not in matched and _overlap(e, s, fed_ts)), None)
         if same is not None:
             matched.add(same["id"])
-            if same["start_ts"] == e.start_s and same["end_ts"] == e.end_s:
+            if same["start_ts"] == e.start_ts and same["end_ts"] == e.end_ts:
                 continue
-            if same["start_ts"] != e.start_s:
+            if same["start_ts"] != e.start_ts:
                 store.events.delete(same["id"])  # the key moved; costs are redone
-        store.events.upsert(zone_id, e.kind, e.start_s, e.end_s, detail)
+        store.events.upsert(zone_id, e.kind, e.start_ts, e.end_ts, detail)
     for s in stored:
         if s["id"] not in matched and s.get("source") == "inferred" and s["start_ts"] >= span_start:
             store.events.delete(s["id"])
@@ -140,8 +140,8 @@ def _history(store: Store, zone_id: str, t0: float, t1: float) -> tuple[np.ndarr
     return t[keep], air[keep]
 
 
-def _start_state(store: Store, zone_id: str, key: str, at_s: float) -> State | None:
-    snap = store.snapshots.before(zone_id, at_s, key)
+def _start_state(store: Store, zone_id: str, key: str, at_ts: float) -> State | None:
+    snap = store.snapshots.before(zone_id, at_ts, key)
     return None if snap is None else State.from_arrays(unpack_state(snap[1]))
 
 
@@ -166,7 +166,7 @@ def cost_events(store: Store, zone, spec: Spec, key: str, fed_ts: float) -> list
         start = _start_state(store, zone.id, key, min(s["start_ts"] for s in group))
         if start is None:
             continue
-        t, air = _history(store, zone.id, start.t_s, fed_ts)
+        t, air = _history(store, zone.id, start.time_ts, fed_ts)
         if not final:  # assume the setpoint from now until the last tail has passed
             until = max(s["end_ts"] for s in group) + tail
             after = max(fed_ts, t[-1]) if t.size else fed_ts
@@ -189,7 +189,7 @@ def cost_events(store: Store, zone, spec: Spec, key: str, fed_ts: float) -> list
 
 
 def local_days(tz: str, t0: float, t1: float) -> list[tuple[str, float, float]]:
-    """(ISO date, start_s, end_s) of the whole site-local days inside (t0, t1]."""
+    """(ISO date, start_ts, end_ts) of the whole site-local days inside (t0, t1]."""
     zone = ZoneInfo(tz)
     day = dt.datetime.fromtimestamp(t0, zone).date() + dt.timedelta(days=1)
     out = []
@@ -208,35 +208,37 @@ def daily_figures(store: Store, zone, spec: Spec, key: str, tz: str, fed_ts: flo
     have = store.daily.days(zone.id)
     written = []
     carried = None  # the previous day's end state, when that day was computed in this pass
-    for day, start_s, end_s in local_days(tz, fed_ts - DAYS_BACK * 86400.0, fed_ts - tail):
+    for day, start_ts, end_ts in local_days(tz, fed_ts - DAYS_BACK * 86400.0, fed_ts - tail):
         if day in have:
             carried = None
             continue
         start = (
-            carried if carried is not None and carried.t_s <= start_s else _start_state(store, zone.id, key, start_s)
+            carried
+            if carried is not None and carried.time_ts <= start_ts
+            else _start_state(store, zone.id, key, start_ts)
         )
-        if start is None or start.t_s < start_s - MAX_LEAD_S:
+        if start is None or start.time_ts < start_ts - MAX_LEAD_S:
             carried = None
             continue  # no model state near enough: the day is left out rather than replayed at length
-        t, air = _history(store, zone.id, start.t_s, end_s + tail)
-        if t.size == 0 or t[-1] <= end_s:
+        t, air = _history(store, zone.id, start.time_ts, end_ts + tail)
+        if t.size == 0 or t[-1] <= end_ts:
             continue
         # Events overlapping the day, clipped to it: a day carries only its own part of an
         # event that spans midnight (the event's whole cost is on the event's row).
         events = [
-            Event(s["kind"], max(s["start_ts"], start_s), min(s["end_ts"], end_s))
-            for s in store.events.of_zone(zone.id, start_s, end_s)
+            Event(s["kind"], max(s["start_ts"], start_ts), min(s["end_ts"], end_ts))
+            for s in store.events.of_zone(zone.id, start_ts, end_ts)
             if s["end_ts"] is not None
         ]
-        g = day_growth(spec, start, t, air, zone.setpoint_c, start_s, end_s, events)
+        g = day_growth(spec, start, t, air, zone.setpoint_c, start_ts, end_ts, events)
         carried = g.end_state
         store.daily.save(
             {
                 "zone": zone.id,
                 "day": day,
                 "position": g.position,
-                "start_s": start_s,
-                "end_s": end_s,
+                "start_ts": start_ts,
+                "end_ts": end_ts,
                 "baseline_um": g.baseline_um,
                 "defrost_um": g.by_cause_um.get("defrost", 0.0),
                 "door_um": g.by_cause_um.get("door", 0.0),
@@ -250,18 +252,18 @@ def daily_figures(store: Store, zone, spec: Spec, key: str, tz: str, fed_ts: flo
     return written
 
 
-def take_snapshot(store: Store, zone_id: str, key: str, state: State | None, last_s: float) -> float:
+def take_snapshot(store: Store, zone_id: str, key: str, state: State | None, last_ts: float) -> float:
     """Save the model state when it has crossed an hour since the last snapshot; return the
     time of the newest snapshot."""
-    if state is None or math.isfinite(last_s) and state.t_s // 3600.0 <= last_s // 3600.0:
-        return last_s
-    store.snapshots.save(zone_id, state.t_s, key, pack_state(state.arrays()))
-    store.snapshots.drop(zone_id, before_ts=state.t_s - SNAPSHOT_KEEP_S)
-    return state.t_s
+    if state is None or math.isfinite(last_ts) and state.time_ts // 3600.0 <= last_ts // 3600.0:
+        return last_ts
+    store.snapshots.save(zone_id, state.time_ts, key, pack_state(state.arrays()))
+    store.snapshots.drop(zone_id, before_ts=state.time_ts - SNAPSHOT_KEEP_S)
+    return state.time_ts
 
 
-def defrosts_on_day(store: Store, zone_id: str, tz: str, at_s: float) -> int:
-    day_start = dt.datetime.combine(dt.datetime.fromtimestamp(at_s, ZoneInfo(tz)).date(), dt.time(), ZoneInfo(tz))
+def defrosts_on_day(store: Store, zone_id: str, tz: str, at_ts: float) -> int:
+    day_start = dt.datetime.combine(dt.datetime.fromtimestamp(at_ts, ZoneInfo(tz)).date(), dt.time(), ZoneInfo(tz))
     t0 = day_start.timestamp()
     return sum(1 for e in store.events.of_zone(zone_id, t0) if e["kind"] == "defrost" and e["start_ts"] >= t0)
 

@@ -22,7 +22,7 @@ log = logging.getLogger("watcher.held")
 READMIT_BATCH = 5000
 
 
-def readmit(engine: Engine, now_s: float) -> BatchResult:
+def readmit(engine: Engine, now_ts: float) -> BatchResult:
     """Try the held readings against the clock now; admit, keep or expire each. One transaction."""
     result = BatchResult()
     hold_s = engine.config.ingest.hold_days * 86400.0
@@ -30,11 +30,11 @@ def readmit(engine: Engine, now_s: float) -> BatchResult:
     done: list[int] = []
     expired: list[tuple] = []
     for row_id, received_ts, topic, payload, reason in engine.store.held.oldest(READMIT_BATCH):
-        msg = Message(topic, bytes(payload), now_s)
+        msg = Message(topic, bytes(payload), now_ts)
         try:
             engine.parse(msg)
         except OutOfClock:
-            if now_s - received_ts >= hold_s or received_ts - now_s >= hold_s:
+            if now_ts - received_ts >= hold_s or received_ts - now_ts >= hold_s:
                 expired.append(
                     (
                         received_ts,
@@ -59,7 +59,7 @@ def readmit(engine: Engine, now_s: float) -> BatchResult:
                 engine.store.rejections.add(received_ts, topic, reason, bytes(payload))
             engine.store.held.remove(done)
             if admit:
-                result = engine.process(admit, now_s)
+                result = engine.process(admit, now_ts)
     except Exception:
         engine.held_count = engine.store.record.count("held")
         engine.reload_all()

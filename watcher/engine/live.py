@@ -32,12 +32,12 @@ class Live:
         since = cur[2] if was_on and value >= 0.5 else ts
         self.switches[(signal, sensor)] = [ts, value, since]
 
-    def on_for(self, signal: str, now_s: float) -> float | None:
+    def on_for(self, signal: str, now_ts: float) -> float | None:
         """Seconds the longest-running 'on' switch of this signal has been on; None without sensors."""
         states = [v for (sig, _), v in self.switches.items() if sig == signal]
         if not states:
             return None
-        return max((now_s - since for _, value, since in states if value >= 0.5), default=0.0)
+        return max((now_ts - since for _, value, since in states if value >= 0.5), default=0.0)
 
 
 def load_live(store: Store, zone_ids) -> dict[str, Live]:

@@ -62,20 +62,20 @@ class Monitor:
         if reading.signal in ("door", "defrost"):
             lz.switch(reading.signal, reading.sensor, reading.ts, reading.value)
 
-    def command(self, payload: bytes, received_s: float, source: str = "mqtt", sender: str | None = None) -> None:
+    def command(self, payload: bytes, received_ts: float, source: str = "mqtt", sender: str | None = None) -> None:
         """Queue an acknowledgement (applied by apply_commands); raises InputError if malformed."""
         alert_id, by, note = parse_ack(payload)
-        self.store.commands.add(alert_id, by, note, source, sender, received_s)
+        self.store.commands.add(alert_id, by, note, source, sender, received_ts)
 
-    def apply_commands(self, wall_s: float) -> None:
-        self.alerts.apply_commands(wall_s)
+    def apply_commands(self, wall_ts: float) -> None:
+        self.alerts.apply_commands(wall_ts)
 
-    def record_bypass(self, ep, wall_s: float) -> int | None:
-        return self.alerts.record_bypass(ep, wall_s)
+    def record_bypass(self, ep, wall_ts: float) -> int | None:
+        return self.alerts.record_bypass(ep, wall_ts)
 
     # --- per zone, after each batch that touched it -------------------------------------------
     def zone_step(
-        self, runner: ZoneRunner, figures: dict | None, checkpointed: bool, wall_s: float, final: bool = False
+        self, runner: ZoneRunner, figures: dict | None, checkpointed: bool, wall_ts: float, final: bool = False
     ) -> None:
         zid = runner.zone.id
         lz = self.live[zid]
@@ -83,13 +83,13 @@ class Monitor:
             lz.figures = figures
         lz.air_c = runner.last_air_c
         if checkpointed and runner.state is not None:
-            self._analyse(runner, lz, wall_s, final)
+            self._analyse(runner, lz, wall_ts, final)
         if runner.last_ts is None:
             return
         rules = [r for r in self.rules if r.metric not in WALL_CLOCK_METRICS + LOT_METRICS]
-        self.alerts.evaluate(rules, zid, zone_observations(runner, lz), runner.last_ts, wall_s)
+        self.alerts.evaluate(rules, zid, zone_observations(runner, lz), runner.last_ts, wall_ts)
 
-    def _analyse(self, runner: ZoneRunner, lz: Live, wall_s: float, final: bool = False) -> None:
+    def _analyse(self, runner: ZoneRunner, lz: Live, wall_ts: float, final: bool = False) -> None:
         """Bring events and costs up to date at the grid points of data time (multiples of
         analyse_every_s) that the zone has passed, so the same readings give the same events
         however they were batched; a final pass (stop, reload, end of a replay) also covers the
@@ -105,22 +105,22 @@ class Monitor:
             points.append(fed)
         for at in points:
             self._analyse_at(runner, lz, at)
-            self._lots_at(zid, at, wall_s)
+            self._lots_at(zid, at, wall_ts)
 
-    def _lots_at(self, zone_id: str, at_s: float, wall_s: float) -> None:
-        """Bring the zone's lots up to at_s and judge the lot rules on each."""
+    def _lots_at(self, zone_id: str, at_ts: float, wall_ts: float) -> None:
+        """Bring the zone's lots up to at_ts and judge the lot rules on each."""
         rules = [r for r in self.rules if r.metric in LOT_METRICS]
-        for lot, _zone, figures in self.lots.advance_zone(zone_id, at_s, self.fed_of, wall_s):
+        for lot, _zone, figures in self.lots.advance_zone(zone_id, at_ts, self.fed_of, wall_ts):
             obs = {
                 "lot_budget_used_pct": figures["budget_used_pct"],
                 "lot_days_to_limit": cautious_days(figures),
             }
-            self.alerts.evaluate(rules, subjects.lot(lot).key, obs, figures["t_s"], wall_s)
+            self.alerts.evaluate(rules, subjects.lot(lot).key, obs, figures["time_ts"], wall_ts)
 
-    def _analyse_at(self, runner: ZoneRunner, lz: Live, at_s: float) -> None:
+    def _analyse_at(self, runner: ZoneRunner, lz: Live, at_ts: float) -> None:
         zid = runner.zone.id
         # Re-examine the last two days too: an inferred event's edges move as more data arrive.
-        start = lz.analysed_ts - CONTEXT_S if math.isfinite(lz.analysed_ts) else at_s - 400 * 86400.0
+        start = lz.analysed_ts - CONTEXT_S if math.isfinite(lz.analysed_ts) else at_ts - 400 * 86400.0
         found = analyse(
             self.store,
             runner.zone,
@@ -129,10 +129,10 @@ class Monitor:
             self.config.site_of(zid).timezone,
             self.config.events,
             start,
-            at_s,
+            at_ts,
         )
-        lz.analysed_ts = at_s
-        self.store.zones.mark_set(zid, "analysed_ts", at_s)
+        lz.analysed_ts = at_ts
+        self.store.zones.mark_set(zid, "analysed_ts", at_ts)
         lz.defrosts_today = found.defrosts_today
         new = [e for e in found.costed if e["first_cost"]]
         if new:
@@ -147,37 +147,37 @@ class Monitor:
         lz.analysed_ts = min(lz.analysed_ts, ts - 1.0)
 
     # --- on the service's clock ------------------------------------------------------------------
-    def tick(self, wall_s: float, broker_connected: bool, commit_ok: bool) -> None:
+    def tick(self, wall_ts: float, broker_connected: bool, commit_ok: bool) -> None:
         """Apply queued acknowledgements; judge the data rules. Call inside a transaction."""
-        self.apply_commands(wall_s)
+        self.apply_commands(wall_ts)
         if broker_connected:
             self.broker_down_since = None
         elif self.broker_down_since is None:
-            self.broker_down_since = wall_s
+            self.broker_down_since = wall_ts
         if commit_ok:
             self.commit_failing_since = None
         elif self.commit_failing_since is None:
-            self.commit_failing_since = wall_s
+            self.commit_failing_since = wall_ts
         rules = [r for r in self.rules if r.metric in WALL_CLOCK_METRICS]
         for zid, lz in self.live.items():
-            ages = [wall_s - t for t in lz.received.values() if wall_s - t < FORGET_SENSOR_S]
-            self.alerts.evaluate(rules, zid, {"reading_age_s": max(ages) if ages else None}, wall_s, wall_s)
+            ages = [wall_ts - t for t in lz.received.values() if wall_ts - t < FORGET_SENSOR_S]
+            self.alerts.evaluate(rules, zid, {"reading_age_s": max(ages) if ages else None}, wall_ts, wall_ts)
         failing = self.store.outbox.failing_channels()
         service = {
-            "broker_down_s": 0.0 if self.broker_down_since is None else wall_s - self.broker_down_since,
-            "commit_failing_s": 0.0 if self.commit_failing_since is None else wall_s - self.commit_failing_since,
-            "rejections_per_h": float(self.store.rejections.since(wall_s - 3600.0)),
-            "undelivered_s": max((wall_s - t for t in failing.values()), default=0.0),
-            "clock_jump_s": self._recent_jump(wall_s),
+            "broker_down_s": 0.0 if self.broker_down_since is None else wall_ts - self.broker_down_since,
+            "commit_failing_s": 0.0 if self.commit_failing_since is None else wall_ts - self.commit_failing_since,
+            "rejections_per_h": float(self.store.rejections.since(wall_ts - 3600.0)),
+            "undelivered_s": max((wall_ts - t for t in failing.values()), default=0.0),
+            "clock_jump_s": self._recent_jump(wall_ts),
             "held_readings": float(self.held_count()),
         }
-        self.alerts.evaluate(rules, SERVICE, service, wall_s, wall_s)
+        self.alerts.evaluate(rules, SERVICE, service, wall_ts, wall_ts)
 
-    def clock_jumped(self, jump_s: float, wall_s: float) -> None:
-        self.last_jump = (jump_s, wall_s)
+    def clock_jumped(self, jump_s: float, wall_ts: float) -> None:
+        self.last_jump = (jump_s, wall_ts)
 
-    def _recent_jump(self, wall_s: float) -> float:
+    def _recent_jump(self, wall_ts: float) -> float:
         """The size of the last clock jump, for an hour after it (then the alert clears)."""
-        if self.last_jump is None or not 0.0 <= wall_s - self.last_jump[1] < JUMP_REMEMBERED_S:
+        if self.last_jump is None or not 0.0 <= wall_ts - self.last_jump[1] < JUMP_REMEMBERED_S:
             return 0.0
         return abs(self.last_jump[0])

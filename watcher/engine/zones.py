@@ -130,7 +130,7 @@ class ZoneRunner:
             "state": w["state"],
             "worst_position": worst,
             "positions": rows,
-            "model_time_s": self.state.t_s,
+            "model_time_ts": self.state.time_ts,
             "mean_diameter_um": w["mean_diameter_um"],
             "budget_used_pct": w["budget_used_pct"],
             "days_to_limit": w["days_to_limit"],

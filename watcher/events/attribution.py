@@ -29,19 +29,19 @@ class EventCost:
     settled: bool  # False when the window ends before the event's recovery tail
 
 
-def _without(events, t, air, t0_s: float, setpoint_c: float, first_row: int) -> np.ndarray:
+def _without(events, t, air, t0_ts: float, setpoint_c: float, first_row: int) -> np.ndarray:
     """Air rows: row 0 as recorded, rows before first_row also as recorded (the caller edits
     them), then one row per event with the air held at the setpoint while the event lasted. A
     sample at t_k holds until t_{k+1}: every sample whose hold overlaps the event is replaced."""
     rows = np.repeat(air[None, :], first_row + len(events), axis=0)
-    prev = np.concatenate(([t0_s], t[:-1]))
+    prev = np.concatenate(([t0_ts], t[:-1]))
     for k, e in enumerate(events, start=first_row):
-        end = e.end_s if e.end_s is not None else t[-1]
-        rows[k, (t > e.start_s) & (prev < end)] = setpoint_c
+        end = e.end_ts if e.end_ts is not None else t[-1]
+        rows[k, (t > e.start_ts) & (prev < end)] = setpoint_c
     return rows
 
 
-def _costs(spec: Spec, mean: np.ndarray, events, first_row: int, window_end_s: float, tail_s: float):
+def _costs(spec: Spec, mean: np.ndarray, events, first_row: int, window_end_ts: float, tail_s: float):
     """Per-event costs from settled mean diameters (rows, P): row 0 against each event's row."""
     l0, lim = spec.profile.initial.mean_diameter_um, spec.profile.limit_mean_diameter_um
     span = lim**3 - l0**3
@@ -50,14 +50,14 @@ def _costs(spec: Spec, mean: np.ndarray, events, first_row: int, window_end_s: f
         diff = mean[0] - mean[k]
         share = 100.0 * (mean[0] ** 3 - mean[k] ** 3) / span
         worst = int(np.nanargmax(share))
-        end = e.end_s if e.end_s is not None else window_end_s
+        end = e.end_ts if e.end_ts is not None else window_end_ts
         costs.append(
             EventCost(
                 e,
                 float(diff[worst]),
                 float(share[worst]),
                 {p.name: float(d) for p, d in zip(spec.positions, diff)},
-                bool(end + tail_s <= window_end_s),
+                bool(end + tail_s <= window_end_ts),
             )
         )
     return costs
@@ -75,28 +75,35 @@ class DayGrowth:
 
 
 def day_growth(
-    spec: Spec, start: State, t_s, air_c, setpoint_c: float, day_start_s: float, day_end_s: float, events: list[Event]
+    spec: Spec,
+    start: State,
+    time_ts,
+    air_c,
+    setpoint_c: float,
+    day_start_ts: float,
+    day_end_ts: float,
+    events: list[Event],
 ) -> DayGrowth:
     """One day's growth split into the baseline at setpoint and the excess by cause.
 
-    `start` lies at or before day_start_s; the history runs past day_end_s into the recovery
+    `start` lies at or before day_start_ts; the history runs past day_end_ts into the recovery
     tail. Rows: 0 as recorded; 1 with the air at the setpoint for the whole day; then one row per
     event of the day with only that event removed. The baseline is row 1's growth over the day;
     the excess and the event costs are compared at the end of the history.
     """
-    t = np.asarray(t_s, float)
+    t = np.asarray(time_ts, float)
     air = np.asarray(air_c, float)
-    before, during = t <= day_start_s, t > day_start_s
+    before, during = t <= day_start_ts, t > day_start_ts
     state = start
     if before.any():
         state, _ = advance(spec, start, t[before], air[None, before])
     mean_start = outputs(spec, state)["mean_diameter_um"][0]
     t, air = t[during], air[during]
-    rows = _without(events, t, air, state.t_s, setpoint_c, first_row=2)
-    prev = np.concatenate(([state.t_s], t[:-1]))
-    rows[1, (t > day_start_s) & (prev < day_end_s)] = setpoint_c
+    rows = _without(events, t, air, state.time_ts, setpoint_c, first_row=2)
+    prev = np.concatenate(([state.time_ts], t[:-1]))
+    rows[1, (t > day_start_ts) & (prev < day_end_ts)] = setpoint_c
     state = tile_state(state, rows.shape[0])
-    first = t <= day_end_s
+    first = t <= day_end_ts
     state, _ = advance(spec, state, t[first], rows[:, first])
     end_state = tile_state(state, 1, 0)
     mean_day_end = outputs(spec, state)["mean_diameter_um"]
@@ -126,19 +133,19 @@ def default_tail_s(spec: Spec) -> float:
 
 
 def attribute(
-    spec: Spec, start: State, t_s, air_c, setpoint_c: float, events: list[Event], tail_s: float | None = None
+    spec: Spec, start: State, time_ts, air_c, setpoint_c: float, events: list[Event], tail_s: float | None = None
 ) -> tuple[list[EventCost], dict]:
-    """Costs of `events` over the history (t_s, air_c) that follows `start` (one zone).
+    """Costs of `events` over the history (time_ts, air_c) that follows `start` (one zone).
 
     All rows are compared at the end of the window. Excess in um is what a microscope would
     see then; it slowly shrinks as crystals grow (the same ice spread on larger crystals), while
     the budget share, on L^3, persists. Returns the costs and a summary: total excess against
     holding the setpoint, the sum of event costs and the unattributed remainder.
     """
-    t = np.asarray(t_s, float)
+    t = np.asarray(time_ts, float)
     air = np.asarray(air_c, float)
     tail = default_tail_s(spec) if tail_s is None else tail_s
-    air_rows = _without(events, t, air, start.t_s, setpoint_c, first_row=1)
+    air_rows = _without(events, t, air, start.time_ts, setpoint_c, first_row=1)
     state, _ = advance(spec, tile_state(start, len(events) + 1), t, air_rows)
     out = outputs(spec, state)
     costs = _costs(spec, out["mean_diameter_um"], events, 1, t[-1], tail)

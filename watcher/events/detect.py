@@ -31,14 +31,14 @@ RECOVERY_TOLERANCE_K = 0.3  # sensor noise allowed while the air pulls down afte
 @dataclass(frozen=True)
 class Event:
     kind: str  # "door", "defrost" or "excursion"
-    start_s: float
-    end_s: float | None  # None: still going on at the end of the data
+    start_ts: float
+    end_ts: float | None  # None: still going on at the end of the data
     peak_c: float | None = None
     source: str = "signal"  # "signal" or "inferred"
 
     @property
     def duration_s(self) -> float | None:
-        return None if self.end_s is None else self.end_s - self.start_s
+        return None if self.end_ts is None else self.end_ts - self.start_ts
 
 
 @dataclass(frozen=True)
@@ -68,11 +68,11 @@ class DefrostShape:
     max_period_s: float = 24 * 3600.0
 
 
-def state_intervals(t_s: np.ndarray, state: np.ndarray, kind: str) -> list[Event]:
+def state_intervals(time_ts: np.ndarray, state: np.ndarray, kind: str) -> list[Event]:
     """Open/closed (or on/off) readings to intervals; repeated states are ignored."""
     events: list[Event] = []
     start = None
-    for t, s in zip(np.asarray(t_s, float), np.asarray(state, float)):
+    for t, s in zip(np.asarray(time_ts, float), np.asarray(state, float)):
         if s >= 0.5 and start is None:
             start = float(t)
         elif s < 0.5 and start is not None:
@@ -83,17 +83,17 @@ def state_intervals(t_s: np.ndarray, state: np.ndarray, kind: str) -> list[Event
     return events
 
 
-def _baseline(t_s: np.ndarray, air_c: np.ndarray, window_s: float, every_s: float = 600.0) -> np.ndarray:
+def _baseline(time_ts: np.ndarray, air_c: np.ndarray, window_s: float, every_s: float = 600.0) -> np.ndarray:
     """A running low quantile (25 %) of the air over the preceding window: the cold, settled
     level. Recomputed every `every_s` and held in between. The window start is found by time;
     the quantiles of all refresh points are taken in one vectorised call per window length."""
-    n = t_s.size
+    n = time_ts.size
     refresh = [0]
     for i in range(1, n):  # the samples where the value is recomputed
-        if t_s[i] - t_s[refresh[-1]] >= every_s:
+        if time_ts[i] - time_ts[refresh[-1]] >= every_s:
             refresh.append(i)
     idx = np.array(refresh)
-    lo = np.searchsorted(t_s, t_s[idx] - window_s, side="left")
+    lo = np.searchsorted(time_ts, time_ts[idx] - window_s, side="left")
     values = np.empty(idx.size)
     lengths = idx - lo + 1
     for length in np.unique(lengths):  # regular data: one or two distinct lengths
@@ -107,7 +107,7 @@ def _baseline(t_s: np.ndarray, air_c: np.ndarray, window_s: float, every_s: floa
     return out
 
 
-def _episodes(t_s: np.ndarray, excess: np.ndarray, threshold: float) -> list[tuple[int, int]]:
+def _episodes(time_ts: np.ndarray, excess: np.ndarray, threshold: float) -> list[tuple[int, int]]:
     """Index ranges [i, j] where excess stays above threshold."""
     above = excess > threshold
     edges = np.flatnonzero(np.diff(above.astype(np.int8)))
@@ -121,12 +121,12 @@ def _episodes(t_s: np.ndarray, excess: np.ndarray, threshold: float) -> list[tup
 
 
 def _overlaps(a0: float, a1: float, events: list[Event]) -> bool:
-    return any(e.start_s <= a1 and (e.end_s is None or e.end_s >= a0) for e in events)
+    return any(e.start_ts <= a1 and (e.end_ts is None or e.end_ts >= a0) for e in events)
 
 
-def infer_defrosts(t_s, air_c, doors: list[Event] = (), shape: DefrostShape = DefrostShape()) -> list[Event]:
+def infer_defrosts(time_ts, air_c, doors: list[Event] = (), shape: DefrostShape = DefrostShape()) -> list[Event]:
     """Defrost cycles inferred from the air temperature pattern."""
-    t = np.asarray(t_s, float)
+    t = np.asarray(time_ts, float)
     air = np.asarray(air_c, float)
     if t.size < 3:
         return []
@@ -157,7 +157,7 @@ def _regular(candidates: list[Event], shape: DefrostShape) -> list[Event]:
     """
     if len(candidates) < 3:
         return []
-    starts = np.array([c.start_s for c in candidates])
+    starts = np.array([c.start_ts for c in candidates])
     diffs = (starts[None, :] - starts[:, None]).ravel()
     diffs = diffs[(diffs >= shape.min_period_s) & (diffs <= shape.max_period_s)]
     if diffs.size == 0:
@@ -171,14 +171,14 @@ def _regular(candidates: list[Event], shape: DefrostShape) -> list[Event]:
     tol = max(600.0, shape.period_tolerance * period)
     kept = []
     for c in candidates:
-        gaps = np.abs(starts - c.start_s)
+        gaps = np.abs(starts - c.start_ts)
         if np.any((np.abs(gaps - period) <= tol) | (np.abs(gaps - 2 * period) <= tol)):
             kept.append(c)
     return kept
 
 
 def excursions(
-    t_s,
+    time_ts,
     air_c,
     setpoint_c: float,
     explained: list[Event],
@@ -192,7 +192,7 @@ def excursions(
     the air is falling (no warmer than when the defrost ended). Door openings explain only the
     time the door is open: a fault that keeps warming between door openings must not hide
     behind them, so a burst of openings can show as an excursion (a loading operation)."""
-    t = np.asarray(t_s, float)
+    t = np.asarray(time_ts, float)
     air = np.asarray(air_c, float)
     if t.size < 2:
         return []
@@ -205,8 +205,8 @@ def excursions(
         seg, warm = t[i : j + 1], air[i : j + 1]
         mask = np.zeros(seg.size, bool)
         for e in explained:
-            e_end = e.end_s if e.end_s is not None else float(t[-1])
-            mask |= (seg >= e.start_s) & (seg <= e_end)
+            e_end = e.end_ts if e.end_ts is not None else float(t[-1])
+            mask |= (seg >= e.start_ts) & (seg <= e_end)
             if e.kind == "defrost":
                 after = (seg > e_end) & (seg <= e_end + defrost_recovery_s)
                 if after.any():

@@ -18,7 +18,7 @@ AIR_RANGE_C = (-80.0, 60.0)
 
 @dataclass(frozen=True)
 class Series:
-    t_s: np.ndarray
+    time_ts: np.ndarray
     air_c: np.ndarray
     product_c: np.ndarray | None
 

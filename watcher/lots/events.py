@@ -37,9 +37,9 @@ class LotEvent:
     note: str | None = None
 
 
-def parse_time(raw, where: str, received_s: float) -> float:
+def parse_time(raw, where: str, received_ts: float) -> float:
     if raw is None:
-        return received_s
+        return received_ts
     if isinstance(raw, (int, float)) and not isinstance(raw, bool) and math.isfinite(raw):
         if not 0.0 <= raw <= LATEST_S:
             raise InputError(f"{where}: time", str(raw)[:40], "epoch seconds between 1970 and 9999")
@@ -54,7 +54,7 @@ def parse_time(raw, where: str, received_s: float) -> float:
     raise InputError(f"{where}: time", str(raw)[:40], "ISO 8601 or epoch seconds")
 
 
-def parse_event(doc, where: str, zones: set[str], products: set[str], received_s: float) -> LotEvent:
+def parse_event(doc, where: str, zones: set[str], products: set[str], received_ts: float) -> LotEvent:
     """One lot event from its JSON-shaped dict; InputError naming the field otherwise."""
     if not isinstance(doc, dict):
         raise InputError(where, str(doc)[:60], "a JSON object with event, lot, zone, time")
@@ -71,8 +71,8 @@ def parse_event(doc, where: str, zones: set[str], products: set[str], received_s
         zone = None
     elif zone not in zones:
         raise InputError(f"{where}: zone", str(zone)[:64], "one of " + ", ".join(sorted(zones)))
-    ts = parse_time(doc.get("time"), where, received_s)
-    if ts > received_s + 300.0:
+    ts = parse_time(doc.get("time"), where, received_ts)
+    if ts > received_ts + 300.0:
         raise InputError(f"{where}: time", _when(ts), "a time no more than 300 s ahead of the clock")
     product = doc.get("product")
     if kind == "arrive":

@@ -50,32 +50,32 @@ def _scaled(spec: Spec, state: State, mean_um: float) -> State:
     return st
 
 
-def start_state(spec: Spec, t0_s: float, air0_c: float, setpoint_c: float, initial: dict) -> State:
-    """The lot's state at its arrival (t0_s) in a zone whose air is air0_c."""
+def start_state(spec: Spec, t0_ts: float, air0_c: float, setpoint_c: float, initial: dict) -> State:
+    """The lot's state at its arrival (t0_ts) in a zone whose air is air0_c."""
     kind = initial.get("kind", "fresh")
     if kind == "fresh":
-        return new_state(spec, t0_s, air0_c, setpoint_c)
+        return new_state(spec, t0_ts, air0_c, setpoint_c)
     if kind == "mean_diameter_um":
-        return _scaled(spec, new_state(spec, t0_s, air0_c, setpoint_c), float(initial["value"]))
+        return _scaled(spec, new_state(spec, t0_ts, air0_c, setpoint_c), float(initial["value"]))
     if kind == "budget_used_pct":
         size = _budget_size_um(spec, float(initial["value"]) / 100.0)
-        return _scaled(spec, new_state(spec, t0_s, air0_c, setpoint_c), size)
+        return _scaled(spec, new_state(spec, t0_ts, air0_c, setpoint_c), size)
     if kind == "history":
         t = np.array([p[0] for p in initial["points"]], dtype=float)
         c = np.array([p[1] for p in initial["points"]], dtype=float)
-        keep = t < t0_s
+        keep = t < t0_ts
         t, c = t[keep], c[keep]
         if t.size == 0:
-            return new_state(spec, t0_s, air0_c, setpoint_c)
+            return new_state(spec, t0_ts, air0_c, setpoint_c)
         st = new_state(spec, t[0], c[0], setpoint_c)
         # The history's last value is held until the arrival, where the lot enters the zone.
-        st, _ = advance(spec, st, np.append(t[1:], t0_s), np.append(c[1:], air0_c)[None, :])
+        st, _ = advance(spec, st, np.append(t[1:], t0_ts), np.append(c[1:], air0_c)[None, :])
         return st
     raise InputError("lot initial state", kind, "fresh, mean_diameter_um, budget_used_pct or history")
 
 
 def lot_figures(spec: Spec, state: State) -> dict:
-    """The lot's figures at state.t_s, worst position first: budget used, mean crystal size,
+    """The lot's figures at state.time_ts, worst position first: budget used, mean crystal size,
     days to the limit at current conditions, product temperature."""
     out = outputs(spec, state)
     budget = out["budget_used_pct"][0]
@@ -91,7 +91,7 @@ def lot_figures(spec: Spec, state: State) -> dict:
         return round(float(finite.min()), 3) if finite.size else None
 
     return {
-        "t_s": state.t_s,
+        "time_ts": state.time_ts,
         "worst_position": spec.positions[worst].name,
         "budget_used_pct": value("budget_used_pct"),
         "budget_used_pct_low": value("budget_used_pct_low"),

@@ -37,12 +37,12 @@ def reduced_um3_for_budget(spec, budget_pct) -> np.ndarray:
     return pop.reduced_time_to(spec.master, x) * ini.mean_diameter_um**3
 
 
-def additive_budget_pct(spec, t_s, air_c, product0_c=None, start_budget_pct=0.0) -> np.ndarray:
-    """Budget (%) by the additive rule after air rows air_c (Z, K) sampled at t_s (K,), per zone
+def additive_budget_pct(spec, time_ts, air_c, product0_c=None, start_budget_pct=0.0) -> np.ndarray:
+    """Budget (%) by the additive rule after air rows air_c (Z, K) sampled at time_ts (K,), per zone
     row and exposure position (Z, P), starting from start_budget_pct: the product follows the
     air with each position's lag (probe positions follow the air), from product0_c (Z, P) or
     the first air value. Air is held from one sample to the next, as in the integrator."""
-    t = np.asarray(t_s, dtype=float)
+    t = np.asarray(time_ts, dtype=float)
     air = np.atleast_2d(np.asarray(air_c, dtype=float))
     z = air.shape[0]
     dt = np.diff(t)

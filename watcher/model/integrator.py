@@ -107,21 +107,25 @@ class Spec:
         return ice_fraction(temp_c, ice.water_fraction, ice.bound_water_fraction, ice.initial_freezing_point_c)
 
 
+# State's field names in checkpoints written before instants were named `_ts`.
+LEGACY_FIELDS = {"t_s": "time_ts", "thawed_at_s": "thawed_ts"}
+
+
 @dataclass
 class State:
     """Integrator state for Z zones, P positions (R = P + 1 rows with the counterfactual)."""
 
-    t_s: float
+    time_ts: float
     setpoint_c: np.ndarray  # (Z,)
-    air_c: np.ndarray  # (Z,) air value held since t_s
+    air_c: np.ndarray  # (Z,) air value held since time_ts
     probe_c: np.ndarray  # (Z,) last probe value, NaN before any
-    product_c: np.ndarray  # (Z, P) product temperature at t_s
+    product_c: np.ndarray  # (Z, P) product temperature at time_ts
     ub: np.ndarray  # (Z, R, C+1) class-cell boundaries in u = d^3, um^3
     nc: np.ndarray  # (Z, R, C) class number weights
     acc_theta: np.ndarray  # (Z, R) reduced time of the open macro, um^3
     acc_ice_min: np.ndarray  # (Z, P) lowest ice fraction in the open macro
     peak_budget: np.ndarray  # (Z, R) running maximum of the budget fraction
-    thawed_at_s: np.ndarray  # (Z, P) time the position thawed, NaN if never
+    thawed_ts: np.ndarray  # (Z, P) time the position thawed, NaN if never
     l0_um: float = 35.0
 
     def copy(self) -> State:
@@ -140,8 +144,9 @@ class State:
 
     @classmethod
     def from_arrays(cls, data: dict) -> State:
+        data = {LEGACY_FIELDS.get(k, k): v for k, v in data.items()}  # checkpoints written before the rename
         kw = {f.name: np.array(data[f.name]) for f in fields(cls)}
-        kw["t_s"] = float(kw["t_s"])
+        kw["time_ts"] = float(kw["time_ts"])
         kw["l0_um"] = float(kw["l0_um"])
         return cls(**kw)
 
@@ -150,7 +155,7 @@ class State:
 class Trace:
     """Values at the end of every completed macro interval of one ``advance`` call."""
 
-    t_s: np.ndarray = field(default_factory=lambda: np.empty(0))
+    time_ts: np.ndarray = field(default_factory=lambda: np.empty(0))
     mean_diameter_um: np.ndarray = field(default_factory=lambda: np.empty((0, 0, 0)))  # (T, Z, R)
     budget_fraction: np.ndarray = field(default_factory=lambda: np.empty((0, 0, 0)))  # (T, Z, R)
     product_c: np.ndarray = field(default_factory=lambda: np.empty((0, 0, 0)))  # (T, Z, P)
@@ -169,8 +174,8 @@ def tile_state(state: State, rows: int, zone: int = 0) -> State:
     return State(**kw)
 
 
-def new_state(spec: Spec, t0_s: float, air0_c, setpoint_c, probe0_c=None) -> State:
-    """A fresh population for each zone at t0_s; the product starts equilibrated with the air
+def new_state(spec: Spec, t0_ts: float, air0_c, setpoint_c, probe0_c=None) -> State:
+    """A fresh population for each zone at t0_ts; the product starts equilibrated with the air
     (or at the probe reading for probe positions)."""
     air0 = np.atleast_1d(np.asarray(air0_c, dtype=float))
     z = air0.size
@@ -192,9 +197,9 @@ def new_state(spec: Spec, t0_s: float, air0_c, setpoint_c, probe0_c=None) -> Sta
     u = np.broadcast_to(ub0, ice_set.shape + ub0.shape).copy()
     gone = np.concatenate([ice_now <= 0, (ice_set[:, -1:] <= 0)], axis=1)
     n[gone] = 0.0
-    thawed = np.where(gone[:, :n_pos], float(t0_s), np.nan)
+    thawed = np.where(gone[:, :n_pos], float(t0_ts), np.nan)
     return State(
-        t_s=float(t0_s),
+        time_ts=float(t0_ts),
         setpoint_c=sp,
         air_c=air0.copy(),
         probe_c=probe0,
@@ -204,7 +209,7 @@ def new_state(spec: Spec, t0_s: float, air0_c, setpoint_c, probe0_c=None) -> Sta
         acc_theta=np.zeros((z, n_pos + 1)),
         acc_ice_min=ice_now.copy(),
         peak_budget=np.zeros((z, n_pos + 1)),
-        thawed_at_s=thawed,
+        thawed_ts=thawed,
         l0_um=float(ini.mean_diameter_um),
     )
 
@@ -280,25 +285,25 @@ def _product_paths(spec: Spec, state: State, air: np.ndarray, probe_in: np.ndarr
     return temp, theta
 
 
-def advance(spec: Spec, state: State, t_s, air_c, probe_c=None, trace: bool = False) -> tuple[State, Trace | None]:
-    """Integrate samples (t_s: (K,), air_c: (Z, K), probe_c: (Z, K) with NaN for none).
+def advance(spec: Spec, state: State, time_ts, air_c, probe_c=None, trace: bool = False) -> tuple[State, Trace | None]:
+    """Integrate samples (time_ts: (K,), air_c: (Z, K), probe_c: (Z, K) with NaN for none).
 
     Returns a new state (the input state is not modified) and, when asked, a Trace.
     """
     st = state.copy()
-    t = np.asarray(t_s, dtype=float)
+    t = np.asarray(time_ts, dtype=float)
     air_new = np.asarray(air_c, dtype=float).reshape(st.air_c.size, -1)
     if t.size == 0:
         return st, (Trace() if trace else None)
-    if t[0] <= st.t_s or (t.size > 1 and np.any(np.diff(t) <= 0)):
-        raise ModelError(f"sample times must increase strictly after {st.t_s}; got {t[:3]}...")
+    if t[0] <= st.time_ts or (t.size > 1 and np.any(np.diff(t) <= 0)):
+        raise ModelError(f"sample times must increase strictly after {st.time_ts}; got {t[:3]}...")
     if not np.all(np.isfinite(air_new)):
         raise ModelError("air temperatures must be finite numbers")
     macro = spec.macro_s
-    k0 = math.floor(st.t_s / macro) + 1
+    k0 = math.floor(st.time_ts / macro) + 1
     k1 = math.ceil(t[-1] / macro)
     bounds = np.arange(k0, k1, dtype=np.float64) * macro
-    grid = _refine(np.concatenate(([st.t_s], np.union1d(t, bounds))), spec.panel_s)
+    grid = _refine(np.concatenate(([st.time_ts], np.union1d(t, bounds))), spec.panel_s)
     dt = np.diff(grid)
     idx = np.searchsorted(t, grid[:-1], side="right")  # samples at or before each start
     air = np.concatenate([st.air_c[:, None], air_new], axis=1)[:, idx]
@@ -342,8 +347,8 @@ def advance(spec: Spec, state: State, t_s, air_c, probe_c=None, trace: bool = Fa
         t_end = grid[ends[s] + 1]
         mean = pop.mean_diameter(*_settled(spec, u, n, st.setpoint_c, n_pos)).reshape(z, n_pos + 1)
         st.peak_budget = np.fmax(st.peak_budget, _budget_fraction(spec, mean))
-        newly = (pop.count(u, n).reshape(z, n_pos + 1)[:, :n_pos] <= 0) & np.isnan(st.thawed_at_s)
-        st.thawed_at_s[newly] = t_end
+        newly = (pop.count(u, n).reshape(z, n_pos + 1)[:, :n_pos] <= 0) & np.isnan(st.thawed_ts)
+        st.thawed_ts[newly] = t_end
         if trace:
             rec.append((t_end, mean, st.peak_budget.copy(), temp[..., ends[s] + 1]))
     if last_complete:
@@ -352,7 +357,7 @@ def advance(spec: Spec, state: State, t_s, air_c, probe_c=None, trace: bool = Fa
     else:
         st.acc_theta = theta_seg[..., -1].copy()
         st.acc_ice_min = ice_min_seg[..., -1].copy()
-    st.t_s = float(t[-1])
+    st.time_ts = float(t[-1])
     st.air_c = air_new[:, -1].copy()
     st.probe_c = probe_ext[:, -1].copy()
     st.product_c = temp[..., -1].copy()
@@ -362,7 +367,7 @@ def advance(spec: Spec, state: State, t_s, air_c, probe_c=None, trace: bool = Fa
     out_trace = None
     if trace:
         out_trace = Trace(
-            t_s=np.array([r[0] for r in rec]),
+            time_ts=np.array([r[0] for r in rec]),
             mean_diameter_um=np.array([r[1] for r in rec]).reshape(len(rec), z, n_pos + 1),
             budget_fraction=np.array([r[2] for r in rec]).reshape(len(rec), z, n_pos + 1),
             product_c=np.array([r[3] for r in rec]).reshape(len(rec), z, n_pos),
@@ -433,7 +438,7 @@ def _ahead(spec: Spec, mean_um: np.ndarray, product_c: np.ndarray) -> dict[str, 
 
 
 def outputs(spec: Spec, state: State) -> dict[str, np.ndarray]:
-    """The figures of section 5 per zone and position at state.t_s, open macro included.
+    """The figures of section 5 per zone and position at state.time_ts, open macro included.
 
     Keys (arrays of shape (Z, P) unless noted): mean_diameter_um, d90_um,
     share_above_limit (volume share of crystals above the limit), budget_used_pct,
@@ -461,7 +466,7 @@ def outputs(spec: Spec, state: State) -> dict[str, np.ndarray]:
     lm = mean[:, :n_pos]
     ahead = _ahead(spec, lm, state.product_c)
     budget_pct = 100.0 * budget[:, :n_pos]
-    thawed = ~np.isnan(state.thawed_at_s) | (state.product_c >= spec.profile.ice.initial_freezing_point_c)
+    thawed = ~np.isnan(state.thawed_ts) | (state.product_c >= spec.profile.ice.initial_freezing_point_c)
     nan = np.nan
     return {
         "mean_diameter_um": np.where(thawed, nan, lm),

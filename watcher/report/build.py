@@ -64,7 +64,7 @@ class Section:
 class Report:
     site: Site
     week: Week
-    generated_s: float
+    generated_ts: float
     summary: str
     zones: list[ZoneSection]
     sections: list[Section]
@@ -155,7 +155,7 @@ def zone_section(sw: SiteWeek, zone) -> ZoneSection:
     m = sw.models.get(zone.id)
     ev = sw.events[sw.events["zone"] == zone.id]
     tz, week = sw.site.timezone, sw.week
-    doors, by_hour = door_figures(ev, tz, week.end_s)
+    doors, by_hour = door_figures(ev, tz, week.end_ts)
     start = m.budget_start_pct if m else None
     end = m.budget_end_pct if m else None
     budget = {
@@ -170,7 +170,7 @@ def zone_section(sw: SiteWeek, zone) -> ZoneSection:
         "limit_um": zone.profile.limit_mean_diameter_um,
         "position": m.position if m else None,
     }
-    temps = temperature_table(m, zone.setpoint_c, week.end_s) if m else pd.DataFrame()
+    temps = temperature_table(m, zone.setpoint_c, week.end_ts) if m else pd.DataFrame()
     growth = growth_table(sw.daily, zone.id)
     sec = ZoneSection(
         zone=zone.id,
@@ -182,12 +182,12 @@ def zone_section(sw: SiteWeek, zone) -> ZoneSection:
         temperatures=temps,
         doors=doors,
         doors_by_hour=by_hour,
-        defrosts=defrost_figures(ev, sw.readings[sw.readings["zone"] == zone.id], week.end_s),
+        defrosts=defrost_figures(ev, sw.readings[sw.readings["zone"] == zone.id], week.end_ts),
         excursions=event_list(ev, "excursion", tz),
         growth=growth,
     )
     sec.charts["trace"] = charts.zone_chart(
-        m, ev, zone.setpoint_c, tz, week.start_s, week.end_s, f"{zone.name}: temperatures and crystal size"
+        m, ev, zone.setpoint_c, tz, week.start_ts, week.end_ts, f"{zone.name}: temperatures and crystal size"
     )
     if len(growth):
         sec.charts["growth"] = charts.growth_bars(growth, f"{zone.name}: growth per day by cause")
@@ -196,18 +196,18 @@ def zone_section(sw: SiteWeek, zone) -> ZoneSection:
     return sec
 
 
-def build(store: Store, cfg: Config, site: Site, week: Week, generated_s: float) -> Report:
+def build(store: Store, cfg: Config, site: Site, week: Week, generated_ts: float) -> Report:
     sw = load(store, cfg, site, week)
     zones = [zone_section(sw, z) for z in sw.zones]
-    alerts = alert_table(sw.alerts, site.timezone, week.end_s)
-    comp = completeness(sw.readings, week.end_s - week.start_s)
+    alerts = alert_table(sw.alerts, site.timezone, week.end_ts)
+    comp = completeness(sw.readings, week.end_ts - week.start_ts)
     gaps = sw.gaps.assign(minutes=(sw.gaps["seconds"] / 60.0).round(1)) if len(sw.gaps) else sw.gaps
     heads = store.record.heads()
     lots = lots_table(store, cfg, site, week)
     return Report(
         site=site,
         week=week,
-        generated_s=generated_s,
+        generated_ts=generated_ts,
         summary=summary_text(site, week, zones, alerts, comp, gaps),
         zones=zones,
         sections=[

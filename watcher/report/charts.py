@@ -43,26 +43,26 @@ def _svg(fig) -> str:
     return text[text.index("<svg") :]
 
 
-def _times(t_s, tz: str):
-    return pd.to_datetime(pd.Series(t_s, dtype="float64"), unit="s", utc=True).dt.tz_convert(tz)
+def _times(time_ts, tz: str):
+    return pd.to_datetime(pd.Series(time_ts, dtype="float64"), unit="s", utc=True).dt.tz_convert(tz)
 
 
 def zone_chart(
-    model, events: pd.DataFrame, setpoint_c: float, tz: str, start_s: float, end_s: float, title: str
+    model, events: pd.DataFrame, setpoint_c: float, tz: str, start_ts: float, end_ts: float, title: str
 ) -> str:
     """Air and estimated product temperature with defrosts and door openings marked; below,
     the predicted mean crystal diameter against the limit."""
     fig, (top, bottom) = plt.subplots(2, 1, figsize=(7.0, 3.9), sharex=True, height_ratios=(3, 2))
-    x0, x1 = _times([start_s, end_s], tz)
-    if model is not None and model.t_s.size:
-        step = max(1, model.t_s.size // 2000)  # keep the SVG small: at most ~2000 points a line
-        t = _times(model.t_s[::step], tz)
+    x0, x1 = _times([start_ts, end_ts], tz)
+    if model is not None and model.time_ts.size:
+        step = max(1, model.time_ts.size // 2000)  # keep the SVG small: at most ~2000 points a line
+        t = _times(model.time_ts[::step], tz)
         top.plot(t, model.air_c[::step], color=AIR, lw=0.8, label="air")
         top.plot(t, model.product_c[::step], color=PRODUCT, lw=1.1, label="product (est.)")
     top.axhline(setpoint_c, color="#555", lw=0.7, ls="--", label=f"setpoint {setpoint_c:g} C")
     top.axhline(-18.0, color="#999", lw=0.7, ls=":", label="-18 C benchmark")
     for r in events.itertuples():
-        a, b = _times([max(r.start_ts, start_s), min(r.end_ts if pd.notna(r.end_ts) else end_s, end_s)], tz)
+        a, b = _times([max(r.start_ts, start_ts), min(r.end_ts if pd.notna(r.end_ts) else end_ts, end_ts)], tz)
         if r.kind == "defrost":
             top.axvspan(a, b, color="#e0a030", alpha=0.25, lw=0)
         elif r.kind == "excursion":
@@ -81,9 +81,9 @@ def zone_chart(
         color="#666",
         va="top",
     )
-    if model is not None and model.trace_t_s.size:
+    if model is not None and model.trace_ts.size:
         bottom.plot(
-            _times(model.trace_t_s, tz),
+            _times(model.trace_ts, tz),
             model.mean_diameter_um,
             color=SIZE,
             lw=1.2,
@@ -125,17 +125,17 @@ def hour_bars(by_hour: pd.DataFrame, title: str) -> str:
     return _svg(fig)
 
 
-def whatif_chart(result: dict, t_s, tz: str, title: str) -> str:
+def whatif_chart(result: dict, time_ts, tz: str, title: str) -> str:
     """The recorded and the changed air above; the texture budget used by each below."""
     fig, (top, bottom) = plt.subplots(2, 1, figsize=(7.0, 3.9), sharex=True, height_ratios=(1, 1))
-    step = max(1, len(t_s) // 2000)
-    t = _times(np.asarray(t_s)[::step], tz)
+    step = max(1, len(time_ts) // 2000)
+    t = _times(np.asarray(time_ts)[::step], tz)
     top.plot(t, np.asarray(result["air_recorded_c"])[::step], color="#9aa5b1", lw=0.8, label="air as recorded")
     top.plot(t, np.asarray(result["air_changed_c"])[::step], color=AIR, lw=0.9, label="air with the change")
     top.set_ylabel("C")
     top.set_title(title, loc="left", fontsize=9)
     top.legend(loc="upper right", ncol=2, fontsize=6.5, frameon=False)
-    tt = _times(result["trace_t_s"], tz)
+    tt = _times(result["trace_ts"], tz)
     bottom.plot(tt, result["trace_recorded_pct"], color="#9aa5b1", lw=1.2, label="as recorded")
     bottom.plot(tt, result["trace_changed_pct"], color=SIZE, lw=1.2, label="with the change")
     bottom.set_ylabel("% of texture budget")

@@ -30,10 +30,10 @@ from watcher.store.zones import unpack_state
 @dataclass
 class ZoneModel:
     start_note: str  # where the week's model run started from
-    t_s: np.ndarray  # air sample times in the week
+    time_ts: np.ndarray  # air sample times in the week
     air_c: np.ndarray
     product_c: np.ndarray  # the warmest exposure position at each sample
-    trace_t_s: np.ndarray  # hourly
+    trace_ts: np.ndarray  # hourly
     mean_diameter_um: np.ndarray  # hourly, the worst position at the week's end
     position: str
     budget_start_pct: float | None
@@ -70,7 +70,7 @@ def load(store: Store, cfg: Config, site: Site, week: Week) -> SiteWeek:
     zones = [z for z in cfg.zones if z.site == site.id]
     ids = tuple(z.id for z in zones)
     days = tuple(d for d, _, _ in week.days())
-    tables = {k: _frame(t) for k, t in store.reports.week_tables(ids, week.start_s, week.end_s, days).items()}
+    tables = {k: _frame(t) for k, t in store.reports.week_tables(ids, week.start_ts, week.end_ts, days).items()}
     events = tables["events"]
     details = [json.loads(d) for d in events["detail"]] if len(events) else []
     for key in ("source", "peak_c", "excess_um", "budget_share_pct", "cost"):
@@ -87,22 +87,22 @@ def load(store: Store, cfg: Config, site: Site, week: Week) -> SiteWeek:
 def zone_model(store: Store, zone: Zone, week: Week) -> ZoneModel | None:
     spec = Spec(zone.profile, zone.positions)
     key = spec_key(zone)
-    snap = store.snapshots.before(zone.id, week.start_s, key)
+    snap = store.snapshots.before(zone.id, week.start_ts, key)
     note = "from the model state saved before the week began"
     if snap is None:
-        snap = store.snapshots.first_after(zone.id, week.start_s, week.end_s, key)
+        snap = store.snapshots.first_after(zone.id, week.start_ts, week.end_ts, key)
         note = "from the first model state saved inside the week (no earlier state: figures cover part of the week)"
     if snap is None:
         return None
     state = State.from_arrays(unpack_state(snap[1]))
-    t, air = binned_air(store.readings.signals(zone.id, ("air_c",), state.t_s, week.end_s))
-    t, air = t[t > state.t_s], air[t > state.t_s]
-    before = t <= week.start_s
+    t, air = binned_air(store.readings.signals(zone.id, ("air_c",), state.time_ts, week.end_ts))
+    t, air = t[t > state.time_ts], air[t > state.time_ts]
+    before = t <= week.start_ts
     if before.any():
         state, _ = advance(spec, state, t[before], air[None, before])
     t, air = t[~before], air[~before]
     start_rows = position_rows(spec, outputs(spec, state))
-    start_air, start_t, start_product = float(state.air_c[0]), state.t_s, state.product_c[0].copy()
+    start_air, start_t, start_product = float(state.air_c[0]), state.time_ts, state.product_c[0].copy()
     end_state, trace = advance(spec, state, t, air[None, :], trace=True) if t.size else (state, None)
     end_rows = position_rows(spec, outputs(spec, end_state))
     worst = worst_position(end_rows)
@@ -117,10 +117,10 @@ def zone_model(store: Store, zone: Zone, week: Week) -> ZoneModel | None:
     product = np.max(lagged, axis=0) if lagged else np.full(t.size, np.nan)
     return ZoneModel(
         start_note=note,
-        t_s=t,
+        time_ts=t,
         air_c=air,
         product_c=product,
-        trace_t_s=trace.t_s if trace is not None else np.empty(0),
+        trace_ts=trace.time_ts if trace is not None else np.empty(0),
         mean_diameter_um=trace.mean_diameter_um[:, 0, w] if trace is not None else np.empty(0),
         position=worst,
         budget_start_pct=start_rows[worst]["budget_used_pct"],

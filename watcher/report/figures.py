@@ -18,15 +18,15 @@ def _local(ts, tz: str) -> pd.Series:
     return pd.to_datetime(pd.Series(ts, dtype="float64"), unit="s", utc=True).dt.tz_convert(tz)
 
 
-def _hours_above(t_s: np.ndarray, v: np.ndarray, level: float, end_s: float) -> float:
-    """Hours a held series spends above level (each sample holds until the next, the last to end_s)."""
-    if t_s.size == 0:
+def _hours_above(time_ts: np.ndarray, v: np.ndarray, level: float, end_ts: float) -> float:
+    """Hours a held series spends above level (each sample holds until the next, the last to end_ts)."""
+    if time_ts.size == 0:
         return 0.0
-    dt = np.diff(np.concatenate((t_s, [end_s])))
+    dt = np.diff(np.concatenate((time_ts, [end_ts])))
     return float(dt[v > level].sum() / 3600.0)
 
 
-def temperature_table(m: ZoneModel, setpoint_c: float, end_s: float) -> pd.DataFrame:
+def temperature_table(m: ZoneModel, setpoint_c: float, end_ts: float) -> pd.DataFrame:
     rows = []
     for name, values in (("air", m.air_c), ("product (estimated, warmest position)", m.product_c)):
         s = pd.Series(values, dtype="float64").dropna()
@@ -38,7 +38,7 @@ def temperature_table(m: ZoneModel, setpoint_c: float, end_s: float) -> pd.DataF
             (setpoint_c + 3.0, f"setpoint +3 K ({setpoint_c + 3:g} C)")
         ]
         for level, label in levels:
-            row[f"hours above {label}"] = _hours_above(m.t_s, np.asarray(values), level, end_s)
+            row[f"hours above {label}"] = _hours_above(m.time_ts, np.asarray(values), level, end_ts)
         rows.append(row)
     return pd.DataFrame(rows)
 
@@ -107,31 +107,31 @@ def growth_table(daily: pd.DataFrame, zone: str) -> pd.DataFrame:
     return out
 
 
-def alert_table(alerts: pd.DataFrame, tz: str, week_end_s: float) -> pd.DataFrame:
+def alert_table(alerts: pd.DataFrame, tz: str, week_end_ts: float) -> pd.DataFrame:
     if alerts.empty:
         columns = ["id", "zone", "severity", "what", "raised", "acknowledged", "minutes_to_ack", "cleared", "status"]
         return pd.DataFrame(columns=[*columns, "open_at_week_end"])
-    to_ack = (alerts["acked_s"] - alerts["raised_s"]) / 60.0
+    to_ack = (alerts["acked_ts"] - alerts["raised_ts"]) / 60.0
     return pd.DataFrame(
         {
             "id": alerts["id"].values,
             "zone": alerts["zone"].values,
             "severity": alerts["severity"].values,
             "what": alerts["label"].values,
-            "raised": _local(alerts["raised_s"], tz).dt.strftime("%a %d %b %H:%M").values,
+            "raised": _local(alerts["raised_ts"], tz).dt.strftime("%a %d %b %H:%M").values,
             "acknowledged": [
                 "" if pd.isna(by) else f"{by}, {t}"
-                for by, t in zip(alerts["acked_by"], _local(alerts["acked_s"].fillna(0), tz).dt.strftime("%a %H:%M"))
+                for by, t in zip(alerts["acked_by"], _local(alerts["acked_ts"].fillna(0), tz).dt.strftime("%a %H:%M"))
             ],
             "minutes_to_ack": to_ack.round(1).values,
             "cleared": [
                 "" if pd.isna(c) else v
                 for c, v in zip(
-                    alerts["cleared_s"], _local(alerts["cleared_s"].fillna(0), tz).dt.strftime("%a %d %b %H:%M")
+                    alerts["cleared_ts"], _local(alerts["cleared_ts"].fillna(0), tz).dt.strftime("%a %d %b %H:%M")
                 )
             ],
             "status": alerts["status"].values,
-            "open_at_week_end": (alerts["cleared_s"].isna() | (alerts["cleared_s"] >= week_end_s)).values,
+            "open_at_week_end": (alerts["cleared_ts"].isna() | (alerts["cleared_ts"] >= week_end_ts)).values,
         }
     )
 

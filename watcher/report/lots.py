@@ -39,15 +39,15 @@ def lots_table(store, cfg, site, week) -> pd.DataFrame:
     for item in store.lots.overview():
         periods = stays(item["history"])
         here = [
-            (z, a, b) for z, a, b in periods if z in zone_ids and a < week.end_s and (b is None or b > week.start_s)
+            (z, a, b) for z, a, b in periods if z in zone_ids and a < week.end_ts and (b is None or b > week.start_ts)
         ]
         if not here:
             continue
-        until = week.end_s if item["departed_s"] is None else min(week.end_s, item["departed_s"])
+        until = week.end_ts if item["departed_ts"] is None else min(week.end_ts, item["departed_ts"])
         state = recompute_lot(cfg, store, item["lot"], until)
         f = lot_figures(keeper.spec(item["product"]), state)
         zone = next((z for z, a, b in reversed(periods) if a < until), here[-1][0])
-        departed = item["departed_s"] is not None and item["departed_s"] <= week.end_s
+        departed = item["departed_ts"] is not None and item["departed_ts"] <= week.end_ts
         days, budget = f["days_to_limit"], f["budget_used_pct"]
         cautious = cautious_days(f)
         rows.append(

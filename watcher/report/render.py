@@ -195,8 +195,8 @@ def to_html(r: Report) -> str:
     tz = r.site.timezone
     title = f"Texture watch, week {r.week.label}: {r.site.name or r.site.id}"
     body = [
-        f"<header><h1>{html.escape(title)}</h1><p>{_local(r.week.start_s, tz)} to {_local(r.week.end_s, tz)} "
-        f"({r.week.end_s / 3600 - r.week.start_s / 3600:.0f} h). Generated {_local(r.generated_s, tz)}.</p></header>",
+        f"<header><h1>{html.escape(title)}</h1><p>{_local(r.week.start_ts, tz)} to {_local(r.week.end_ts, tz)} "
+        f"({r.week.end_ts / 3600 - r.week.start_ts / 3600:.0f} h). Generated {_local(r.generated_ts, tz)}.</p></header>",
         f'<p class="summary">{html.escape(r.summary)}</p>',
         "<h2>At a glance</h2>",
         table_html(_glance(r)),
@@ -247,9 +247,9 @@ def to_json(r: Report) -> dict:
         "site_name": r.site.name,
         "week": r.week.label,
         "timezone": r.site.timezone,
-        "start_s": r.week.start_s,
-        "end_s": r.week.end_s,
-        "generated_s": r.generated_s,
+        "start_ts": r.week.start_ts,
+        "end_ts": r.week.end_ts,
+        "generated_ts": r.generated_ts,
         "summary": r.summary,
         "zones": [
             {

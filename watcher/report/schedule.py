@@ -11,17 +11,17 @@ from watcher.report.week import Week, last_complete_week
 from watcher.store.db import Store
 
 
-def due_weeks(store: Store, cfg: Config, now_s: float) -> list[tuple[Site, Week]]:
+def due_weeks(store: Store, cfg: Config, now_ts: float) -> list[tuple[Site, Week]]:
     """(site, week) pairs whose scheduled summary is due and not yet produced by the schedule."""
     if not cfg.reports.enabled:
         return []
     out = []
     for site in cfg.sites or (Site("site", "", "UTC"),):
-        week = last_complete_week(now_s, site.timezone)
-        end_local = dt.datetime.fromtimestamp(week.end_s, ZoneInfo(site.timezone))
+        week = last_complete_week(now_ts, site.timezone)
+        end_local = dt.datetime.fromtimestamp(week.end_ts, ZoneInfo(site.timezone))
         due_day = end_local.date() + dt.timedelta(days=cfg.reports.weekday)
         due = dt.datetime.combine(due_day, dt.time(cfg.reports.at_minutes // 60, cfg.reports.at_minutes % 60))
-        if now_s < due.replace(tzinfo=ZoneInfo(site.timezone)).timestamp():
+        if now_ts < due.replace(tzinfo=ZoneInfo(site.timezone)).timestamp():
             continue
         if not store.reports.scheduled(site.id, week.label):
             out.append((site, week))

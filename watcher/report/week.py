@@ -14,12 +14,12 @@ from watcher.errors import InputError
 class Week:
     label: str  # "2026-W48"
     tz: str
-    start_s: float  # Monday 00:00 local
-    end_s: float  # the next Monday 00:00 local (a DST week is 167 or 169 hours long)
+    start_ts: float  # Monday 00:00 local
+    end_ts: float  # the next Monday 00:00 local (a DST week is 167 or 169 hours long)
 
     def days(self) -> list[tuple[str, float, float]]:
         zone = ZoneInfo(self.tz)
-        first = dt.datetime.fromtimestamp(self.start_s, zone).date()
+        first = dt.datetime.fromtimestamp(self.start_ts, zone).date()
         out = []
         for i in range(7):
             d = first + dt.timedelta(days=i)
@@ -44,10 +44,10 @@ def week_of(label: str, tz: str) -> Week:
     return Week(f"{year}-W{num:02d}", tz, start, end)
 
 
-def week_containing(t_s: float, tz: str) -> Week:
-    y, w, _ = dt.datetime.fromtimestamp(t_s, ZoneInfo(tz)).isocalendar()
+def week_containing(time_ts: float, tz: str) -> Week:
+    y, w, _ = dt.datetime.fromtimestamp(time_ts, ZoneInfo(tz)).isocalendar()
     return week_of(f"{y}-W{w:02d}", tz)
 
 
-def last_complete_week(now_s: float, tz: str) -> Week:
-    return week_containing(week_containing(now_s, tz).start_s - 1.0, tz)
+def last_complete_week(now_ts: float, tz: str) -> Week:
+    return week_containing(week_containing(now_ts, tz).start_ts - 1.0, tz)

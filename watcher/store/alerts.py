@@ -20,15 +20,15 @@ ALERT_COLUMNS = (
     "metric",
     "threshold",
     "status",
-    "since_s",
-    "raised_s",
+    "since_ts",
+    "raised_ts",
     "value",
     "worst_value",
-    "acked_s",
+    "acked_ts",
     "acked_by",
     "ack_note",
-    "cleared_s",
-    "escalated_s",
+    "cleared_ts",
+    "escalated_ts",
     "repeats",
 )
 
@@ -51,8 +51,8 @@ class Alerts(Repo):
         sets = ", ".join(f"{k} = ?" for k in fields)
         self.conn.execute(f"UPDATE alerts SET {sets} WHERE id = ?", (*fields.values(), alert_id))
 
-    def log_add(self, alert_id: int, step: str, at_s: float, wall_s: float, value=None, by=None, note=None):
-        log_step(self.conn, alert_id, step, at_s, wall_s, value, by, note)
+    def log_add(self, alert_id: int, step: str, at_ts: float, wall_ts: float, value=None, by=None, note=None):
+        log_step(self.conn, alert_id, step, at_ts, wall_ts, value, by, note)
 
     def list(self, open_only: bool = False, limit: int = 500) -> list[dict]:
         sql = f"SELECT {', '.join(ALERT_COLUMNS)} FROM alerts"
@@ -67,7 +67,7 @@ class Alerts(Repo):
 
     def log(self, alert_id: int) -> list[tuple]:
         return self.conn.execute(
-            "SELECT step, at_s, wall_s, value, by, note FROM alert_log WHERE alert_id = ? ORDER BY id", (alert_id,)
+            "SELECT step, at_ts, wall_ts, value, by, note FROM alert_log WHERE alert_id = ? ORDER BY id", (alert_id,)
         ).fetchall()
 
     def open_id(self, zone: str, rule: str) -> int | None:
@@ -80,9 +80,9 @@ class Alerts(Repo):
         return None if row is None else row[0]
 
     def steps_after(self, log_id: int, steps: tuple[str, ...]) -> list[tuple]:
-        """(log id, step, at_s, zone, severity, label) of alert log rows after log_id."""
+        """(log id, step, at_ts, zone, severity, label) of alert log rows after log_id."""
         return self.conn.execute(
-            "SELECT l.id, l.step, l.at_s, a.zone, a.severity, a.label FROM alert_log l JOIN alerts a "
+            "SELECT l.id, l.step, l.at_ts, a.zone, a.severity, a.label FROM alert_log l JOIN alerts a "
             f"ON a.id = l.alert_id WHERE l.id > ? AND l.step IN ({marks(len(steps))}) ORDER BY l.id",
             (log_id, *steps),
         ).fetchall()
@@ -91,20 +91,22 @@ class Alerts(Repo):
 class Commands(Repo):
     """Acknowledgements asked for (by the command line or MQTT), done by the writer."""
 
-    def add(self, alert_id: int, by: str, note: str | None, source: str, sender: str | None, now_s: float):
+    def add(self, alert_id: int, by: str, note: str | None, source: str, sender: str | None, now_ts: float):
         cur = self.conn.execute(
-            "INSERT INTO alert_commands (alert_id, by, note, source, sender, received_s) VALUES (?,?,?,?,?,?)",
-            (alert_id, by, note, source, sender, now_s),
+            "INSERT INTO alert_commands (alert_id, by, note, source, sender, received_ts) VALUES (?,?,?,?,?,?)",
+            (alert_id, by, note, source, sender, now_ts),
         )
         return int(cur.lastrowid)
 
     def pending(self) -> list[tuple]:
         return self.conn.execute(
-            "SELECT id, alert_id, by, note, source, sender FROM alert_commands WHERE done_s IS NULL ORDER BY id"
+            "SELECT id, alert_id, by, note, source, sender FROM alert_commands WHERE done_ts IS NULL ORDER BY id"
         ).fetchall()
 
-    def done(self, command_id: int, now_s: float, result: str) -> None:
-        self.conn.execute("UPDATE alert_commands SET done_s = ?, result = ? WHERE id = ?", (now_s, result, command_id))
+    def done(self, command_id: int, now_ts: float, result: str) -> None:
+        self.conn.execute(
+            "UPDATE alert_commands SET done_ts = ?, result = ? WHERE id = ?", (now_ts, result, command_id)
+        )
 
     def result(self, command_id: int) -> str | None:
         row = self.conn.execute("SELECT result FROM alert_commands WHERE id = ?", (command_id,)).fetchone()
@@ -144,6 +146,6 @@ class Events(Repo):
         self.conn.execute("DELETE FROM events WHERE id = ?", (event_id,))
 
 
-def log_step(conn, alert_id: int, step: str, at_s: float, wall_s: float, value=None, by=None, note=None) -> None:
+def log_step(conn, alert_id: int, step: str, at_ts: float, wall_ts: float, value=None, by=None, note=None) -> None:
     """One chained row of an alert's log (the outbox adds `sent` steps through this too)."""
-    conn.execute(ALERT_LOG_INSERT, chain.params((alert_id, step, at_s, wall_s, value, by, note)))
+    conn.execute(ALERT_LOG_INSERT, chain.params((alert_id, step, at_ts, wall_ts, value, by, note)))

@@ -30,13 +30,13 @@ import time
 from dataclasses import dataclass
 
 READING_FIELDS = ("zone", "sensor", "signal", "ts", "value", "received_ts", "topic", "late")
-ALERT_LOG_FIELDS = ("alert_id", "step", "at_s", "wall_s", "value", "by", "note")
+ALERT_LOG_FIELDS = ("alert_id", "step", "at_ts", "wall_ts", "value", "by", "note")
 EVENT_LOG_FIELDS = ("event_id", "op", "zone", "kind", "start_ts", "end_ts", "detail")
-LOT_EVENT_FIELDS = ("lot", "kind", "zone", "ts", "source", "sender", "received_s", "note", "detail")
+LOT_EVENT_FIELDS = ("lot", "kind", "zone", "ts", "source", "sender", "received_ts", "note", "detail")
 REJECTION_FIELDS = ("received_ts", "topic", "reason", "payload", "n")
-FOLD_FIELDS = ("tbl", "zone", "next_id", "prev_chain", "cutoff_ts", "folded", "wall_s")
-LOGS = (("alert_log", ALERT_LOG_FIELDS, "wall_s"), ("event_log", EVENT_LOG_FIELDS, None))
-LOGS += (("lot_events", LOT_EVENT_FIELDS, "received_s"), ("rejections", REJECTION_FIELDS, "received_ts"))
+FOLD_FIELDS = ("tbl", "zone", "next_id", "prev_chain", "cutoff_ts", "folded", "wall_ts")
+LOGS = (("alert_log", ALERT_LOG_FIELDS, "wall_ts"), ("event_log", EVENT_LOG_FIELDS, None))
+LOGS += (("lot_events", LOT_EVENT_FIELDS, "received_ts"), ("rejections", REJECTION_FIELDS, "received_ts"))
 CHAINED_TABLES = tuple((name, "id") for name in ("readings", *(t for t, _, _ in LOGS))) + (("chain_folds", "rowid"),)
 MIN_RETENTION_S = 366 * 86400.0  # storage.raw_retention_days cannot be set lower
 CLOCK_SLACK_S = 86400.0
@@ -75,16 +75,19 @@ def params(values: tuple, zone: str | None = None) -> tuple:
     return (*values, zone, *values) if zone is not None else (*values, *values)
 
 
-def add_fold(conn, table: str, zone: str, links, folded: int, cutoff_ts: float, wall_s: float | None) -> None:
-    """Record one retention pass (and its links) in the chained fold record."""
+def add_fold(
+    conn, table: str, zone: str, links, folded: int, cutoff_ts: float, wall_ts: float | None, fields=FOLD_FIELDS
+) -> None:
+    """Record one retention pass (and its links) in the chained fold record (fields: the
+    columns' names, which an old migration gives as they were then)."""
     row = conn.execute("SELECT chain FROM chain_folds ORDER BY rowid DESC LIMIT 1").fetchone()
     prev = row[0] if row else None
-    rows = [(table, zone, 0, None, cutoff_ts, folded, wall_s)]
-    rows += [(table, zone, next_id, prev_chain, cutoff_ts, 0, wall_s) for next_id, prev_chain in links]
+    rows = [(table, zone, 0, None, cutoff_ts, folded, wall_ts)]
+    rows += [(table, zone, next_id, prev_chain, cutoff_ts, 0, wall_ts) for next_id, prev_chain in links]
     for values in rows:
         prev = chain_hash(prev, *values)
         conn.execute(
-            f"INSERT INTO chain_folds ({', '.join(FOLD_FIELDS)}, chain) VALUES ({', '.join('?' * 8)})", (*values, prev)
+            f"INSERT INTO chain_folds ({', '.join(fields)}, chain) VALUES ({', '.join('?' * 8)})", (*values, prev)
         )
 
 
@@ -149,7 +152,7 @@ def _plans(conn, since_ts) -> list[tuple]:
     return plans
 
 
-def verify(conn, since_ts: float | None = None, now_s: float | None = None) -> tuple[list[Finding], dict[str, int]]:
+def verify(conn, since_ts: float | None = None, now_ts: float | None = None) -> tuple[list[Finding], dict[str, int]]:
     """Walk every chain, then check what chains cannot show (folds, lengths, missing zones).
 
     Returns the findings (the first break of each chain, then every missing part) and rows
@@ -182,7 +185,7 @@ def verify(conn, since_ts: float | None = None, now_s: float | None = None) -> t
     counts["chain_folds"] = len(fold_rows)
     if fold_break is not None:
         findings.append(fold_break)
-    findings += check_folds(conn, fold_rows, meta, now_s)
+    findings += check_folds(conn, fold_rows, meta, now_ts)
     findings += check_lengths(conn, fold_rows)
     return findings, counts
 
@@ -210,32 +213,32 @@ def _passes(fold_rows: list[dict]) -> list[dict]:
     return [r for r in fold_rows if not r["next_id"] and r.get("cutoff_ts") is not None]
 
 
-def check_folds(conn, fold_rows: list[dict], meta: dict, now_s: float | None) -> list[Finding]:
+def check_folds(conn, fold_rows: list[dict], meta: dict, now_ts: float | None) -> list[Finding]:
     """A retention pass cuts at least the shortest retention before it ran, never runs in the
     future, and the readings it folded are in the hourly aggregates."""
-    now_s = time.time() if now_s is None else now_s
+    now_ts = time.time() if now_ts is None else now_ts
     out = []
     legacy_until = meta.get("legacy_folds_until", 0.0)
     for p in _passes(fold_rows):
         name = f"{p['tbl']}/{p['zone']}" if p["tbl"] == "readings" else p["tbl"]
-        if p["wall_s"] is None:
+        if p["wall_ts"] is None:
             if p["rowid"] > legacy_until:
                 out.append(Finding("chain_folds", p["rowid"], f"{name}: a retention pass without its time"))
             continue
-        if p["wall_s"] > now_s + CLOCK_SLACK_S:
+        if p["wall_ts"] > now_ts + CLOCK_SLACK_S:
             out.append(
                 Finding(
-                    "chain_folds", p["rowid"], f"{name}: a retention pass dated in the future ({_iso(p['wall_s'])})"
+                    "chain_folds", p["rowid"], f"{name}: a retention pass dated in the future ({_iso(p['wall_ts'])})"
                 )
             )
-        elif p["cutoff_ts"] > p["wall_s"] - MIN_RETENTION_S + CLOCK_SLACK_S:
-            days = (p["wall_s"] - p["cutoff_ts"]) / 86400.0
+        elif p["cutoff_ts"] > p["wall_ts"] - MIN_RETENTION_S + CLOCK_SLACK_S:
+            days = (p["wall_ts"] - p["cutoff_ts"]) / 86400.0
             out.append(
                 Finding(
                     "chain_folds",
                     p["rowid"],
                     f"{name}: {p['folded']} rows deleted up to {_iso(p['cutoff_ts'])}, only {days:.0f} days before the "
-                    f"pass at {_iso(p['wall_s'])}; retention keeps at least 366 days",
+                    f"pass at {_iso(p['wall_ts'])}; retention keeps at least 366 days",
                     "MISSING",
                 )
             )
@@ -337,12 +340,12 @@ def check_reports(conn) -> list[Finding]:
     out = []
     have = lengths(conn)
     folded_after: dict[str, float] = {}
-    for tbl, zone, wall_s in conn.execute(
-        "SELECT tbl, zone, max(wall_s) FROM chain_folds WHERE next_id = 0 GROUP BY tbl, zone"
+    for tbl, zone, wall_ts in conn.execute(
+        "SELECT tbl, zone, max(wall_ts) FROM chain_folds WHERE next_id = 0 GROUP BY tbl, zone"
     ):
-        folded_after[f"readings/{zone}" if tbl == "readings" else tbl] = wall_s if wall_s is not None else math.inf
-    for site, week, generated_s, heads_json in conn.execute(
-        "SELECT site, week, generated_s, heads FROM reports ORDER BY generated_s"
+        folded_after[f"readings/{zone}" if tbl == "readings" else tbl] = wall_ts if wall_ts is not None else math.inf
+    for site, week, generated_ts, heads_json in conn.execute(
+        "SELECT site, week, generated_ts, heads FROM reports ORDER BY generated_ts"
     ):
         where = f"the {site} summary for {week}"
         for name, printed in json.loads(heads_json).items():
@@ -350,7 +353,7 @@ def check_reports(conn) -> list[Finding]:
             table = name.split("/")[0]
             id_col = "rowid" if table == "chain_folds" else "id"
             row = conn.execute(f"SELECT chain FROM {table} WHERE {id_col} = ?", (row_id,)).fetchone()
-            if row is None and folded_after.get(name, -math.inf) < generated_s:
+            if row is None and folded_after.get(name, -math.inf) < generated_ts:
                 out.append(Finding(name, row_id, f"this row, printed as the head in {where}, is gone", "MISSING"))
             elif row is not None and row[0] != value:
                 out.append(Finding(name, row_id, f"differs from the head printed in {where}"))

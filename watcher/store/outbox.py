@@ -18,7 +18,7 @@ class Outbox(Repo):
         title: str,
         body: str,
         tags: list[str],
-        now_s: float,
+        now_ts: float,
         channels: list[str | None] = (None,),
         dedupe: str | None = None,
         alert_id: int | None = None,
@@ -30,14 +30,14 @@ class Outbox(Repo):
         for ch in channels:
             key = None if dedupe is None else f"{dedupe}@{ch or '-'}"
             cur = self.conn.execute(
-                "INSERT OR IGNORE INTO outbox (created_s, tags, title, body, next_try_s, channel, dedupe, alert_id, "
+                "INSERT OR IGNORE INTO outbox (created_ts, tags, title, body, next_try_ts, channel, dedupe, alert_id, "
                 "attach, status) VALUES (?,?,?,?,?,?,?,?,?,?)",
                 (
-                    now_s,
+                    now_ts,
                     json.dumps(sorted(tags)),
                     title,
                     body,
-                    now_s,
+                    now_ts,
                     ch,
                     key,
                     alert_id,
@@ -48,12 +48,12 @@ class Outbox(Repo):
             added += cur.rowcount
         return added
 
-    def due(self, now_s: float, limit: int = 50) -> list[tuple]:
+    def due(self, now_ts: float, limit: int = 50) -> list[tuple]:
         """(id, channel, title, body, attempts, attach, maybe_repeat) of pending rows due now, oldest first."""
         return self.conn.execute(
             "SELECT id, channel, title, body, attempts, attach, maybe_repeat FROM outbox "
-            "WHERE status = 'pending' AND next_try_s <= ? ORDER BY id LIMIT ?",
-            (now_s, limit),
+            "WHERE status = 'pending' AND next_try_ts <= ? ORDER BY id LIMIT ?",
+            (now_ts, limit),
         ).fetchall()
 
     def mark_sending(self, row_id: int) -> None:
@@ -65,24 +65,24 @@ class Outbox(Repo):
             "UPDATE outbox SET status = 'pending', maybe_repeat = 1 WHERE status = 'sending'"
         ).rowcount
 
-    def record(self, row_id: int, status: str, result: str, log: str, now_s: float, next_try_s: float) -> None:
+    def record(self, row_id: int, status: str, result: str, log: str, now_ts: float, next_try_ts: float) -> None:
         self.conn.execute(
-            "UPDATE outbox SET status = ?, attempts = attempts + 1, last_result = ?, last_log = ?, next_try_s = ?, "
-            "sent_s = CASE WHEN ? = 'sent' THEN ? ELSE sent_s END, "
+            "UPDATE outbox SET status = ?, attempts = attempts + 1, last_result = ?, last_log = ?, next_try_ts = ?, "
+            "sent_ts = CASE WHEN ? = 'sent' THEN ? ELSE sent_ts END, "
             "last_failure = CASE WHEN ? = 'sent' THEN last_failure ELSE ? END WHERE id = ?",
-            (status, result, log, next_try_s, status, now_s, status, f"{result}: {log}", row_id),
+            (status, result, log, next_try_ts, status, now_ts, status, f"{result}: {log}", row_id),
         )
         if status == "sent":  # the alert's own record shows each channel it reached
             alert_id, channel = self.conn.execute(
                 "SELECT alert_id, channel FROM outbox WHERE id = ?", (row_id,)
             ).fetchone()
             if alert_id is not None:
-                log_step(self.conn, alert_id, "sent", now_s, now_s, note=channel)
+                log_step(self.conn, alert_id, "sent", now_ts, now_ts, note=channel)
 
     def failing_channels(self) -> dict[str, float]:
-        """Channels with a message still pending after a failed attempt: name -> oldest created_s."""
+        """Channels with a message still pending after a failed attempt: name -> oldest created_ts."""
         rows = self.conn.execute(
-            "SELECT channel, min(created_s) FROM outbox WHERE status = 'pending' AND attempts > 0 "
+            "SELECT channel, min(created_ts) FROM outbox WHERE status = 'pending' AND attempts > 0 "
             "AND channel IS NOT NULL GROUP BY channel"
         )
         return {r[0]: r[1] for r in rows}

@@ -147,7 +147,7 @@ class Readings(Repo):
             out.append((sensor, signal, ts, value, since if since is not None else ts))
         return out
 
-    def fold(self, zone: str, upto_ts: float, wall_s: float) -> int:
+    def fold(self, zone: str, upto_ts: float, wall_ts: float) -> int:
         """Fold a zone's raw readings with ts <= upto_ts into hourly aggregates; return how many."""
         self.forget_heads()
         self.conn.execute(
@@ -159,7 +159,7 @@ class Readings(Repo):
             "max = max(max, excluded.max), n = n + excluded.n",
             (zone, upto_ts),
         )
-        return cut(self.conn, "readings", zone, "ts", upto_ts, wall_s)
+        return cut(self.conn, "readings", zone, "ts", upto_ts, wall_ts)
 
 
 class Rejections(Repo):
@@ -174,9 +174,9 @@ class Rejections(Repo):
         sql = "SELECT coalesce(sum(n), 0) FROM rejections WHERE received_ts >= ?"
         return self.conn.execute(sql, (since_ts,)).fetchone()[0]
 
-    def prune(self, upto_ts: float, wall_s: float) -> int:
+    def prune(self, upto_ts: float, wall_ts: float) -> int:
         """Delete rejections received at or before upto_ts (with the raw readings' retention)."""
-        return cut(self.conn, "rejections", "", "received_ts", upto_ts, wall_s)
+        return cut(self.conn, "rejections", "", "received_ts", upto_ts, wall_ts)
 
 
 class Held(Repo):
@@ -198,7 +198,7 @@ class Held(Repo):
         self.conn.executemany("DELETE FROM held WHERE id = ?", [(i,) for i in ids])
 
 
-def cut(conn, table: str, zone: str, time_col: str, upto_ts: float, wall_s: float) -> int:
+def cut(conn, table: str, zone: str, time_col: str, upto_ts: float, wall_ts: float) -> int:
     """Delete a chain's rows at or before the cut-off, keeping the chain verifiable: each
     surviving row's link to a deleted predecessor, and the pass itself (cut-off, rows, when),
     go into the chained fold record (store/chain.py checks them)."""
@@ -211,6 +211,6 @@ def cut(conn, table: str, zone: str, time_col: str, upto_ts: float, wall_s: floa
         f"lag({time_col}) OVER (ORDER BY id) AS prev_t FROM {table} WHERE {scope}1) WHERE t > ? AND prev_t <= ?",
         (*args, upto_ts, upto_ts),
     ).fetchall()
-    chain.add_fold(conn, table, zone, links, n, upto_ts, wall_s)
+    chain.add_fold(conn, table, zone, links, n, upto_ts, wall_ts)
     conn.execute(f"DELETE FROM {table} WHERE {scope}{time_col} <= ?", (*args, upto_ts))
     return n

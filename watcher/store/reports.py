@@ -18,10 +18,10 @@ def _table(conn, sql: str, args: tuple) -> Table:
 
 
 class Reports(Repo):
-    def add(self, site: str, week: str, generated_s: float, heads: dict, digest: str, files: dict) -> None:
+    def add(self, site: str, week: str, generated_ts: float, heads: dict, digest: str, files: dict) -> None:
         self.conn.execute(
-            "INSERT INTO reports (site, week, generated_s, heads, digest, files) VALUES (?,?,?,?,?,?)",
-            (site, week, generated_s, json.dumps(heads), digest, json.dumps(files)),
+            "INSERT INTO reports (site, week, generated_ts, heads, digest, files) VALUES (?,?,?,?,?,?)",
+            (site, week, generated_ts, json.dumps(heads), digest, json.dumps(files)),
         )
 
     def scheduled(self, site: str, week: str) -> bool:
@@ -30,17 +30,17 @@ class Reports(Repo):
         return self.conn.execute(sql, (site, week)).fetchone() is not None
 
     def week_tables(
-        self, zone_ids: tuple[str, ...], start_s: float, end_s: float, days: tuple[str, ...]
+        self, zone_ids: tuple[str, ...], start_ts: float, end_ts: float, days: tuple[str, ...]
     ) -> dict[str, Table]:
-        return week_tables(self.conn, zone_ids, start_s, end_s, days)
+        return week_tables(self.conn, zone_ids, start_ts, end_ts, days)
 
 
 def week_tables(
-    conn, zone_ids: tuple[str, ...], start_s: float, end_s: float, days: tuple[str, ...]
+    conn, zone_ids: tuple[str, ...], start_ts: float, end_ts: float, days: tuple[str, ...]
 ) -> dict[str, Table]:
     """Readings, events, alerts (with the service's and the site's lots'), their log, gaps,
-    rejections and daily growth of a site's zones for [start_s, end_s)."""
-    ids, s, e = zone_ids, start_s, end_s
+    rejections and daily growth of a site's zones for [start_ts, end_ts)."""
+    ids, s, e = zone_ids, start_ts, end_ts
     out = {
         "readings": _table(
             conn,
@@ -57,7 +57,7 @@ def week_tables(
         "alerts": _table(
             conn,
             f"SELECT * FROM alerts WHERE (zone IN ({marks(len(ids) + 1)}) OR zone IN (SELECT '{LOT_PREFIX}' || lot FROM lot_events "
-            f"WHERE zone IN ({marks(len(ids))}))) AND raised_s < ? AND (cleared_s IS NULL OR cleared_s >= ?) ORDER BY raised_s",
+            f"WHERE zone IN ({marks(len(ids))}))) AND raised_ts < ? AND (cleared_ts IS NULL OR cleared_ts >= ?) ORDER BY raised_ts",
             (*ids, SERVICE_KEY, *ids, e, s),
         ),
         "gaps": _table(
@@ -81,7 +81,7 @@ def week_tables(
     alert_ids = tuple(int(r[cols.index("id")]) for r in rows)
     out["alert_log"] = _table(
         conn,
-        f"SELECT alert_id, step, at_s, wall_s, by, note FROM alert_log WHERE alert_id IN ({marks(len(alert_ids))}) ORDER BY id",
+        f"SELECT alert_id, step, at_ts, wall_ts, by, note FROM alert_log WHERE alert_id IN ({marks(len(alert_ids))}) ORDER BY id",
         alert_ids,
     )
     return out

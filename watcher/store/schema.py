@@ -3,6 +3,8 @@ in order). A migration is never edited once released: change the schema with a n
 
 from __future__ import annotations
 
+import json
+
 import sqlite_utils
 from sqlite_utils.migrations import Migrations
 
@@ -193,7 +195,7 @@ def m008_record_seal(db: sqlite_utils.Database) -> None:
     for zone, n, last in conn.execute(
         "SELECT zone, sum(n), max(hour_ts) FROM readings_hourly GROUP BY zone"
     ).fetchall():
-        chain.add_fold(conn, "readings", zone, [], n, last + 3600.0, None)
+        chain.add_fold(conn, "readings", zone, [], n, last + 3600.0, None, (*chain.FOLD_FIELDS[:-1], "wall_s"))
     legacy = conn.execute("SELECT coalesce(max(rowid), 0) FROM chain_folds").fetchone()[0]
     conn.execute("INSERT INTO record_meta (key, value) VALUES ('legacy_folds_until', ?)", (legacy,))
 
@@ -209,3 +211,62 @@ def m009_held(db: sqlite_utils.Database) -> None:
         );
         """
     )
+
+
+# Instants are `_ts`, durations `_s` (DEVELOPERS.md, Conventions): the columns and stored JSON
+# keys that held an instant under an `_s` name, renamed once. Values and hashes are unchanged.
+INSTANT_RENAMES = {
+    "outbox": {"created_s": "created_ts", "next_try_s": "next_try_ts", "sent_s": "sent_ts"},
+    "alerts": {
+        "since_s": "since_ts",
+        "raised_s": "raised_ts",
+        "acked_s": "acked_ts",
+        "cleared_s": "cleared_ts",
+        "escalated_s": "escalated_ts",
+    },
+    "alert_log": {"at_s": "at_ts", "wall_s": "wall_ts"},
+    "alert_commands": {"received_s": "received_ts", "done_s": "done_ts"},
+    "zone_snapshots": {"t_s": "time_ts"},
+    "daily_growth": {"start_s": "start_ts", "end_s": "end_ts"},
+    "reports": {"generated_s": "generated_ts"},
+    "lots": {"created_s": "created_ts"},
+    "lot_events": {"received_s": "received_ts"},
+    "lot_state": {"t_s": "time_ts", "updated_s": "updated_ts"},
+    "chain_folds": {"wall_s": "wall_ts"},
+}
+JSON_KEY_RENAMES = {
+    "since_s": "since_ts",
+    "raised_s": "raised_ts",
+    "notified_s": "notified_ts",
+    "acked_s": "acked_ts",
+    "clearing_since_s": "clearing_since_ts",
+    "model_time_s": "model_time_ts",
+    "t_s": "time_ts",
+}
+
+
+def _renamed_keys(value):
+    if isinstance(value, dict):
+        return {JSON_KEY_RENAMES.get(k, k): _renamed_keys(v) for k, v in value.items()}
+    if isinstance(value, list):
+        return [_renamed_keys(v) for v in value]
+    return value
+
+
+@migrations()
+def m010_instant_names(db: sqlite_utils.Database) -> None:
+    """One naming rule for time: instants end in `_ts`, durations in `_s`."""
+    conn = db.conn
+    for table, renames in INSTANT_RENAMES.items():
+        for old, new in renames.items():
+            conn.execute(f"ALTER TABLE {table} RENAME COLUMN {old} TO {new}")
+    for table, key, column in (
+        ("alert_state", "zone, rule", "state"),
+        ("zone_state", "zone", "figures"),
+        ("lot_state", "lot", "figures"),
+    ):
+        cols = key.split(", ")
+        for row in conn.execute(f"SELECT {key}, {column} FROM {table}").fetchall():
+            text = json.dumps(_renamed_keys(json.loads(row[-1])))
+            where = " AND ".join(f"{c} = ?" for c in cols)
+            conn.execute(f"UPDATE {table} SET {column} = ? WHERE {where}", (text, *row[:-1]))

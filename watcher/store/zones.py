@@ -108,39 +108,39 @@ class Gaps(Repo):
 
 
 class Snapshots(Repo):
-    def save(self, zone: str, t_s: float, spec_key: str, blob: bytes) -> None:
+    def save(self, zone: str, time_ts: float, spec_key: str, blob: bytes) -> None:
         self.conn.execute(
-            "INSERT OR REPLACE INTO zone_snapshots (zone, t_s, spec_key, state) VALUES (?,?,?,?)",
-            (zone, t_s, spec_key, blob),
+            "INSERT OR REPLACE INTO zone_snapshots (zone, time_ts, spec_key, state) VALUES (?,?,?,?)",
+            (zone, time_ts, spec_key, blob),
         )
 
-    def before(self, zone: str, t_s: float, spec_key: str) -> tuple[float, bytes] | None:
+    def before(self, zone: str, time_ts: float, spec_key: str) -> tuple[float, bytes] | None:
         return self.conn.execute(
-            "SELECT t_s, state FROM zone_snapshots WHERE zone = ? AND spec_key = ? AND t_s <= ? ORDER BY t_s DESC LIMIT 1",
-            (zone, spec_key, t_s),
+            "SELECT time_ts, state FROM zone_snapshots WHERE zone = ? AND spec_key = ? AND time_ts <= ? ORDER BY time_ts DESC LIMIT 1",
+            (zone, spec_key, time_ts),
         ).fetchone()
 
-    def first_after(self, zone: str, t0_s: float, t1_s: float, spec_key: str) -> tuple[float, bytes] | None:
+    def first_after(self, zone: str, t0_ts: float, t1_ts: float, spec_key: str) -> tuple[float, bytes] | None:
         return self.conn.execute(
-            "SELECT t_s, state FROM zone_snapshots WHERE zone = ? AND spec_key = ? AND t_s > ? AND t_s < ? "
-            "ORDER BY t_s LIMIT 1",
-            (zone, spec_key, t0_s, t1_s),
+            "SELECT time_ts, state FROM zone_snapshots WHERE zone = ? AND spec_key = ? AND time_ts > ? AND time_ts < ? "
+            "ORDER BY time_ts LIMIT 1",
+            (zone, spec_key, t0_ts, t1_ts),
         ).fetchone()
 
     def first_ts(self, zone: str, spec_key: str) -> float | None:
         return self.conn.execute(
-            "SELECT min(t_s) FROM zone_snapshots WHERE zone = ? AND spec_key = ?", (zone, spec_key)
+            "SELECT min(time_ts) FROM zone_snapshots WHERE zone = ? AND spec_key = ?", (zone, spec_key)
         ).fetchone()[0]
 
     def drop(self, zone: str, before_ts: float | None = None, after_ts: float | None = None) -> None:
         if before_ts is not None:  # older than that, keep the first of each UTC day (for reports)
             self.conn.execute(
-                "DELETE FROM zone_snapshots WHERE zone = ? AND t_s < ? AND t_s NOT IN ("
-                "SELECT min(t_s) FROM zone_snapshots WHERE zone = ? GROUP BY CAST(t_s / 86400 AS INTEGER))",
+                "DELETE FROM zone_snapshots WHERE zone = ? AND time_ts < ? AND time_ts NOT IN ("
+                "SELECT min(time_ts) FROM zone_snapshots WHERE zone = ? GROUP BY CAST(time_ts / 86400 AS INTEGER))",
                 (zone, before_ts, zone),
             )
         if after_ts is not None:
-            self.conn.execute("DELETE FROM zone_snapshots WHERE zone = ? AND t_s >= ?", (zone, after_ts))
+            self.conn.execute("DELETE FROM zone_snapshots WHERE zone = ? AND time_ts >= ?", (zone, after_ts))
 
 
 class Daily(Repo):

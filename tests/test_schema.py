@@ -1,0 +1,70 @@
+"""A database written before a schema change opens with the new code: the migrations keep
+what it holds readable and its record verifiable (a real SQLite file, migrated in steps)."""
+
+import json
+import sqlite3
+
+import numpy as np
+import sqlite_utils
+
+from watcher.files.profiles import load_profile
+from watcher.model.integrator import Position, Spec, State, new_state
+from watcher.store.db import Store
+from watcher.store.schema import migrations
+from watcher.store.zones import pack_state, unpack_state
+
+
+def test_a_database_from_before_the_instant_rename_opens_and_verifies(tmp_path):
+    """Stored before instants were named `_ts` (and before the fold record): the columns, the
+    alert and figure JSON keys are renamed, retention's old folds still verify, and a lot's
+    figures and an alert's state read back under the new names."""
+    path = str(tmp_path / "old.db")
+    conn = sqlite3.connect(path, isolation_level=None)
+    db = sqlite_utils.Database(conn)
+    migrations.apply(db, stop_before="m008_record_seal")
+    conn.execute(
+        "INSERT INTO readings_hourly (zone, sensor, signal, hour_ts, mean, min, max, n) "
+        "VALUES ('bulk-a', 's1', 'air_c', 3600.0, -25.0, -25.5, -24.5, 60)"
+    )
+    migrations.apply(db, stop_before="m010_instant_names")  # m008 records that fold under its old names
+    state = {
+        "status": "open",
+        "since_s": 100.0,
+        "raised_s": 160.0,
+        "notified_s": 160.0,
+        "acked_s": None,
+        "clearing_since_s": None,
+        "alert_id": 1,
+    }
+    conn.execute("INSERT INTO alert_state (zone, rule, state) VALUES ('bulk-a', 'door-open', ?)", (json.dumps(state),))
+    conn.execute(
+        "INSERT INTO zone_state (zone, spec_key, sensors, figures, readings_total, updated_ts) VALUES (?,?,?,?,?,?)",
+        ("bulk-a", "k", "{}", json.dumps({"model_time_s": 7200.0, "budget_used_pct": 1.5}), 60, 7200.0),
+    )
+    conn.execute(
+        "INSERT INTO lot_state (lot, t_s, state, figures, updated_s) VALUES ('L1', 7200.0, x'00', ?, 7201.0)",
+        (json.dumps({"t_s": 7200.0, "budget_used_pct": 2.0}),),
+    )
+    conn.close()
+
+    store = Store(path)
+    try:
+        assert store.alerts.states()[("bulk-a", "door-open")]["raised_ts"] == 160.0
+        assert store.zones.rows()["bulk-a"].figures["model_time_ts"] == 7200.0
+        time_ts, _, figures = store.lots.state_get("L1")
+        assert (time_ts, figures["time_ts"]) == (7200.0, 7200.0)
+        findings, counts = store.record.verify()
+        assert findings == [] and counts["chain_folds"] == 1, (findings, counts)
+    finally:
+        store.close()
+
+
+def test_a_checkpoint_written_under_the_old_field_names_loads():
+    """A model state packed when its time fields were `t_s` and `thawed_at_s` loads unchanged."""
+    spec = Spec(load_profile("dairy-ice-cream"), (Position("core", 8 * 3600.0),))
+    state = new_state(spec, 0.0, -25.0, -25.0)
+    old = {
+        ("t_s" if k == "time_ts" else "thawed_at_s" if k == "thawed_ts" else k): v for k, v in state.arrays().items()
+    }
+    back = State.from_arrays(unpack_state(pack_state(old)))
+    assert back.time_ts == state.time_ts and np.array_equal(back.nc, state.nc)
