@@ -68,3 +68,32 @@ def test_a_checkpoint_written_under_the_old_field_names_loads():
     }
     back = State.from_arrays(unpack_state(pack_state(old)))
     assert back.time_ts == state.time_ts and np.array_equal(back.nc, state.nc)
+
+
+def test_database_errors_leave_the_store_as_the_error_tree(tmp_path):
+    """A read from a file that is not watcher's database is a StoreError (a storage fault),
+    a row the database refuses is RecordRefused (the data's fault): never a sqlite3 error."""
+    import pytest
+
+    from watcher.errors import RecordRefused, StoreError
+
+    other = tmp_path / "other.db"
+    sqlite3.connect(other).execute("CREATE TABLE something (x)").connection.commit()
+    reader = Store(str(other), readonly=True)
+    with pytest.raises(StoreError, match="no such table"):
+        reader.alerts.list()
+    reader.close()
+    store = Store(str(tmp_path / "w.db"))
+    with pytest.raises(RecordRefused, match="NOT NULL"), store.atomic():
+        store.alerts.add(
+            zone=None,
+            rule="r",
+            severity="warning",
+            label="l",
+            metric="air_c",
+            threshold=1.0,
+            status="open",
+            raised_ts=1.0,
+        )
+    assert store.alerts.list() == []
+    store.close()

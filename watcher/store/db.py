@@ -19,28 +19,19 @@ from pathlib import Path
 
 import sqlite_utils
 
-from watcher.errors import RecordRefused, StoreError
+from watcher.errors import StoreError
 from watcher.store import chain
 from watcher.store.alerts import Alerts, Commands, Events
 from watcher.store.lots import Lots
 from watcher.store.outbox import Outbox
 from watcher.store.readings import Held, Readings, Rejections
 from watcher.store.record import Record
+from watcher.store.repo import translate
 from watcher.store.reports import Reports
 from watcher.store.schema import migrations
 from watcher.store.zones import Daily, Gaps, Snapshots, Zones
 
 BUSY_TIMEOUT_MS = 30_000
-
-
-def is_storage_fault(exc: BaseException) -> bool:
-    """sqlite3's operational errors and OS errors are the storage's; integrity, interface and
-    programming errors (a value that cannot be bound, a broken constraint) are the data's."""
-    if isinstance(exc, StoreError):
-        return True
-    if isinstance(exc, (sqlite3.OperationalError, OSError)):
-        return True
-    return type(exc) in (sqlite3.DatabaseError, sqlite3.InternalError)
 
 
 def _connect(path: str, readonly: bool) -> sqlite3.Connection:
@@ -96,8 +87,7 @@ class Store:
                 yield
         except Exception as exc:
             self.readings.forget_heads()  # rolled back: cached chain heads may name lost rows
-            if is_storage_fault(exc):
-                raise StoreError(f"{self.path}: {type(exc).__name__}: {exc}") from exc
-            if isinstance(exc, sqlite3.Error):
-                raise RecordRefused(f"{self.path}: {type(exc).__name__}: {exc}") from exc
-            raise
+            mine = translate(exc, self.path)
+            if mine is None or mine is exc:
+                raise
+            raise mine from exc
