@@ -5,6 +5,7 @@ from __future__ import annotations
 import os
 import re
 import shutil
+import socket
 import subprocess
 import sys
 from pathlib import Path
@@ -134,21 +135,39 @@ def test_shipped_broker_limits_refuse_oversized_messages(tmp_path):
     broker = subprocess.Popen([MOSQUITTO, "-c", str(conf)], stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
     got: list[int] = []
     try:
-        import time
+        from tests.service_harness import wait_for
 
-        time.sleep(0.5)
+        def listening() -> bool:
+            try:
+                socket.create_connection(("127.0.0.1", port), timeout=1).close()
+                return True
+            except OSError:
+                return False
+
+        wait_for(listening, timeout=10, what="the broker to listen")
         sub = mqtt.Client(mqtt.CallbackAPIVersion.VERSION2, client_id="sub", protocol=mqtt.MQTTv5)
         sub.on_message = lambda c, u, m: got.append(len(m.payload))
+        granted: list[int] = []
+        sub.on_subscribe = lambda c, u, mid, codes, props: granted.append(mid)
         sub.connect("127.0.0.1", port)
         sub.subscribe("kp/#", qos=1)
         sub.loop_start()
+        wait_for(lambda: granted, timeout=5, what="the subscription to be granted")
         for size in (60_000, 200_000, 16 * 1024 * 1024):
             pub = mqtt.Client(mqtt.CallbackAPIVersion.VERSION2, client_id=f"pub{size}", protocol=mqtt.MQTTv311)
             pub.connect("127.0.0.1", port)
             pub.loop_start()
             pub.publish("kp/bulk-a/s1/air", b"x" * size, qos=1).wait_for_publish(3)
             pub.loop_stop()
-        time.sleep(1.0)
+        # A last small message: once it arrives, the broker has dealt with every one before it
+        # (a positive signal instead of a pause); it is not one of the sizes under test.
+        last = mqtt.Client(mqtt.CallbackAPIVersion.VERSION2, client_id="pub-last", protocol=mqtt.MQTTv311)
+        last.connect("127.0.0.1", port)
+        last.loop_start()
+        last.publish("kp/bulk-a/s1/air", b"x", qos=1).wait_for_publish(3)
+        last.loop_stop()
+        wait_for(lambda: 1 in got, timeout=10, what="the last small message")
+        got.remove(1)
         sub.loop_stop()
     finally:
         broker.terminate()
