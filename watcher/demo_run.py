@@ -19,8 +19,11 @@ from pathlib import Path
 
 from watcher import demo as site
 from watcher.config import load_config
+from watcher.engine.batch import Engine, Message
 from watcher.errors import StoreError
+from watcher.report.produce import produce
 from watcher.report.week import last_complete_week
+from watcher.service import Service
 from watcher.store.db import Store
 
 BATCH = 2000
@@ -103,8 +106,6 @@ def run(
         say("mosquitto is not installed: feeding the engine in this process instead (same model, alerts and report).")
         counts = _in_process(cfg, msgs, printer, progress)
     printer.poll()
-    from watcher.report.produce import produce
-    from watcher.store.db import Store
 
     store = Store(cfg.storage.path)
     try:
@@ -123,8 +124,6 @@ def run(
 
 def _through_broker(exe, port, cfg, msgs, printer, progress) -> dict:
     import paho.mqtt.client as mqtt
-
-    from watcher.service import Service
 
     conf = Path(tempfile.mkdtemp(prefix="watcher-demo-")) / "mosquitto.conf"
     conf.write_text(
@@ -190,8 +189,6 @@ def _wait_stored(db, lo, batch, printer, final=False) -> None:
 
 
 def _in_process(cfg, msgs, printer, progress) -> dict:
-    from watcher.engine.batch import Engine, Message
-    from watcher.store.db import Store
 
     store = Store(cfg.storage.path)
     engine = Engine(cfg, store, checkpoint_s=DEMO_CHECKPOINT_S)

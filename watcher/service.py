@@ -22,10 +22,13 @@ from watcher.alerts.bypass import StorageBypass
 from watcher.alerts.delivery import Notifier, deliver_due
 from watcher.config import Config, load_config
 from watcher.engine.batch import Engine, Message
+from watcher.engine.held import readmit
+from watcher.engine.trial import find_breakers
 from watcher.errors import StoreError, WatcherError
 from watcher.health import HealthServer, Metrics
 from watcher.ingest.mqtt_process import MqttProcess
 from watcher.ingest.suspects import Suspects
+from watcher.report.schedule import due_weeks
 from watcher.store.db import Store
 from watcher.systemd import sd_notify
 
@@ -156,7 +159,6 @@ class Service:
     def _handle_suspects(self, batch: list[Message]) -> list[Message]:
         """Messages in hand when the last process died are tried first in a throwaway process;
         one that ends or hangs it is set aside. Returns the batch without those."""
-        from watcher.engine.trial import find_breakers
 
         suspects = [m for m in batch if self.suspects.starts(m)]
         if not suspects:
@@ -270,7 +272,6 @@ class Service:
 
     def _readmit(self) -> None:
         """Held readings whose time now agrees with the clock go in (engine/held.py)."""
-        from watcher.engine.held import readmit
 
         try:
             result = self._until_stored(lambda: readmit(self.engine, time.time()), 0)
@@ -357,7 +358,6 @@ class Service:
     def _report_loop(self) -> None:
         """Produce each site's weekly summary once it is due ([reports] weekday and time, in the
         site's zone); recorded in the database, so a restart never produces a week twice."""
-        from watcher.report.schedule import due_weeks
 
         store = Store(self.config.storage.path)
         while not self.stopping.is_set():

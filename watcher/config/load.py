@@ -15,6 +15,7 @@ from watcher.config.reader import REQUIRED, Reader, read_secret
 from watcher.config.sections import alerting, channels, events, positions, reports, source
 from watcher.config.settings import Config, Health, Ingest, Site, Storage, Zone
 from watcher.errors import ConfigError, ProfileError
+from watcher.files.profiles import load_profile
 from watcher.ingest.payload import Limits
 from watcher.ingest.settings import Broker, Tls
 from watcher.ingest.topics import topic_is_clean
@@ -136,7 +137,6 @@ def _sites(root: Reader) -> list[Site]:
 
 
 def _zones(root: Reader, sites: list[Site]) -> list[Zone]:
-    from watcher.files.profiles import load_profile
 
     site_ids = {x.id for x in sites}
     zones = []

@@ -8,6 +8,7 @@ from watcher.alerts.channels import Channel
 from watcher.alerts.messages import auto_label
 from watcher.alerts.metrics import metric as metric_named
 from watcher.alerts.policy import METRICS, SEVERITIES, Rule, default_rules
+from watcher.alerts.secrets import insecure_options
 from watcher.config.reader import REQUIRED, Reader, choice_text, read_secret
 from watcher.config.settings import REPORT_FORMATS, WEEKDAYS, Alerting, Events, Reports
 from watcher.events.detect import DefrostShape
@@ -157,7 +158,6 @@ def channels(root: Reader) -> tuple[Channel, ...]:
 
         if not usable(url):
             r.fail("url_file", "(not shown)", "a file holding one URL that apprise can use")
-        from watcher.alerts.secrets import insecure_options
 
         insecure = insecure_options(url)
         allowed = r.flag("allow_insecure_tls", False, "true only to accept a URL that turns certificate checks off")
