@@ -5,8 +5,10 @@ import json
 import sqlite3
 
 import numpy as np
+import pytest
 import sqlite_utils
 
+from watcher.errors import StoreError
 from watcher.files.profiles import load_profile
 from watcher.model.integrator import Position, Spec, State, new_state
 from watcher.store.db import Store
@@ -47,6 +49,8 @@ def test_a_database_from_before_the_instant_rename_opens_and_verifies(tmp_path):
     )
     conn.close()
 
+    with pytest.raises(StoreError, match="written by an older watcher .*start the service once"):
+        Store(path, readonly=True)  # a reader never migrates, and says what to do
     store = Store(path)
     try:
         assert store.alerts.states()[("bulk-a", "door-open")]["raised_ts"] == 160.0
@@ -73,9 +77,8 @@ def test_a_checkpoint_written_under_the_old_field_names_loads():
 def test_database_errors_leave_the_store_as_the_error_tree(tmp_path):
     """A read from a file that is not watcher's database is a StoreError (a storage fault),
     a row the database refuses is RecordRefused (the data's fault): never a sqlite3 error."""
-    import pytest
 
-    from watcher.errors import RecordRefused, StoreError
+    from watcher.errors import RecordRefused
 
     other = tmp_path / "other.db"
     sqlite3.connect(other).execute("CREATE TABLE something (x)").connection.commit()

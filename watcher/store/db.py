@@ -45,6 +45,24 @@ def _connect(path: str, readonly: bool) -> sqlite3.Connection:
     return conn
 
 
+def _check_schema(db: sqlite_utils.Database, path: str) -> None:
+    """A reader (status, alerts, verify, reports) never migrates: it says so when the file's
+    schema is not this version's, instead of failing on a missing column."""
+    applied = [m.name for m in migrations.applied(db)]
+    if not applied:
+        return  # not written by watcher yet: reads say what is missing
+    ours = {m.name for m in migrations._migrations}  # sqlite-utils has no public list of a set's names
+    newer = [name for name in applied if name not in ours]
+    if newer:
+        raise StoreError(f"{path}: written by a newer watcher (schema {newer[-1]}); read it with that version")
+    pending = [m.name for m in migrations.pending(db)]
+    if pending:
+        raise StoreError(
+            f"{path}: written by an older watcher (schema {applied[-1]}, this version reads {pending[-1]}); "
+            "start the service once (systemctl restart watcher, or watcher run) and it brings the database up to date"
+        )
+
+
 class Store:
     """The writer's handle (or, with readonly=True, a reader's): one connection, its repositories."""
 
@@ -64,6 +82,8 @@ class Store:
                 self.conn.execute("PRAGMA journal_mode = WAL")
                 self.conn.execute("PRAGMA synchronous = FULL")
                 migrations.apply(self.db)
+            else:
+                _check_schema(self.db, path)
         except (sqlite3.Error, OSError) as exc:
             raise StoreError(f"{path}: cannot open the database ({exc})") from exc
         conn = self.conn
