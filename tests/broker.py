@@ -79,6 +79,22 @@ def make_ca(folder: Path) -> dict[str, Path]:
     return out
 
 
+def wait_listening(proc: subprocess.Popen, port: int, log=lambda: "", timeout: float = 10.0) -> None:
+    """Return once the broker process accepts connections on port (a positive signal, not a
+    pause); raise with its own words if it exits or never listens."""
+    deadline = time.time() + timeout
+    while time.time() < deadline:
+        if proc.poll() is not None:
+            err = proc.stderr.read().decode() if proc.stderr else ""
+            raise RuntimeError(f"mosquitto exited: {err} {log()}")
+        try:
+            with socket.create_connection(("127.0.0.1", port), timeout=0.2):
+                return
+        except OSError:
+            time.sleep(0.05)
+    raise RuntimeError("mosquitto did not start: " + log())
+
+
 class Broker:
     """mosquitto with a plain listener (password required) and a TLS listener."""
 
@@ -124,16 +140,7 @@ keyfile {self.tls["server_key"]}
         self.proc = subprocess.Popen(
             [MOSQUITTO, "-c", str(self.conf)], stdout=subprocess.DEVNULL, stderr=subprocess.PIPE
         )
-        deadline = time.time() + 10
-        while time.time() < deadline:
-            if self.proc.poll() is not None:
-                raise RuntimeError(f"mosquitto exited: {self.proc.stderr.read().decode()} {self.log()}")
-            try:
-                with socket.create_connection(("127.0.0.1", self.port), timeout=0.2):
-                    return
-            except OSError:
-                time.sleep(0.05)
-        raise RuntimeError("mosquitto did not start: " + self.log())
+        wait_listening(self.proc, self.port, self.log)
 
     def log(self) -> str:
         path = self.folder / "mosquitto.log"

@@ -5,7 +5,6 @@ from __future__ import annotations
 import os
 import re
 import shutil
-import socket
 import subprocess
 import sys
 from pathlib import Path
@@ -135,16 +134,10 @@ def test_shipped_broker_limits_refuse_oversized_messages(tmp_path):
     broker = subprocess.Popen([MOSQUITTO, "-c", str(conf)], stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
     got: list[int] = []
     try:
+        from tests.broker import wait_listening
         from tests.service_harness import wait_for
 
-        def listening() -> bool:
-            try:
-                socket.create_connection(("127.0.0.1", port), timeout=1).close()
-                return True
-            except OSError:
-                return False
-
-        wait_for(listening, timeout=10, what="the broker to listen")
+        wait_listening(broker, port)
         sub = mqtt.Client(mqtt.CallbackAPIVersion.VERSION2, client_id="sub", protocol=mqtt.MQTTv5)
         sub.on_message = lambda c, u, m: got.append(len(m.payload))
         granted: list[int] = []

@@ -3,13 +3,12 @@
 from __future__ import annotations
 
 import re
-import socket
 import subprocess
 from pathlib import Path
 
 import paho.mqtt.client as mqtt
 
-from tests.broker import MOSQUITTO, MOSQUITTO_PASSWD, free_port, make_ca
+from tests.broker import MOSQUITTO, MOSQUITTO_PASSWD, free_port, make_ca, wait_listening
 from tests.service_harness import wait_for
 
 DEPLOY = Path(__file__).resolve().parent.parent / "deploy" / "mosquitto"
@@ -37,17 +36,7 @@ def start_site_broker(tmp: Path):
     for i, (user, pw) in enumerate(USERS.items()):
         subprocess.run([MOSQUITTO_PASSWD, *(["-c"] if i == 0 else []), "-b", str(tmp / "passwd"), user, pw], check=True)
     proc = subprocess.Popen([MOSQUITTO, "-c", str(tmp / "mosquitto.conf")], stderr=subprocess.PIPE)
-
-    def listening() -> bool:
-        if proc.poll() is not None:
-            raise AssertionError(proc.communicate()[1].decode())
-        try:
-            socket.create_connection(("127.0.0.1", plain_port), timeout=1).close()
-            return True
-        except OSError:
-            return False
-
-    wait_for(listening, timeout=10, what="the site broker to listen")
+    wait_listening(proc, plain_port)
     return proc, plain_port, tls_port, certs
 
 
