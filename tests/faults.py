@@ -271,12 +271,13 @@ def small_disk(path: Path, size_mb: int):
 
 
 def _fill(folder: Path) -> Path:
+    """Fill the filesystem to the last byte. Unbuffered: a buffered file kept the bytes the
+    failing write could not place and raised ENOSPC again when closed."""
     filler = folder / "filler"
-    with filler.open("wb") as f:
+    with filler.open("wb", buffering=0) as f:
         try:
             while True:
                 f.write(b"\0" * 65536)
-                f.flush()
         except OSError:
             pass
     return filler

@@ -9,7 +9,11 @@ import subprocess
 import sys
 import time
 
-NOW = str(time.time() // 60 * 60)  # both runs end their data at the same moment
+# Both runs end their data at the same moment: the last Sunday 20:00 UTC, the worst day for the
+# summary (its week ended six days before), so the showcase fault must be placed in that week.
+_DAY = 86400.0
+_SUNDAY_20H = (time.time() - 3 * _DAY - 20 * 3600.0) // (7 * _DAY) * (7 * _DAY) + 3 * _DAY + 20 * 3600.0
+NOW = str(_SUNDAY_20H)
 
 
 def demo(folder, *args) -> subprocess.CompletedProcess:
@@ -44,6 +48,12 @@ def test_demo_through_a_broker_and_without_one(tmp_path):
     published = int(out.split("sensor messages (")[1].split(")")[0].replace(",", ""))
     assert readings == published  # every message stored
     assert ("dispatch", "event-cost") in alerts and events["dispatch/excursion"] >= 1
+    # The summary shows the showcase fault: its excursion and its air alert are in that week.
+    week = out.split("Weekly summary for ")[1].split(":")[0]
+    summary = json.loads((tmp_path / "broker" / "reports" / f"kestrel-{week}.json").read_text())
+    dispatch = next(z for z in summary["zones"] if z["zone"] == "dispatch")
+    assert dispatch["excursions"], dispatch["excursions"]
+    assert any(a["zone"] == "dispatch" and "air above -18 C" in a["what"] for a in summary["alerts"])
     # Zones at -24 ... -30 C in normal operation raise no texture-life warning: years of life
     # are left at these temperatures [practice: ice cream is held a year or more at -25 C].
     texture_rules = {"days-left", "budget-50", "budget-80", "budget-100"}

@@ -44,7 +44,11 @@ def _defrosts(time_ts, start_ts, per_day: int, minutes: float, rise_k: float, of
     return rise_k * (up + down), intervals
 
 
-def build(start_ts: float, days: float, step_s: float = 60.0, seed: int = 7) -> list[DemoZone]:
+def build(
+    start_ts: float, days: float, step_s: float = 60.0, seed: int = 7, fault_day: float | None = None
+) -> list[DemoZone]:
+    """The three zones' series from start_ts for `days`; the refrigeration fault starts
+    fault_day days after start_ts (default: two and a quarter days before the end)."""
     rng = np.random.default_rng(seed)
     t = start_ts + np.arange(0.0, days * 86400.0, step_s)
     hour = ((t - start_ts) / 3600.0) % 24.0
@@ -71,8 +75,8 @@ def build(start_ts: float, days: float, step_s: float = 60.0, seed: int = 7) -> 
     for i in range(t.size):
         level = level * np.exp(-step_s / 300.0) + jump[i]
         door_air[i] = level
-    # One refrigeration fault two days before the end: a compressor trip, 6 h of warming, then recovery.
-    f0 = days - 2.25
+    # One refrigeration fault: a compressor trip, 6 h of warming, then recovery.
+    f0 = days - 2.25 if fault_day is None else fault_day
     fault = np.where((day >= f0) & (day < f0 + 0.25), (day - f0) / 0.25 * 12.0, 0.0)
     fault = fault + np.where((day >= f0 + 0.25) & (day < f0 + 0.35), 12.0 * (1.0 - (day - f0 - 0.25) / 0.1), 0.0)
     return [

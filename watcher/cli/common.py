@@ -3,7 +3,12 @@ one table printer (tabulate), so long values widen a column instead of breaking 
 
 from __future__ import annotations
 
+import os
+import shlex
+import shutil
+import sys
 from datetime import UTC, datetime
+from pathlib import Path
 
 import click
 from tabulate import tabulate
@@ -61,3 +66,16 @@ def table(rows: list[list], head: list[str], align: list[str] | None = None) -> 
     """A plain-text table: a header, a rule, one line per row; columns as wide as their widest
     value. align: 'left' or 'right' per column (default: numbers right, text left)."""
     return tabulate(rows, headers=head, tablefmt="simple", colalign=align, disable_numparse=True)
+
+
+def self_command() -> str:
+    """How to run watcher again the way it was started: `watcher` when that is on PATH and is
+    this program, else the path it was started by (or `python -m watcher`)."""
+    argv0 = sys.argv[0] if sys.argv else ""
+    if not argv0 or argv0.endswith("__main__.py") or argv0 == "-m":
+        return f"{shlex.quote(sys.executable)} -m watcher"
+    found = shutil.which("watcher")
+    if found and Path(found).resolve() == Path(argv0).resolve():
+        return "watcher"
+    rel = os.path.relpath(argv0)
+    return shlex.quote(argv0 if rel.startswith("..") else rel)

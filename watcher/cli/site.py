@@ -3,12 +3,13 @@
 from __future__ import annotations
 
 import json
+import shlex
 import sys
 
 import click
 
 from watcher.cli.app import main
-from watcher.cli.common import config_option, db_options, fmt, stamp, table
+from watcher.cli.common import config_option, db_options, fmt, self_command, stamp, table
 from watcher.ingest.payload import FORMATS
 from watcher.ranges import figure_text
 
@@ -39,11 +40,10 @@ def demo(out_dir, no_broker, now_ts) -> None:
     click.echo(f"Weekly summary for {result['week']}: {result['report']}")
     click.echo(f"Database: {result['database']}   Configuration: {result['config']}")
     click.echo("Try next:")
-    click.echo(f"  watcher status --config {result['config']}")
-    click.echo(f"  watcher alerts --config {result['config']}")
-    click.echo(f"  watcher lots --config {result['config']}")
-    click.echo(f"  watcher report --config {result['config']} --week {result['week']}")
-    click.echo(f"  watcher verify --config {result['config']}")
+    me, config = self_command(), shlex.quote(result["config"])
+    for args in ("status", "alerts", "lots", f"report --week {result['week']}", "verify"):
+        verb, _, rest = args.partition(" ")
+        click.echo(f"  {me} {verb} --config {config}" + (f" {rest}" if rest else ""))
     click.echo(CAUTION)
 
 

@@ -34,7 +34,7 @@ ROWS = (
     "--defrost-peak-c", type=float, default=None, help="Air at the top of a scheduled defrost (default setpoint + 6 K)."
 )
 @click.option("--door-factor", type=float, default=1.0, help="Scale each opening's air rise (strip curtain ~0.1).")
-@click.option("--fewer-doors", type=float, default=0.0, help="Take out this %% of the door openings.")
+@click.option("--fewer-doors", type=float, default=0.0, help="Take out this percentage of the door openings (0-100).")
 @click.option(
     "--without-event", "drop", type=int, multiple=True, help="Take out a recorded event (id from the summary)."
 )
