@@ -275,6 +275,9 @@ tags = ["critical"]
         assert hook.bodies[0]["title"].startswith("[CRITICAL] watcher service:")
         broker.start()
         wait_for(lambda: any("back to normal" in b["title"] for b in hook.bodies), timeout=30, what="clear notice")
+        # The webhook's own urgency field follows the alert: a critical raise, a good-news clear.
+        assert hook.bodies[0]["type"] == "failure"
+        assert next(b for b in hook.bodies if "back to normal" in b["title"])["type"] == "success"
         assert w.stop() == 0
     finally:
         w.kill()

@@ -104,3 +104,36 @@ def test_dedupe_key_and_a_send_cut_off_by_a_crash(tmp_path, receiver):
     assert deliver_due(store, notifier, 10.0)["sent"] == 1
     assert receiver.bodies[0]["message"].startswith("(This message may repeat")
     assert store.record.count("outbox") == 1
+
+
+def test_mail_is_html_with_its_text_beside_it_and_webhooks_carry_the_level(tmp_path, receiver):
+    """An alert e-mail reaches a real SMTP server as multipart/alternative: the plain text keeps
+    every line, the HTML its line breaks and blank lines. A webhook's `type` is the message's
+    level: `warning` for a warning, `success` for the all-clear (it once said `info` for all)."""
+    from tests.service_harness import wait_for
+
+    smtp = SmtpReceiver()
+    try:
+        store = Store(str(tmp_path / "w.db"))
+        notifier = Notifier([Channel("mail", smtp.url(), ("alerts",)), Channel("hook", receiver.url(), ("alerts",))])
+        body = (
+            "Kestrel Point - Dispatch freezer\n\nWhat happened: door open over 10 min. Now 12 min.\n"
+            "Events in the last 24 h:\n  - door Wed 09:02 to now (still on)\nWhat to check: the door & its curtain."
+        )
+        store.outbox.add("[WARNING] dispatch: door open", body, ["alerts"], 1000.0, ["mail", "hook"], level="warning")
+        store.outbox.add(
+            "[back to normal] dispatch: door open", "Closed.", ["alerts"], 1000.0, ["hook"], level="success"
+        )
+        assert deliver_due(store, notifier, 1000.0)["sent"] == 3
+        wait_for(lambda: smtp.messages(), timeout=10, what="the mail")
+        mail = smtp.messages()[0]
+        assert mail.get_content_type() == "multipart/alternative"
+        plain = mail.get_body(("plain",)).get_content()
+        page = mail.get_body(("html",)).get_content()
+        for line in ("What happened: door open over 10 min. Now 12 min.", "What to check: the door & its curtain."):
+            assert line in plain.splitlines(), plain  # each line on its own, not run together
+        assert "freezer<br><br>What happened" in page and "the door &amp; its curtain" in page
+        assert [b["type"] for b in receiver.bodies] == ["warning", "success"]
+        store.close()
+    finally:
+        smtp.close()

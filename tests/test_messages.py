@@ -100,3 +100,18 @@ def test_values_carry_units():
     assert messages.fmt_value("event_excess_um", 1.234) == "1.23 um"
     assert messages.fmt_value("reading_age_s", 5400) == "1.5 h"
     assert messages.fmt_value("days_to_limit", 13.6) == "14 days"
+
+
+def test_message_levels_follow_severity_and_kind():
+    """What a channel shows as urgency: the rule's severity for a raise, repeat or escalation;
+    success for an all-clear; info for an acknowledgement."""
+    from watcher.alerts.messages import level
+
+    assert [level(k, "warning") for k in ("raise", "repeat", "escalate", "ack", "clear")] == [
+        "warning",
+        "warning",
+        "warning",
+        "info",
+        "success",
+    ]
+    assert (level("raise", "critical"), level("raise", "info")) == ("failure", "info")

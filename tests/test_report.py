@@ -8,15 +8,18 @@ import json
 import shutil
 import sqlite3
 import subprocess
+import sys
 
 import numpy as np
 import pytest
 
-from tests.report_site import play_site, ts
+from tests.report_site import play_site, site_config, ts
+from watcher.engine.batch import Engine, Message
 from watcher.report.produce import produce
 from watcher.report.schedule import due_weeks
 from watcher.report.week import week_of
 from watcher.store import chain
+from watcher.store.db import Store
 
 FAULT = (ts(2026, 11, 19, 13), ts(2026, 11, 19, 16))
 OUTAGE = (ts(2026, 11, 20, 2), ts(2026, 11, 20, 4))
@@ -255,3 +258,80 @@ def test_schedule_produces_each_week_once(w47):
     assert [(s.id, w.label) for s, w in due] == [("kestrel", "2026-W48")]
     produce(store, cfg, due[0][0], due[0][1], monday_0559 + 60, str(cfg.reports.dir), ("json",), False, True)
     assert due_weeks(store, cfg, monday_0559 + 3600) == []
+
+
+def _stopping_zone(folder):
+    """bulk-a at -25 C on Sunday 22 Nov, at -15 C from Monday 23 Nov 00:00 to Tuesday 12:00
+    (36 h), a door opened at Tuesday 11:00 and never closed; then its data stop. dispatch
+    steady at -22 C all along."""
+    cfg = site_config(folder)
+    store = Store(cfg.storage.path)
+    engine = Engine(cfg, store, checkpoint_s=0.0)
+    start, received = ts(2026, 11, 22), ts(2026, 11, 26, 12)
+    batch = []
+    for k in range(int(4.5 * 1440)):
+        t = start + 60.0 * k
+        if k < 60 * 60:
+            air = -25.0 if k < 24 * 60 else -15.0
+            batch.append(Message("kp/bulk-a/s1/air", json.dumps({"t": air, "ts": t}).encode(), received, 0, 1))
+        batch.append(Message("kp/dispatch/s1/air", json.dumps({"t": -22.0, "ts": t}).encode(), received, 0, 1))
+        if k == 59 * 60:
+            batch.append(Message("kp/bulk-a/dock/door", json.dumps({"open": 1, "ts": t}).encode(), received, 0, 1))
+    for lo in range(0, len(batch), 500):
+        engine.process(batch[lo : lo + 500], now=received)
+    engine.checkpoint_all(received)
+    return cfg, store
+
+
+def test_a_week_in_progress_says_so_and_no_duration_runs_past_the_last_reading(tmp_path):
+    """W48 asked for on Thursday: the HTML, every CSV and the JSON say 'in progress, up to';
+    bulk-a's data stop on Tuesday at noon, so its hours above -18 C and its open door stop
+    there too (they are not held to now, nor to the week's end); the same holds once the week
+    is over; a week that has not begun is refused with exit code 2."""
+    cfg, store = _stopping_zone(tmp_path)
+    week = week_of("2026-W48", "Europe/London")
+    now = ts(2026, 11, 26, 12)
+    paths = produce(store, cfg, cfg.sites[0], week, now, str(tmp_path / "now"), ("html", "csv", "json"), False, False)
+    data = json.loads(next(p for p in paths if p.suffix == ".json").read_text())
+    assert data["in_progress"] is True and data["upto_ts"] == now
+    assert "in progress, up to 2026-11-26 12:00 GMT" in next(p for p in paths if p.suffix == ".html").read_text()
+    assert "(in progress, up to" in data["summary"]
+    for csv in (p for p in paths if p.suffix == ".csv"):
+        assert "week_in_progress_up_to" in csv.read_text().splitlines()[0], csv.name
+    air = next(r for r in zone(data, "bulk-a")["temperatures"] if r["series"] == "air")
+    above = next(v for k, v in air.items() if k.startswith("hours above -18 C"))
+    assert above == pytest.approx(36.0, abs=0.05)  # not 84 h (to now) nor 168 h (to the week's end)
+    assert zone(data, "bulk-a")["doors"]["total_open_min"] == pytest.approx(60.0, abs=1.0)
+    comp = {(r["zone"], r["signal"]): r for r in data["completeness"]}
+    assert comp[("bulk-a", "air_c")]["expected"] == 84 * 60  # counted to now: the stop shows as missing data
+
+    later = produce(store, cfg, cfg.sites[0], week, ts(2026, 12, 1), str(tmp_path / "after"), ("json",), False, False)
+    whole = json.loads(later[0].read_text())
+    air = next(r for r in zone(whole, "bulk-a")["temperatures"] if r["series"] == "air")
+    assert whole["in_progress"] is False and whole["upto_ts"] == week.end_ts
+    assert next(v for k, v in air.items() if k.startswith("hours above -18 C")) == pytest.approx(36.0, abs=0.05)
+
+    config = tmp_path / "kestrel.toml"
+    config.write_text(
+        f'[broker]\npassword_file = "{tmp_path / "pw"}"\n[storage]\npath = "{cfg.storage.path}"\n'
+        '[[sites]]\nid = "kestrel"\ntimezone = "Europe/London"\n[[zones]]\nid = "bulk-a"\nsetpoint_c = -25.0\n'
+        '[[sources]]\npattern = "kp/{zone}/{sensor}/air"\nsignal = "air_c"\n'
+    )
+    out = subprocess.run(
+        [
+            sys.executable,
+            "-m",
+            "watcher",
+            "report",
+            "--config",
+            str(config),
+            "--week",
+            "2030-W01",
+            "--out",
+            str(tmp_path),
+        ],
+        capture_output=True,
+        text=True,
+        timeout=120,
+    )
+    assert out.returncode == 2 and "--week: got '2030-W01', expected a week that has begun" in out.stderr, out.stderr

@@ -78,7 +78,7 @@ class StorageBypass:
             if name is None:
                 log.error("storage alert: no channel carries %s; nobody was told", ", ".join(tags))
                 continue
-            d = notifier.send(name, title, body)
+            d = notifier.send(name, title, body, level=messages.level("raise", rule.severity))
             ep.sends.append((now_ts, name, d.ok, d.result))
             (log.warning if d.ok else log.error)("storage alert sent around the database to %s: %s", name, d.result)
 

@@ -18,6 +18,7 @@ from dataclasses import dataclass
 import apprise
 
 from watcher.alerts.channels import Channel
+from watcher.alerts.messages import as_html
 from watcher.alerts.secrets import mask_url, scrub
 from watcher.store.db import Store
 
@@ -56,16 +57,27 @@ class Notifier:
         """Channel name -> masked URL (safe to log and print: alerts/secrets.py)."""
         return {name: mask_url(self.channels[name].url) for name in self._apprise}
 
-    def send(self, channel: str, title: str, body: str, attach: str | None = None) -> Delivery:
+    def send(self, channel: str, title: str, body: str, attach: str | None = None, level: str = "info") -> Delivery:
+        """level: info, success, warning or failure (a webhook's `type`, a chat message's colour).
+        E-mail goes as HTML with the plain text as its alternative; other channels get the text."""
         a = self._apprise.get(channel)
         if a is None:
             return Delivery(False, "nochannel", f"no channel named {channel!r} in the configuration")
-        result = a.notify(body=body, title=title, attach=attach)
+        kind = apprise.NotifyType(level) if level in {t.value for t in apprise.NotifyType} else apprise.NotifyType.INFO
+        if self.channels[channel].url.split(":", 1)[0].lower() in MAIL_SCHEMES:
+            result = a.notify(
+                body=as_html(body), title=title, attach=attach, notify_type=kind, body_format=apprise.NotifyFormat.HTML
+            )
+        else:
+            result = a.notify(
+                body=body, title=title, attach=attach, notify_type=kind, body_format=apprise.NotifyFormat.TEXT
+            )
         lines = [f"{e.level} {e.message}" for e in result.logs()]
         text = scrub("\n".join(lines), [self.channels[channel].url])  # kept in the outbox and printed
         return Delivery(bool(result), result.status.name.lower(), text[-4000:])
 
 
+MAIL_SCHEMES = ("mailto", "mailtos")
 REPEAT_NOTE = "(This message may repeat one sent just before a restart.)\n\n"
 
 
@@ -74,10 +86,10 @@ def deliver_due(
 ) -> dict[str, int]:
     """Send what is due; record each attempt. Returns counts of sent, retried and failed."""
     counts = {"sent": 0, "retried": 0, "failed": 0}
-    for row_id, channel, title, body, attempts, attach, maybe_repeat in store.outbox.due(now_ts):
+    for row_id, channel, title, body, attempts, attach, maybe_repeat, level in store.outbox.due(now_ts):
         with store.atomic():
             store.outbox.mark_sending(row_id)
-        d = notifier.send(channel, title, (REPEAT_NOTE if maybe_repeat else "") + body, attach)
+        d = notifier.send(channel, title, (REPEAT_NOTE if maybe_repeat else "") + body, attach, level)
         with store.atomic():
             if d.ok:
                 store.outbox.record(row_id, "sent", d.result, d.log, now_ts, now_ts)

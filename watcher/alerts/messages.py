@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import datetime as dt
+import html
 from zoneinfo import ZoneInfo
 
 from watcher.alerts.metrics import duration, metric
@@ -123,3 +124,25 @@ def storage_bypass(rule, since_ts: float, now_ts: float, error: str, tz: str, re
         CAUTION,
     ]
     return head, "\n".join(lines)
+
+
+LEVELS = {"info": "info", "warning": "warning", "critical": "failure"}
+
+
+def level(kind: str, severity: str) -> str:
+    """What a channel shows as the message's urgency (apprise's notification types): a clear is
+    good news, an acknowledgement is information, anything else carries the rule's severity."""
+    if kind == "clear":
+        return "success"
+    return "info" if kind == "ack" else LEVELS.get(severity, "info")
+
+
+def as_html(text: str) -> str:
+    """A message body as simple HTML for e-mail: each line ends in <br>, a blank line stays a
+    blank line, leading spaces are kept. Written so that apprise's plain-text alternative, made
+    from this HTML, comes back line for line as the text was."""
+    lines = []
+    for line in text.strip().split("\n"):
+        body = line.lstrip(" ")
+        lines.append("&nbsp;" * (len(line) - len(body)) + html.escape(body))
+    return '<div style="font-family: sans-serif; font-size: 14px; line-height: 1.45">' + "<br>".join(lines) + "</div>"

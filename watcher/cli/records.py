@@ -191,7 +191,8 @@ def report(config_path, week_label, site_id, out_dir, formats, send) -> None:
         for site in sites:
             week = week_of(week_label, site.timezone) if week_label else last_complete_week(time.time(), site.timezone)
             paths = produce(store, cfg, site, week, time.time(), out_dir or cfg.reports.dir, chosen, send, auto=False)
-            click.echo(f"{site.id} {week.label}: " + ", ".join(str(p) for p in paths if p.suffix != ".csv"))
+            progress = " (week in progress: the figures cover it so far)" if time.time() < week.end_ts else ""
+            click.echo(f"{site.id} {week.label}{progress}: " + ", ".join(str(p) for p in paths if p.suffix != ".csv"))
             n_csv = sum(p.suffix == ".csv" for p in paths)
             if n_csv:
                 click.echo(f"  and {n_csv} CSV tables in {paths[-1].parent}")

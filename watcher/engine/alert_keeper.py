@@ -171,6 +171,7 @@ class AlertKeeper:
             route(list(self.config.channels), tags, exclude),
             dedupe=f"alert:{alert['id']}:{kind}:{n}",
             alert_id=alert["id"],
+            level=messages.level(kind, alert["severity"]),
         )
 
     def apply_commands(self, wall_ts: float) -> None:

@@ -2,14 +2,17 @@
 
 from __future__ import annotations
 
+import datetime as dt
 import math
 from dataclasses import dataclass, field
+from zoneinfo import ZoneInfo
 
 import pandas as pd
 
 from watcher import MODEL_VERSION, __version__
 from watcher.alerts.messages import CAUTION
 from watcher.config import Config, Site
+from watcher.errors import InputError
 from watcher.ranges import RANGE_KEYS, cautious_days
 from watcher.report import charts
 from watcher.report.data import SiteWeek, load
@@ -68,10 +71,15 @@ class Report:
     summary: str
     zones: list[ZoneSection]
     sections: list[Section]
+    upto_ts: float  # the figures cover [week start, upto_ts): the week's end, or now for a week in progress
     heads: dict
     digest: str
     versions: dict
     cautions: list[str]
+
+    @property
+    def in_progress(self) -> bool:
+        return self.upto_ts < self.week.end_ts
 
     def section(self, key: str) -> Section:
         return next(x for x in self.sections if x.key == key)
@@ -103,11 +111,18 @@ def _num(v, fmt=".1f", none="n/a") -> str:
     return none if v is None or (isinstance(v, float) and math.isnan(v)) else format(v, fmt)
 
 
+def local_text(time_ts: float, tz: str) -> str:
+    """An instant in the site's time zone, as people read it: "Wed 02 Dec 2026 15:40 GMT"."""
+    return dt.datetime.fromtimestamp(time_ts, ZoneInfo(tz)).strftime("%a %d %b %Y %H:%M %Z")
+
+
 def summary_text(
-    site: Site, week: Week, zones: list[ZoneSection], alerts: pd.DataFrame, comp: pd.DataFrame, gaps
+    site: Site, week: Week, zones: list[ZoneSection], alerts: pd.DataFrame, comp: pd.DataFrame, gaps, upto_ts: float
 ) -> str:
     """One paragraph: what happened this week and what to look at."""
-    parts = [f"Week {week.label} at {site.name or site.id}:"]
+    in_progress = upto_ts < week.end_ts
+    progress = f" (in progress, up to {local_text(upto_ts, week.tz)})" if in_progress else ""
+    parts = [f"Week {week.label} at {site.name or site.id}{progress}:"]
     used = [(z.name, z.budget["used_in_week_pct"]) for z in zones if z.budget["used_in_week_pct"] is not None]
     if used:
         lo, hi = min(u for _, u in used), max(u for _, u in used)
@@ -136,7 +151,7 @@ def summary_text(
             (f"{len(alerts)} alerts were active" if len(alerts) != 1 else "1 alert was active")
             + f"; {len(acked)} acknowledged"
             + (f" (median {acked.median():.0f} min)" if len(acked) else "")
-            + f", {still} still open at the end of the week."
+            + f", {still} still open {'now' if in_progress else 'at the end of the week'}."
         )
     else:
         parts.append("No alerts were active.")
@@ -151,11 +166,13 @@ def summary_text(
     return " ".join(parts)
 
 
-def zone_section(sw: SiteWeek, zone) -> ZoneSection:
+def zone_section(sw: SiteWeek, zone, end_ts: float) -> ZoneSection:
+    """end_ts: where this zone's held values and open events stop counting: the week's end, or
+    earlier when the week is in progress or the zone's data stop (never past the last reading)."""
     m = sw.models.get(zone.id)
     ev = sw.events[sw.events["zone"] == zone.id]
     tz, week = sw.site.timezone, sw.week
-    doors, by_hour = door_figures(ev, tz, week.end_ts)
+    doors, by_hour = door_figures(ev, tz, end_ts)
     start = m.budget_start_pct if m else None
     end = m.budget_end_pct if m else None
     budget = {
@@ -170,7 +187,7 @@ def zone_section(sw: SiteWeek, zone) -> ZoneSection:
         "limit_um": zone.profile.limit_mean_diameter_um,
         "position": m.position if m else None,
     }
-    temps = temperature_table(m, zone.setpoint_c, week.end_ts) if m else pd.DataFrame()
+    temps = temperature_table(m, zone.setpoint_c, end_ts) if m else pd.DataFrame()
     growth = growth_table(sw.daily, zone.id)
     sec = ZoneSection(
         zone=zone.id,
@@ -182,7 +199,7 @@ def zone_section(sw: SiteWeek, zone) -> ZoneSection:
         temperatures=temps,
         doors=doors,
         doors_by_hour=by_hour,
-        defrosts=defrost_figures(ev, sw.readings[sw.readings["zone"] == zone.id], week.end_ts),
+        defrosts=defrost_figures(ev, sw.readings[sw.readings["zone"] == zone.id], end_ts),
         excursions=event_list(ev, "excursion", tz),
         growth=growth,
     )
@@ -197,10 +214,20 @@ def zone_section(sw: SiteWeek, zone) -> ZoneSection:
 
 
 def build(store: Store, cfg: Config, site: Site, week: Week, generated_ts: float) -> Report:
+    """The week's summary as of generated_ts. A week that has not begun is refused; a week in
+    progress covers its start to now and says so (Report.upto_ts)."""
+    if generated_ts < week.start_ts:
+        raise InputError(
+            "--week", week.label, f"a week that has begun (this one starts {local_text(week.start_ts, week.tz)})"
+        )
+    upto_ts = min(week.end_ts, generated_ts)
     sw = load(store, cfg, site, week)
-    zones = [zone_section(sw, z) for z in sw.zones]
-    alerts = alert_table(sw.alerts, site.timezone, week.end_ts)
-    comp = completeness(sw.readings, week.end_ts - week.start_ts)
+    zones = [
+        zone_section(sw, z, min(upto_ts, max(store.readings.summary(z.id)[1] or week.start_ts, week.start_ts)))
+        for z in sw.zones
+    ]
+    alerts = alert_table(sw.alerts, sw.alert_log, site.timezone, upto_ts)
+    comp = completeness(sw.readings, upto_ts - week.start_ts)
     gaps = sw.gaps.assign(minutes=(sw.gaps["seconds"] / 60.0).round(1)) if len(sw.gaps) else sw.gaps
     heads = store.record.heads()
     lots = lots_table(store, cfg, site, week)
@@ -208,8 +235,9 @@ def build(store: Store, cfg: Config, site: Site, week: Week, generated_ts: float
         site=site,
         week=week,
         generated_ts=generated_ts,
-        summary=summary_text(site, week, zones, alerts, comp, gaps),
+        summary=summary_text(site, week, zones, alerts, comp, gaps, upto_ts),
         zones=zones,
+        upto_ts=upto_ts,
         sections=[
             Section("lots", "Lots", lots, note=lots_note(lots), rows_key="ranked"),
             Section("alerts", "Alerts", alerts, "No alerts were active this week."),

@@ -107,11 +107,16 @@ def growth_table(daily: pd.DataFrame, zone: str) -> pd.DataFrame:
     return out
 
 
-def alert_table(alerts: pd.DataFrame, tz: str, week_end_ts: float) -> pd.DataFrame:
+def alert_table(alerts: pd.DataFrame, alert_log: pd.DataFrame, tz: str, upto_ts: float) -> pd.DataFrame:
+    """One row per alert active in the week. minutes_to_ack is clock time to clock time: from
+    when the service raised it (its log's `raise` step, service time) to the acknowledgement;
+    `raised` is the data time the rule fired at. open_at_week_end: still open at upto_ts."""
     if alerts.empty:
         columns = ["id", "zone", "severity", "what", "raised", "acknowledged", "minutes_to_ack", "cleared", "status"]
         return pd.DataFrame(columns=[*columns, "open_at_week_end"])
-    to_ack = (alerts["acked_ts"] - alerts["raised_ts"]) / 60.0
+    raises = alert_log[alert_log["step"] == "raise"].groupby("alert_id")["wall_ts"].min() if len(alert_log) else None
+    raised_wall = alerts["id"].map(raises) if raises is not None else pd.Series(np.nan, index=alerts.index)
+    to_ack = (alerts["acked_ts"] - raised_wall.fillna(alerts["raised_ts"])) / 60.0
     return pd.DataFrame(
         {
             "id": alerts["id"].values,
@@ -131,7 +136,7 @@ def alert_table(alerts: pd.DataFrame, tz: str, week_end_ts: float) -> pd.DataFra
                 )
             ],
             "status": alerts["status"].values,
-            "open_at_week_end": (alerts["cleared_ts"].isna() | (alerts["cleared_ts"] >= week_end_ts)).values,
+            "open_at_week_end": (alerts["cleared_ts"].isna() | (alerts["cleared_ts"] >= upto_ts)).values,
         }
     )
 

@@ -26,6 +26,8 @@ header h1 { font-size: 22px; margin: 0 0 2px; }
 header p { margin: 0 0 10px; color: var(--muted); }
 h2 { font-size: 17px; margin: 26px 0 8px; border-bottom: 1px solid var(--rule); padding-bottom: 3px; }
 h3 { font-size: 14px; margin: 16px 0 6px; }
+.progress { background: #fff4d6; border-left: 4px solid #b7791f; padding: 10px 14px; font-weight: 600; }
+.progress-mark { display: none; }
 .summary { background: var(--band); padding: 12px 14px; border-left: 4px solid var(--accent); }
 table { border-collapse: collapse; width: 100%; margin: 6px 0 12px; font-size: 12.5px; }
 th, td { padding: 3px 6px; border-bottom: 1px solid var(--rule); text-align: right; vertical-align: top; }
@@ -40,6 +42,7 @@ figure svg { width: 100%; height: auto; }
 .caution { border: 1px solid #c9a227; background: #fbf6e4; padding: 8px 12px; font-size: 12.5px; }
 code { font-size: 11.5px; word-break: break-all; }
 @media print {
+  .progress-mark { display: block; position: fixed; top: 0; right: 0; font-size: 10px; color: #b7791f; }
   @page { margin: 14mm; }          /* A4 and Letter alike: content kept within 180 mm */
   body { max-width: 180mm; padding: 0; font-size: 10.5pt; }
   section.zone { break-before: page; }
@@ -193,10 +196,20 @@ def _sections_html(r: Report) -> list[str]:
 
 def to_html(r: Report) -> str:
     tz = r.site.timezone
-    title = f"Texture watch, week {r.week.label}: {r.site.name or r.site.id}"
+    progress = f"in progress, up to {_local(r.upto_ts, tz)}" if r.in_progress else ""
+    title = f"Texture watch, week {r.week.label}{' (' + progress + ')' if progress else ''}: {r.site.name or r.site.id}"
     body = [
         f"<header><h1>{html.escape(title)}</h1><p>{_local(r.week.start_ts, tz)} to {_local(r.week.end_ts, tz)} "
         f"({r.week.end_ts / 3600 - r.week.start_ts / 3600:.0f} h). Generated {_local(r.generated_ts, tz)}.</p></header>",
+        *(
+            [
+                f'<p class="progress-mark">Week {r.week.label} {html.escape(progress)}</p>',
+                f'<p class="progress">This week is {html.escape(progress)}: every figure covers the week so far '
+                "and will change. The summary for the whole week is written once it has ended.</p>",
+            ]
+            if progress
+            else []
+        ),
         f'<p class="summary">{html.escape(r.summary)}</p>',
         "<h2>At a glance</h2>",
         table_html(_glance(r)),
@@ -250,6 +263,8 @@ def to_json(r: Report) -> dict:
         "start_ts": r.week.start_ts,
         "end_ts": r.week.end_ts,
         "generated_ts": r.generated_ts,
+        "in_progress": r.in_progress,
+        "upto_ts": r.upto_ts,
         "summary": r.summary,
         "zones": [
             {
@@ -278,6 +293,10 @@ def to_json(r: Report) -> dict:
     }
 
 
+def _utc_iso(time_ts: float) -> str:
+    return dt.datetime.fromtimestamp(time_ts, dt.UTC).isoformat(timespec="seconds")
+
+
 def write(r: Report, out_dir: str | Path, formats=FORMATS) -> list[Path]:
     out = Path(out_dir)
     out.mkdir(mode=0o750, parents=True, exist_ok=True)
@@ -294,7 +313,10 @@ def write(r: Report, out_dir: str | Path, formats=FORMATS) -> list[Path]:
     if "csv" in formats:
         for name, df in r.tables().items():
             p = out / f"{stem}-{name}.csv"
-            (df if df is not None else pd.DataFrame()).to_csv(p, index=False)
+            df = df if df is not None else pd.DataFrame()
+            if r.in_progress:  # each file says so, whoever opens it on its own
+                df = df.assign(week_in_progress_up_to=_utc_iso(r.upto_ts))
+            df.to_csv(p, index=False)
             paths.append(p)
     for p in paths:  # the site's record: owner and group only, also when run by hand outside systemd
         p.chmod(0o640)

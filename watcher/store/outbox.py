@@ -23,15 +23,17 @@ class Outbox(Repo):
         dedupe: str | None = None,
         alert_id: int | None = None,
         attach: str | None = None,
+        level: str = "info",
     ) -> int:
         """Store the message once per channel (None: no channel takes it, kept as `unrouted`).
+        level: info, success, warning or failure (what the channel shows as its urgency).
         Returns the number of rows added (0 when the dedupe key was seen before)."""
         added = 0
         for ch in channels:
             key = None if dedupe is None else f"{dedupe}@{ch or '-'}"
             cur = self.conn.execute(
                 "INSERT OR IGNORE INTO outbox (created_ts, tags, title, body, next_try_ts, channel, dedupe, alert_id, "
-                "attach, status) VALUES (?,?,?,?,?,?,?,?,?,?)",
+                "attach, status, level) VALUES (?,?,?,?,?,?,?,?,?,?,?)",
                 (
                     now_ts,
                     json.dumps(sorted(tags)),
@@ -43,15 +45,17 @@ class Outbox(Repo):
                     alert_id,
                     attach,
                     "pending" if ch else "unrouted",
+                    level,
                 ),
             )
             added += cur.rowcount
         return added
 
     def due(self, now_ts: float, limit: int = 50) -> list[tuple]:
-        """(id, channel, title, body, attempts, attach, maybe_repeat) of pending rows due now, oldest first."""
+        """(id, channel, title, body, attempts, attach, maybe_repeat, level) of pending rows due now,
+        oldest first."""
         return self.conn.execute(
-            "SELECT id, channel, title, body, attempts, attach, maybe_repeat FROM outbox "
+            "SELECT id, channel, title, body, attempts, attach, maybe_repeat, level FROM outbox "
             "WHERE status = 'pending' AND next_try_ts <= ? ORDER BY id LIMIT ?",
             (now_ts, limit),
         ).fetchall()

@@ -270,3 +270,10 @@ def m010_instant_names(db: sqlite_utils.Database) -> None:
             text = json.dumps(_renamed_keys(json.loads(row[-1])))
             where = " AND ".join(f"{c} = ?" for c in cols)
             conn.execute(f"UPDATE {table} SET {column} = ? WHERE {where}", (text, *row[:-1]))
+
+
+@migrations()
+def m011_outbox_level(db: sqlite_utils.Database) -> None:
+    """How urgent each message is (info, success, warning, failure): channels that show it
+    (webhook `type`, chat colours) no longer say `info` for a warning."""
+    db.execute("ALTER TABLE outbox ADD COLUMN level TEXT NOT NULL DEFAULT 'info'")
