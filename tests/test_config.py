@@ -118,6 +118,10 @@ def test_password_from_systemd_credentials(tmp_path, monkeypatch):
             "zones[0].setpoint_c: got 5.0, expected a number in [-60.0, 0.0]",
         ),
         (
+            lambda d: d["zones"][0].update(setpoint_c=-4.0),  # meant as -4 F
+            "zones[0].setpoint_c: got -4.0, expected a frozen-store setpoint at or below -10 C",
+        ),
+        (
             lambda d: d["zones"][0].pop("setpoint_c"),
             "zones[0].setpoint_c: got None, expected a number in [-60.0, 0.0] (required)",
         ),
@@ -332,3 +336,11 @@ def test_a_budget_rule_keeps_latching_when_its_threshold_changes(tmp_path):
     rules = {r.id: r for r in config_from_dict(data, "c.toml").alerting.rules}
     assert rules["lot-80"].latch and rules["lot-80"].threshold == 70.0
     assert rules["budget-50"].latch and not rules["days-left"].latch
+
+
+def test_a_warm_setpoint_is_taken_only_when_marked_deliberate(tmp_path):
+    """-4 C is no freezer's setpoint (-4 F was meant?): refused, unless setpoint_deliberate = true
+    says it is meant (a chill room watched for a trial)."""
+    data = base(tmp_path)
+    data["zones"][0].update(setpoint_c=-4.0, setpoint_deliberate=True)
+    assert config_from_dict(data, "c.toml").zones[0].setpoint_c == -4.0

@@ -21,6 +21,9 @@ from watcher.ingest.settings import Broker, Tls
 from watcher.ingest.topics import topic_is_clean
 
 
+FREEZER_MAX_SETPOINT_C = -10.0  # warmer than this is no frozen store: refused unless marked deliberate
+
+
 def load_config(path: str) -> Config:
     """Read and validate a configuration file."""
     try:
@@ -154,6 +157,16 @@ def _zones(root: Reader, sites: list[Site]) -> list[Zone]:
             r.fail("profile", prof_name, f"a usable profile ({exc})")
         name = r.text("name", zid, "the zone's name in messages and summaries")
         setpoint_c = r.number("setpoint_c", REQUIRED, -60.0, 0.0, "the air setpoint")
+        deliberate = r.flag(
+            "setpoint_deliberate", False, "true to accept a setpoint above -10 C (not a freezer's: a typo or Fahrenheit?)"
+        )
+        if setpoint_c > FREEZER_MAX_SETPOINT_C and not deliberate:
+            r.fail(
+                "setpoint_c",
+                setpoint_c,
+                f"a frozen-store setpoint at or below {FREEZER_MAX_SETPOINT_C:g} C (in Celsius; -4 F is -20 C), "
+                "or setpoint_deliberate = true",
+            )
         zones.append(Zone(zid, site, name, setpoint_c, profile, positions(r)))
         r.done()
     if not zones:
