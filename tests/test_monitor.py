@@ -178,6 +178,10 @@ def test_stale_sensor_and_broker_down_on_the_service_clock(tmp_path):
         engine.monitor.tick(NOW + 1301, False, True)
     alerts = {a["rule"]: a for a in store.alerts.list()}
     assert alerts["sensor-stale"]["zone"] == "bulk-a" and alerts["sensor-stale"]["value"] == 901.0
+    # The alert names the silent sensor, in its log and in its message.
+    assert store.alerts.log(alerts["sensor-stale"]["id"])[0][5] == "sensor s1 (air_c)"
+    bodies = [b for (b,) in rows(store, "SELECT body FROM outbox WHERE alert_id = ?", alerts["sensor-stale"]["id"])]
+    assert bodies and "Which: sensor s1 (air_c)." in bodies[0]
     assert alerts["broker-down"]["zone"] == "service" and alerts["broker-down"]["status"] == "open"
     with store.atomic():
         engine.monitor.tick(NOW + 1302, True, True)
@@ -187,6 +191,22 @@ def test_stale_sensor_and_broker_down_on_the_service_clock(tmp_path):
     with store.atomic():
         engine.monitor.tick(NOW + 1401, True, True)
     assert store.alerts.get(alerts["sensor-stale"]["id"])["status"] == "cleared"
+
+
+def test_a_quiet_door_contact_is_not_a_stale_sensor(tmp_path):
+    """Door contacts and defrost relays report on change: hours without a door message raise
+    nothing while the air sensor keeps reporting; staleness is per sensor and signal."""
+    cfg, store, engine = make(tmp_path, keep=("sensor-stale",))
+    door = [
+        Message("kp/bulk-a/d1/door", json.dumps({"open": v, "ts": T0 + 60 * k}).encode(), NOW, 0, 1)
+        for k, v in ((0, 1), (2, 0))
+    ]
+    engine.process(door, now=NOW)
+    for k in range(0, 40):  # the air keeps coming, the door stays shut for 40 min
+        engine.process([msg(k, received=NOW + 60 * k)], now=NOW + 60 * k)
+    with store.atomic():
+        engine.monitor.tick(NOW + 60 * 39 + 30, True, True)
+    assert [a["rule"] for a in store.alerts.list()] == []
 
 
 def test_two_sensors_that_disagree(tmp_path):

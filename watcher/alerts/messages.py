@@ -68,6 +68,8 @@ def body(
             f"What happened: {alert['label']}. Now {now_value} ({op} {metric_of.format(alert['threshold'])}), "
             f"since {local(alert.get('since_ts') or alert['raised_ts'], tz)} ({tz})."
         )
+        if alert.get("which"):
+            lines.append(f"Which: {alert['which']}.")
     temps = []
     if figures and figures.get("air_c") is not None:
         temps.append(f"air {figures['air_c']:.1f} C")

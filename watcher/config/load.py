@@ -20,7 +20,6 @@ from watcher.ingest.payload import Limits
 from watcher.ingest.settings import Broker, Tls
 from watcher.ingest.topics import topic_is_clean
 
-
 FREEZER_MAX_SETPOINT_C = -10.0  # warmer than this is no frozen store: refused unless marked deliberate
 
 
@@ -158,7 +157,9 @@ def _zones(root: Reader, sites: list[Site]) -> list[Zone]:
         name = r.text("name", zid, "the zone's name in messages and summaries")
         setpoint_c = r.number("setpoint_c", REQUIRED, -60.0, 0.0, "the air setpoint")
         deliberate = r.flag(
-            "setpoint_deliberate", False, "true to accept a setpoint above -10 C (not a freezer's: a typo or Fahrenheit?)"
+            "setpoint_deliberate",
+            False,
+            "true to accept a setpoint above -10 C (not a freezer's: a typo or Fahrenheit?)",
         )
         if setpoint_c > FREEZER_MAX_SETPOINT_C and not deliberate:
             r.fail(

@@ -123,8 +123,10 @@ class AlertKeeper:
             fields.update(status="cleared", cleared_ts=act.at_ts)
             log.info("alert %d cleared: zone %s, %s", alert_id, act.zone, rule.label)
         self.store.alerts.update(alert_id, **fields)
-        self.store.alerts.log_add(alert_id, act.kind, act.at_ts, wall_ts, act.value)
-        self._notify(act.kind, {**alert, **fields, "op": rule.op}, wall_ts, n)
+        which = obs.get(f"{rule.metric}:which") if act.kind != "clear" else None  # e.g. the silent sensor
+        note = f"sensor {which}" if which else None
+        self.store.alerts.log_add(alert_id, act.kind, act.at_ts, wall_ts, act.value, note=note)
+        self._notify(act.kind, {**alert, **fields, "op": rule.op, "which": note}, wall_ts, n)
 
     def _cleared_id(self, key) -> int | None:
         """The alert id a clear refers to (the policy has already reset the state)."""

@@ -16,7 +16,7 @@ class Live:
     """What a zone's rules need between analyses: switches, receive times, last costs."""
 
     switches: dict = field(default_factory=dict)  # (signal, sensor) -> [last_ts, value, since_ts]
-    received: dict = field(default_factory=dict)  # sensor -> wall time of its newest reading
+    received: dict = field(default_factory=dict)  # (sensor, signal) -> wall time of its newest reading
     figures: dict | None = None
     air_c: float | None = None
     defrosts_today: int | None = None
@@ -71,3 +71,13 @@ def zone_observations(runner: ZoneRunner, lz: Live) -> dict:
         "event_budget_share_pct": None if lz.event_cost is None else lz.event_cost[0],
         "event_excess_um": None if lz.event_cost is None else lz.event_cost[1],
     }
+
+
+def stalest(received: dict, wall_ts: float, forget_s: float) -> tuple[float | None, str | None]:
+    """The oldest silence among a zone's steadily reporting sensors, and which one it is
+    ("s1 (air_c)"); a sensor silent for forget_s or longer no longer counts."""
+    ages = [(wall_ts - t, f"{sensor} ({signal})") for (sensor, signal), t in received.items() if wall_ts - t < forget_s]
+    if not ages:
+        return None, None
+    age, which = max(ages)
+    return age, which

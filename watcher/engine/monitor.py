@@ -22,9 +22,10 @@ from watcher.alerts.policy import LOT_METRICS, WALL_CLOCK_METRICS
 from watcher.config import Config
 from watcher.engine.alert_keeper import SERVICE, AlertKeeper, parse_ack
 from watcher.engine.analysis import CONTEXT_S, analyse, analysis_points, take_snapshot
-from watcher.engine.live import Live, load_live, zone_observations
+from watcher.engine.live import Live, load_live, stalest, zone_observations
 from watcher.engine.lots import LotKeeper
 from watcher.engine.zones import ZoneRunner, spec_key
+from watcher.ingest.payload import TEMPERATURE_SIGNALS
 from watcher.ranges import cautious_days
 from watcher.store import subjects
 from watcher.store.db import Store
@@ -58,7 +59,9 @@ class Monitor:
     # --- intake ---------------------------------------------------------------------------
     def observe(self, reading, received_ts: float) -> None:
         lz = self.live[reading.zone]
-        lz.received[reading.sensor] = max(received_ts, lz.received.get(reading.sensor, -math.inf))
+        if reading.signal in TEMPERATURE_SIGNALS:  # door and defrost report on change: never stale
+            key = (reading.sensor, reading.signal)
+            lz.received[key] = max(received_ts, lz.received.get(key, -math.inf))
         if reading.signal in ("door", "defrost"):
             lz.switch(reading.signal, reading.sensor, reading.ts, reading.value)
 
@@ -160,8 +163,8 @@ class Monitor:
             self.commit_failing_since = wall_ts
         rules = [r for r in self.rules if r.metric in WALL_CLOCK_METRICS]
         for zid, lz in self.live.items():
-            ages = [wall_ts - t for t in lz.received.values() if wall_ts - t < FORGET_SENSOR_S]
-            self.alerts.evaluate(rules, zid, {"reading_age_s": max(ages) if ages else None}, wall_ts, wall_ts)
+            age, which = stalest(lz.received, wall_ts, FORGET_SENSOR_S)
+            self.alerts.evaluate(rules, zid, {"reading_age_s": age, "reading_age_s:which": which}, wall_ts, wall_ts)
         failing = self.store.outbox.failing_channels()
         service = {
             "broker_down_s": 0.0 if self.broker_down_since is None else wall_ts - self.broker_down_since,

@@ -120,15 +120,16 @@ class Readings(Repo):
         ).fetchone()[0]
         return count + folded, last
 
-    def last_received(self, zone: str, recent_s: float = 2 * 86400.0) -> dict[str, float]:
-        """Each sensor's newest receive time, among readings up to recent_s older than the
-        zone's newest (an index range, not a scan of the zone's whole history)."""
+    def last_received(self, zone: str, recent_s: float = 2 * 86400.0) -> dict[tuple[str, str], float]:
+        """(sensor, signal) -> newest receive time, for the signals sent at a steady rate (air and
+        product temperatures; door and defrost report on change), among readings up to recent_s
+        older than the zone's newest (an index range, not a scan of the zone's whole history)."""
         rows = self.conn.execute(
-            "SELECT sensor, max(received_ts) FROM readings WHERE zone = ? AND ts >= "
-            "(SELECT max(ts) FROM readings WHERE zone = ?) - ? GROUP BY sensor",
+            "SELECT sensor, signal, max(received_ts) FROM readings WHERE zone = ? AND signal IN ('air_c', 'product_c') "
+            "AND ts >= (SELECT max(ts) FROM readings WHERE zone = ?) - ? GROUP BY sensor, signal",
             (zone, zone, recent_s),
         )
-        return dict(rows.fetchall())
+        return {(sensor, signal): t for sensor, signal, t in rows.fetchall()}
 
     def switch_state(self, zone: str) -> list[tuple[str, str, float, float, float]]:
         """Per door/defrost sensor: (sensor, signal, last ts, last value, since) where since is
