@@ -193,3 +193,22 @@ def test_every_command_has_help_text():
         assert cmd.help and cmd.help.strip(), path
         result = CliRunner().invoke(main, path + ["--help"])
         assert result.exit_code == 0 and cmd.help.split("\n")[0][:30] in result.output
+
+
+def test_typed_times_are_site_time_and_printed_times_name_their_zone():
+    """A time typed without an offset is the site's own (a date alone is its midnight); an
+    offset or Z is kept; a printed time names its zone; a time that cannot be read says how to
+    write one."""
+    from watcher.cli.common import stamp, typed_time
+    from watcher.errors import InputError
+
+    def utc(*a):
+        return datetime(*a, tzinfo=UTC).timestamp()
+
+    assert typed_time("2026-07-01T08:00", "Europe/London", "--at") == utc(2026, 7, 1, 7)  # BST
+    assert typed_time("2026-11-30", "Europe/Berlin", "--from") == utc(2026, 11, 29, 23)
+    assert typed_time("2026-07-01T08:00Z", "Europe/London", "--at") == utc(2026, 7, 1, 8)
+    assert typed_time("1782892800", "Europe/London", "--at") == 1782892800.0
+    assert stamp(utc(2026, 7, 1, 7), "Europe/London") == "2026-07-01 08:00 BST"
+    with pytest.raises(InputError, match="site time, Europe/London"):
+        typed_time("30/11/2026", "Europe/London", "--from")

@@ -398,3 +398,27 @@ def test_weekly_summary_ranks_the_lots_of_the_week(site):
     assert table.loc["USED-A", "at_risk"] == "yes" and table.loc["FRESH-A", "at_risk"] == ""
     assert "at risk" in report.lots_note
     assert "lot:USED-A" in set(report.alerts["zone"])  # the lot alert is among the week's alerts
+
+
+def test_typed_lot_times_are_site_time_and_shown_in_it(tmp_path):
+    """`lot arrive --at 2026-11-18T10:00` at a Berlin site is 10:00 in Berlin (09:00 UTC), and
+    `lot show` prints it back as 10:00 CET; an offset given is kept as given."""
+    cfg, store, engine = make(tmp_path, zones=ZONES)
+    store.close()
+    config = tmp_path / "w.toml"
+    config.write_text(
+        f'[broker]\npassword_file = "{tmp_path / "pw"}"\n[storage]\npath = "{tmp_path / "w.db"}"\n'
+        '[[sites]]\nid = "kp"\ntimezone = "Europe/Berlin"\n[[zones]]\nid = "bulk-a"\nsetpoint_c = -25.0\n'
+        '[[sources]]\npattern = "kp/{zone}/{sensor}/air"\nsignal = "air_c"\nvalue = "t"\n'
+    )
+    assert run("lot", "arrive", "B-1", "--zone", "bulk-a", "--at", "2026-11-18T10:00", config=config)[0] == 0
+    assert run("lot", "arrive", "B-2", "--zone", "bulk-a", "--at", "2026-11-18T10:00Z", config=config)[0] == 0
+    import sqlite3
+    from datetime import UTC, datetime
+
+    with sqlite3.connect(tmp_path / "w.db") as db:
+        stored = dict(db.execute("SELECT lot, ts FROM lot_events"))
+    nine, ten = (datetime(2026, 11, 18, h, tzinfo=UTC).timestamp() for h in (9, 10))
+    assert stored == {"B-1": nine, "B-2": ten}
+    code, text = run("lot", "show", "B-1", config=config)
+    assert code == 0 and "2026-11-18 10:00 CET  arrive" in text, text

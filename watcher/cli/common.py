@@ -7,11 +7,14 @@ import os
 import shlex
 import shutil
 import sys
-from datetime import UTC, datetime
+from datetime import datetime
 from pathlib import Path
+from zoneinfo import ZoneInfo
 
 import click
 from tabulate import tabulate
+
+from watcher.errors import InputError
 
 
 def config_option():
@@ -52,9 +55,38 @@ def database_of(config_path: str | None, db_path: str | None) -> str:
     return load_config(config_path).storage.path if config_path else default_db_path()
 
 
-def stamp(time_ts: float) -> str:
-    """An instant as UTC minutes."""
-    return datetime.fromtimestamp(time_ts, tz=UTC).strftime("%Y-%m-%d %H:%M UTC")
+def stamp(time_ts: float, tz: str = "UTC") -> str:
+    """An instant to the minute in a site's time zone, the zone named ("2026-12-02 15:40 GMT")."""
+    return datetime.fromtimestamp(time_ts, tz=ZoneInfo(tz)).strftime("%Y-%m-%d %H:%M %Z")
+
+
+def site_tz(cfg, zone: str | None = None) -> str:
+    """The time zone a person reads times in: the zone's site, else the only site, else UTC."""
+    if cfg is None:
+        return "UTC"
+    if zone is not None and cfg.zone(zone) is not None:
+        return cfg.site_of(zone).timezone
+    return cfg.sites[0].timezone if len(cfg.sites) == 1 else "UTC"
+
+
+def typed_time(raw: str, tz: str, where: str) -> float:
+    """A time typed by a person: ISO 8601 (a date alone is its midnight) or epoch seconds; one
+    without a zone is in the site's time zone tz, not UTC."""
+    text = (raw or "").strip()
+    try:
+        return float(text)
+    except ValueError:
+        pass
+    try:
+        when = datetime.fromisoformat(text[:-1] + "+00:00" if text.endswith("Z") else text)
+    except ValueError:
+        raise InputError(
+            where,
+            raw,
+            f"a time such as 2026-11-30 or 2026-11-30T08:00 (site time, {tz}), "
+            "with an offset such as +01:00, or epoch seconds",
+        ) from None
+    return (when if when.tzinfo else when.replace(tzinfo=ZoneInfo(tz))).timestamp()
 
 
 def fmt(value, spec: str, none: str = "-") -> str:

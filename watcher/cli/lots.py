@@ -10,7 +10,7 @@ import click
 
 from watcher.caution import SHORT
 from watcher.cli.app import main
-from watcher.cli.common import config_option, fmt, stamp, table
+from watcher.cli.common import config_option, fmt, site_tz, stamp, table, typed_time
 from watcher.errors import InputError
 from watcher.ranges import figure_text
 
@@ -30,6 +30,8 @@ def _record(config_path: str, docs: list[tuple[dict, str]], source: str) -> int:
     try:
         with store.atomic():
             for doc, where in docs:
+                if isinstance(doc.get("time"), str):  # typed by a person: without a zone, it is site time
+                    doc = {**doc, "time": typed_time(doc["time"], site_tz(cfg, doc.get("zone")), f"{where}: time")}
                 record_event(store, cfg, doc, where, source, getpass.getuser(), time.time())
     finally:
         store.close()
@@ -60,7 +62,12 @@ def lot() -> None:
 @lot.command("arrive")
 @click.argument("lot_id")
 @click.option("--zone", required=True, help="The zone the lot is put away in.")
-@click.option("--at", "at", default=None, help="When (ISO 8601 or epoch seconds; default: now).")
+@click.option(
+    "--at",
+    "at",
+    default=None,
+    help="When: 2026-11-30T08:00 (site time without an offset), epoch seconds; default: now.",
+)
 @click.option("--product", default=None, help="Product profile (default: dairy-ice-cream).")
 @click.option("--mean-um", type=float, default=None, help="Declared mean crystal diameter on arrival, um.")
 @click.option("--budget-used", type=float, default=None, help="Declared texture budget already used, %.")
@@ -80,7 +87,7 @@ def lot_arrive(lot_id, zone, at, product, mean_um, budget_used, history, note, c
 @lot.command("move")
 @click.argument("lot_id")
 @click.option("--to", "zone", required=True, help="The zone it moves to.")
-@click.option("--at", "at", default=None, help="When (default: now).")
+@click.option("--at", "at", default=None, help="When (site time without an offset; default: now).")
 @click.option("--note", default=None)
 @config_option()
 def lot_move(lot_id, zone, at, note, config_path) -> None:
@@ -95,7 +102,7 @@ def lot_move(lot_id, zone, at, note, config_path) -> None:
 
 @lot.command("depart")
 @click.argument("lot_id")
-@click.option("--at", "at", default=None, help="When (default: now).")
+@click.option("--at", "at", default=None, help="When (site time without an offset; default: now).")
 @click.option("--note", default=None)
 @config_option()
 def lot_depart(lot_id, at, note, config_path) -> None:
@@ -143,7 +150,8 @@ def lot_import(csv_path, config_path) -> None:
 @config_option()
 def lot_show(lot_id, as_json, config_path) -> None:
     """One lot: where it has been, and its texture figures as last computed by the service."""
-    row = next((r for r in _overview(config_path) if r["lot"] == lot_id), None)
+    rows, tz = _overview(config_path)
+    row = next((r for r in rows if r["lot"] == lot_id), None)
     if row is None:
         click.echo(f"watcher: no lot {lot_id} (see `watcher lots`)", err=True)
         sys.exit(1)
@@ -153,12 +161,12 @@ def lot_show(lot_id, as_json, config_path) -> None:
     f = row["figures"] or {}
     click.echo(f"Lot {lot_id} ({row['product']}), {'in ' + row['zone'] if row['present'] else 'departed'}")
     for kind, zone, ts in row["history"]:
-        click.echo(f"  {stamp(ts)}  {kind:<7} {zone or ''}")
+        click.echo(f"  {stamp(ts, tz)}  {kind:<7} {zone or ''}")
     if not f:
         click.echo("  Not computed yet: the service computes lots at its next analysis pass.")
         return
     click.echo(
-        f"  As of {stamp(f['time_ts'])}: {figure_text(f, 'budget_used_pct', '.1f')} % of the texture budget "
+        f"  As of {stamp(f['time_ts'], tz)}: {figure_text(f, 'budget_used_pct', '.1f')} % of the texture budget "
         f"used ({f['worst_position']}), mean crystal {fmt(f['mean_diameter_um'], '.1f')} um, "
         f"{figure_text(f, 'days_to_limit', '.0f', 'no limit in sight')} days to the limit at current "
         "conditions (90 % range in brackets)."
@@ -173,7 +181,8 @@ def lot_show(lot_id, as_json, config_path) -> None:
 @config_option()
 def lots_cmd(zone, everything, as_json, config_path) -> None:
     """Lots ranked by texture life left: the first should leave first."""
-    rows = [r for r in _overview(config_path) if (everything or r["present"]) and (zone is None or r["zone"] == zone)]
+    everyone, tz = _overview(config_path)
+    rows = [r for r in everyone if (everything or r["present"]) and (zone is None or r["zone"] == zone)]
     rows.sort(key=rank_key)
     if as_json:
         click.echo(json.dumps(rows, indent=1))
@@ -193,7 +202,7 @@ def lots_cmd(zone, everything, as_json, config_path) -> None:
                 figure_text(f, "budget_used_pct", ".1f"),
                 fmt(f.get("mean_diameter_um"), ".1f"),
                 figure_text(f, "days_to_limit", ".0f"),
-                stamp(f["time_ts"]) if f else "not computed yet",
+                stamp(f["time_ts"], tz) if f else "not computed yet",
             ]
         )
     head = ["#", "lot", "zone", "product", "budget used %", "mean um", "days left", "as of"]
@@ -212,13 +221,15 @@ def rank_key(row: dict):
     return (not f, days if days is not None else float("inf"), -(f.get("budget_used_pct") or 0.0), row["lot"])
 
 
-def _overview(config_path: str) -> list[dict]:
+def _overview(config_path: str) -> tuple[list[dict], str]:
+    """Every lot, and the time zone to show their times in."""
     from watcher.config import load_config
     from watcher.store.db import Store
 
-    store = Store(load_config(config_path).storage.path, readonly=True)
+    cfg = load_config(config_path)
+    store = Store(cfg.storage.path, readonly=True)
     try:
-        return store.lots.overview()
+        return store.lots.overview(), site_tz(cfg)
     finally:
         store.close()
 

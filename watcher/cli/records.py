@@ -10,7 +10,7 @@ import time
 import click
 
 from watcher.cli.app import main
-from watcher.cli.common import config_option, database_of, db_options, stamp, table
+from watcher.cli.common import config_option, database_of, db_options, site_tz, stamp, table
 from watcher.errors import InputError
 
 
@@ -66,8 +66,10 @@ def ack(alert_id, by, note, wait_s, config_path, db_path) -> None:
 @db_options
 def alerts(open_only, as_json, config_path, db_path) -> None:
     """List alerts, newest first (read-only)."""
+    from watcher.config import load_config
     from watcher.store.db import Store
 
+    cfg = load_config(config_path) if config_path else None
     store = Store(database_of(config_path, db_path), readonly=True)
     try:
         rows = store.alerts.list(open_only)
@@ -89,14 +91,16 @@ def alerts(open_only, as_json, config_path, db_path) -> None:
             r["status"],
             r["severity"],
             r["zone"],
-            stamp(r["raised_ts"]),
+            stamp(r["raised_ts"], site_tz(cfg, r["zone"])),
             "-" if r["value"] is None else format(r["value"], ".4g"),
             r["label"] + (f" (ack: {r['acked_by']})" if r["acked_by"] else ""),
         ]
         for r in rows
     ]
-    head = ["id", "status", "severity", "zone", "raised", "value", "what"]
+    head = ["id", "status", "severity", "zone", "raised (data time)", "value", "what"]
     click.echo(table(lines, head, ["right", "left", "left", "left", "left", "right", "left"]))
+    if cfg is None:
+        click.echo("Times in UTC (give --config for each site's own time zone).")
 
 
 @main.command("test-notify")
@@ -119,7 +123,7 @@ def test_notify(config_path, tag) -> None:
         d = notifier.send(
             c.name,
             "watcher test message",
-            f"A test from watcher at {stamp(time.time())} to channel {c.name} (tags: {', '.join(c.tags)}). "
+            f"A test from watcher at {stamp(time.time(), site_tz(cfg))} to channel {c.name} (tags: {', '.join(c.tags)}). "
             "No action needed.",
         )
         failed += not d.ok

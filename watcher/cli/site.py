@@ -9,7 +9,7 @@ import sys
 import click
 
 from watcher.cli.app import main
-from watcher.cli.common import config_option, db_options, fmt, self_command, stamp, table
+from watcher.cli.common import config_option, db_options, fmt, self_command, site_tz, stamp, table
 from watcher.ingest.payload import FORMATS
 from watcher.ranges import figure_text
 
@@ -102,13 +102,15 @@ def run(config_path, log_level) -> None:
 @click.option("--json", "as_json", is_flag=True, help="Print JSON.")
 def status(config_path, db_path, as_json) -> None:
     """Show each zone's temperatures, crystal size, budget and data freshness (read-only)."""
+    from watcher.config import load_config
     from watcher.status import read_status
 
     report = read_status(config_path, db_path)
     if as_json:
         click.echo(json.dumps(report, indent=2))
         return
-    click.echo(f"Database {report['database']} (read-only), as of {stamp(report['now_ts'])}")
+    tz = site_tz(load_config(config_path)) if config_path else "UTC"
+    click.echo(f"Database {report['database']} (read-only), as of {stamp(report['now_ts'], tz)}")
     lines = []
     for z in report["zones"]:
         age = z["last_reading_age_s"]

@@ -9,7 +9,7 @@ import click
 
 from watcher.caution import SHORT
 from watcher.cli.app import main
-from watcher.cli.common import config_option, fmt, table
+from watcher.cli.common import config_option, fmt, table, typed_time
 from watcher.errors import InputError
 
 ROWS = (
@@ -25,8 +25,13 @@ ROWS = (
 
 @main.command("what-if")
 @click.option("--zone", required=True, help="The zone whose recorded period is replayed.")
-@click.option("--from", "start", required=True, help="Start of the period (ISO 8601 or epoch seconds).")
-@click.option("--to", "end", required=True, help="End of the period.")
+@click.option(
+    "--from",
+    "start",
+    required=True,
+    help="Start of the period: 2026-11-30, 2026-11-30T08:00 (site time without an offset) or epoch seconds.",
+)
+@click.option("--to", "end", required=True, help="End of the period (as --from).")
 @click.option("--setpoint-offset", type=float, default=0.0, help="Run the room this many K colder (<0) or warmer.")
 @click.option("--defrosts-per-day", type=int, default=None, help="Replace the recorded defrosts by N a day.")
 @click.option("--defrost-min", type=float, default=30.0, show_default=True, help="Length of each scheduled defrost.")
@@ -48,7 +53,6 @@ def what_if(zone, start, end, setpoint_offset, defrosts_per_day, defrost_min, de
     from watcher.config import load_config
     from watcher.engine.analysis import air_samples
     from watcher.engine.zones import ZoneRunner, spec_key
-    from watcher.files.series import parse_time
     from watcher.model.integrator import State, advance, new_state
     from watcher.store.db import Store
     from watcher.store.zones import unpack_state
@@ -58,7 +62,8 @@ def what_if(zone, start, end, setpoint_offset, defrosts_per_day, defrost_min, de
     z = cfg.zone(zone)
     if z is None:
         raise InputError("--zone", zone, "one of " + ", ".join(x.id for x in cfg.zones))
-    t0, t1 = parse_time(start, "--from"), parse_time(end, "--to")
+    tz = cfg.site_of(zone).timezone
+    t0, t1 = typed_time(start, tz, "--from"), typed_time(end, tz, "--to")
     if t1 <= t0:
         raise InputError("--to", end, "a time after --from")
     if not 0.0 <= door_factor <= 1.0:
@@ -105,7 +110,6 @@ def what_if(zone, start, end, setpoint_offset, defrosts_per_day, defrost_min, de
     folder = Path(out)
     folder.mkdir(parents=True, exist_ok=True)
     chart = folder / f"what-if-{zone}.svg"
-    tz = cfg.site_of(zone).timezone
     chart.write_text(whatif_chart(result, t, tz, f"{z.name}: {change.describe()}"))
     result["chart"] = str(chart)
     for key in ("air_recorded_c", "air_changed_c"):
