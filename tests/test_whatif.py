@@ -179,5 +179,8 @@ def test_the_command_on_a_recorded_zone(tmp_path):
     assert svg.startswith("<svg") and svg.count("<path") > 10
     text = what_if("--setpoint-offset", "-2").stdout
     assert "budget used per 30 days" in text and "excess from excursions" in text and "refrigeration technician" in text
+    # 2.5 days of data: the 30-day figure says it is this period's rate carried on; no cost below 0.
+    assert r["per_30_days_extrapolated"] and "at this period's rate (from 2.5 days)" in text
+    assert all(v >= 0.0 for case in ("recorded", "changed") for v in r[case]["excess_pct"].values())
     bad = what_if("--without-event", "123456")
     assert bad.returncode == 2 and "--without-event" in bad.stderr and "123456" in bad.stderr

@@ -157,7 +157,9 @@ def compare(
         mean = out["mean_diameter_um"]
 
         def share(j):  # budget share (L^3) of what row j took away, at the worst position
-            return round(float(100.0 * (mean[k, worst] ** 3 - mean[j, worst] ** 3) / span), 4)
+            # Never below 0: taking a cause away can leave the number-mean a hair larger (small
+            # crystals that would have dissolved survive); that is no saving to report.
+            return max(0.0, round(float(100.0 * (mean[k, worst] ** 3 - mean[j, worst] ** 3) / span), 4))
 
         used = float(budget[worst])
         return {
@@ -178,6 +180,8 @@ def compare(
     recorded, changed = case(0), case(ROWS_PER_CASE)
     return {
         "period_days": round(days, 3),
+        # The 30-day rate is this period's rate carried on: say so when the period is shorter.
+        "per_30_days_extrapolated": bool(days < 30.0),
         "change": change.describe(),
         "recorded": recorded,
         "changed": changed,

@@ -122,6 +122,8 @@ def what_if(zone, start, end, setpoint_offset, defrosts_per_day, defrost_min, de
     a, b = result["recorded"], result["changed"]
     lines = []
     for key, label, spec in ROWS:
+        if key == "budget_per_30_days_pct" and result["per_30_days_extrapolated"]:
+            label = f"budget used per 30 days at this period's rate (from {result['period_days']:.1f} days), %"
         diff = None if a[key] is None or b[key] is None else b[key] - a[key]
         lines.append([label, fmt(a[key], spec), fmt(b[key], spec), fmt(diff, "+" + spec)])
     for cause in a["excess_pct"]:

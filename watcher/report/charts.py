@@ -140,5 +140,8 @@ def whatif_chart(result: dict, time_ts, tz: str, title: str) -> str:
     bottom.plot(tt, result["trace_changed_pct"], color=SIZE, lw=1.2, label="with the change")
     bottom.set_ylabel("% of texture budget")
     bottom.legend(loc="upper left", fontsize=6.5, frameon=False)
-    bottom.xaxis.set_major_formatter(mdates.DateFormatter("%d %b", tz=t.iloc[0].tzinfo if len(t) else None))
+    zone = t.iloc[0].tzinfo if len(t) else None
+    locator = mdates.AutoDateLocator(tz=zone, minticks=3, maxticks=8)
+    bottom.xaxis.set_major_locator(locator)  # hours for a short period, days for a long one
+    bottom.xaxis.set_major_formatter(mdates.ConciseDateFormatter(locator, tz=zone))
     return _svg(fig)
