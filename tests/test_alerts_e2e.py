@@ -6,6 +6,7 @@ minute 82. Data time runs fast; the alert rules judge durations on it.
 """
 
 import json
+import re
 import sqlite3
 import subprocess
 import sys
@@ -177,6 +178,11 @@ def test_door_alert_mail_ack_stops_reminders_and_clear_notice(tmp_path, broker):
             air["acked_by"] == "Sam"
             and "via mqtt from control-panel" in next(e for e in air["log"] if e["step"] == "ack")["note"]
         )
+        # The table shows the value that fired beside the latest, in the site's time.
+        table = cli("alerts", "--config", str(config)).stdout
+        assert "when raised" in table and "latest" in table and re.search(r" (GMT|BST) ", table)  # London time
+        door_line = next(x for x in table.splitlines() if "door open" in x)
+        assert "10 min" in door_line, door_line  # fired at 10 min open; the latest is longer
         assert w.stop() == 0  # the final checkpoint also brings the events up to date
         with sqlite3.connect(tmp_path / "watcher.db") as db:
             reasons = [r[0] for r in db.execute("SELECT reason FROM rejections WHERE topic = 'watcher/ack'")]

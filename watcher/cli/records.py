@@ -66,6 +66,7 @@ def ack(alert_id, by, note, wait_s, config_path, db_path) -> None:
 @db_options
 def alerts(open_only, as_json, config_path, db_path) -> None:
     """List alerts, newest first (read-only)."""
+    from watcher.alerts.messages import fmt_value
     from watcher.config import load_config
     from watcher.store.db import Store
 
@@ -73,6 +74,7 @@ def alerts(open_only, as_json, config_path, db_path) -> None:
     store = Store(database_of(config_path, db_path), readonly=True)
     try:
         rows = store.alerts.list(open_only)
+        fired = {r["id"]: next((x[3] for x in store.alerts.log(r["id"]) if x[0] == "raise"), None) for r in rows}
         if as_json:
             for r in rows:
                 r["log"] = [
@@ -92,13 +94,14 @@ def alerts(open_only, as_json, config_path, db_path) -> None:
             r["severity"],
             r["zone"],
             stamp(r["raised_ts"], site_tz(cfg, r["zone"])),
-            "-" if r["value"] is None else format(r["value"], ".4g"),
+            fmt_value(r["metric"], fired[r["id"]]),
+            fmt_value(r["metric"], r["value"]),
             r["label"] + (f" (ack: {r['acked_by']})" if r["acked_by"] else ""),
         ]
         for r in rows
     ]
-    head = ["id", "status", "severity", "zone", "raised (data time)", "value", "what"]
-    click.echo(table(lines, head, ["right", "left", "left", "left", "left", "right", "left"]))
+    head = ["id", "status", "severity", "zone", "raised (data time)", "when raised", "latest", "what"]
+    click.echo(table(lines, head, ["right", "left", "left", "left", "left", "right", "right", "left"]))
     if cfg is None:
         click.echo("Times in UTC (give --config for each site's own time zone).")
 
