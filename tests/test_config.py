@@ -344,3 +344,16 @@ def test_a_warm_setpoint_is_taken_only_when_marked_deliberate(tmp_path):
     data = base(tmp_path)
     data["zones"][0].update(setpoint_c=-4.0, setpoint_deliberate=True)
     assert config_from_dict(data, "c.toml").zones[0].setpoint_c == -4.0
+
+
+def test_a_retired_default_rule_is_explained(tmp_path, caplog):
+    """event-um (merged into event-cost: one alert per event) may still be named in disable,
+    with a note in the log; changing it as if it were a default says why it is not one."""
+    data = base(tmp_path)
+    data["alerts"] = {"disable": ["event-um"]}
+    with caplog.at_level("WARNING", logger="watcher.config"):
+        cfg = config_from_dict(data, "c.toml")
+    assert "event-um" not in {r.id for r in cfg.alerting.rules} and "merged into event-cost" in caplog.text
+    data["alerts"] = {"rules": [{"id": "event-um", "above": 2.0}]}
+    with pytest.raises(ConfigError, match="no longer a default rule: merged into event-cost"):
+        config_from_dict(data, "c.toml")

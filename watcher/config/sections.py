@@ -4,10 +4,12 @@ report schedule. Every refusal goes through Reader.fail (file, key path, value, 
 
 from __future__ import annotations
 
+import logging
+
 from watcher.alerts.channels import Channel
 from watcher.alerts.messages import auto_label
 from watcher.alerts.metrics import metric as metric_named
-from watcher.alerts.policy import METRICS, SEVERITIES, Rule, default_rules
+from watcher.alerts.policy import METRICS, RETIRED_RULES, SEVERITIES, Rule, default_rules
 from watcher.alerts.secrets import insecure_options
 from watcher.config.reader import REQUIRED, Reader, choice_text, read_secret
 from watcher.config.settings import REPORT_FORMATS, WEEKDAYS, Alerting, Events, Reports
@@ -15,6 +17,8 @@ from watcher.events.detect import DefrostShape
 from watcher.ingest.payload import FORMATS, SIGNALS, Source
 from watcher.ingest.topics import parse_pattern
 from watcher.model.integrator import DEFAULT_POSITIONS, Position
+
+log = logging.getLogger("watcher.config")
 
 
 def reports(r: Reader) -> Reports:
@@ -55,7 +59,11 @@ def alerting(r: Reader, zone_ids: set[str]) -> Alerting:
     rules = {rule.id: rule for rule in default_rules()}
     off = r.get("disable", (list,), [], "a list of rule ids", "default rules switched off, by id")
     for rule_id in off:
-        if rule_id not in rules:
+        if rule_id in RETIRED_RULES:
+            log.warning(
+                "%s: alerts.disable names %s, no longer a default rule (%s)", r.file, rule_id, RETIRED_RULES[rule_id]
+            )
+        elif rule_id not in rules:
             r.fail("disable", rule_id, "ids of default rules: " + ", ".join(rules))
     for rr in r.items("rules", [], "a list of [[alerts.rules]] tables"):
         rule = _rule(rr, rules, zone_ids)
@@ -70,7 +78,8 @@ def _rule(rr: Reader, rules: dict[str, Rule], zone_ids: set[str]) -> Rule:
     rid = rr.ident("id", "a default rule's id to change it, or a new id (then metric and above or below)")
     base = rules.get(rid)
     if base is None and not {"metric"} <= set(rr.table) or base is None and not {"above", "below"} & set(rr.table):
-        rr.fail("id", rid, "a default rule id to change, or a new rule with metric and above or below")
+        retired = f" ({rid} is no longer a default rule: {RETIRED_RULES[rid]})" if rid in RETIRED_RULES else ""
+        rr.fail("id", rid, "a default rule id to change, or a new rule with metric and above or below" + retired)
     metric = rr.text("metric", base.metric if base else None, "a metric from docs/alerts.md")
     if metric not in METRICS:
         rr.fail("metric", metric, "one of " + ", ".join(METRICS))
