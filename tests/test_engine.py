@@ -256,3 +256,22 @@ def test_database_file_is_private_and_a_bad_path_is_a_clear_error(tmp_path):
     assert stat.S_IMODE((tmp_path / "new.db").stat().st_mode) == 0o600
     with pytest.raises(StoreError, match="/proc/watcher.db: cannot open the database"):
         Store("/proc/watcher.db")
+
+
+def test_figures_reach_the_last_reading_when_no_further_batch_comes(tmp_path):
+    """Six buffered hours arrive in one batch and nothing after: the reorder window holds the
+    last two minutes back, and once the zone has been quiet that long on the service's clock,
+    settle() releases them, so the checkpoint (what `status` shows) reaches the last reading."""
+    cfg, store, eng = make(tmp_path, reorder=120.0)
+    eng.process([msg("bulk-a", k) for k in range(360)], NOW)
+    last = T0 + 60 * 359
+    assert store.zones.rows()["bulk-a"].figures["model_time_ts"] <= last - 120.0
+    with store.atomic():
+        eng.settle(NOW + 60.0)  # quiet for less than the window: still held
+    assert store.zones.rows()["bulk-a"].figures["model_time_ts"] <= last - 120.0
+    with store.atomic():
+        eng.settle(NOW + 121.0)
+    assert store.zones.rows()["bulk-a"].figures["model_time_ts"] == last
+    late = eng.process([msg("bulk-a", 358, sensor="s2")], NOW + 200.0)  # a straggler after the release
+    assert late.counts["late"] == 1  # stored, flagged, and the zone recomputed: nothing lost
+    same_state(state_of(eng), eng.recompute("bulk-a").state)

@@ -263,10 +263,13 @@ class Service:
             log.error("retention step failed (it runs again later): %s", exc)
 
     def _tick(self) -> None:
-        """Acknowledgements and the data rules, on the service's clock."""
+        """Checkpoints that no batch triggered, acknowledgements and the data rules, on the
+        service's clock."""
         try:
             with self.store.atomic():
-                self.engine.monitor.tick(time.time(), self.mqtt.connected.is_set(), self.db_ok)
+                now = time.time()
+                self.engine.settle(now)  # figures reach the last reading even when no batch comes
+                self.engine.monitor.tick(now, self.mqtt.connected.is_set(), self.db_ok)
         except Exception as exc:
             log.error("alert tick failed (it runs again in a second): %s", exc)
 

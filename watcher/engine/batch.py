@@ -81,6 +81,7 @@ class Engine:
         self.checkpoint_s = checkpoint_s
         self.runners: dict[str, ZoneRunner] = {}
         self._last_checkpoint: dict[str, float] = {}
+        self._checkpointed: dict[str, int] = {}  # readings_total at each zone's last checkpoint
         self.last_figures: dict[str, dict] = {}
         self._load(z.id for z in config.zones)
         self.monitor = self._monitor()
@@ -123,6 +124,7 @@ class Engine:
                     )
             self._replay_into(runner, after)
             runner.sensor_names = self.store.readings.sensors(zid)
+            runner.heard_wall_ts = time.time()  # a restart is no silence: a backlog may be on its way
             self.runners[zid] = runner
 
     def _replay_into(self, runner: ZoneRunner, after_ts: float | None) -> None:
@@ -347,6 +349,7 @@ class Engine:
                 self.monitor.forget_after(zid, result.late_from[zid])
                 log.info("zone %s: late reading stored and flagged; zone recomputed from stored readings", zid)
             runner = self.runners[zid]
+            runner.heard_wall_ts = now
             due = now - self._last_checkpoint.get(zid, 0.0) >= self.checkpoint_s or zid in result.recomputed
             # The integrator gives the same state however the readings are chunked, so feeding
             # waits for the checkpoint (or a long queue): one model call per zone, not per batch.
@@ -357,8 +360,22 @@ class Engine:
             self.monitor.zone_step(self.runners[zid], self.last_figures.get(zid), due, now)
         self.monitor.apply_commands(now)
 
-    def _feed(self, runner: ZoneRunner) -> None:
-        runner.advance()
+    def settle(self, now: float) -> None:
+        """On the service's clock, with no batch needed: a zone with readings not yet in its
+        checkpoint gets one once due, and a zone quiet for its reorder window releases what it
+        still holds, so its figures reach its last reading even when no further reading comes
+        (a backlog that arrived at once, a sensor that stopped). Call inside a transaction."""
+        for zid, runner in self.runners.items():
+            behind = runner.pending or runner.readings_total != self._checkpointed.get(zid)
+            if not behind or now - self._last_checkpoint.get(zid, 0.0) < self.checkpoint_s:
+                continue
+            if runner.pending and now - runner.heard_wall_ts >= runner.window:
+                self._feed(runner, release_all=True)
+            self.checkpoint(zid, now)
+            self.monitor.zone_step(runner, self.last_figures.get(zid), True, now)
+
+    def _feed(self, runner: ZoneRunner, release_all: bool = False) -> None:
+        runner.advance(release_all)
         for start, end in runner.new_gaps:
             self.store.gaps.add(runner.zone.id, start, end)
         runner.new_gaps.clear()
@@ -385,6 +402,7 @@ class Engine:
             )
         )
         self._last_checkpoint[zid] = now
+        self._checkpointed[zid] = runner.readings_total
 
     def apply_retention(self, now: float) -> int:
         """Move each zone's anchor to the retention cut-off, then fold older raw readings into

@@ -45,6 +45,7 @@ class ZoneRunner:
         self.last_air_fed_ts: float | None = None
         self.max_ts = -math.inf
         self.pending: list[tuple] = []
+        self.heard_wall_ts = -math.inf  # service time of the newest reading taken (to tell a quiet zone)
         self.new_gaps: list[tuple[float, float]] = []
         self.readings_total = 0
         self.last_ts: float | None = None
@@ -71,9 +72,10 @@ class ZoneRunner:
             self.max_ts = max(self.max_ts, r.ts)
 
     # --- feeding -------------------------------------------------------------------------
-    def advance(self) -> None:
-        """Feed every buffered reading that the reorder window has released."""
-        watermark = self.max_ts - self.window
+    def advance(self, release_all: bool = False) -> None:
+        """Feed every buffered reading that the reorder window has released (release_all: every
+        buffered reading, when the zone has gone quiet and nothing is left to wait for)."""
+        watermark = self.max_ts if release_all else self.max_ts - self.window
         ready = [p for p in self.pending if p[0] <= watermark]
         if not ready:
             return
