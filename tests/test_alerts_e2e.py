@@ -123,7 +123,7 @@ def test_door_alert_mail_ack_stops_reminders_and_clear_notice(tmp_path, broker):
         pub.send(minute(60))
         wait_for(lambda: count(smtp.subjects(), "door open") >= 1, timeout=10, what="the door alert mail")
         door_mail = next(t for s, t in zip(smtp.subjects(), smtp.texts()) if "door open" in s)
-        assert "[WARNING] dispatch: door open over 10 min" in smtp.subjects()
+        assert "[WARNING] dispatch: door open over 10 min - Kestrel Point (test)" in smtp.subjects()  # site last
         for part in ("What happened", "What to check", "watcher ack", "not a food-safety verdict"):
             assert part in door_mail
 

@@ -41,7 +41,7 @@ def test_raise_message_says_what_happened_cost_and_checks():
         "watcher/ack",
         50.0,
     )
-    assert "door open over 10 min. Now 14 min (at or above 10 min), since 2026-11-18 11:06" in body
+    assert "door open over 10 min. When raised: 14 min (at or above 10 min), since 2026-11-18 11:06" in body
     assert "Now: air -16.5 C, product (estimated, warmest position) -20.1 C." in body
     assert "41.3 % of the budget used" in body and "42.2 um of the 50 um limit" in body and "61 days" in body
     ranged = messages.body(
@@ -64,6 +64,7 @@ def test_raise_message_says_what_happened_cost_and_checks():
     assert "failed closer" in body and "watcher ack 7 --by NAME" in body and "not a food-safety verdict" in body
     assert len(body) < 1200  # readable on a phone
     assert messages.title("raise", ALERT, "Dispatch freezer") == "[WARNING] Dispatch freezer: door open over 10 min"
+    assert messages.title("raise", ALERT, "Dispatch freezer", site="Kestrel Point").endswith(" - Kestrel Point")
     assert messages.title("repeat", ALERT, "Dispatch freezer", 2).startswith("[WARNING, reminder 2]")
 
 
@@ -115,3 +116,11 @@ def test_message_levels_follow_severity_and_kind():
         "success",
     ]
     assert (level("raise", "critical"), level("raise", "info")) == ("failure", "info")
+
+
+def test_a_reminder_labels_the_value_that_fired_and_the_latest():
+    """A reminder says the value the alert was raised at and the latest one, each labelled, so
+    a value that has since come back under the threshold never reads as 'now ... at or above'."""
+    alert = {**ALERT, "value": 540.0, "fired_value": 840.0}
+    body = messages.body("repeat", alert, "Kestrel Point - Dispatch freezer", "Europe/London", None, [], "watcher/ack")
+    assert "When raised: 14 min (at or above 10 min)" in body and "Latest: 9 min." in body

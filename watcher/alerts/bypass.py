@@ -68,7 +68,10 @@ class StorageBypass:
     def _send(self, ep: Episode, now_ts: float, repeat: bool) -> None:
         rule = self.rule
         tags = ["alerts", rule.severity, "zone:service"]
-        title, body = messages.storage_bypass(rule, ep.since_ts, now_ts, ep.error, self._tz(), repeat)
+        site = self.config.sites[0] if self.config.sites else None
+        title, body = messages.storage_bypass(
+            rule, ep.since_ts, now_ts, ep.error, self._tz(), repeat, (site.name or site.id) if site else ""
+        )
         try:
             notifier = Notifier(list(self.config.channels))
         except Exception as exc:

@@ -29,7 +29,8 @@ def local(ts: float | None, tz: str) -> str:
     return dt.datetime.fromtimestamp(ts, ZoneInfo(tz)).strftime("%Y-%m-%d %H:%M")
 
 
-def title(kind: str, alert: dict, zone_name: str, repeat: int = 0) -> str:
+def title(kind: str, alert: dict, zone_name: str, repeat: int = 0, site: str = "") -> str:
+    """The subject: what kind of notice, where, what; the site last (a manager may run several)."""
     sev = alert["severity"].upper()
     tag = {
         "raise": sev,
@@ -38,7 +39,7 @@ def title(kind: str, alert: dict, zone_name: str, repeat: int = 0) -> str:
         "clear": "back to normal",
         "ack": "acknowledged",
     }[kind]
-    return f"[{tag}] {zone_name}: {alert['label']}"
+    return f"[{tag}] {zone_name}: {alert['label']}" + (f" - {site}" if site else "")
 
 
 def body(
@@ -64,9 +65,11 @@ def body(
         )
     else:
         op = "at or above" if alert.get("op", ">=") == ">=" else "at or below"
+        fired = metric_of.format(alert.get("fired_value", alert.get("value")))
+        latest = f" Latest: {now_value}." if kind != "raise" else ""
         lines.append(
-            f"What happened: {alert['label']}. Now {now_value} ({op} {metric_of.format(alert['threshold'])}), "
-            f"since {local(alert.get('since_ts') or alert['raised_ts'], tz)} ({tz})."
+            f"What happened: {alert['label']}. When raised: {fired} ({op} {metric_of.format(alert['threshold'])}), "
+            f"since {local(alert.get('since_ts') or alert['raised_ts'], tz)} ({tz}).{latest}"
         )
         if alert.get("which"):
             lines.append(f"Which: {alert['which']}.")
@@ -110,10 +113,12 @@ def body(
     return "\n".join(lines)
 
 
-def storage_bypass(rule, since_ts: float, now_ts: float, error: str, tz: str, repeat: bool) -> tuple[str, str]:
+def storage_bypass(
+    rule, since_ts: float, now_ts: float, error: str, tz: str, repeat: bool, site: str = ""
+) -> tuple[str, str]:
     """Title and body of the storage alert sent around the database (watcher.alerts.bypass)."""
     alert = {"severity": rule.severity, "label": rule.label}
-    head = title("repeat" if repeat else "raise", alert, "watcher service", 1 if repeat else 0)
+    head = title("repeat" if repeat else "raise", alert, "watcher service", 1 if repeat else 0, site)
     lines = [
         f"What happened: {rule.label}. Readings have not been stored since {local(since_ts, tz)} ({tz}), "
         f"{duration(now_ts - since_ts)} so far. The last error: {error[:300]}",

@@ -126,7 +126,8 @@ class AlertKeeper:
         which = obs.get(f"{rule.metric}:which") if act.kind != "clear" else None  # e.g. the silent sensor
         note = f"sensor {which}" if which else None
         self.store.alerts.log_add(alert_id, act.kind, act.at_ts, wall_ts, act.value, note=note)
-        self._notify(act.kind, {**alert, **fields, "op": rule.op, "which": note}, wall_ts, n)
+        fired = next((step[3] for step in self.store.alerts.log(alert_id) if step[0] == "raise"), act.value)
+        self._notify(act.kind, {**alert, **fields, "op": rule.op, "which": note, "fired_value": fired}, wall_ts, n)
 
     def _cleared_id(self, key) -> int | None:
         """The alert id a clear refers to (the policy has already reset the state)."""
@@ -155,7 +156,7 @@ class AlertKeeper:
         tags = ["escalation"] if kind == "escalate" else ["alerts", alert["severity"], f"zone:{key}"]
         exclude = set(self.store.outbox.failing_channels()) if alert["metric"] == "undelivered_s" else set()
         self.store.outbox.add(
-            messages.title(kind, alert, zone_name, n),
+            messages.title(kind, alert, zone_name, n, (site.name or site.id) if site else ""),
             messages.body(
                 kind,
                 alert,
