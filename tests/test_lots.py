@@ -265,16 +265,23 @@ def run(*args, config):
     return out.returncode, out.stdout + out.stderr
 
 
-def test_lot_commands_import_and_ranking(tmp_path):
-    """The lot commands record, import and rank lots, and refuse bad input with exit code 2."""
-    cfg, store, engine = make(tmp_path, zones=ZONES)
+def cli_config(tmp_path, site_extra: str = ""):
+    """A configuration file for the lot commands, over a database the engine has set up."""
+    _, store, _ = make(tmp_path, zones=ZONES)
     store.close()
     config = tmp_path / "w.toml"
     config.write_text(
         f'[broker]\npassword_file = "{tmp_path / "pw"}"\n[storage]\npath = "{tmp_path / "w.db"}"\n'
-        '[[sites]]\nid = "kp"\n[[zones]]\nid = "bulk-a"\nsetpoint_c = -25.0\n[[zones]]\nid = "dispatch"\n'
-        'setpoint_c = -20.0\n[[sources]]\npattern = "kp/{zone}/{sensor}/air"\nsignal = "air_c"\nvalue = "t"\n'
+        f'[[sites]]\nid = "kp"\n{site_extra}[[zones]]\nid = "bulk-a"\nsetpoint_c = -25.0\n[[zones]]\n'
+        'id = "dispatch"\nsetpoint_c = -20.0\n[[sources]]\npattern = "kp/{zone}/{sensor}/air"\nsignal = "air_c"\n'
+        'value = "t"\n'
     )
+    return config
+
+
+def test_lot_commands_import_and_ranking(tmp_path):
+    """The lot commands record, import and rank lots, and refuse bad input with exit code 2."""
+    config = cli_config(tmp_path)
     t = "2026-11-18T10:00:00Z"
     assert run("lot", "arrive", "P-1", "--zone", "bulk-a", "--at", t, config=config)[0] == 0
     assert run("lot", "arrive", "P-2", "--zone", "bulk-a", "--at", t, "--budget-used", "60", config=config)[0] == 0
@@ -403,14 +410,7 @@ def test_weekly_summary_ranks_the_lots_of_the_week(site):
 def test_typed_lot_times_are_site_time_and_shown_in_it(tmp_path):
     """`lot arrive --at 2026-11-18T10:00` at a Berlin site is 10:00 in Berlin (09:00 UTC), and
     `lot show` prints it back as 10:00 CET; an offset given is kept as given."""
-    cfg, store, engine = make(tmp_path, zones=ZONES)
-    store.close()
-    config = tmp_path / "w.toml"
-    config.write_text(
-        f'[broker]\npassword_file = "{tmp_path / "pw"}"\n[storage]\npath = "{tmp_path / "w.db"}"\n'
-        '[[sites]]\nid = "kp"\ntimezone = "Europe/Berlin"\n[[zones]]\nid = "bulk-a"\nsetpoint_c = -25.0\n'
-        '[[sources]]\npattern = "kp/{zone}/{sensor}/air"\nsignal = "air_c"\nvalue = "t"\n'
-    )
+    config = cli_config(tmp_path, 'timezone = "Europe/Berlin"\n')
     assert run("lot", "arrive", "B-1", "--zone", "bulk-a", "--at", "2026-11-18T10:00", config=config)[0] == 0
     assert run("lot", "arrive", "B-2", "--zone", "bulk-a", "--at", "2026-11-18T10:00Z", config=config)[0] == 0
     import sqlite3
