@@ -124,3 +124,9 @@ def test_a_reminder_labels_the_value_that_fired_and_the_latest():
     alert = {**ALERT, "value": 540.0, "fired_value": 840.0}
     body = messages.body("repeat", alert, "Kestrel Point - Dispatch freezer", "Europe/London", None, [], "watcher/ack")
     assert "When raised: 14 min (at or above 10 min)" in body and "Latest: 9 min." in body
+
+
+def test_a_value_that_rounds_to_zero_has_no_sign():
+    """-0.0004 % reads as 0.0 %, not -0.0 %."""
+    assert messages.fmt_value("event_budget_share_pct", -0.0004) == "0.0 %"
+    assert messages.fmt_value("air_c", -0.04) == "0.0 C" and messages.fmt_value("air_c", -18.04) == "-18.0 C"

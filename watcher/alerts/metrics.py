@@ -31,14 +31,19 @@ class Metric:
         if self.unit == "duration":
             return duration(value)
         if self.unit == "days":
-            return f"{value:.0f} days"
+            return f"{_unsigned_zero(value, 0):.0f} days"
         if self.unit == "count":
-            return f"{value:.0f}"
+            return f"{_unsigned_zero(value, 0):.0f}"
         if self.unit == "um":
-            return f"{value:.2f} um"
+            return f"{_unsigned_zero(value, 2):.2f} um"
         if self.unit == "number":
             return f"{value:g}"
-        return f"{value:.1f} {self.unit}"
+        return f"{_unsigned_zero(value, 1):.1f} {self.unit}"
+
+
+def _unsigned_zero(value: float, decimals: int) -> float:
+    """A value that rounds to zero is shown as 0, not -0 ("-0.0 %" after a cost fell away)."""
+    return round(value, decimals) + 0.0
 
 
 def duration(seconds: float) -> str:
