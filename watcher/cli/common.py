@@ -72,21 +72,17 @@ def site_tz(cfg, zone: str | None = None) -> str:
 def typed_time(raw: str, tz: str, where: str) -> float:
     """A time typed by a person: ISO 8601 (a date alone is its midnight) or epoch seconds; one
     without a zone is in the site's time zone tz, not UTC."""
-    text = (raw or "").strip()
+    from watcher.files.series import parse_time
+
     try:
-        return float(text)
-    except ValueError:
-        pass
-    try:
-        when = datetime.fromisoformat(text[:-1] + "+00:00" if text.endswith("Z") else text)
-    except ValueError:
+        return parse_time(raw, where, tz)
+    except InputError:
         raise InputError(
             where,
             raw,
-            f"a time such as 2026-11-30 or 2026-11-30T08:00 (site time, {tz}), "
-            "with an offset such as +01:00, or epoch seconds",
+            f"a time such as 2026-11-30 or 2026-11-30T08:00 (site time, {tz}), with an offset such as +01:00, "
+            "or epoch seconds",
         ) from None
-    return (when if when.tzinfo else when.replace(tzinfo=ZoneInfo(tz))).timestamp()
 
 
 def fmt(value, spec: str, none: str = "-") -> str:

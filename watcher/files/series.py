@@ -6,6 +6,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 from datetime import UTC, datetime
+from zoneinfo import ZoneInfo
 
 import numpy as np
 
@@ -23,8 +24,9 @@ class Series:
     product_c: np.ndarray | None
 
 
-def parse_time(raw: str, where: str) -> float:
-    """Epoch seconds from ISO 8601 (naive = UTC) or a plain epoch-seconds number."""
+def parse_time(raw: str, where: str, tz: str = "UTC") -> float:
+    """Epoch seconds from ISO 8601 or a plain epoch-seconds number; an ISO time without an
+    offset is in tz (UTC for files, the site's zone for what a person types)."""
     text = (raw or "").strip()
     if not text:
         raise SeriesError(where, raw, "a time (ISO 8601 or epoch seconds)")
@@ -41,7 +43,7 @@ def parse_time(raw: str, where: str) -> float:
     except ValueError:
         raise SeriesError(where, raw, "an ISO 8601 time such as 2026-11-30T08:00:00Z, or epoch seconds") from None
     if stamp.tzinfo is None:
-        stamp = stamp.replace(tzinfo=UTC)
+        stamp = stamp.replace(tzinfo=UTC if tz == "UTC" else ZoneInfo(tz))
     return stamp.timestamp()
 
 
