@@ -222,9 +222,9 @@ def build(store: Store, cfg: Config, site: Site, week: Week, generated_ts: float
         )
     upto_ts = min(week.end_ts, generated_ts)
     sw = load(store, cfg, site, week)
+    # Each zone's figures stop at its newest reading when that is earlier than upto_ts.
     zones = [
-        zone_section(sw, z, min(upto_ts, max(store.readings.summary(z.id)[1] or week.start_ts, week.start_ts)))
-        for z in sw.zones
+        zone_section(sw, z, min(upto_ts, max(store.readings.newest_of(z.id) or 0.0, week.start_ts))) for z in sw.zones
     ]
     alerts = alert_table(sw.alerts, sw.alert_log, site.timezone, upto_ts)
     comp = completeness(sw.readings, upto_ts - week.start_ts)

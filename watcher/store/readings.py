@@ -112,6 +112,10 @@ class Readings(Repo):
             (zone, *signals, after_ts, upto_ts),
         ).fetchall()
 
+    def newest_of(self, zone: str) -> float | None:
+        """The time of the zone's newest stored raw reading (an index lookup)."""
+        return self.conn.execute("SELECT max(ts) FROM readings WHERE zone = ?", (zone,)).fetchone()[0]
+
     def summary(self, zone: str) -> tuple[int, float | None]:
         """Readings stored for the zone (raw, plus those folded into hourly rows) and the newest time."""
         count, last = self.conn.execute("SELECT count(*), max(ts) FROM readings WHERE zone = ?", (zone,)).fetchone()
