@@ -90,6 +90,9 @@ def test_example_profile_is_the_fit_of_the_published_trial(dairy):
     )
     assert example.scale == "sem-freeze-dried" and example.initial.mean_diameter_um == 23.7
     assert example.limit_mean_diameter_um == pytest.approx(23.7 * 1.4286)
+    # A fitted profile names its own evidence (the trial file), not the base profile's citations.
+    assert fit.profile.source.startswith("Fitted to sinclair-2025-table3.csv (")
+    assert dairy.source not in fit.profile.source
 
 
 def test_published_trial_activation_energy_agrees_with_the_default(dairy):

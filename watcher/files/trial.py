@@ -27,7 +27,7 @@ def read_trial(path: str) -> Trial:
         days.append(d)
         temps.append(number(row.get("temp_c"), f"{where}, column temp_c", TrialError))
         sizes.append(s)
-    return make_trial(days, temps, sizes, scale=_declared_scale(path))
+    return make_trial(days, temps, sizes, scale=_declared_scale(path), name=Path(path).name)
 
 
 def _declared_scale(path: str) -> str | None:

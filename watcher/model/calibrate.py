@@ -34,6 +34,7 @@ class Trial:
     mean_diameter_um: np.ndarray
     initial_um: float
     scale: str | None = None  # measurement method of the sizes; None: not declared
+    name: str = "a storage trial"  # where the measurements come from (the file's name)
 
 
 @dataclass(frozen=True)
@@ -56,7 +57,7 @@ class Fit:
     limit_basis: str = ""  # how the texture limit on the trial's scale was set
 
 
-def make_trial(days, temp_c, mean_diameter_um, scale: str | None = None) -> Trial:
+def make_trial(days, temp_c, mean_diameter_um, scale: str | None = None, name: str = "a storage trial") -> Trial:
     """Split rows into the day-0 initial size and the storage measurements."""
     days = np.asarray(days, dtype=float)
     temp = np.asarray(temp_c, dtype=float)
@@ -67,7 +68,7 @@ def make_trial(days, temp_c, mean_diameter_um, scale: str | None = None) -> Tria
     later = days > 0
     if later.sum() < 2:
         raise TrialError("trial", int(later.sum()), "at least two measurements after day 0")
-    return Trial(days[later], temp[later], size[later], float(size[start].mean()), scale)
+    return Trial(days[later], temp[later], size[later], float(size[start].mean()), scale, name)
 
 
 def trial_limit(
@@ -243,7 +244,9 @@ def fit_trial(
         scale=scale,
         life=None,
         description=f"Calibrated from a storage trial ({trial.days.size} measurements at {temps.size} temperatures).",
-        source=f"Storage trial fit; other parameters from {base.name}",
+        # The fit's own evidence: the trial, not the base profile's citations (which stay with the base).
+        source=f"Fitted to {trial.name} ({trial.days.size} measurements); ice, texture and thermal parameters "
+        f"from profile {base.name}",
     )
     return Fit(
         profile=profile,
