@@ -122,3 +122,33 @@ def test_the_mqtt_process_stays_light():
     )
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
     assert out.stdout.strip() == ""
+
+
+@pytest.mark.parametrize(
+    ("payload", "value"), [(b"open", 1.0), (b"CLOSED\n", 0.0), (b" On ", 1.0), (b"false", 0.0), (b"1", 1.0), (b"0", 0.0)]
+)
+def test_a_bare_state_word_is_a_door_reading(payload, value):
+    """format = "text": a hard-wired contact's bare payload, any case, spaces ignored; the
+    receive time stamps it."""
+    s = src(signal="door", fmt="text", time_path=None)
+    reading = parse(s, payload)
+    assert (reading.value, reading.ts) == (value, NOW)
+
+
+@pytest.mark.parametrize(
+    ("signal", "payload", "reason"),
+    [
+        ("door", b"ajar", "state 'ajar' is not open/closed"),
+        ("door", b"", "state '' is not open/closed"),
+        ("door", b"2", "state 2.0 is not open/closed"),
+        ("air_c", b"open", "payload 'open' is not a number"),
+        ("air_c", b"nan", "not finite"),
+    ],
+)
+def test_a_bare_payload_that_is_not_its_signal_is_refused_with_the_reason(signal, payload, reason):
+    with pytest.raises(Rejected, match=reason):
+        parse(src(signal=signal, fmt="text", time_path=None), payload)
+
+
+def test_a_bare_temperature_takes_the_source_unit():
+    assert parse(src(fmt="text", time_path=None, unit="F"), b"-4").value == pytest.approx(-20.0)

@@ -223,7 +223,7 @@ def source(r: Reader, zone_ids: set[str]) -> Source:
     if pattern.placeholders - {"zone", "sensor", "site"}:
         r.fail("pattern", text, "placeholders among {site}, {zone}, {sensor}")
     fmt = _choice(
-        r, "format", "json", tuple(FORMATS), "how the payload carries the value: a JSON object, or a plain number"
+        r, "format", "json", tuple(FORMATS), "how the payload carries the value: a JSON object, a plain number, or bare text (a number or a state word)"
     )
     unit = _choice(r, "unit", "C", ("C", "F", "K"), "the temperature unit")
     unit_path = r.text("unit_field", doc="JSON field path of a unit the payload names itself; overrides unit")

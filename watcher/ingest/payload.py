@@ -149,6 +149,18 @@ def _read_number(source: Source, payload: bytes, text: str) -> tuple[object, str
     return raw, source.unit, None
 
 
+def _read_text(source: Source, payload: bytes, text: str) -> tuple[object, str, None]:
+    """A bare payload: a number, or for a door or defrost a state word (open/closed, on/off,
+    true/false, 1/0, any case). What it is not is said by the value's own check."""
+    word = text.strip()
+    try:
+        return float(word), source.unit, None
+    except ValueError:
+        if source.signal in TEMPERATURE_SIGNALS:
+            raise Rejected(f"payload {word[:40]!r} is not a number") from None
+        return word, source.unit, None
+
+
 def _read_json(source: Source, payload: bytes, text: str) -> tuple[object, str, float | None]:
     try:
         doc = load_json(payload)
@@ -164,6 +176,12 @@ FORMATS = {
     for f in (
         PayloadFormat("json", _read_json, True, lambda s: f"JSON field {'.'.join(s.value_path)}"),
         PayloadFormat("number", _read_number, False, lambda s: "plain number"),
+        PayloadFormat(
+            "text",
+            _read_text,
+            False,
+            lambda s: "bare number" if s.signal in TEMPERATURE_SIGNALS else "bare state word or number",
+        ),
     )
 }
 
