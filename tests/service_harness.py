@@ -30,6 +30,16 @@ time_format = "epoch_s"
 """
 
 
+TIMED_DOOR_SOURCE_TOML = """
+[[sources]]
+pattern = "kp/{zone}/{sensor}/door"
+signal = "door"
+value = "open"
+time = "ts"
+time_format = "epoch_s"
+"""
+
+
 def write_secret(path: Path, text: str) -> Path:
     """A file holding a secret, readable by its owner only (as watcher expects)."""
     path.write_text(text)

@@ -14,7 +14,15 @@ import time
 
 from tests.broker import free_port
 from tests.receivers import Receiver, SmtpReceiver
-from tests.service_harness import T0, Publisher, WatcherProcess, wait_for, write_config, write_secret
+from tests.service_harness import (
+    T0,
+    TIMED_DOOR_SOURCE_TOML,
+    Publisher,
+    WatcherProcess,
+    wait_for,
+    write_config,
+    write_secret,
+)
 from watcher.alerts.policy import default_rules
 
 KEEP = ("door-open", "defrost-long", "air-benchmark")
@@ -53,13 +61,7 @@ name = "ops-hook"
 url_file = "{tmp_path / "hook.url"}"
 tags = ["escalation"]
 
-[[sources]]
-pattern = "kp/{{zone}}/{{sensor}}/door"
-signal = "door"
-value = "open"
-time = "ts"
-time_format = "epoch_s"
-
+{TIMED_DOOR_SOURCE_TOML}
 [[sources]]
 pattern = "kp/{{zone}}/{{sensor}}/defrost"
 signal = "defrost"

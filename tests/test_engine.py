@@ -2,6 +2,9 @@
 
 import json
 import random
+import re
+import subprocess
+import sys
 
 import numpy as np
 import pytest
@@ -272,6 +275,24 @@ def test_figures_reach_the_last_reading_when_no_further_batch_comes(tmp_path):
     with store.atomic():
         eng.settle(NOW + 121.0)
     assert store.zones.rows()["bulk-a"].figures["model_time_ts"] == last
+    # status says how old the data time is that the figures describe: here that of the last reading
+    out = subprocess.run(
+        [sys.executable, "-m", "watcher", "status", "--db", str(store.path)], capture_output=True, text=True, timeout=60
+    )
+    assert out.returncode == 0 and "figures of" in out.stdout, out.stdout + out.stderr
+    ages = re.findall(r"([\d.]+ h ago)", next(x for x in out.stdout.splitlines() if x.startswith("bulk-a")))
+    assert len(ages) == 2 and ages[0] == ages[1], out.stdout  # last reading, figures of
+    # a site that reads Fahrenheit sees the zone's temperatures in F (-25 C is -13 F)
+    toml = tmp_path / "f.toml"
+    toml.write_text(
+        f'[broker]\npassword_file = "{tmp_path / "pw"}"\n[storage]\npath = "{store.path}"\n'
+        '[[sites]]\nid = "kp"\ntemp_unit = "F"\n[[zones]]\nid = "bulk-a"\nsetpoint_c = -25.0\n'
+        '[[sources]]\npattern = "kp/{zone}/{sensor}/air"\nsignal = "air_c"\nvalue = "t"\n'
+    )
+    out = subprocess.run(
+        [sys.executable, "-m", "watcher", "status", "--config", str(toml)], capture_output=True, text=True, timeout=60
+    )
+    assert out.returncode == 0 and "-13.0 F" in out.stdout, out.stdout + out.stderr
     late = eng.process([msg("bulk-a", 358, sensor="s2")], NOW + 200.0)  # a straggler after the release
     assert late.counts["late"] == 1  # stored, flagged, and the zone recomputed: nothing lost
     same_state(state_of(eng), eng.recompute("bulk-a").state)

@@ -248,7 +248,7 @@ def test_a_late_event_sends_the_lot_back_to_its_arrival(tmp_path):
     assert store.lots.state_get("L-9") is None  # to be recomputed
     keeper = LotKeeper(cfg, store)
     with store.atomic():
-        keeper.bring_up("L-9", T0 + DAY, engine._fed_of, NOW)
+        keeper.bring_up("L-9", T0 + DAY, engine.monitor.fed_of, NOW)
     after = figures(store, "L-9")
     assert (
         after["time_ts"] == before["time_ts"] and after["budget_used_pct"] < before["budget_used_pct"]

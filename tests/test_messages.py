@@ -130,3 +130,42 @@ def test_a_value_that_rounds_to_zero_has_no_sign():
     """-0.0004 % reads as 0.0 %, not -0.0 %."""
     assert messages.fmt_value("event_budget_share_pct", -0.0004) == "0.0 %"
     assert messages.fmt_value("air_c", -0.04) == "0.0 C" and messages.fmt_value("air_c", -18.04) == "-18.0 C"
+
+
+def test_a_site_that_reads_fahrenheit_gets_every_temperature_in_f():
+    """temp_unit = "F": the values, thresholds, temperatures now and event peaks of a message
+    are in F (converted exactly: -18 C is -0.4 F, -25 C is -13 F); a spread of 3 K is 5.4 F.
+    Durations and percentages are unchanged."""
+    assert messages.fmt_value("air_c", -25.0, "F") == "-13.0 F"
+    assert messages.fmt_value("sensor_spread_k", 3.0, "F") == "5.4 F"
+    assert messages.fmt_value("door_open_s", 840.0, "F") == "14 min"
+    alert = {**ALERT, "metric": "air_c", "threshold": -18.0, "value": -10.0, "fired_value": -17.5}
+    body = messages.body(
+        "raise",
+        alert,
+        "Kestrel Point - Dispatch",
+        "UTC",
+        {"air_c": -25.0, "product_c": -20.0},
+        EVENTS,
+        "a",
+        temp_unit="F",
+    )
+    assert "When raised: 0.5 F (at or above -0.4 F)" in body, body
+    assert "air -13.0 F" in body and "product (estimated, warmest position) -4.0 F" in body
+    assert "peak 6.4 F" in body and " C" not in body.replace("-18 C is a benchmark", "")
+
+
+def test_an_alert_learnt_after_it_ended_is_told_once_with_both_times():
+    """A backlog's alert that began and ended before its readings arrived: its subject says it
+    is already over; the body gives its span in data time, the value that fired, the worst, and
+    when the readings arrived; there is nothing to acknowledge."""
+    alert = {**ALERT, "cleared_ts": 1_795_001_320.0, "worst_value": 1320.0, "fired_value": 600.0}
+    alert["learnt_ts"] = 1_795_020_000.0
+    assert messages.title("over", alert, "Dispatch", site="Kestrel Point") == (
+        "[WARNING, already over] Dispatch: door open over 10 min - Kestrel Point"
+    )
+    body = messages.body("over", alert, "Kestrel Point - Dispatch", "UTC", None, [], "watcher/ack")
+    assert "from 2026-11-18 11:06 to 2026-11-18 11:28 (UTC)" in body, body
+    assert "When raised: 10 min (at or above 10 min); worst: 22 min." in body
+    assert "Learnt late: its readings arrived at 2026-11-18 16:40" in body and "watcher ack" not in body
+    assert messages.level("over", "critical") == "failure"

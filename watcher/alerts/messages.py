@@ -6,9 +6,11 @@ import datetime as dt
 import html
 from zoneinfo import ZoneInfo
 
-from watcher.alerts.metrics import duration, metric
+from watcher.alerts.metrics import duration, metric, temperature
 from watcher.caution import CAUTION
 from watcher.ranges import figure_text
+
+LATE_AFTER_S = 600.0  # a raise learnt this long after its data time says so
 
 
 def auto_label(name: str, op: str, threshold: float, for_s: float = 0.0) -> str:
@@ -19,8 +21,8 @@ def auto_label(name: str, op: str, threshold: float, for_s: float = 0.0) -> str:
     return f"{m.words} {side} {m.format(threshold)}{held}{note}"
 
 
-def fmt_value(name: str, value: float | None) -> str:
-    return metric(name).format(value)
+def fmt_value(name: str, value: float | None, temp_unit: str = "C") -> str:
+    return metric(name).format(value, temp_unit)
 
 
 def local(ts: float | None, tz: str) -> str:
@@ -37,6 +39,7 @@ def title(kind: str, alert: dict, zone_name: str, repeat: int = 0, site: str = "
         "repeat": f"{sev}, reminder {repeat}",
         "escalate": f"{sev}, not yet acknowledged",
         "clear": "back to normal",
+        "over": f"{sev}, already over",
         "ack": "acknowledged",
     }[kind]
     return f"[{tag}] {zone_name}: {alert['label']}" + (f" - {site}" if site else "")
@@ -53,10 +56,15 @@ def body(
     limit_um: float | None = None,
     by: str | None = None,
     note: str | None = None,
+    temp_unit: str = "C",
 ) -> str:
     metric_of = metric(alert["metric"])
+
+    def show(value) -> str:
+        return metric_of.format(value, temp_unit)
+
     lines = [place, ""]
-    now_value = metric_of.format(alert.get("value"))
+    now_value = show(alert.get("value"))
     if kind == "clear":
         lines.append(f"Cleared at {local(alert.get('cleared_ts'), tz)}: {metric_of.words} now {now_value}.")
     elif kind == "ack":
@@ -65,19 +73,41 @@ def body(
         )
     else:
         op = "at or above" if alert.get("op", ">=") == ">=" else "at or below"
-        fired = metric_of.format(alert.get("fired_value", alert.get("value")))
-        latest = f" Latest: {now_value}." if kind != "raise" else ""
-        lines.append(
-            f"What happened: {alert['label']}. When raised: {fired} ({op} {metric_of.format(alert['threshold'])}), "
-            f"since {local(alert.get('since_ts') or alert['raised_ts'], tz)} ({tz}).{latest}"
-        )
+        fired = show(alert.get("fired_value", alert.get("value")))
+        since = local(alert.get("since_ts") or alert["raised_ts"], tz)
+        learnt = alert.get("learnt_ts")
+        if kind == "over":
+            lines.append(
+                f"What happened: {alert['label']}, from {since} to {local(alert.get('cleared_ts'), tz)} ({tz}). "
+                f"When raised: {fired} ({op} {show(alert['threshold'])}); worst: {show(alert.get('worst_value'))}."
+            )
+            lines.append(
+                f"Learnt late: its readings arrived at {local(learnt, tz)}, when it was already over. "
+                "This is its only notice; it is in the record (watcher alerts) with both times."
+            )
+        else:
+            latest = f" Latest: {now_value}." if kind != "raise" else ""
+            lines.append(
+                f"What happened: {alert['label']}. When raised: {fired} ({op} {show(alert['threshold'])}), "
+                f"since {since} ({tz}).{latest}"
+            )
+            if kind == "raise" and learnt is not None and learnt - alert["raised_ts"] > LATE_AFTER_S:
+                lines.append(
+                    f"Learnt late: its readings arrived at {local(learnt, tz)}, "
+                    f"{duration(learnt - alert['raised_ts'])} after it was raised in the readings' time."
+                    + (
+                        " It was open past the escalation time, so this goes to the escalation contacts too."
+                        if alert.get("escalated_ts")
+                        else ""
+                    )
+                )
         if alert.get("which"):
             lines.append(f"Which: {alert['which']}.")
     temps = []
     if figures and figures.get("air_c") is not None:
-        temps.append(f"air {figures['air_c']:.1f} C")
+        temps.append(f"air {temperature(figures['air_c'], temp_unit)}")
     if figures and figures.get("product_c") is not None:
-        temps.append(f"product (estimated, warmest position) {figures['product_c']:.1f} C")
+        temps.append(f"product (estimated, warmest position) {temperature(figures['product_c'], temp_unit)}")
     if temps:
         lines.append("Now: " + ", ".join(temps) + ".")
     if figures and figures.get("budget_used_pct") is not None:
@@ -101,7 +131,7 @@ def body(
             cost = ""
             if e.get("excess_um") is not None:
                 cost = f", cost {e['excess_um']:.2f} um ({e['budget_share_pct']:.2f} % of the budget, {e.get('cost')})"
-            peak = f", peak {e['peak_c']:.1f} C" if e.get("peak_c") is not None else ""
+            peak = f", peak {temperature(e['peak_c'], temp_unit)}" if e.get("peak_c") is not None else ""
             lines.append(f"  - {e['kind']} {span}{peak}{cost}")
     if kind in ("raise", "repeat", "escalate"):
         lines.append(f"What to check: {metric_of.check}")

@@ -24,10 +24,19 @@ class Metric:
     clock: str = "data"  # "data": the zone's newest reading; "wall": the service's clock; "lot": per lot
     latch: bool = False  # the condition cannot heal: an alert stays raised until acknowledged
     benchmark: bool = False  # a temperature judged against the -18 C benchmark (never a legal limit)
+    # What a data-clock metric is read from, which sets the data times it is judged at
+    # (engine/timeline.py): "readings" (the readings themselves), "model" (the integrator's
+    # product temperature and budget) or "events" (the event analysis).
+    source: str = "readings"
 
-    def format(self, value: float | None) -> str:
+    def format(self, value: float | None, temp_unit: str = "C") -> str:
+        """The value as a person reads it; temperatures (and differences) in temp_unit."""
         if value is None:
             return "unknown"
+        if self.unit == "C":
+            return temperature(value, temp_unit)
+        if self.unit == "K" and temp_unit == "F":
+            return f"{_unsigned_zero(value * 1.8, 1):.1f} F"
         if self.unit == "duration":
             return duration(value)
         if self.unit == "days":
@@ -44,6 +53,14 @@ class Metric:
 def _unsigned_zero(value: float, decimals: int) -> float:
     """A value that rounds to zero is shown as 0, not -0 ("-0.0 %" after a cost fell away)."""
     return round(value, decimals) + 0.0
+
+
+def temperature(value_c: float | None, unit: str = "C", none: str = "unknown") -> str:
+    """A temperature held in celsius, shown in C or F ("-25.0 C", "-13.0 F")."""
+    if value_c is None:
+        return none
+    value = value_c * 1.8 + 32.0 if unit == "F" else value_c
+    return f"{_unsigned_zero(value, 1):.1f} {unit}"
 
 
 def duration(seconds: float) -> str:
@@ -64,24 +81,28 @@ _ALL = (
         "Which lots sit in this zone and how long: ship the oldest first. The weekly summary shows where the budget went (defrosts, doors, excursions).",
         "%",
         latch=True,
+        source="model",
     ),
     Metric(
         "days_to_limit",
         "days to the texture limit",
         "Whether the room runs warmer than its setpoint, and which lots will reach the limit first.",
         "days",
+        source="model",
     ),
     Metric(
         "event_budget_share_pct",
         "one event's share of the budget",
         "The event listed below: was it a defrost that ran long, a door held open, a fault?",
         "%",
+        source="events",
     ),
     Metric(
         "event_excess_um",
         "one event's extra crystal growth",
         "The event listed below: was it a defrost that ran long, a door held open, a fault?",
         "um",
+        source="events",
     ),
     Metric(
         "air_c",
@@ -96,6 +117,7 @@ _ALL = (
         "Whether warm stock was loaded, and the air temperature record; check with a product probe.",
         "C",
         benchmark=True,
+        source="model",
     ),
     Metric(
         "door_open_s", "door open", "The door: blocked open, a failed closer, the strip or air curtain.", "duration"
@@ -108,6 +130,7 @@ _ALL = (
         "defrosts today",
         "The defrost controller's schedule; heavy frost can mean failing door seals or humid air.",
         "count",
+        source="events",
     ),
     Metric(
         "sensor_spread_k",
@@ -183,6 +206,9 @@ _ALL = (
 METRICS: dict[str, Metric] = {m.name: m for m in _ALL}
 WALL_CLOCK = tuple(m.name for m in _ALL if m.clock == "wall")
 PER_LOT = tuple(m.name for m in _ALL if m.clock == "lot")
+FROM_READINGS, FROM_MODEL, FROM_EVENTS = (
+    tuple(m.name for m in _ALL if m.clock == "data" and m.source == src) for src in ("readings", "model", "events")
+)
 
 
 def metric(name: str) -> Metric:

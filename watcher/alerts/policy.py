@@ -73,6 +73,7 @@ class AlertState:
     value: float | None = None
     alert_id: int | None = None  # the stored alert row, once raised
     clearing_since_ts: float | None = None  # when the value went back past the hysteresis
+    worst: float | None = None  # the worst value since it was raised (judged at every step)
 
 
 @dataclass(frozen=True)
@@ -83,6 +84,7 @@ class Action:
     severity: str
     value: float | None
     at_ts: float
+    worst: float | None = None  # the worst value since the raise, this step included
 
 
 def evaluate(
@@ -118,27 +120,29 @@ def evaluate(
                         acked_ts=None,
                         value=value,
                         alert_id=None,
+                        worst=value,
                     )
-                    actions.append(Action("raise", zone, rule.id, rule.severity, value, now_ts))
+                    actions.append(Action("raise", zone, rule.id, rule.severity, value, now_ts, value))
                 else:
                     st = replace(st, status="pending", since_ts=since, value=value)
             elif st.status == "pending":
                 st = AlertState(zone, rule.id)
         else:  # open or acknowledged
-            st = replace(st, value=value)
+            worst = value if st.worst is None else (max if rule.op == ">=" else min)(st.worst, value)
+            st = replace(st, value=value, worst=worst)
             back = not rule.latch and rule.cleared(value)
             clearing = (st.clearing_since_ts if st.clearing_since_ts is not None else now_ts) if back else None
             st = replace(st, clearing_since_ts=clearing)
             if back and now_ts - clearing >= rule.clear_for_s:
-                actions.append(Action("clear", zone, rule.id, rule.severity, value, now_ts))
+                actions.append(Action("clear", zone, rule.id, rule.severity, value, now_ts, worst))
                 st = AlertState(zone, rule.id)
             elif st.status == "open":
                 if not st.escalated and now_ts - st.raised_ts >= escalate_s:
                     st = replace(st, escalated=True, notified_ts=now_ts)
-                    actions.append(Action("escalate", zone, rule.id, rule.severity, value, now_ts))
+                    actions.append(Action("escalate", zone, rule.id, rule.severity, value, now_ts, worst))
                 elif now_ts - st.notified_ts >= repeat_s:
                     st = replace(st, notified_ts=now_ts)
-                    actions.append(Action("repeat", zone, rule.id, rule.severity, value, now_ts))
+                    actions.append(Action("repeat", zone, rule.id, rule.severity, value, now_ts, worst))
         states[key] = st
     return states, actions
 

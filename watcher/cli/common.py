@@ -60,13 +60,25 @@ def stamp(time_ts: float, tz: str = "UTC") -> str:
     return datetime.fromtimestamp(time_ts, tz=ZoneInfo(tz)).strftime("%Y-%m-%d %H:%M %Z")
 
 
-def site_tz(cfg, zone: str | None = None) -> str:
-    """The time zone a person reads times in: the zone's site, else the only site, else UTC."""
+def _reader_site(cfg, zone: str | None):
+    """The site whose conventions a person reads: the zone's, else the only site, else none."""
     if cfg is None:
-        return "UTC"
+        return None
     if zone is not None and cfg.zone(zone) is not None:
-        return cfg.site_of(zone).timezone
-    return cfg.sites[0].timezone if len(cfg.sites) == 1 else "UTC"
+        return cfg.site_of(zone)
+    return cfg.sites[0] if len(cfg.sites) == 1 else None
+
+
+def site_tz(cfg, zone: str | None = None) -> str:
+    """The time zone a person reads times in (UTC without a site)."""
+    site = _reader_site(cfg, zone)
+    return "UTC" if site is None else site.timezone
+
+
+def site_unit(cfg, zone: str | None = None) -> str:
+    """The temperature unit a person reads, C or F (C without a site)."""
+    site = _reader_site(cfg, zone)
+    return "C" if site is None else site.temp_unit
 
 
 def typed_time(raw: str, tz: str, where: str) -> float:

@@ -10,7 +10,7 @@ import time
 import click
 
 from watcher.cli.app import main
-from watcher.cli.common import config_option, database_of, db_options, site_tz, stamp, table
+from watcher.cli.common import config_option, database_of, db_options, site_tz, site_unit, stamp, table
 from watcher.errors import InputError
 
 
@@ -94,8 +94,8 @@ def alerts(open_only, as_json, config_path, db_path) -> None:
             r["severity"],
             r["zone"],
             stamp(r["raised_ts"], site_tz(cfg, r["zone"])),
-            fmt_value(r["metric"], fired[r["id"]]),
-            fmt_value(r["metric"], r["value"]),
+            fmt_value(r["metric"], fired[r["id"]], site_unit(cfg, r["zone"])),
+            fmt_value(r["metric"], r["value"], site_unit(cfg, r["zone"])),
             r["label"] + (f" (ack: {r['acked_by']})" if r["acked_by"] else ""),
         ]
         for r in rows

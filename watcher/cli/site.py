@@ -9,7 +9,7 @@ import sys
 import click
 
 from watcher.cli.app import main
-from watcher.cli.common import config_option, db_options, fmt, self_command, site_tz, stamp, table
+from watcher.cli.common import config_option, db_options, fmt, self_command, site_tz, site_unit, stamp, table
 from watcher.ingest.payload import FORMATS
 from watcher.ranges import figure_text
 
@@ -109,7 +109,10 @@ def status(config_path, db_path, as_json) -> None:
     if as_json:
         click.echo(json.dumps(report, indent=2))
         return
-    tz = site_tz(load_config(config_path)) if config_path else "UTC"
+    from watcher.alerts.metrics import temperature
+
+    cfg = load_config(config_path) if config_path else None
+    tz = site_tz(cfg)
     click.echo(f"Database {report['database']} (read-only), as of {stamp(report['now_ts'], tz)}")
     lines = []
     for z in report["zones"]:
@@ -119,31 +122,34 @@ def status(config_path, db_path, as_json) -> None:
         lines.append(
             [
                 z["id"],
-                fmt(z["air_c"], ".1f"),
-                fmt(z["product_c"], ".1f"),
+                temperature(z["air_c"], site_unit(cfg, z["id"]), "-"),
+                temperature(z["product_c"], site_unit(cfg, z["id"]), "-"),
                 fmt(z["mean_diameter_um"], ".1f"),
                 figure_text(z, "budget_used_pct", ".1f"),
                 figure_text(z, "days_to_limit", ".0f", days_none),
                 _age(age),
+                _age(None if z["model_time_ts"] is None else max(0.0, report["now_ts"] - z["model_time_ts"])),
                 str(z["readings_total"]),
                 data,
             ]
         )
     head = [
         "zone",
-        "air C",
-        "product C",
+        "air",
+        "product",
         "mean um",
         "budget % (90 % range)",
         "days left (range)",
         "last reading",
+        "figures of",
         "readings",
         "data",
     ]
-    click.echo(table(lines, head, ["left"] + ["right"] * 7 + ["left"]))
+    click.echo(table(lines, head, ["left"] + ["right"] * 8 + ["left"]))
     click.echo(
         "Days left: if the product stayed at its current temperature. Ranges: 90 % range from the profile's "
-        "uncertainty; alerts on days left use the cautious (lower) end."
+        "uncertainty; alerts on days left use the cautious (lower) end. Figures of: how old the data time is that "
+        "the figures describe (they reach the last reading once it has waited out the reorder window)."
     )
     click.echo(f"Rejected messages stored: {report['rejections_total']}; data gaps recorded: {report['gaps_total']}.")
     alerts = report["open_alerts"]

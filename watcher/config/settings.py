@@ -90,6 +90,11 @@ class Site:
     id: str = setting(doc="a short id of letters, digits, '-' and '_'", ident=True)
     name: str = setting("", "the site's name in messages and summaries")
     timezone: str = setting("UTC", "IANA name; used for daily and weekly figures")
+    temp_unit: str = setting(
+        "C",
+        "temperatures in messages, `status` and `alerts`: C or F (configure and store in C; summaries stay in C)",
+        choices=("C", "F"),
+    )
 
 
 @dataclass(frozen=True)

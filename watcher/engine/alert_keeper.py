@@ -6,6 +6,7 @@ outbox messages in the writer's transaction, so they commit with the readings th
 from __future__ import annotations
 
 import logging
+from contextlib import contextmanager
 from dataclasses import asdict, replace
 
 from watcher.alerts import messages
@@ -24,6 +25,7 @@ log = logging.getLogger("watcher.alerts")
 SERVICE = subjects.SERVICE.key  # the subject key of service-wide alerts
 MAX_NAME = 64
 MAX_NOTE = 500
+_QUIET = AlertState("", "")
 
 
 def _state_from(d: dict) -> AlertState:
@@ -69,8 +71,38 @@ class AlertKeeper:
         self.rules = list(config.alerting.rules)
         ids = {r.id for r in self.rules}
         self.states = {k: _state_from(d) for k, d in store.alerts.states().items() if k[1] in ids}
+        self._last_obs: dict[tuple, dict] = {}
+        self._gathered: dict[int, list] | None = None
 
-    def evaluate(self, rules: list[Rule], zone: str, obs: dict, now_ts: float, wall_ts: float) -> None:
+    @contextmanager
+    def gathered(self, wall_ts: float):
+        """Hold the notices of every step judged inside, then send one per alert: a backlog
+        stepped through in one go tells each alert once, with what became of it (see _send)."""
+        self._gathered = {}
+        try:
+            yield
+        except BaseException:
+            self._gathered = None
+            raise
+        gathered, self._gathered = self._gathered, None
+        for steps in gathered.values():
+            self._send(steps, wall_ts)
+
+    def evaluate(
+        self, rules: list[Rule], zone: str, obs: dict, now_ts: float, wall_ts: float, skip_same: bool = False
+    ) -> None:
+        """Judge the rules on one observation at now_ts (data time; wall_ts is the service's
+        clock). skip_same: skip it when nothing can change (the same observation as last time
+        and every rule quiet), which keeps minute steps through a long backlog cheap."""
+        if not rules:
+            return
+        if skip_same:
+            key = (zone, rules[0].id)
+            if self._last_obs.get(key) == obs and all(
+                self.states.get((zone, r.id), _QUIET).status == "quiet" for r in rules
+            ):
+                return
+            self._last_obs[key] = obs
         a = self.config.alerting
         mine = {(zone, r.id): self.states[(zone, r.id)] for r in rules if (zone, r.id) in self.states}
         new, actions = evaluate(rules, zone, obs, now_ts, mine, a.repeat_s, a.escalate_s)
@@ -110,8 +142,10 @@ class AlertKeeper:
         if alert_id is None:
             return
         alert = self.store.alerts.get(alert_id)
-        worst = alert["worst_value"] if alert["worst_value"] is not None else act.value
-        worst = max(worst, act.value) if rule.op == ">=" else min(worst, act.value)
+        worst = next(v for v in (alert["worst_value"], act.worst, act.value) if v is not None)
+        for v in (act.worst, act.value):
+            if v is not None:
+                worst = max(worst, v) if rule.op == ">=" else min(worst, v)
         fields = {"value": act.value, "worst_value": worst}
         n = 0
         if act.kind == "repeat":
@@ -127,13 +161,37 @@ class AlertKeeper:
         note = f"sensor {which}" if which else None
         self.store.alerts.log_add(alert_id, act.kind, act.at_ts, wall_ts, act.value, note=note)
         fired = next((step[3] for step in self.store.alerts.log(alert_id) if step[0] == "raise"), act.value)
-        self._notify(act.kind, {**alert, **fields, "op": rule.op, "which": note, "fired_value": fired}, wall_ts, n)
+        told = {**alert, **fields, "op": rule.op, "which": note, "fired_value": fired}
+        if self._gathered is None:
+            self._notify(act.kind, told, wall_ts, n)
+        else:
+            self._gathered.setdefault(alert_id, []).append((act.kind, told, n))
+
+    def _send(self, steps: list[tuple[str, dict, int]], wall_ts: float) -> None:
+        """One notice for what one judgement learnt of an alert: raised and cleared already
+        (learnt late), "over"; raised (escalated too when it was open long enough), the raise;
+        otherwise the clear, the escalation or the last reminder."""
+        kinds = [kind for kind, _, _ in steps]
+        alert = {**steps[-1][1], "learnt_ts": wall_ts}
+        if "raise" in kinds:
+            if "clear" in kinds:
+                self._notify("over", alert, wall_ts)
+            else:
+                self._notify("raise", alert, wall_ts, escalated="escalate" in kinds)
+            return
+        for kind in ("clear", "escalate", "repeat"):
+            if kind in kinds:
+                n = max(n for k, _, n in steps if k == kind)
+                self._notify(kind, alert, wall_ts, n)
+                return
 
     def _cleared_id(self, key) -> int | None:
         """The alert id a clear refers to (the policy has already reset the state)."""
         return self.store.alerts.open_id(*key)
 
-    def _notify(self, kind: str, alert: dict, wall_ts: float, n: int = 0, by=None, note=None) -> None:
+    def _notify(
+        self, kind: str, alert: dict, wall_ts: float, n: int = 0, by=None, note=None, escalated: bool = False
+    ) -> None:
         key = alert["zone"]
         subject = subjects.Subject.of(key)
         lot = subject.id if subject.kind == "lot" else None
@@ -154,6 +212,8 @@ class AlertKeeper:
             state = self.store.lots.state_get(lot)
             figures = {**(state[2] if state else {}), "air_c": lz.air_c if lz else None}
         tags = ["escalation"] if kind == "escalate" else ["alerts", alert["severity"], f"zone:{key}"]
+        if escalated:  # learnt late and open past the escalation time: the escalation contacts too
+            tags.append("escalation")
         exclude = set(self.store.outbox.failing_channels()) if alert["metric"] == "undelivered_s" else set()
         self.store.outbox.add(
             messages.title(kind, alert, zone_name, n, (site.name or site.id) if site else ""),
@@ -168,6 +228,7 @@ class AlertKeeper:
                 zone.profile.limit_mean_diameter_um if zone else None,
                 by,
                 note,
+                site.temp_unit if site else "C",
             ),
             tags,
             wall_ts,

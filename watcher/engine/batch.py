@@ -9,6 +9,7 @@ the record; the caller keeps the batch and tries again.
 from __future__ import annotations
 
 import logging
+import math
 import os
 import time
 from collections import Counter
@@ -91,7 +92,7 @@ class Engine:
     def _monitor(self) -> Monitor:
         old = getattr(self, "monitor", None)
         last_jump = old.last_jump if old is not None else None  # not in the record; kept across reloads
-        return Monitor(self.config, self.store, self._fed_of, lambda: self.held_count, last_jump)
+        return Monitor(self.config, self.store, self.runners, lambda: self.held_count, last_jump)
 
     def reload_all(self) -> None:
         """After a failed outer transaction: every zone and the monitor back to the record."""
@@ -99,29 +100,24 @@ class Engine:
         self._load(self.runners)
         self.monitor = self._monitor()
 
-    def _fed_of(self, zone_id: str) -> float:
-        runner = self.runners.get(zone_id)
-        return -float("inf") if runner is None else runner.fed_ts
-
     # --- loading -------------------------------------------------------------------------
     def _new_runner(self, zone_id: str) -> ZoneRunner:
         z = self.config.zone(zone_id)
         return ZoneRunner(z, self.config.ingest.reorder_window_s, self.config.ingest.max_gap_s)
 
     def _load(self, zone_ids) -> None:
-        rows = self.store.zones.rows()
+        rows, marks = self.store.zones.rows(), self.store.zones.marks()
         for zid in zone_ids:
             runner = self._new_runner(zid)
             row = rows.get(zid)
-            if row is not None and row.spec_key == spec_key(runner.zone):
+            same = row is not None and row.spec_key == spec_key(runner.zone)
+            if same:
                 runner.restore(row.fed_ts, row.state, row.sensors)
-                after = None if row.fed_ts is None else row.fed_ts
-            else:
-                after = None
-                if row is not None:
-                    log.info(
-                        "zone %s: settings changed since the last checkpoint, recomputing from stored readings", zid
-                    )
+            elif row is not None:
+                log.info("zone %s: settings changed since the last checkpoint, recomputing from stored readings", zid)
+            # The model rules were judged up to their mark; what is fed beyond it is judged next.
+            runner.keep_after_ts = marks.get((zid, "model_judged_ts"), runner.fed_ts)
+            after = row.fed_ts if same else None
             self._replay_into(runner, after)
             runner.sensor_names = self.store.readings.sensors(zid)
             runner.heard_wall_ts = time.time()  # a restart is no silence: a backlog may be on its way
@@ -156,9 +152,11 @@ class Engine:
         runner.restore(fed_ts, state, sensors)
         return runner, fed_ts
 
-    def recompute(self, zone_id: str) -> ZoneRunner:
-        """Rebuild one zone from its anchor and every raw reading stored after it."""
+    def recompute(self, zone_id: str, keep_after_ts: float = math.inf) -> ZoneRunner:
+        """Rebuild one zone from its anchor and every raw reading stored after it (the model
+        steps after keep_after_ts kept for the rules: by default none)."""
         runner, after = self._from_anchor(zone_id)
+        runner.keep_after_ts = keep_after_ts
         runner.sensor_names = self.store.readings.sensors(zone_id)
         for sensor, signal, ts, value in self.store.readings.of_zone(zone_id, after):
             runner.accept(Reading(zone_id, sensor, signal, ts, value))
@@ -345,7 +343,7 @@ class Engine:
     def _finish(self, touched: set[str], result: BatchResult, now: float) -> None:
         for zid in touched:
             if zid in result.recomputed:
-                self.runners[zid] = self.recompute(zid)
+                self.runners[zid] = self.recompute(zid, keep_after_ts=self.runners[zid].fed_ts)
                 self.monitor.forget_after(zid, result.late_from[zid])
                 log.info("zone %s: late reading stored and flagged; zone recomputed from stored readings", zid)
             runner = self.runners[zid]
@@ -425,6 +423,7 @@ class Engine:
         folded = 0
         for zid in self.runners:
             runner, after = self._from_anchor(zid)
+            runner.keep_after_ts = math.inf  # a stand-in that moves the anchor: nothing to judge
             if after is not None and after >= cutoff:
                 continue
             rows = list(self.store.readings.of_zone(zid, after, cutoff))

@@ -1,13 +1,12 @@
-"""What a zone's rules need between analyses (door and defrost switches, each sensor's newest
-receive time, the latest figures and event cost), and the observations made from it."""
+"""What a zone's rules need between judgements (door and defrost switches, each air sensor's
+latest value, each sensor's newest receive time, the new readings not yet judged, the
+latest figures and event cost), and the staleness observation made from it."""
 
 from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
 
-from watcher.engine.zones import ZoneRunner
-from watcher.ranges import cautious_days
 from watcher.store.db import Store
 
 
@@ -16,6 +15,11 @@ class Live:
     """What a zone's rules need between analyses: switches, receive times, last costs."""
 
     switches: dict = field(default_factory=dict)  # (signal, sensor) -> [last_ts, value, since_ts]
+    air: dict = field(default_factory=dict)  # sensor -> (ts, value) of its latest air reading judged
+    inbox: list = field(default_factory=list)  # (ts, sensor, signal, value) stored, not yet judged
+    judged_ts: float = -math.inf  # the reading rules have been judged up to here (data time)
+    model_judged_ts: float = -math.inf  # the model rules likewise
+    model_now: dict = field(default_factory=dict)  # the model values at model_judged_ts
     received: dict = field(default_factory=dict)  # (sensor, signal) -> wall time of its newest reading
     figures: dict | None = None
     air_c: float | None = None
@@ -32,6 +36,14 @@ class Live:
         since = cur[2] if was_on and value >= 0.5 else ts
         self.switches[(signal, sensor)] = [ts, value, since]
 
+    def apply(self, ts: float, sensor: str, signal: str, value: float) -> None:
+        """One reading taken into the state the rules see."""
+        if signal == "air_c":
+            if ts >= self.air.get(sensor, (-math.inf, 0.0))[0]:
+                self.air[sensor] = (ts, value)
+        else:
+            self.switch(signal, sensor, ts, value)
+
     def on_for(self, signal: str, now_ts: float) -> float | None:
         """Seconds the longest-running 'on' switch of this signal has been on; None without sensors."""
         states = [v for (sig, _), v in self.switches.items() if sig == signal]
@@ -45,32 +57,14 @@ def load_live(store: Store, zone_ids) -> dict[str, Live]:
     out = {zid: Live() for zid in zone_ids}
     marks = store.zones.marks()
     for zid, lz in out.items():
+        lz.judged_ts = marks.get((zid, "judged_ts"), -math.inf)
+        lz.model_judged_ts = marks.get((zid, "model_judged_ts"), -math.inf)
         for sensor, signal, ts, value, since in store.readings.switch_state(zid):
             lz.switches[(signal, sensor)] = [ts, value, since]
         lz.received = store.readings.last_received(zid)
         lz.analysed_ts = marks.get((zid, "analysed_ts"), -math.inf)
         lz.snapshot_ts = marks.get((zid, "snapshot_ts"), -math.inf)
     return out
-
-
-def zone_observations(runner: ZoneRunner, lz: Live) -> dict:
-    """What the zone rules judge, at the zone's data time."""
-    now = runner.last_ts
-    f = lz.figures or {}
-    fresh = [v for t, v in runner.air.values() if runner.air and now - t <= runner.max_gap]
-    return {
-        "budget_used_pct": f.get("budget_used_pct"),
-        # Rules on days left judge the cautious end of the range (the rule's label says so).
-        "days_to_limit": cautious_days(f),
-        "product_c": f.get("product_c"),
-        "air_c": runner.last_air_c,
-        "door_open_s": lz.on_for("door", now),
-        "defrost_s": lz.on_for("defrost", now),
-        "defrosts_today": lz.defrosts_today,
-        "sensor_spread_k": max(fresh) - min(fresh) if len(fresh) >= 2 else None,
-        "event_budget_share_pct": None if lz.event_cost is None else lz.event_cost[0],
-        "event_excess_um": None if lz.event_cost is None else lz.event_cost[1],
-    }
 
 
 def stalest(received: dict, wall_ts: float, forget_s: float) -> tuple[float | None, str | None]:

@@ -1,16 +1,18 @@
 """Events, observations and alerts for the engine's zones: the engine calls this after each
 batch and on every tick; the work is done by the parts it wires together.
 
-- live.py: what the zone rules need between analyses; the observations made from it;
+- live.py: what the zone rules need between judgements; timeline.py: the data times they are
+  judged at, and what they see there;
 - analysis.py: events and their costs, daily growth, snapshots, at grid points of data time;
 - engine/lots.py: each lot brought up to date with its zones;
 - alert_keeper.py: rules judged, alert steps stored and sent.
 
 Runs inside the writer's transactions, so an alert, its log entry and its outbox messages are
 committed together with the readings that caused them, or not at all. Zone rules are judged on
-the zone's data time (its newest reading), so durations are right in a replay and with sensor
-clocks that lag; data rules (staleness, broker, rejections, delivery, storage) on the service's
-own clock, from `tick`, which runs even when no message arrives.
+data time, step by step through whatever a batch brought (timeline.py), so durations are right
+in a replay, with sensor clocks that lag and for a backlog that arrives at once; data rules
+(staleness, broker, rejections, delivery, storage) on the service's own clock, from `tick`,
+which runs even when no message arrives.
 """
 
 from __future__ import annotations
@@ -18,12 +20,14 @@ from __future__ import annotations
 import math
 from collections.abc import Callable
 
+from watcher.alerts.metrics import FROM_EVENTS, FROM_MODEL, FROM_READINGS
 from watcher.alerts.policy import LOT_METRICS, WALL_CLOCK_METRICS
 from watcher.config import Config
 from watcher.engine.alert_keeper import SERVICE, AlertKeeper, parse_ack
 from watcher.engine.analysis import CONTEXT_S, analyse, analysis_points, take_snapshot
-from watcher.engine.live import Live, load_live, stalest, zone_observations
+from watcher.engine.live import Live, load_live, stalest
 from watcher.engine.lots import LotKeeper
+from watcher.engine.timeline import model_steps, reading_steps
 from watcher.engine.zones import ZoneRunner, spec_key
 from watcher.ingest.payload import TEMPERATURE_SIGNALS
 from watcher.ranges import cautious_days
@@ -32,6 +36,7 @@ from watcher.store.db import Store
 
 JUMP_REMEMBERED_S = 3600.0
 FORGET_SENSOR_S = 2 * 86400.0  # a sensor silent this long no longer counts for staleness
+STEPPED_SIGNALS = ("air_c", "door", "defrost")  # the readings the reading rules see
 
 
 class Monitor:
@@ -39,20 +44,34 @@ class Monitor:
         self,
         config: Config,
         store: Store,
-        fed_of: Callable[[str], float] = lambda zone_id: -math.inf,
+        runners: dict[str, ZoneRunner] | None = None,
         held_count: Callable[[], int] = lambda: 0,
         last_jump: tuple[float, float] | None = None,
     ):
-        """fed_of: how far each zone's data go (the engine's runners); held_count: readings
-        waiting for the clocks to agree; last_jump: (seconds, wall time) of the last clock jump,
-        which is not in the record and is carried across reloads."""
+        """runners: the engine's zone runners (how far each zone's data go); held_count:
+        readings waiting for the clocks to agree; last_jump: (seconds, wall time) of the last
+        clock jump, which is not in the record and is carried across reloads."""
         self.config = config
         self.store = store
-        self.fed_of, self.held_count, self.last_jump = fed_of, held_count, last_jump
+        self.runners = {} if runners is None else runners
+        self.held_count, self.last_jump = held_count, last_jump
         self.rules = list(config.alerting.rules)
+        self.by_source = {
+            src: [r for r in self.rules if r.metric in names]
+            for src, names in (("readings", FROM_READINGS), ("model", FROM_MODEL), ("events", FROM_EVENTS))
+        }
         self.live = load_live(store, (z.id for z in config.zones))
+        for zid, lz in self.live.items():  # a zone without marks: judged up to what it has
+            runner = self.runners.get(zid)
+            if runner is not None:
+                lz.air = {sensor: (ts, value) for sensor, (ts, value) in runner.air.items()}
+                if not math.isfinite(lz.judged_ts) and runner.last_ts is not None:
+                    lz.judged_ts = runner.last_ts
+                if not math.isfinite(lz.model_judged_ts):
+                    lz.model_judged_ts = runner.keep_after_ts
         self.alerts = AlertKeeper(config, store, self.live)
         self.lots = LotKeeper(config, store)
+        self._marks: dict[tuple[str, str], float] = {}  # judged marks as last written
         self.broker_down_since: float | None = None
         self.commit_failing_since: float | None = None
 
@@ -62,8 +81,13 @@ class Monitor:
         if reading.signal in TEMPERATURE_SIGNALS:  # door and defrost report on change: never stale
             key = (reading.sensor, reading.signal)
             lz.received[key] = max(received_ts, lz.received.get(key, -math.inf))
-        if reading.signal in ("door", "defrost"):
-            lz.switch(reading.signal, reading.sensor, reading.ts, reading.value)
+        if reading.signal in STEPPED_SIGNALS:
+            lz.inbox.append((reading.ts, reading.sensor, reading.signal, reading.value))
+
+    def fed_of(self, zone_id: str) -> float:
+        """How far the zone's model has been fed (data time)."""
+        runner = self.runners.get(zone_id)
+        return -math.inf if runner is None else runner.fed_ts
 
     def command(self, payload: bytes, received_ts: float, source: str = "mqtt", sender: str | None = None) -> None:
         """Queue an acknowledgement (applied by apply_commands); raises InputError if malformed."""
@@ -85,12 +109,21 @@ class Monitor:
         if figures is not None:
             lz.figures = figures
         lz.air_c = runner.last_air_c
-        if checkpointed and runner.state is not None:
-            self._analyse(runner, lz, wall_ts, final)
-        if runner.last_ts is None:
-            return
-        rules = [r for r in self.rules if r.metric not in WALL_CLOCK_METRICS + LOT_METRICS]
-        self.alerts.evaluate(rules, zid, zone_observations(runner, lz), runner.last_ts, wall_ts)
+        with self.alerts.gathered(wall_ts):  # what one step learnt goes out as one message per alert
+            if runner.last_ts is not None:
+                for at, obs in reading_steps(lz, runner.last_ts, self.config.ingest.max_gap_s):
+                    self.alerts.evaluate(self.by_source["readings"], zid, obs, at, wall_ts, skip_same=True)
+            for at, obs in model_steps(lz, runner.take_steps()):
+                self.alerts.evaluate(self.by_source["model"], zid, obs, at, wall_ts, skip_same=True)
+            if checkpointed and runner.state is not None:
+                self._analyse(runner, lz, wall_ts, final)
+        self._mark(zid, "judged_ts", lz.judged_ts)
+        self._mark(zid, "model_judged_ts", lz.model_judged_ts)
+
+    def _mark(self, zone_id: str, name: str, value: float) -> None:
+        if math.isfinite(value) and self._marks.get((zone_id, name)) != value:
+            self.store.zones.mark_set(zone_id, name, value)
+            self._marks[(zone_id, name)] = value
 
     def _analyse(self, runner: ZoneRunner, lz: Live, wall_ts: float, final: bool = False) -> None:
         """Bring events and costs up to date at the grid points of data time (multiples of
@@ -108,6 +141,12 @@ class Monitor:
             points.append(fed)
         for at in points:
             self._analyse_at(runner, lz, at)
+            obs = {
+                "defrosts_today": lz.defrosts_today,
+                "event_budget_share_pct": None if lz.event_cost is None else lz.event_cost[0],
+                "event_excess_um": None if lz.event_cost is None else lz.event_cost[1],
+            }
+            self.alerts.evaluate(self.by_source["events"], zid, obs, at, wall_ts)
             self._lots_at(zid, at, wall_ts)
 
     def _lots_at(self, zone_id: str, at_ts: float, wall_ts: float) -> None:

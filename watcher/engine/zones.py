@@ -19,6 +19,7 @@ import numpy as np
 
 from watcher.config import Zone
 from watcher.ingest.payload import Reading
+from watcher.model.ahead import trace_figures
 from watcher.model.integrator import Spec, State, advance, new_state, outputs
 from watcher.ranges import RANGE_KEYS
 from watcher.simulation import position_rows, worst_position
@@ -54,6 +55,8 @@ class ZoneRunner:
         self.sensor_names: set[str] = set()  # every sensor name the zone has taken (capped by the engine)
         self._last_air_seen = -math.inf
         self._last_probe_seen = -math.inf
+        self.keep_after_ts = -math.inf  # model steps at or before this are not kept for the rules
+        self._steps: list[dict] = []  # what each model call produced, until the monitor takes it
 
     # --- intake --------------------------------------------------------------------------
     def is_late(self, r: Reading) -> bool:
@@ -110,8 +113,33 @@ class ZoneRunner:
             air_out.append(air)
             probe_out.append(probe)
         if ts_out:
-            self.state, _ = advance(self.spec, self.state, np.array(ts_out), np.array([air_out]), np.array([probe_out]))
+            self.state, trace = advance(
+                self.spec, self.state, np.array(ts_out), np.array([air_out]), np.array([probe_out]), trace=True
+            )
+            self._keep(trace)
         self.fed_ts = max(self.fed_ts, ready[-1][0])
+
+    def _keep(self, trace) -> None:
+        """Keep what the rules on model figures judge (engine/timeline.py)."""
+        if self.keep_after_ts == math.inf:
+            return
+        figures = trace_figures(self.spec, trace)
+        new_s = trace.sample_ts > self.keep_after_ts
+        new_m = trace.time_ts > self.keep_after_ts
+        self._steps.append(
+            {
+                "sample_ts": trace.sample_ts[new_s],
+                "product_c": figures["product_c"][new_s],
+                "macro_ts": trace.time_ts[new_m],
+                "budget_used_pct": figures["budget_used_pct"][new_m],
+                "days_to_limit": figures["days_to_limit"][new_m],
+            }
+        )
+
+    def take_steps(self) -> list[dict]:
+        """What the model produced since the last call (for the rules), handed over once."""
+        steps, self._steps = self._steps, []
+        return steps
 
     def _air_at(self, ts: float) -> float | None:
         if not self.air:

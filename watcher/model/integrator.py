@@ -32,13 +32,11 @@ import numpy as np
 
 from watcher.errors import ModelError
 from watcher.model import population as pop
+from watcher.model.ahead import SECONDS_PER_DAY, ahead_of
 from watcher.model.icefraction import ice_fraction
 from watcher.model.kinetics import LSW_A_OVER_K, rate_um3_per_day
 from watcher.model.profiles import Profile
 from watcher.model.thermal import lag_series
-
-SECONDS_PER_DAY = 86400.0
-
 
 #: Ice-volume changes smaller than this share are carried to the next macro step instead of
 #: melting or refreezing now: 3e-4 of the volume is a shell of 1e-4 of a diameter (0.004 um at
@@ -153,12 +151,15 @@ class State:
 
 @dataclass
 class Trace:
-    """Values at the end of every completed macro interval of one ``advance`` call."""
+    """Values at the end of every completed macro interval of one ``advance`` call, and the
+    product temperature at every sample time (what a rule on it is judged at)."""
 
     time_ts: np.ndarray = field(default_factory=lambda: np.empty(0))
     mean_diameter_um: np.ndarray = field(default_factory=lambda: np.empty((0, 0, 0)))  # (T, Z, R)
     budget_fraction: np.ndarray = field(default_factory=lambda: np.empty((0, 0, 0)))  # (T, Z, R)
     product_c: np.ndarray = field(default_factory=lambda: np.empty((0, 0, 0)))  # (T, Z, P)
+    sample_ts: np.ndarray = field(default_factory=lambda: np.empty(0))  # (K,) the samples' times
+    sample_product_c: np.ndarray = field(default_factory=lambda: np.empty((0, 0, 0)))  # (K, Z, P)
 
 
 def tile_state(state: State, rows: int, zone: int = 0) -> State:
@@ -366,11 +367,16 @@ def advance(spec: Spec, state: State, time_ts, air_c, probe_c=None, trace: bool 
         st.product_c[:, pi] = np.where(np.isnan(st.probe_c), st.air_c, st.probe_c)[:, None]
     out_trace = None
     if trace:
+        at_samples = temp[..., np.searchsorted(grid, t)]  # (Z, P, K): every sample time is a grid point
+        if pi.size:  # a probe position reads its probe (or the air) at the sample itself
+            at_samples[:, pi, :] = np.where(np.isnan(probe_ext[:, 1:]), air_new, probe_ext[:, 1:])[:, None, :]
         out_trace = Trace(
             time_ts=np.array([r[0] for r in rec]),
             mean_diameter_um=np.array([r[1] for r in rec]).reshape(len(rec), z, n_pos + 1),
             budget_fraction=np.array([r[2] for r in rec]).reshape(len(rec), z, n_pos + 1),
             product_c=np.array([r[3] for r in rec]).reshape(len(rec), z, n_pos),
+            sample_ts=t.copy(),
+            sample_product_c=np.moveaxis(at_samples, -1, 0),
         )
     return st, out_trace
 
@@ -393,48 +399,6 @@ def _ffill(a: np.ndarray) -> np.ndarray:
     idx = np.where(valid, np.arange(a.shape[-1]), 0)
     np.maximum.accumulate(idx, axis=-1, out=idx)
     return np.take_along_axis(a, idx, axis=-1)
-
-
-def _ahead(spec: Spec, mean_um: np.ndarray, product_c: np.ndarray) -> dict[str, np.ndarray]:
-    """Growth rate (um/day), days to the limit if each product temperature held, and the 90 %
-    range of the days and of the budget from the profile's rate factor f.
-
-    Read off the profile's isothermal master curve at the current settled size: the model's
-    own prediction at constant temperature, including the faster start of a broad size
-    distribution (the LSW transient), without re-running the population. For the range, the
-    history so far is read as the reduced time that reaches the current size; a rate f times
-    higher would have covered f times that reduced time and would cover the rest f times
-    faster (and the same for 1/f).
-    """
-    l0 = spec.profile.initial.mean_diameter_um
-    lim = spec.profile.limit_mean_diameter_um
-    master = spec.master
-    f = spec.profile.kinetics.rate_factor_90
-    x = np.maximum(mean_um / l0, 1.0)
-    th_x = pop.reduced_time_to(master, x)
-    th_lim = float(pop.reduced_time_to(master, lim / l0))
-    a_day = spec.rate_um3_per_s(product_c) * SECONDS_PER_DAY / l0**3  # reduced time per day
-    with np.errstate(invalid="ignore", divide="ignore"):
-        x_next = x * 1.1 ** (1.0 / 3.0)  # L^3 up by 10 %: smooths the cells' wobble in the local slope
-        growth = np.where(a_day > 0, (x_next - x) * l0 * a_day / (pop.reduced_time_to(master, x_next) - th_x), 0.0)
-
-        def days(scale):
-            left = np.maximum(th_lim - scale * th_x, 0.0)
-            return np.where(a_day > 0, left / (scale * a_day), np.inf)
-
-        def budget(scale):
-            m = pop.ratio_at(master, scale * th_x)
-            return 100.0 * (m**3 - 1.0) / ((lim / l0) ** 3 - 1.0)
-
-        done = mean_um >= lim
-        return {
-            "growth": growth,
-            "days": np.where(done, 0.0, days(1.0)),
-            "days_low": np.where(done, 0.0, days(f)),
-            "days_high": np.where(done, 0.0, days(1.0 / f)),
-            "budget_low": budget(1.0 / f),
-            "budget_high": budget(f),
-        }
 
 
 def outputs(spec: Spec, state: State) -> dict[str, np.ndarray]:
@@ -464,7 +428,7 @@ def outputs(spec: Spec, state: State) -> dict[str, np.ndarray]:
     lim = spec.profile.limit_mean_diameter_um
     share = pop.volume_share_above(u, n, lim).reshape(shape)
     lm = mean[:, :n_pos]
-    ahead = _ahead(spec, lm, state.product_c)
+    ahead = ahead_of(spec, lm, state.product_c)
     budget_pct = 100.0 * budget[:, :n_pos]
     thawed = ~np.isnan(state.thawed_ts) | (state.product_c >= spec.profile.ice.initial_freezing_point_c)
     nan = np.nan
