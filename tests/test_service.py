@@ -3,15 +3,18 @@
 from __future__ import annotations
 
 import json
+import re
 import signal
 import socket
 import subprocess
 import sys
 import time
+from pathlib import Path
 
 import numpy as np
 import paho.mqtt.client as mqtt
 import pytest
+from prometheus_client.parser import text_string_to_metric_families
 
 from tests.broker import Broker
 from tests.service_harness import (
@@ -27,8 +30,10 @@ from tests.service_harness import (
 )
 from watcher.config import load_config
 from watcher.files.series import Series
+from watcher.health import ZONE_FIGURES
 from watcher.simulation import simulate
 
+ROOT = Path(__file__).resolve().parent.parent
 ZONES = ("bulk-a", "dispatch")
 
 
@@ -146,6 +151,25 @@ def test_tls_health_metrics_and_status_topic(tmp_path, broker):
     assert 'watcher_readings_total{result="accepted"} 100.0' in text
     assert 'watcher_rejections_total{reason="invalid_JSON"} 1.0' in text
     assert "watcher_commit_seconds_bucket" in text and "watcher_queue_depth" in text
+    # Every zone gauge, read with prometheus-client's own parser, once the figures exist.
+    wait_for(lambda: b"watcher_zone_product_celsius{" in w.get("/metrics")[1], timeout=30, what="zone figures")
+    families = {f.name: f for f in text_string_to_metric_families(w.get("/metrics")[1].decode())}
+    wanted = ["watcher_zone_last_reading_age_seconds", "watcher_zone_air_celsius"] + [g[0] for g in ZONE_FIGURES]
+    for name in wanted:
+        assert families[name].type == "gauge", name
+        assert {s.labels["zone"] for s in families[name].samples} == set(ZONES), name
+    air = {s.labels["zone"]: s.value for s in families["watcher_zone_air_celsius"].samples}
+    assert air == {z: air_value(i, 49) for i, z in enumerate(ZONES)}  # the newest reading of each zone
+    product = {s.labels["zone"]: s.value for s in families["watcher_zone_product_celsius"].samples}
+    assert all(-26.0 < v < -18.0 for v in product.values()), product
+    size = [s.value for s in families["watcher_zone_mean_crystal_diameter_meters"].samples]
+    assert all(20e-6 < v < 60e-6 for v in size), size  # micrometre-sized crystals, in metres
+    alerts = {s.labels["severity"]: s.value for s in families["watcher_open_alerts"].samples}
+    assert set(alerts) == {"info", "warning", "critical"}
+    # The shipped dashboard queries only what /metrics exposes.
+    exposed = {s.name for f in families.values() for s in f.samples}
+    queried = set(re.findall(r"\bwatcher_[a-z0-9_]+", (ROOT / "deploy/grafana/watcher-zones.json").read_text()))
+    assert len(queried) >= 8 and queried <= exposed, queried - exposed
     assert w.stop() == 0
     assert retained_status(broker) == "offline"
 

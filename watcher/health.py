@@ -56,6 +56,8 @@ class Metrics:
         )
         self.zone_figures: dict[str, dict] = {}
         self.zone_last_ts: dict[str, float] = {}
+        self.zone_air_c: dict[str, float] = {}
+        self.open_alerts: dict[str, int] = {}  # severity -> open (or acknowledged, not cleared) alerts
         r.register(_ZoneCollector(self))
 
 
@@ -69,17 +71,57 @@ class _ZoneCollector:
         age = GaugeMetricFamily(
             "watcher_zone_last_reading_age_seconds", "Seconds since the zone's newest reading", labels=["zone"]
         )
-        budget = GaugeMetricFamily(
-            "watcher_zone_budget_used_ratio", "Texture budget used (worst position), 0..1+", labels=["zone"]
-        )
         now = time.time()
         for zone, ts in sorted(self.m.zone_last_ts.items()):
             age.add_metric([zone], max(0.0, now - ts))
-        for zone, fig in sorted(self.m.zone_figures.items()):
-            if fig.get("budget_used_pct") is not None:
-                budget.add_metric([zone], fig["budget_used_pct"] / 100.0)
         yield age
-        yield budget
+        air = GaugeMetricFamily("watcher_zone_air_celsius", "The zone's newest air temperature", labels=["zone"])
+        for zone, value in sorted(self.m.zone_air_c.items()):
+            air.add_metric([zone], value)
+        yield air
+        figures = dict(sorted(self.m.zone_figures.items()))
+        for name, doc, key, scale in ZONE_FIGURES:
+            family = GaugeMetricFamily(name, doc, labels=["zone"])
+            for zone, fig in figures.items():
+                if fig.get(key) is not None:
+                    family.add_metric([zone], fig[key] * scale)
+            yield family
+        alerts = GaugeMetricFamily(
+            "watcher_open_alerts", "Alerts raised and not yet cleared (acknowledged included)", labels=["severity"]
+        )
+        for severity, n in sorted(self.m.open_alerts.items()):
+            alerts.add_metric([severity], n)
+        yield alerts
+
+
+# Gauges read from each zone's figures: (name, help, figures key, scale to the base unit).
+ZONE_FIGURES = (
+    (
+        "watcher_zone_product_celsius",
+        "Estimated product temperature (warmest position; a model estimate, not a probe reading)",
+        "product_c",
+        1.0,
+    ),
+    (
+        "watcher_zone_mean_crystal_diameter_meters",
+        "Mean ice crystal diameter (worst position)",
+        "mean_diameter_um",
+        1e-6,
+    ),
+    ("watcher_zone_budget_used_ratio", "Texture budget used (worst position), 0..1+", "budget_used_pct", 0.01),
+    (
+        "watcher_zone_time_to_limit_seconds",
+        "Time to the texture limit if the product stayed at its current temperature (+Inf: never)",
+        "days_to_limit",
+        86400.0,
+    ),
+    (
+        "watcher_zone_time_to_limit_cautious_seconds",
+        "The cautious (lower) end of the 90 % range of the time to the texture limit",
+        "days_to_limit_low",
+        86400.0,
+    ),
+)
 
 
 REQUEST_TIMEOUT_S = 10.0

@@ -23,6 +23,7 @@ from watcher.alerts.delivery import Notifier, deliver_due
 from watcher.config import Config, load_config
 from watcher.engine.batch import Engine, Message
 from watcher.engine.held import readmit
+from watcher.engine.route import topic_filters
 from watcher.engine.trial import find_breakers
 from watcher.errors import StoreError, WatcherError
 from watcher.health import HealthServer, Metrics
@@ -65,18 +66,13 @@ class Service:
         self.bypass = StorageBypass(config)
         self.db_ok = True
         self._publish_zone_metrics()
-        self.mqtt = MqttProcess(config.broker, self._filters(config), self.inbox, self._on_link)
+        self.mqtt = MqttProcess(config.broker, topic_filters(config), self.inbox, self._on_link)
         self.writer = threading.Thread(target=self._writer_loop, name="writer", daemon=True)
         self.deliverer = threading.Thread(target=self._deliver_loop, name="deliverer", daemon=True)
         self.reporter = threading.Thread(target=self._report_loop, name="reporter", daemon=True)
         self.health: HealthServer | None = None
         if config.health.port:
             self.health = HealthServer(config.health.host, config.health.port, self.metrics, self.healthz, self.readyz)
-
-    @staticmethod
-    def _filters(config: Config) -> list[str]:
-        ack, lots = config.broker.ack_topic, config.broker.lot_topic
-        return sorted({s.pattern.filter for s in config.sources} | {ack, ack + "/+", lots, lots + "/+"})
 
     def _on_link(self, event: str, detail) -> None:
         if event == "connected":
@@ -245,9 +241,12 @@ class Service:
         for zid, runner in self.engine.runners.items():
             if runner.last_ts is not None:
                 self.metrics.zone_last_ts[zid] = runner.last_ts
+            if runner.last_air_c is not None:
+                self.metrics.zone_air_c[zid] = runner.last_air_c
             figures = self.engine.last_figures.get(zid)
             if figures is not None:
                 self.metrics.zone_figures[zid] = figures
+        self.metrics.open_alerts = self.engine.monitor.alerts.open_by_severity()
 
     def _retention(self) -> None:
         """Fold raw readings older than the retention period into hourly aggregates."""
@@ -272,6 +271,8 @@ class Service:
                 self.engine.monitor.tick(now, self.mqtt.connected.is_set(), self.db_ok)
         except Exception as exc:
             log.error("alert tick failed (it runs again in a second): %s", exc)
+            return
+        self._publish_zone_metrics()  # settled figures and alerts raised or cleared by the tick
 
     def _readmit(self) -> None:
         """Held readings whose time now agrees with the clock go in (engine/held.py)."""
@@ -421,7 +422,7 @@ class Service:
         self.engine = engine
         self.bypass = StorageBypass(new)
         self.config = new
-        self.mqtt.resubscribe(self._filters(new))
+        self.mqtt.resubscribe(topic_filters(new))
         log.info("reload: configuration swapped (%d zones, %d sources)", len(new.zones), len(new.sources))
 
     # --- lifecycle -------------------------------------------------------------------------
@@ -435,7 +436,7 @@ class Service:
         log.info(
             "started: %d zones, subscribing to %s, database %s",
             len(self.config.zones),
-            ", ".join(self._filters(self.config)),
+            ", ".join(topic_filters(self.config)),
             self.config.storage.path,
         )
 

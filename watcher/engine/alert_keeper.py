@@ -12,7 +12,7 @@ from dataclasses import asdict, replace
 from watcher.alerts import messages
 from watcher.alerts.channels import route
 from watcher.alerts.metrics import metric
-from watcher.alerts.policy import AlertState, Rule, acknowledge, evaluate
+from watcher.alerts.policy import SEVERITIES, AlertState, Rule, acknowledge, evaluate
 from watcher.config import Config
 from watcher.engine.live import Live
 from watcher.errors import InputError, NotFound
@@ -73,6 +73,15 @@ class AlertKeeper:
         self.states = {k: _state_from(d) for k, d in store.alerts.states().items() if k[1] in ids}
         self._last_obs: dict[tuple, dict] = {}
         self._gathered: dict[int, list] | None = None
+
+    def open_by_severity(self) -> dict[str, int]:
+        """How many alerts are raised and not yet cleared, by severity (every severity listed)."""
+        severity = {r.id: r.severity for r in self.rules}
+        out = dict.fromkeys(SEVERITIES, 0)
+        for (_, rule), st in self.states.items():
+            if st.status in ("open", "acknowledged") and rule in severity:
+                out[severity[rule]] += 1
+        return out
 
     @contextmanager
     def gathered(self, wall_ts: float):
