@@ -62,12 +62,31 @@ else
   chmod 0644 "$ETC/watcher.toml"
   echo "install.sh: kept your $ETC/watcher.toml"
 fi
-for cred in broker-password notify-qa-mail notify-night-chat; do
-  if [ ! -e "$ETC/credentials/$cred" ]; then
-    install -m 0600 /dev/null "$ETC/credentials/$cred"
-    echo "install.sh: created an empty $ETC/credentials/$cred (0600): put the secret in it"
+if [ ! -e "$ETC/credentials/broker-password" ]; then
+  install -m 0600 /dev/null "$ETC/credentials/broker-password"
+  echo "install.sh: created an empty $ETC/credentials/broker-password (0600): put the password in it"
+fi
+# Notification URLs: one file per channel in credentials/notify/ (the unit loads the whole
+# directory). Files of the older layout (credentials/notify-<name>) move in, keeping their
+# names, so the url_credential lines that name them still work.
+if [ ! -d "$ETC/credentials/notify" ]; then
+  install -d -m 0700 "$ETC/credentials/notify"
+  moved=0
+  for old in "$ETC"/credentials/notify-*; do
+    [ -f "$old" ] || continue
+    mv "$old" "$ETC/credentials/notify/"
+    moved=1
+  done
+  if [ "$moved" = 1 ]; then
+    echo "install.sh: moved the notification credentials into $ETC/credentials/notify/ (same names)"
+  else
+    for name in qa-mail night-chat; do
+      install -m 0600 /dev/null "$ETC/credentials/notify/$name"
+    done
+    echo "install.sh: created empty $ETC/credentials/notify/{qa-mail,night-chat} (0600): one channel URL each;" \
+      "add a file per further channel and name it in watcher.toml (url_credential)"
   fi
-done
+fi
 install -d -m 0755 "$(dirname "$UNIT")"
 install -m 0644 "$SRC/deploy/watcher.service" "$UNIT"
 systemd daemon-reload

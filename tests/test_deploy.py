@@ -92,11 +92,24 @@ def test_install_upgrade_and_uninstall_keep_the_data(tmp_path):
     assert mode("etc/watcher/watcher.toml") == 0o644
     assert mode("etc/watcher/credentials") == 0o700
     assert mode("etc/watcher/credentials/broker-password") == 0o600
+    # one file per channel in credentials/notify/, which the unit loads whole (channel names are free)
+    assert mode("etc/watcher/credentials/notify") == 0o700
+    assert {
+        p.name: mode(f"etc/watcher/credentials/notify/{p.name}")
+        for p in (root / "etc/watcher/credentials/notify").iterdir()
+    } == {
+        "qa-mail": 0o600,
+        "night-chat": 0o600,
+    }
+    (root / "etc/watcher/credentials/notify/qa-mail").write_text("mailtos://kept\n")
+    (root / "etc/watcher/credentials/notify/freezer-pager").write_text("json://kept\n")
     (root / "etc/watcher/watcher.toml").write_text("# edited by the site\n")
     (root / "var/lib/watcher").mkdir(parents=True)
     (root / "var/lib/watcher/watcher.db").write_text("data")
     again = install()
     assert "kept your" in again and (root / "etc/watcher/watcher.toml").read_text() == "# edited by the site\n"
+    assert (root / "etc/watcher/credentials/notify/qa-mail").read_text() == "mailtos://kept\n"
+    assert (root / "etc/watcher/credentials/notify/freezer-pager").read_text() == "json://kept\n"
     install("--uninstall")
     assert not (root / "opt/watcher").exists() and not (root / "etc/systemd/system/watcher.service").exists()
     assert (root / "var/lib/watcher/watcher.db").read_text() == "data"
@@ -166,3 +179,32 @@ def test_shipped_broker_limits_refuse_oversized_messages(tmp_path):
         broker.terminate()
         broker.wait(10)
     assert got == [60_000]
+
+
+def test_an_upgrade_moves_the_older_credential_layout_and_its_names_still_resolve(tmp_path):
+    """An install of the older layout (credentials/notify-<name>, one LoadCredential= line each)
+    upgraded: the files move into credentials/notify/ unchanged, and the url_credential names
+    the site already wrote resolve to what systemd hands over (notify_<file>)."""
+    from watcher.config.reader import credential_path
+
+    root = tmp_path / "root"
+    creds = root / "etc/watcher/credentials"
+    creds.mkdir(parents=True)
+    (creds / "notify-qa-mail").write_text("mailtos://old\n")
+    (creds / "notify-qa-mail").chmod(0o600)
+    env = {**os.environ, "PYTHON": sys.executable, "INSTALL_PIP_ARGS": "--no-deps"}
+    out = subprocess.run(
+        ["bash", str(ROOT / "deploy" / "install.sh"), "--root", str(root)],
+        capture_output=True,
+        text=True,
+        env=env,
+        timeout=600,
+    )
+    assert out.returncode == 0 and "moved the notification credentials" in out.stdout, out.stdout + out.stderr
+    assert not (creds / "notify-qa-mail").exists()
+    assert (creds / "notify/notify-qa-mail").read_text() == "mailtos://old\n"
+    handed = tmp_path / "run-credentials"  # what LoadCredential=notify:<dir> makes of it
+    handed.mkdir()
+    (handed / "notify_notify-qa-mail").write_text("mailtos://old\n")
+    assert credential_path(handed, "notify-qa-mail").read_text() == "mailtos://old\n"
+    assert credential_path(handed, "missing") == handed / "missing"  # and a missing one is named as written

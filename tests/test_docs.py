@@ -66,7 +66,7 @@ def test_config_example_is_valid(tmp_path, monkeypatch):
     creds = tmp_path / "credentials"  # as systemd's LoadCredential= would hand them over
     creds.mkdir()
     (creds / "broker-password").write_text("pw\n")
-    for name in ("notify-qa-mail", "notify-night-chat"):
+    for name in ("notify_qa-mail", "notify_night-chat"):  # files of credentials/notify/, as systemd names them
         (creds / name).write_text("mailto://user:pw@smtp.kestrel.example/?to=qa@kestrel.example\n")
     monkeypatch.setenv("CREDENTIALS_DIRECTORY", str(creds))
     data["broker"]["tls"]["ca_file"] = str(make_ca(tmp_path)["ca"])

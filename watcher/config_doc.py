@@ -40,7 +40,7 @@ def render() -> str:
     data = tomllib.loads(text)
     with tempfile.TemporaryDirectory() as tmp:
         creds = Path(tmp)
-        for name in ("broker-password", "notify-qa-mail", "notify-night-chat"):
+        for name in ("broker-password", "notify_qa-mail", "notify_night-chat"):  # as the unit names them
             (creds / name).write_text("mailto://user:pw@smtp.example/?to=qa@example\n")
             (creds / name).chmod(0o600)
         (creds / "ca.pem").write_text("")

@@ -127,6 +127,24 @@ class Reader:
                 self.fail(key, self.table[key], "no such key (see config.example.toml)")
 
 
+# The unit loads every file of /etc/watcher/credentials/notify/ (LoadCredential=notify:DIR),
+# which systemd names notify_<file>: so channel names are free and an upgrade keeps them.
+CREDENTIAL_DIRS = ("notify",)
+
+
+def credential_path(folder: Path, name: str) -> Path:
+    """Where systemd put the credential called name: under that name, or (not found so) as a
+    file of a directory the unit loads, `notify_<name>`."""
+    direct = folder / name
+    if direct.exists():
+        return direct
+    for prefix in CREDENTIAL_DIRS:
+        loaded = folder / f"{prefix}_{name}"
+        if loaded.exists():
+            return loaded
+    return direct
+
+
 def read_secret(r: Reader, file_key: str, cred_key: str, doc: str) -> str | None:
     """A secret from a file (file_key) or a systemd credential (cred_key), one of them at most."""
     path = r.text(file_key, doc=f"{doc}: a file holding it (mode 0600), when run by hand")
@@ -137,7 +155,7 @@ def read_secret(r: Reader, file_key: str, cred_key: str, doc: str) -> str | None
         folder = os.environ.get("CREDENTIALS_DIRECTORY")
         if not folder:
             r.fail(cred_key, cred, "a credential name with $CREDENTIALS_DIRECTORY set (systemd LoadCredential=)")
-        path = str(Path(folder) / cred)
+        path = str(credential_path(Path(folder), cred))
     if not path:
         return None
     try:
