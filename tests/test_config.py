@@ -142,6 +142,14 @@ def test_password_from_systemd_credentials(tmp_path, monkeypatch):
         ),
         (lambda d: d["sources"][0].update(unit="R"), "sources[0].unit: got 'R', expected C, F or K"),
         (
+            lambda d: (d["sources"][0].update(format="senml"), d["sources"][0].pop("value")),
+            "sources[0].value: got None, expected the full name (base name + name) of the SenML record",
+        ),
+        (
+            lambda d: d["sources"][0].update(format="text", time="ts"),
+            "sources[0].time: got 'ts', expected no timestamp field for text payloads",
+        ),
+        (
             lambda d: d["storage"].update(raw_retention_days=30),
             "storage.raw_retention_days: got 30, expected a whole number in [366",
         ),

@@ -125,7 +125,8 @@ def test_the_mqtt_process_stays_light():
 
 
 @pytest.mark.parametrize(
-    ("payload", "value"), [(b"open", 1.0), (b"CLOSED\n", 0.0), (b" On ", 1.0), (b"false", 0.0), (b"1", 1.0), (b"0", 0.0)]
+    ("payload", "value"),
+    [(b"open", 1.0), (b"CLOSED\n", 0.0), (b" On ", 1.0), (b"false", 0.0), (b"1", 1.0), (b"0", 0.0)],
 )
 def test_a_bare_state_word_is_a_door_reading(payload, value):
     """format = "text": a hard-wired contact's bare payload, any case, spaces ignored; the
@@ -146,9 +147,60 @@ def test_a_bare_state_word_is_a_door_reading(payload, value):
     ],
 )
 def test_a_bare_payload_that_is_not_its_signal_is_refused_with_the_reason(signal, payload, reason):
+    """A word that is no state, a number that is no state, a word for a temperature: refused, saying why."""
     with pytest.raises(Rejected, match=reason):
         parse(src(signal=signal, fmt="text", time_path=None), payload)
 
 
 def test_a_bare_temperature_takes_the_source_unit():
+    """A bare -4 on a source in F is -20 C."""
     assert parse(src(fmt="text", time_path=None, unit="F"), b"-4").value == pytest.approx(-20.0)
+
+
+def senml_src(name: str, signal: str = "air_c", unit: str = "C"):
+    return src(signal=signal, fmt="senml", value_path=tuple(name.split(".")), time_path=None, unit=unit)
+
+
+PACK = [
+    {"bn": "urn:dev:mac:0024befffe804ff1:", "bt": 1_795_000_000, "bu": "Cel", "n": "air", "v": -24.5},
+    {"n": "coil", "v": -31.0, "t": -60},
+    {"n": "door", "vb": True, "u": None},
+    {"n": "humidity", "u": "%RH", "v": 71},
+]
+
+
+def test_a_senml_pack_resolves_base_name_time_and_unit():
+    """RFC 8428: full name bn + n, time bt + t, unit u or else bu; the named record is taken
+    and the others are counted as ignored (example pack written from the RFC's section 5)."""
+    r = parse(senml_src("urn:dev:mac:0024befffe804ff1:coil"), json.dumps(PACK).encode())
+    assert (r.value, r.ts, r.ignored) == (-31.0, 1_795_000_000 - 60, 3)
+    kelvin = [{"bn": "f1/", "n": "t", "u": "K", "v": 249.15, "bt": 1_795_000_000}]
+    assert parse(senml_src("f1/t"), json.dumps(kelvin).encode()).value == pytest.approx(-24.0)
+    door = parse(senml_src("urn:dev:mac:0024befffe804ff1:door", signal="door"), json.dumps(PACK).encode())
+    assert door.value == 1.0
+
+
+def test_senml_relative_and_absent_times_count_from_the_receive_time():
+    """Times under 2**28 are relative to now (RFC 8428 4.5.3); none at all is now."""
+    pack = [{"n": "t1", "v": -20.0, "t": -30}, {"n": "t2", "v": -21.0}]
+    assert parse(senml_src("t1"), json.dumps(pack).encode()).ts == NOW - 30
+    assert parse(senml_src("t2"), json.dumps(pack).encode()).ts == NOW
+
+
+@pytest.mark.parametrize(
+    ("pack", "name", "reason"),
+    [
+        (PACK, "urn:dev:mac:0024befffe804ff1:humidity", "unit '%RH' is not a temperature unit"),
+        (PACK, "air", "no SenML record named 'air' \\(the pack has 'urn:dev"),
+        ([{"n": "a", "v": 1}, {"n": "a", "v": 2}], "a", "2 SenML records named 'a'"),
+        ({"n": "a", "v": 1}, "a", "not a non-empty JSON array"),
+        ([{"n": "a", "v": "cold"}], "a", "v is 'cold', expected a finite number"),
+        ([{"bn": 5, "n": "a", "v": 1}], "a", "bn is 5, expected a string"),
+        ([{"n": "a", "u": "degF", "v": 1}], "a", "unit 'degF' is not a temperature unit"),
+    ],
+)
+def test_a_senml_pack_that_does_not_give_the_record_is_refused_with_the_reason(pack, name, reason):
+    """A humidity unit, a missing or repeated record, no array, a text value, a bad base name,
+    an unregistered unit: each refused with what was wrong."""
+    with pytest.raises(Rejected, match=reason):
+        parse(senml_src(name), json.dumps(pack).encode())

@@ -55,9 +55,9 @@ def database_of(config_path: str | None, db_path: str | None) -> str:
     return load_config(config_path).storage.path if config_path else default_db_path()
 
 
-def stamp(time_ts: float, tz: str = "UTC") -> str:
-    """An instant to the minute in a site's time zone, the zone named ("2026-12-02 15:40 GMT")."""
-    return datetime.fromtimestamp(time_ts, tz=ZoneInfo(tz)).strftime("%Y-%m-%d %H:%M %Z")
+def stamp(time_ts: float, tz: str = "UTC", seconds: bool = False) -> str:
+    """An instant to the minute (or second) in a site's time zone, the zone named ("2026-12-02 15:40 GMT")."""
+    return datetime.fromtimestamp(time_ts, tz=ZoneInfo(tz)).strftime(f"%Y-%m-%d %H:%M{':%S' if seconds else ''} %Z")
 
 
 def _reader_site(cfg, zone: str | None):

@@ -8,6 +8,7 @@ import sys
 
 import click
 
+from watcher.alerts.metrics import temperature
 from watcher.cli.app import main
 from watcher.cli.common import config_option, db_options, fmt, self_command, site_tz, site_unit, stamp, table
 from watcher.ingest.payload import FORMATS
@@ -81,6 +82,77 @@ def check_config(config_path) -> None:
         click.echo(
             f"  {z.id:<12} {z.name} @ {z.site}: setpoint {z.setpoint_c:g} C, profile {z.profile.name}, positions {pos}"
         )
+    _show_channels_and_rules(cfg)
+    click.echo(f"Try the live topics before going live: watcher listen --config {shlex.quote(str(config_path))}")
+
+
+def _show_channels_and_rules(cfg) -> None:
+    from watcher.alerts.messages import fmt_value
+    from watcher.alerts.metrics import duration
+    from watcher.alerts.secrets import mask_url
+
+    click.echo("")
+    click.echo("Notification channels (secrets masked):")
+    for c in cfg.channels:
+        click.echo(f"  {c.name:<14} {mask_url(c.url)}  tags: {', '.join(c.tags)}")
+    if not cfg.channels:
+        click.echo("  none: alerts and summaries are recorded, and sent nowhere")
+    click.echo("")
+    click.echo("Alert rules:")
+    rows = []
+    for r in cfg.alerting.rules:
+        held = f" for {duration(r.for_s)}" if r.for_s else ""
+        where = ", ".join(r.zones) if r.zones else "every zone"
+        side = "at or above" if r.op == ">=" else "at or below"
+        rows.append([r.id, r.severity, f"{r.metric} {side} {fmt_value(r.metric, r.threshold)}{held}", where])
+    click.echo(table(rows, ["rule", "severity", "raised when", "applies to"], ["left"] * 4))
+
+
+@main.command()
+@config_option()
+@click.option(
+    "--seconds", type=click.FloatRange(0.5, 86400.0), default=60.0, show_default=True, help="How long to listen."
+)
+def listen(config_path, seconds) -> None:
+    """Show what each live message would become (the reading, or why it would be refused),
+    on a separate session, storing nothing."""
+    from watcher.config import load_config
+    from watcher.listen import SIGNAL_WORDS, SWITCH_WORDS
+    from watcher.listen import listen as watch
+
+    cfg = load_config(config_path)
+    counts: dict[str, int] = {}
+
+    def show(msg, kind, reading, why) -> None:
+        counts[kind] = counts.get(kind, 0) + 1
+        tz = site_tz(cfg, reading.zone if reading else None)
+        head = f"{stamp(msg.received_ts, tz, seconds=True)}  {msg.topic}"
+        if reading is None:
+            click.echo(f"{head}\n    {kind}: {why}")
+            return
+        unit = site_unit(cfg, reading.zone)
+        if reading.signal in ("door", "defrost"):
+            value = SWITCH_WORDS[reading.signal][reading.value >= 0.5]
+        else:
+            value = temperature(reading.value, unit)
+        click.echo(
+            f"{head}\n    reading: zone {reading.zone}, sensor {reading.sensor}, {SIGNAL_WORDS[reading.signal]} "
+            f"{value}, at {stamp(reading.ts, tz, seconds=True)}"
+        )
+
+    click.echo(f"Listening for {seconds:g} s on {cfg.broker.host}:{cfg.broker.port} (nothing is stored) ...")
+    try:
+        seen = watch(cfg, seconds, show, lambda: click.echo("Subscribed; messages as they arrive:"))
+    except ConnectionError as exc:
+        raise click.ClickException(str(exc)) from None
+    kinds = {
+        "reading": "would be stored",
+        "refused": "would be refused",
+        "held": "would be held",
+        "command": "commands",
+    }
+    summary = "; ".join(f"{counts[k]} {words}" for k, words in kinds.items() if k in counts) or "nothing arrived"
+    click.echo(f"{seen} messages: {summary}.")
 
 
 @main.command()
@@ -109,8 +181,6 @@ def status(config_path, db_path, as_json) -> None:
     if as_json:
         click.echo(json.dumps(report, indent=2))
         return
-    from watcher.alerts.metrics import temperature
-
     cfg = load_config(config_path) if config_path else None
     tz = site_tz(cfg)
     click.echo(f"Database {report['database']} (read-only), as of {stamp(report['now_ts'], tz)}")

@@ -223,17 +223,32 @@ def source(r: Reader, zone_ids: set[str]) -> Source:
     if pattern.placeholders - {"zone", "sensor", "site"}:
         r.fail("pattern", text, "placeholders among {site}, {zone}, {sensor}")
     fmt = _choice(
-        r, "format", "json", tuple(FORMATS), "how the payload carries the value: a JSON object, a plain number, or bare text (a number or a state word)"
+        r,
+        "format",
+        "json",
+        tuple(FORMATS),
+        "how the payload carries the value: a JSON object, a plain number, bare text (a number or a state word), "
+        "or a SenML pack (RFC 8428)",
     )
     unit = _choice(r, "unit", "C", ("C", "F", "K"), "the temperature unit")
     unit_path = r.text("unit_field", doc="JSON field path of a unit the payload names itself; overrides unit")
     if unit_path and not FORMATS[fmt].fields:
-        r.fail("unit_field", unit_path, "no unit field for plain-number payloads (use unit)")
+        r.fail("unit_field", unit_path, f"no unit field for {fmt} payloads (use unit, or the payload's own)")
     time_path = r.text("time", doc="JSON field path of the timestamp; leave out to use the receive time")
     time_format = _choice(r, "time_format", "iso", ("iso", "epoch_s", "epoch_ms"), "how the timestamp is written")
     if time_path and not FORMATS[fmt].fields:
-        r.fail("time", time_path, "no timestamp field for plain-number payloads (the receive time is used)")
-    value = r.text("value", "value", 'JSON field path of the value, dot-separated ("reading.value")')
+        r.fail("time", time_path, f"no timestamp field for {fmt} payloads (their own time or the receive time is used)")
+    if fmt == "senml" and "value" not in r.table:
+        r.fail(
+            "value",
+            None,
+            'the full name (base name + name) of the SenML record to take, e.g. "urn:dev:mac:0024befffe804ff1:temp"',
+        )
+    value = r.text(
+        "value",
+        "value",
+        'JSON field path of the value, dot-separated ("reading.value"); for SenML the record\'s full name',
+    )
     return Source(
         pattern=pattern,
         signal=signal,

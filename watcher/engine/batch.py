@@ -20,10 +20,11 @@ from watcher.config import Config
 from watcher.engine.lots import parse_payload, record_event
 from watcher.engine.monitor import Monitor
 from watcher.engine.rejects import Excess, RejectionLimiter
+from watcher.engine.route import is_command, reading_of
 from watcher.engine.zones import ZoneRunner, spec_key
 from watcher.errors import InputError
 from watcher.ingest.message import Message
-from watcher.ingest.payload import OutOfClock, Reading, Rejected, parse_message
+from watcher.ingest.payload import OutOfClock, Reading, Rejected
 from watcher.ingest.topics import topic_is_clean
 from watcher.store.db import Store
 from watcher.store.zones import ZoneRow
@@ -167,28 +168,17 @@ class Engine:
 
     # --- routing -------------------------------------------------------------------------
     def parse(self, msg: Message) -> Reading:
-        for source in self.config.sources:
-            names = source.pattern.match(msg.topic)
-            if names is not None:
-                if msg.retain and source.time_path is None:
-                    raise Rejected(
-                        "retained message on a source stamped with the receive time: it is replayed at every "
-                        "reconnect and would make a dead sensor look alive (publish without retain, or add a time field)"
-                    )
-                reading = parse_message(source, names, msg.payload, msg.received_ts, self.config.ingest.limits)
-                runner = self.runners.get(reading.zone)
-                if runner is None:
-                    raise Rejected(f"unknown zone {reading.zone[:64]!r}")
-                if reading.sensor not in runner.sensor_names:
-                    cap = self.config.ingest.max_sensors_per_zone
-                    if len(runner.sensor_names) >= cap:
-                        raise Rejected(
-                            f"sensor {reading.sensor[:64]!r}: zone {reading.zone} already has {cap} sensors "
-                            "(ingest.max_sensors_per_zone; raise it if these sensors are real)"
-                        )
-                    runner.sensor_names.add(reading.sensor)
-                return reading
-        raise Rejected("no source pattern matches the topic")
+        reading = reading_of(self.config, msg, self.runners.__contains__)
+        runner = self.runners[reading.zone]
+        if reading.sensor not in runner.sensor_names:
+            cap = self.config.ingest.max_sensors_per_zone
+            if len(runner.sensor_names) >= cap:
+                raise Rejected(
+                    f"sensor {reading.sensor[:64]!r}: zone {reading.zone} already has {cap} sensors "
+                    "(ingest.max_sensors_per_zone; raise it if these sensors are real)"
+                )
+            runner.sensor_names.add(reading.sensor)
+        return reading
 
     # --- the batch -----------------------------------------------------------------------
     def process(self, messages: list[Message], now: float | None = None) -> BatchResult:
@@ -198,9 +188,8 @@ class Engine:
             _inject(messages)
         result = BatchResult()
         parsed: list[tuple[Reading | str | tuple | None, Message]] = []
-        commands = (self.config.broker.ack_topic, self.config.broker.lot_topic)
         for msg in messages:
-            if any(msg.topic == c or msg.topic.startswith(c + "/") for c in commands):
+            if is_command(self.config, msg.topic):
                 parsed.append((None, msg))
                 continue
             try:
@@ -232,6 +221,9 @@ class Engine:
             for topic, ex in excess.items():
                 self.store.rejections.add(ex.first_ts, topic, self.limiter.summary(ex), ex.payload, n=ex.n)
             good = [(item, msg.received_ts, msg.topic) for item, msg in parsed if isinstance(item, Reading)]
+            ignored = sum(item.ignored for item, _, _ in good)
+            if ignored:  # a SenML pack's other records: not taken, and counted
+                result.counts["records_ignored"] += ignored
             self._store_readings(good, result, touched)
             self._finish(touched, result, now)
         return result

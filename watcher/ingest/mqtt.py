@@ -204,3 +204,62 @@ class MqttLink:
             if gone:
                 self.client.unsubscribe(gone)
             self.client.subscribe([(f, mqtt.SubscribeOptions(qos=1)) for f in self.filters])
+
+
+def peek(broker: Broker, filters: list[str], seconds: float, handle, client_id: str, on_ready=None) -> int:
+    """Watch the topics for `seconds` on a clean, separate session (its own client id, no
+    status, no will, nothing kept at the broker afterwards) and call handle(topic, payload,
+    received_ts, retain) in arrival order from this thread; on_ready() once subscribed.
+    Returns the messages seen; raises ConnectionError when the broker cannot be reached or
+    refuses the login."""
+    inbox: collections.deque = collections.deque()
+    refused: list[str] = []
+    subscribed = threading.Event()
+    c = mqtt.Client(mqtt.CallbackAPIVersion.VERSION2, client_id=client_id, protocol=mqtt.MQTTv5)
+    if broker.username:
+        c.username_pw_set(broker.username, broker.password)
+    if broker.tls:
+        c.tls_set(
+            ca_certs=broker.tls.ca_file,
+            certfile=broker.tls.cert_file,
+            keyfile=broker.tls.key_file,
+            cert_reqs=ssl.CERT_REQUIRED,
+            tls_version=ssl.PROTOCOL_TLS_CLIENT,
+        )
+
+    def on_connect(client, userdata, flags, reason_code, properties):
+        if reason_code.is_failure:
+            refused.append(str(reason_code))
+            return
+        client.subscribe([(f, mqtt.SubscribeOptions(qos=1)) for f in filters])
+
+    c.on_connect = on_connect
+    c.on_subscribe = lambda client, userdata, mid, reason_codes, properties: subscribed.set()
+    c.on_message = lambda client, userdata, msg: inbox.append(
+        (msg.topic, bytes(msg.payload), time.time(), bool(msg.retain))
+    )
+    try:
+        c.connect(broker.host, broker.port, keepalive=max(2, broker.keepalive_s // 2), clean_start=True)
+    except (OSError, ssl.SSLError) as exc:
+        raise ConnectionError(f"cannot reach the broker at {broker.host}:{broker.port} ({exc})") from None
+    c.loop_start()
+    seen = 0
+    try:
+        deadline = time.monotonic() + seconds
+        while time.monotonic() < deadline and not refused:
+            if on_ready is not None and subscribed.is_set():
+                on_ready()
+                on_ready = None
+            while inbox:
+                handle(*inbox.popleft())
+                seen += 1
+            time.sleep(0.05)
+        while inbox:
+            handle(*inbox.popleft())
+            seen += 1
+    finally:
+        c.disconnect()
+        c.loop_stop()
+    if refused:
+        raise ConnectionError(f"the broker at {broker.host}:{broker.port} refused the connection: {refused[0]}")
+    return seen

@@ -8,11 +8,13 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from datetime import UTC, datetime
+from typing import NamedTuple
 
 from watcher.declare import setting
 from watcher.errors import OutOfClock, Rejected
+from watcher.ingest import senml
 from watcher.ingest.jsondoc import BadJson, load_json
 
 __all__ = ["FORMATS", "OutOfClock", "PayloadFormat", "Reading", "Rejected", "Source", "Limits", "parse_message"]
@@ -47,6 +49,7 @@ class Reading:
     signal: str
     ts: float
     value: float
+    ignored: int = field(default=0, compare=False)  # other records of the message, not taken (SenML)
 
 
 @dataclass(frozen=True)
@@ -128,47 +131,68 @@ def _timestamp(raw, fmt: str) -> float:
     return value / 1000.0 if fmt == "epoch_ms" else value
 
 
+class Raw(NamedTuple):
+    """What a payload format read: the value as written, its unit, the reading's own time
+    (None: the receive time) and how many other records of the message it left (SenML)."""
+
+    value: object
+    unit: str
+    ts: float | None
+    ignored: int = 0
+
+
 @dataclass(frozen=True)
 class PayloadFormat:
-    """One way a payload carries its value. read(source, payload, text) gives the raw value,
-    its unit and the reading's own time (None: the receive time), or raises Rejected."""
+    """One way a payload carries its value: read(source, payload, text, received_ts) gives a
+    Raw, or raises Rejected."""
 
     name: str
-    read: Callable[[Source, bytes, str], tuple[object, str, float | None]]
+    read: Callable[[Source, bytes, str, float], Raw]
     fields: bool  # the payload has named fields (value, unit and time paths apply)
     describe: Callable[[Source], str]  # for `watcher check-config`
 
 
-def _read_number(source: Source, payload: bytes, text: str) -> tuple[object, str, None]:
+def _read_number(source: Source, payload: bytes, text: str, received_ts: float) -> Raw:
     try:
         raw = float(text.strip())
     except ValueError:
         raise Rejected(f"payload {text[:40]!r} is not a number") from None
     if not math.isfinite(raw):
         raise Rejected("value is not finite")
-    return raw, source.unit, None
+    return Raw(raw, source.unit, None)
 
 
-def _read_text(source: Source, payload: bytes, text: str) -> tuple[object, str, None]:
+def _read_text(source: Source, payload: bytes, text: str, received_ts: float) -> Raw:
     """A bare payload: a number, or for a door or defrost a state word (open/closed, on/off,
     true/false, 1/0, any case). What it is not is said by the value's own check."""
     word = text.strip()
     try:
-        return float(word), source.unit, None
+        return Raw(float(word), source.unit, None)
     except ValueError:
         if source.signal in TEMPERATURE_SIGNALS:
             raise Rejected(f"payload {word[:40]!r} is not a number") from None
-        return word, source.unit, None
+        return Raw(word, source.unit, None)
 
 
-def _read_json(source: Source, payload: bytes, text: str) -> tuple[object, str, float | None]:
+def _read_json(source: Source, payload: bytes, text: str, received_ts: float) -> Raw:
     try:
         doc = load_json(payload)
     except BadJson as exc:
         raise Rejected(str(exc)) from None
     unit = source.unit if source.unit_path is None else _unit(_dig(doc, source.unit_path, "unit"))
     ts = None if source.time_path is None else _timestamp(_dig(doc, source.time_path, "timestamp"), source.time_format)
-    return _dig(doc, source.value_path, "value"), unit, ts
+    return Raw(_dig(doc, source.value_path, "value"), unit, ts)
+
+
+def _read_senml(source: Source, payload: bytes, text: str, received_ts: float) -> Raw:
+    try:
+        doc = load_json(payload)
+    except BadJson as exc:
+        raise Rejected(str(exc)) from None
+    value, unit, ts, ignored = senml.record(
+        doc, ".".join(source.value_path), source.signal in TEMPERATURE_SIGNALS, received_ts
+    )
+    return Raw(value, source.unit if unit is None else unit, ts, ignored)
 
 
 FORMATS = {
@@ -176,6 +200,7 @@ FORMATS = {
     for f in (
         PayloadFormat("json", _read_json, True, lambda s: f"JSON field {'.'.join(s.value_path)}"),
         PayloadFormat("number", _read_number, False, lambda s: "plain number"),
+        PayloadFormat("senml", _read_senml, False, lambda s: f"SenML record {'.'.join(s.value_path)!r}"),
         PayloadFormat(
             "text",
             _read_text,
@@ -194,7 +219,7 @@ def parse_message(source: Source, names: dict[str, str], payload: bytes, receive
         text = payload.decode("utf-8")
     except UnicodeDecodeError:
         raise Rejected("payload is not UTF-8") from None
-    value_raw, unit, ts = FORMATS[source.fmt].read(source, payload, text)
+    value_raw, unit, ts, ignored = FORMATS[source.fmt].read(source, payload, text, received_ts)
     ts = received_ts if ts is None else ts
     if source.signal in TEMPERATURE_SIGNALS:
         value = _to_celsius(_number(value_raw, "value"), unit)
@@ -212,4 +237,4 @@ def parse_message(source: Source, names: dict[str, str], payload: bytes, receive
     zone = names.get("zone") or source.zone
     sensor = names.get("sensor") or source.sensor or source.signal
     # Microseconds: readings stamped with the receive time must not collide in the natural key.
-    return Reading(zone=zone, sensor=sensor, signal=source.signal, ts=round(ts, 6), value=value)
+    return Reading(zone=zone, sensor=sensor, signal=source.signal, ts=round(ts, 6), value=value, ignored=ignored)

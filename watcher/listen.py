@@ -1,0 +1,44 @@
+"""`watcher listen`: what the live topics would become, before going live. Subscribes on a
+clean, separate session for a while and shows, for each message, the reading it would be
+stored as or the reason it would be refused. Stores nothing and acknowledges nothing the
+service would miss: the service's own persistent session keeps its queue."""
+
+from __future__ import annotations
+
+import os
+from collections.abc import Callable
+
+from watcher.config import Config
+from watcher.engine.route import is_command, reading_of, topic_filters
+from watcher.ingest.message import Message
+from watcher.ingest.mqtt import peek
+from watcher.ingest.payload import OutOfClock, Reading, Rejected
+
+SIGNAL_WORDS = {"air_c": "air", "product_c": "product probe", "door": "door", "defrost": "defrost"}
+SWITCH_WORDS = {"door": ("closed", "open"), "defrost": ("off", "on")}
+
+
+def verdict(config: Config, msg: Message) -> tuple[str, Reading | None, str]:
+    """("reading", reading, "") | ("held" | "refused" | "command", None, why) for one message."""
+    if is_command(config, msg.topic):
+        return "command", None, "an acknowledgement or lot event: the running service acts on it"
+    try:
+        return "reading", reading_of(config, msg, lambda zone: config.zone(zone) is not None), ""
+    except OutOfClock as exc:
+        return "held", None, f"{exc} (the service would hold it until the clocks agree)"
+    except Rejected as exc:
+        return "refused", None, str(exc)
+
+
+def listen(
+    config: Config, seconds: float, show: Callable[[Message, str, Reading | None, str], None], on_ready=None
+) -> int:
+    """Watch every topic the service subscribes to for `seconds`; show(message, kind, reading,
+    why) for each; on_ready() once subscribed. Returns how many messages were seen."""
+
+    def handle(topic: str, payload: bytes, received_ts: float, retain: bool) -> None:
+        msg = Message(topic, payload, received_ts, retain=retain)
+        show(msg, *verdict(config, msg))
+
+    client_id = f"{config.broker.client_id}-listen-{os.getpid()}"
+    return peek(config.broker, topic_filters(config), seconds, handle, client_id, on_ready)
