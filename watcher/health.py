@@ -1,4 +1,5 @@
-"""Health and metrics over HTTP on loopback: /healthz, /readyz and /metrics (Prometheus text).
+"""Health and metrics over HTTP on loopback: /healthz, /readyz, /metrics (Prometheus text) and
+the site page at / (report/page.py, rendered on request and kept a minute).
 
 prometheus-client with a private registry; the server binds to the configured host (127.0.0.1
 by default; prometheus-client's own default would be every interface). Label sets are bounded:
@@ -8,12 +9,15 @@ result kinds, reason classes, and configured zone ids.
 from __future__ import annotations
 
 import json
+import logging
 import threading
 import time
 from http.server import BaseHTTPRequestHandler, ThreadingHTTPServer
 
 from prometheus_client import CollectorRegistry, Counter, Gauge, Histogram, generate_latest
 from prometheus_client.core import GaugeMetricFamily
+
+log = logging.getLogger("watcher.health")
 
 CONTENT_TYPE = "text/plain; version=0.0.4; charset=utf-8"
 
@@ -158,8 +162,8 @@ class _BoundedServer(ThreadingHTTPServer):
 class HealthServer:
     """Serves /healthz, /readyz and /metrics from a daemon thread."""
 
-    def __init__(self, host: str, port: int, metrics: Metrics, health_fn, ready_fn):
-        metrics_ref, health, ready = metrics, health_fn, ready_fn
+    def __init__(self, host: str, port: int, metrics: Metrics, health_fn, ready_fn, page_fn=None):
+        metrics_ref, health, ready, page = metrics, health_fn, ready_fn, page_fn
 
         class Handler(BaseHTTPRequestHandler):
             timeout = REQUEST_TIMEOUT_S  # an idle or slow client is dropped after this
@@ -170,6 +174,14 @@ class HealthServer:
                 elif self.path in ("/healthz", "/readyz"):
                     ok, detail = (health if self.path == "/healthz" else ready)()
                     self._send(200 if ok else 503, json.dumps(detail).encode(), "application/json")
+                elif self.path in ("/", "/index.html") and page is not None:
+                    try:
+                        body = page()
+                    except Exception as exc:  # the page must never take the health endpoints with it
+                        log.exception("site page failed")
+                        self._send(500, f"the site page could not be made: {exc}\n".encode(), "text/plain")
+                        return
+                    self._send(200, body, "text/html; charset=utf-8")
                 else:
                     self._send(404, b"not found\n", "text/plain")
 

@@ -72,7 +72,19 @@ class Service:
         self.reporter = threading.Thread(target=self._report_loop, name="reporter", daemon=True)
         self.health: HealthServer | None = None
         if config.health.port:
-            self.health = HealthServer(config.health.host, config.health.port, self.metrics, self.healthz, self.readyz)
+            self.health = HealthServer(
+                config.health.host, config.health.port, self.metrics, self.healthz, self.readyz, self._site_page
+            )
+        self._page = None
+
+    def _site_page(self) -> bytes:
+        """The site page (report/page.py), made for the configuration in force; the report stack
+        is imported on the first request, not at start."""
+        from watcher.report.page import SitePage
+
+        if self._page is None or self._page.config is not self.config:
+            self._page = SitePage(self.config)
+        return self._page.html()
 
     def _on_link(self, event: str, detail) -> None:
         if event == "connected":

@@ -12,6 +12,7 @@ from watcher.caution import SHORT
 from watcher.cli.app import main
 from watcher.cli.common import config_option, fmt, site_tz, stamp, table, typed_time
 from watcher.errors import InputError
+from watcher.lots.rank import rank_key
 from watcher.ranges import figure_text
 
 CSV_COLUMNS = ("event", "lot", "zone", "time", "product", "mean_diameter_um", "budget_used_pct", "note")
@@ -211,14 +212,6 @@ def lots_cmd(zone, everything, as_json, config_path) -> None:
         "Days left: at current conditions; brackets: 90 % range from the profile's uncertainty (ranked by the "
         "central figure). " + SHORT
     )
-
-
-def rank_key(row: dict):
-    """Least texture life left first: days to the limit, then budget used; lots not yet
-    computed last."""
-    f = row["figures"] or {}
-    days = f.get("days_to_limit")
-    return (not f, days if days is not None else float("inf"), -(f.get("budget_used_pct") or 0.0), row["lot"])
 
 
 def _overview(config_path: str) -> tuple[list[dict], str]:

@@ -27,6 +27,22 @@ from watcher.ingest.settings import Broker
 log = logging.getLogger("watcher.mqtt")
 
 
+def _client(broker: Broker, client_id: str, manual_ack: bool = False) -> mqtt.Client:
+    """An MQTT 5 client with the broker's login and TLS (the certificate always checked)."""
+    c = mqtt.Client(mqtt.CallbackAPIVersion.VERSION2, client_id=client_id, protocol=mqtt.MQTTv5, manual_ack=manual_ack)
+    if broker.username:
+        c.username_pw_set(broker.username, broker.password)
+    if broker.tls:
+        c.tls_set(
+            ca_certs=broker.tls.ca_file,
+            certfile=broker.tls.cert_file,
+            keyfile=broker.tls.key_file,
+            cert_reqs=ssl.CERT_REQUIRED,
+            tls_version=ssl.PROTOCOL_TLS_CLIENT,
+        )
+    return c
+
+
 class MqttLink:
     def __init__(self, broker: Broker, filters: list[str], inbox: collections.deque, on_state=None):
         self.broker = broker
@@ -40,19 +56,7 @@ class MqttLink:
         self.disconnected_since: float | None = time.time()
         self.callback_errors = 0
         self._acks: collections.deque[list[tuple[int, int]]] = collections.deque()
-        c = mqtt.Client(
-            mqtt.CallbackAPIVersion.VERSION2, client_id=broker.client_id, protocol=mqtt.MQTTv5, manual_ack=True
-        )
-        if broker.username:
-            c.username_pw_set(broker.username, broker.password)
-        if broker.tls:
-            c.tls_set(
-                ca_certs=broker.tls.ca_file,
-                certfile=broker.tls.cert_file,
-                keyfile=broker.tls.key_file,
-                cert_reqs=ssl.CERT_REQUIRED,
-                tls_version=ssl.PROTOCOL_TLS_CLIENT,
-            )
+        c = _client(broker, broker.client_id, manual_ack=True)
         c.will_set(broker.status_topic, b"offline", qos=1, retain=True)
         c.on_connect = self._on_connect
         c.on_disconnect = self._on_disconnect
@@ -215,17 +219,7 @@ def peek(broker: Broker, filters: list[str], seconds: float, handle, client_id: 
     inbox: collections.deque = collections.deque()
     refused: list[str] = []
     subscribed = threading.Event()
-    c = mqtt.Client(mqtt.CallbackAPIVersion.VERSION2, client_id=client_id, protocol=mqtt.MQTTv5)
-    if broker.username:
-        c.username_pw_set(broker.username, broker.password)
-    if broker.tls:
-        c.tls_set(
-            ca_certs=broker.tls.ca_file,
-            certfile=broker.tls.cert_file,
-            keyfile=broker.tls.key_file,
-            cert_reqs=ssl.CERT_REQUIRED,
-            tls_version=ssl.PROTOCOL_TLS_CLIENT,
-        )
+    c = _client(broker, client_id)
 
     def on_connect(client, userdata, flags, reason_code, properties):
         if reason_code.is_failure:

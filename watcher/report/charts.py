@@ -95,8 +95,12 @@ def zone_chart(
         bottom.legend(loc="lower right", fontsize=6.5, frameon=False)
     bottom.set_ylabel("um")
     bottom.set_xlim(x0, x1)
-    bottom.xaxis.set_major_locator(mdates.DayLocator(tz=x0.tzinfo))
-    bottom.xaxis.set_major_formatter(mdates.DateFormatter("%a %d", tz=x0.tzinfo))
+    if end_ts - start_ts <= 2 * 86400.0:  # a day or two: hours, the day named at midnight
+        bottom.xaxis.set_major_locator(mdates.HourLocator(byhour=range(0, 24, 3), tz=x0.tzinfo))
+        bottom.xaxis.set_major_formatter(mdates.DateFormatter("%H:%M", tz=x0.tzinfo))
+    else:
+        bottom.xaxis.set_major_locator(mdates.DayLocator(tz=x0.tzinfo))
+        bottom.xaxis.set_major_formatter(mdates.DateFormatter("%a %d", tz=x0.tzinfo))
     return _svg(fig)
 
 

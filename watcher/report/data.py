@@ -80,24 +80,26 @@ def load(store: Store, cfg: Config, site: Site, week: Week) -> SiteWeek:
     gaps, rejections, daily = tables["gaps"], tables["rejections"], tables["daily"]
     sw = SiteWeek(site, week, zones, readings, events, alerts, alert_log, gaps, rejections, daily)
     for z in zones:
-        sw.models[z.id] = zone_model(store, z, week)
+        sw.models[z.id] = zone_model(store, z, week.start_ts, week.end_ts)
     return sw
 
 
-def zone_model(store: Store, zone: Zone, week: Week) -> ZoneModel | None:
+def zone_model(store: Store, zone: Zone, start_ts: float, end_ts: float, period: str = "week") -> ZoneModel | None:
+    """The zone's model re-run over [start_ts, end_ts] (a week, or the site page's last day)
+    from the snapshot saved at or before its start."""
     spec = Spec(zone.profile, zone.positions)
     key = spec_key(zone)
-    snap = store.snapshots.before(zone.id, week.start_ts, key)
-    note = "from the model state saved before the week began"
+    snap = store.snapshots.before(zone.id, start_ts, key)
+    note = f"from the model state saved before the {period} began"
     if snap is None:
-        snap = store.snapshots.first_after(zone.id, week.start_ts, week.end_ts, key)
-        note = "from the first model state saved inside the week (no earlier state: figures cover part of the week)"
+        snap = store.snapshots.first_after(zone.id, start_ts, end_ts, key)
+        note = f"from the first model state saved inside the {period} (no earlier state: figures cover part of the {period})"
     if snap is None:
         return None
     state = State.from_arrays(unpack_state(snap[1]))
-    t, air = binned_air(store.readings.signals(zone.id, ("air_c",), state.time_ts, week.end_ts))
+    t, air = binned_air(store.readings.signals(zone.id, ("air_c",), state.time_ts, end_ts))
     t, air = t[t > state.time_ts], air[t > state.time_ts]
-    before = t <= week.start_ts
+    before = t <= start_ts
     if before.any():
         state, _ = advance(spec, state, t[before], air[None, before])
     t, air = t[~before], air[~before]

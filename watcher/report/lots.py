@@ -12,10 +12,8 @@ import pandas as pd
 from watcher.engine.lots import LotKeeper, recompute_lot
 from watcher.lots.events import stays
 from watcher.lots.model import lot_figures
+from watcher.lots.rank import AT_RISK_BUDGET_PCT, AT_RISK_DAYS, at_risk
 from watcher.ranges import cautious_days
-
-AT_RISK_DAYS = 14.0  # fewer days to the limit (cautious end) at week-end conditions than this, as the days-left rule
-AT_RISK_BUDGET_PCT = 80.0  # or at least this share of the budget used
 
 COLUMNS = [
     "rank",
@@ -63,9 +61,7 @@ def lots_table(store, cfg, site, week) -> pd.DataFrame:
                 "days_to_limit_high": None
                 if f.get("days_to_limit_high") is None
                 else round(f["days_to_limit_high"], 0),
-                "at_risk": "yes"
-                if (cautious is not None and cautious < AT_RISK_DAYS) or (budget or 0.0) >= AT_RISK_BUDGET_PCT
-                else "",
+                "at_risk": "yes" if at_risk(f) else "",
             }
         )
     rows.sort(key=lambda r: (r["days_to_limit"] if r["days_to_limit"] is not None else math.inf, r["lot"]))
