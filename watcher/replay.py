@@ -1,15 +1,18 @@
-"""`watcher replay`: recorded readings through the same engine as the live service."""
+"""`watcher replay` and `watcher import`: recorded readings, or a data logger's export, through
+the same engine as the live service."""
 
 from __future__ import annotations
 
 import math
 import time
 from collections import Counter
+from pathlib import Path
 
 from watcher.config import Config
 from watcher.engine.batch import Engine
 from watcher.errors import SeriesError
 from watcher.files.csvtable import number, read_rows
+from watcher.files.logger import ColumnMap, read_export
 from watcher.files.series import parse_time
 from watcher.ingest.payload import SIGNALS, TEMPERATURE_SIGNALS, Reading
 from watcher.store.db import Store
@@ -43,21 +46,30 @@ def read_readings(cfg: Config, path: str) -> list[Reading]:
 
 def replay_file(cfg: Config, path: str, progress=None) -> Counter:
     readings = read_readings(cfg, path)
-    readings.sort(key=lambda r: r.ts)
+    return feed(cfg, [(r, f"replay:{path}") for r in readings], "replaying", progress)
+
+
+def feed(cfg: Config, items: list[tuple[Reading, str]], label: str, progress=None, refused=()) -> Counter:
+    """(reading, topic) pairs through the service's engine in time order, in batches, with a
+    progress bar for long files; `refused` rows (topic, reason, row) are stored as rejections
+    in the same record. Returns the engine's counts."""
+    items = sorted(items, key=lambda item: item[0].ts)
     store = Store(cfg.storage.path)
     counts: Counter = Counter()
     try:
         engine = Engine(cfg, store, checkpoint_s=math.inf)
-        topic = f"replay:{path}"
         now = time.time()
-        chunks = range(0, len(readings), BATCH)
-        bar = (
-            progress(chunks, label="replaying", length=len(chunks)) if progress and len(readings) > 5 * BATCH else None
-        )
+        if refused:
+            with store.atomic():
+                for topic, reason, row in refused:
+                    store.rejections.add(now, topic, reason, row.encode())
+            counts["refused"] += len(refused)
+        chunks = range(0, len(items), BATCH)
+        bar = progress(chunks, label=label, length=len(chunks)) if progress and len(items) > 5 * BATCH else None
         iterator = bar.__enter__() if bar else chunks
         try:
             for lo in iterator:
-                result = engine.process_readings([(r, now, topic) for r in readings[lo : lo + BATCH]], now)
+                result = engine.process_readings([(r, now, topic) for r, topic in items[lo : lo + BATCH]], now)
                 counts.update(result.counts)
         finally:
             if bar:
@@ -66,3 +78,34 @@ def replay_file(cfg: Config, path: str, progress=None) -> Counter:
     finally:
         store.close()
     return counts
+
+
+def import_export(cfg: Config, path: str, cmap: ColumnMap, time_format: str | None = None, progress=None):
+    """A data logger's export into the record (files/logger.py reads it): each good row a
+    reading of cmap's zone, signal and sensor; each refused row a rejection saying why.
+    Returns (engine counts, the export as read, refused rows)."""
+    zones = {z.id for z in cfg.zones}
+    zone = cmap.zone or (next(iter(zones)) if len(zones) == 1 else None)
+    if zone not in zones:
+        raise SeriesError("--map zone", cmap.zone, "one of the configured zones: " + ", ".join(sorted(zones)))
+    if cmap.signal not in SIGNALS:
+        raise SeriesError("--map signal", cmap.signal, "one of " + ", ".join(SIGNALS))
+    export = read_export(path, cmap, cfg.site_of(zone).timezone, time_format)
+    sensor = cmap.sensor or Path(path).stem
+    topic = f"import:{Path(path).name}"
+    lo, hi = cfg.ingest.limits.temp_range_c
+    items, refused = [], [(topic, f"line {line}: {why}", row) for line, why, row in export.refused]
+    for line, ts, value, row in export.rows:
+        if cmap.signal in TEMPERATURE_SIGNALS:
+            value = (value - 32.0) * 5.0 / 9.0 if cmap.unit == "F" else value
+            if not lo <= value <= hi:
+                refused.append(
+                    (topic, f"line {line}: temperature {value:.2f} C outside [{lo}, {hi}] (sensor fault?)", row)
+                )
+                continue
+        elif value not in (0.0, 1.0):
+            refused.append((topic, f"line {line}: state {value:g} is not 0 or 1", row))
+            continue
+        items.append((Reading(zone, sensor, cmap.signal, round(ts, 3), value), topic))
+    counts = feed(cfg, items, "importing", progress, refused)
+    return counts, export, refused

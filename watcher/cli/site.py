@@ -255,3 +255,36 @@ def _age(age_s: float | None) -> str:
     if age_s < 120:
         return f"{age_s:.0f} s ago"
     return f"{age_s / 60:.0f} min ago" if age_s < 7200 else f"{age_s / 3600:.1f} h ago"
+
+
+@main.command("import")
+@config_option()
+@click.argument("export_path", metavar="EXPORT.csv", type=click.Path(dir_okay=False))
+@click.option(
+    "--map",
+    "mapping",
+    required=True,
+    help="Columns and meaning: time=COL,value=COL[,unit=C|F][,zone=ID][,signal=air_c][,sensor=NAME].",
+)
+@click.option("--time-format", default=None, help="The export's time format (strptime), e.g. '%d.%m.%Y %H:%M'.")
+def import_cmd(config_path, export_path, mapping, time_format) -> None:
+    """Bring a data logger's CSV export into the record (its own delimiter, decimal commas and
+    time format; times without a zone are site time), through the service's engine."""
+    from watcher.config import load_config
+    from watcher.files.logger import parse_map
+    from watcher.replay import import_export
+
+    cfg = load_config(config_path)
+    counts, export, refused = import_export(cfg, export_path, parse_map(mapping), time_format, click.progressbar)
+    taken = sum(counts.get(k, 0) for k in ("accepted", "late"))
+    click.echo(
+        f"Read {export_path}: delimiter {export.delimiter!r}, times as {export.time_format!r} in site time; "
+        f"{taken} readings taken ({counts.get('accepted', 0)} new, {counts.get('late', 0)} late), "
+        f"{counts.get('duplicate', 0)} already in the record, {len(refused)} rows refused."
+    )
+    for _, reason, _ in refused[:10]:
+        click.echo(f"  refused {reason}")
+    if len(refused) > 10:
+        click.echo(f"  ... and {len(refused) - 10} more (all kept in the rejections table)")
+    if not taken and not counts.get("duplicate") and refused:
+        sys.exit(1)
