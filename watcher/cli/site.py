@@ -288,3 +288,135 @@ def import_cmd(config_path, export_path, mapping, time_format) -> None:
         click.echo(f"  ... and {len(refused) - 10} more (all kept in the rejections table)")
     if not taken and not counts.get("duplicate") and refused:
         sys.exit(1)
+
+
+@main.command()
+@click.option("--out", "out_path", default="watcher.toml", show_default=True, type=click.Path(dir_okay=False))
+@click.option("--site-id", default=None, help="A short id: letters, digits, '-' and '_'.")
+@click.option("--site-name", default=None, help="The site's name in messages and summaries.")
+@click.option("--timezone", default=None, help="IANA time zone, e.g. Europe/London.")
+@click.option("--zone", "zones", multiple=True, help="ID:SETPOINT_C[:NAME], e.g. 'bulk-a:-25:Bulk store A' (repeat).")
+@click.option("--broker", default=None, help="HOST[:PORT] of the site broker (default 127.0.0.1:1883).")
+@click.option("--tls-ca", default=None, help="The broker's CA certificate file, for TLS.")
+@click.option(
+    "--air-topic", default=None, help="Topic pattern of the air readings (default {site}/{zone}/{sensor}/air)."
+)
+@click.option("--format", "air_format", type=click.Choice(["json", "number", "text"]), default=None)
+@click.option("--door-topic", default=None, help="Topic pattern of door contacts publishing open/closed (optional).")
+@click.option(
+    "--channel", "channels", multiple=True, help="A notification channel's name (repeat); its URL goes in a file."
+)
+@click.option("--ask", is_flag=True, help="Ask for every answer not given (the default at a terminal).")
+@click.option("--force", is_flag=True, help="Overwrite an existing file.")
+def init(
+    out_path,
+    site_id,
+    site_name,
+    timezone,
+    zones,
+    broker,
+    tls_ca,
+    air_topic,
+    air_format,
+    door_topic,
+    channels,
+    ask,
+    force,
+):
+    """Write a starter configuration for a new site from a few answers (or flags, for scripts),
+    then check it as check-config does."""
+    import os
+    from pathlib import Path
+
+    from watcher.config.starter import Answers, parse_zone, starter_toml
+
+    ask = ask or sys.stdin.isatty()
+
+    def answer(value, question, default):
+        if value is not None:
+            return value
+        return click.prompt(question, default=default) if ask else default
+
+    out = Path(out_path)
+    if out.exists() and not force:
+        click.echo(f"watcher: error: {out} exists; give --force to overwrite it", err=True)
+        sys.exit(2)
+    site_id = answer(site_id, "Site id (letters, digits, - and _)", "site")
+    site_name = answer(site_name, "Site name", site_id)
+    timezone = answer(timezone, "Time zone (IANA)", "UTC")
+    if not zones and ask:
+        zones = tuple(
+            z.strip()
+            for z in click.prompt("Zones as ID:SETPOINT_C[:NAME], comma-separated", default="store:-25").split(",")
+        )
+    if not zones:
+        click.echo("watcher: error: --zone: at least one zone, as ID:SETPOINT_C[:NAME]", err=True)
+        sys.exit(2)
+    broker = answer(broker, "Broker HOST[:PORT]", "127.0.0.1:1883")
+    host, _, port = broker.partition(":")
+    try:
+        parsed = tuple(parse_zone(z) for z in zones)
+        port_n = int(port or (8883 if tls_ca else 1883))
+    except ValueError as exc:
+        click.echo(f"watcher: error: {exc}", err=True)
+        sys.exit(2)
+    folder = out.parent.resolve()
+    secrets = folder / "secrets"
+    secrets.mkdir(mode=0o700, exist_ok=True)
+    for name in ("broker-password", *(f"notify-{c}" for c in channels)):
+        path = secrets / name
+        if not path.exists():
+            path.touch(mode=0o600)
+            os.chmod(path, 0o600)
+    answers = Answers(
+        site_id=site_id,
+        site_name=site_name,
+        timezone=timezone,
+        zones=parsed,
+        broker_host=host,
+        broker_port=port_n,
+        password_file=str(secrets / "broker-password"),
+        tls_ca=tls_ca,
+        air_topic=answer(air_topic, "Air topic pattern", "{site}/{zone}/{sensor}/air"),
+        air_format=answer(air_format, "Air payload format (json, number, text)", "json"),
+        door_topic=door_topic,
+        channels=tuple((c, str(secrets / f"notify-{c}")) for c in channels),
+        database=str(folder / "watcher.db"),
+    )
+    out.write_text(starter_toml(answers), encoding="utf-8")
+    click.echo(f"Wrote {out}.")
+    empty = [
+        p for p in (secrets / "broker-password", *(secrets / f"notify-{c}" for c in channels)) if not p.stat().st_size
+    ]
+    for path in empty:
+        click.echo(f"  {path} (0600) is empty: put the {'password' if 'broker' in path.name else 'URL'} in it")
+    if empty:
+        _check_with_placeholders(out, empty)
+        click.echo(f"Once the files above hold their secrets: watcher check-config {shlex.quote(str(out))}")
+        return
+    click.echo("")
+    click.get_current_context().invoke(check_config, config_path=str(out))
+
+
+def _check_with_placeholders(out, empty) -> None:
+    """Check everything but the secrets not written yet: the same reader, with placeholder
+    secrets in a private temporary folder (a refusal exits 2 as check-config does)."""
+    import tempfile
+    import tomllib
+    from pathlib import Path
+
+    from watcher.config import config_from_dict
+
+    data = tomllib.loads(Path(out).read_text(encoding="utf-8"))
+    with tempfile.TemporaryDirectory() as tmp:
+        swap = {}
+        for path in empty:
+            stand_in = Path(tmp) / path.name
+            stand_in.write_text("placeholder\n" if "broker" in path.name else "json://localhost/placeholder\n")
+            stand_in.chmod(0o600)
+            swap[str(path)] = str(stand_in)
+        data["broker"]["password_file"] = swap.get(data["broker"]["password_file"], data["broker"]["password_file"])
+        for ch in data.get("notify", []):
+            ch["url_file"] = swap.get(ch["url_file"], ch["url_file"])
+        config_from_dict(data, str(out))
+    click.echo(f"{out}: valid apart from the secrets still to be written.")
