@@ -90,3 +90,75 @@ def test_text_doors_and_senml_packs_are_stored_and_bad_variants_rejected_with_re
         pub.close()
         if w.proc.poll() is None:
             w.kill()
+
+
+SPARKPLUG = """
+[[sources]]
+pattern = "spBv1.0/kestrel/DDATA/{zone}/{sensor}"
+signal = "air_c"
+format = "sparkplug"
+value = "Air"
+"""
+
+
+def test_sparkplug_birth_then_data_by_alias_and_bad_payloads_rejected(tmp_path, broker):
+    """Data naming the metric only by alias before any birth is refused saying so; then a
+    DBIRTH names the aliases and the next DDATA by alias is stored with its own timestamp; a
+    truncated payload and a data message without the metric become rejections with reasons.
+    The service subscribes to the births itself (from the source's data topic)."""
+    from tests import sparkplug_encode as enc
+
+    config = write_config(tmp_path, broker, zones=("bulk-a",), extra=SPARKPLUG, reorder_s=0.0)
+    w = WatcherProcess(config)
+    pub = Publisher(broker)
+    now_ms = (round(time.time()) - 120) * 1000
+    data_topic, birth_topic = "spBv1.0/kestrel/DDATA/bulk-a/edge1", "spBv1.0/kestrel/DBIRTH/bulk-a/edge1"
+    try:
+        w.wait_ready()
+        pub.send([(data_topic, enc.payload([enc.metric(alias=7, value=-24.0)], timestamp_ms=now_ms))])
+        pub.send(
+            [
+                (
+                    birth_topic,
+                    enc.payload([enc.metric("Air", alias=7, value=-24.2), enc.metric("RH", alias=8, value=80.0)]),
+                )
+            ]
+        )
+        pub.send(
+            [
+                (
+                    data_topic,
+                    enc.payload(
+                        [enc.metric(alias=7, value=-23.5), enc.metric(alias=8, value=79.0)],
+                        timestamp_ms=now_ms + 60_000,
+                    ),
+                ),
+                (
+                    data_topic,
+                    enc.payload([enc.metric("Air", value=-23.9, kind="float")], timestamp_ms=now_ms + 120_000),
+                ),
+                (data_topic, b"\x12\x09\x0a\x03Ai"),
+                (data_topic, enc.payload([enc.metric("RH", value=78.0)], timestamp_ms=now_ms + 180_000)),
+            ]
+        )
+        db = tmp_path / "watcher.db"
+
+        def stored():
+            with sqlite3.connect(db) as c:
+                readings = c.execute("SELECT sensor, ts, value FROM readings ORDER BY ts").fetchall()
+                reasons = [r[0] for r in c.execute("SELECT reason FROM rejections ORDER BY id")]
+            return readings, reasons
+
+        wait_for(lambda: len(stored()[0]) == 2 and len(stored()[1]) == 3, timeout=30, what="readings and rejections")
+        readings, reasons = stored()
+        assert [(s, t) for s, t, _ in readings] == [("edge1", now_ms / 1000 + 60), ("edge1", now_ms / 1000 + 120)]
+        assert readings[0][2] == -23.5 and abs(readings[1][2] - (-23.9)) < 1e-5  # a float32 value
+        assert "carry only an alias no birth certificate has named yet" in reasons[0]
+        assert "ends inside a field" in reasons[1] and "no Sparkplug metric named 'Air'" in reasons[2]
+        metrics = w.get("/metrics")[1].decode()
+        assert 'watcher_readings_total{result="sparkplug_birth"} 1.0' in metrics
+        assert w.stop() == 0
+    finally:
+        pub.close()
+        if w.proc.poll() is None:
+            w.kill()

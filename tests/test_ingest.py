@@ -204,3 +204,68 @@ def test_a_senml_pack_that_does_not_give_the_record_is_refused_with_the_reason(p
     an unregistered unit: each refused with what was wrong."""
     with pytest.raises(Rejected, match=reason):
         parse(senml_src(name), json.dumps(pack).encode())
+
+
+def spb_src(name: str, signal: str = "air_c"):
+    return src(
+        pattern=parse_pattern("spBv1.0/kestrel/DDATA/{zone}/{sensor}"),
+        signal=signal,
+        fmt="sparkplug",
+        value_path=(name,),
+        time_path=None,
+    )
+
+
+def test_sparkplug_data_by_name_by_alias_and_typed_values():
+    """DDATA metrics picked by name, or by the alias a DBIRTH gave (a node's NBIRTH aliases
+    serve its devices too); a signed Int32 read as two's complement; the metric's own
+    timestamp (ms) first, else the payload's; the other metrics counted as ignored."""
+    from tests import sparkplug_encode as enc
+    from watcher.ingest.sparkplug import AliasBook, decode
+
+    topic = "spBv1.0/kestrel/DDATA/bulk-a/probe7"
+    data = enc.payload(
+        [enc.metric("Air", value=-24.5, timestamp_ms=1_795_000_000_000), enc.metric("Fan", value=True, kind="boolean")],
+        timestamp_ms=1_795_000_060_000,
+    )
+    r = parse_message(spb_src("Air"), {"zone": "bulk-a", "sensor": "probe7"}, data, NOW, DEFAULT_LIMITS, topic)
+    assert (r.value, r.ts, r.ignored) == (-24.5, 1_795_000_000.0, 1)
+    book = AliasBook()
+    birth = enc.payload(
+        [enc.metric("Air", alias=3, value=-25.0), enc.metric("Door", alias=4, value=False, kind="boolean")]
+    )
+    assert book.learn("spBv1.0/kestrel/DBIRTH/bulk-a/probe7", decode(birth)) == 2
+    by_alias = enc.payload([enc.metric(alias=3, value=-19, kind="int32")], timestamp_ms=1_795_000_120_000)
+    r = parse_message(
+        spb_src("Air"), {"zone": "bulk-a", "sensor": "probe7"}, by_alias, NOW, DEFAULT_LIMITS, topic, book
+    )
+    assert (r.value, r.ts) == (-19.0, 1_795_000_120.0)
+    door = enc.payload([enc.metric(alias=4, value=True, kind="boolean")])
+    assert (
+        parse_message(
+            spb_src("Door", "door"), {"zone": "bulk-a", "sensor": "d"}, door, NOW, DEFAULT_LIMITS, topic, book
+        ).value
+        == 1.0
+    )
+
+
+@pytest.mark.parametrize(
+    ("data", "reason"),
+    [
+        (b"\x12\x05\x0a\x03Ai", "ends inside a field"),
+        (b"\x0b", "wire type 3"),
+        (b"\x12\x02\x10\x09", "no Sparkplug metric named 'Air'; 1 metric\\(s\\) carry only an alias"),
+        (b"\xff\xff\xff", "ends inside a number"),
+    ],
+)
+def test_a_malformed_or_unresolvable_sparkplug_payload_is_refused_with_the_reason(data, reason):
+    """Truncated fields, an impossible wire type, an alias no birth named, a broken varint."""
+    with pytest.raises(Rejected, match=reason):
+        parse_message(
+            spb_src("Air"),
+            {"zone": "bulk-a", "sensor": "s"},
+            data,
+            NOW,
+            DEFAULT_LIMITS,
+            "spBv1.0/kestrel/DDATA/bulk-a/s",
+        )

@@ -9,7 +9,8 @@ import os
 from collections.abc import Callable
 
 from watcher.config import Config
-from watcher.engine.route import is_command, reading_of, topic_filters
+from watcher.engine.route import is_birth, is_command, reading_of, topic_filters
+from watcher.ingest import sparkplug
 from watcher.ingest.message import Message
 from watcher.ingest.mqtt import peek
 from watcher.ingest.payload import OutOfClock, Reading, Rejected
@@ -18,12 +19,19 @@ SIGNAL_WORDS = {"air_c": "air", "product_c": "product probe", "door": "door", "d
 SWITCH_WORDS = {"door": ("closed", "open"), "defrost": ("off", "on")}
 
 
-def verdict(config: Config, msg: Message) -> tuple[str, Reading | None, str]:
-    """("reading", reading, "") | ("held" | "refused" | "command", None, why) for one message."""
+def verdict(config: Config, msg: Message, aliases=None) -> tuple[str, Reading | None, str]:
+    """("reading", reading, "") | ("held" | "refused" | "command" | "birth", None, why) for one
+    message; a Sparkplug birth teaches `aliases` its metric names."""
     if is_command(config, msg.topic):
         return "command", None, "an acknowledgement or lot event: the running service acts on it"
+    if is_birth(config, msg.topic):
+        try:
+            n = aliases.learn(msg.topic, sparkplug.decode(msg.payload)) if aliases is not None else 0
+        except Rejected as exc:
+            return "refused", None, f"Sparkplug birth: {exc}"
+        return "birth", None, f"a Sparkplug birth certificate naming {n} aliased metric(s)"
     try:
-        return "reading", reading_of(config, msg, lambda zone: config.zone(zone) is not None), ""
+        return "reading", reading_of(config, msg, lambda zone: config.zone(zone) is not None, aliases), ""
     except OutOfClock as exc:
         return "held", None, f"{exc} (the service would hold it until the clocks agree)"
     except Rejected as exc:
@@ -36,9 +44,11 @@ def listen(
     """Watch every topic the service subscribes to for `seconds`; show(message, kind, reading,
     why) for each; on_ready() once subscribed. Returns how many messages were seen."""
 
+    aliases = sparkplug.AliasBook()
+
     def handle(topic: str, payload: bytes, received_ts: float, retain: bool) -> None:
         msg = Message(topic, payload, received_ts, retain=retain)
-        show(msg, *verdict(config, msg))
+        show(msg, *verdict(config, msg, aliases))
 
     client_id = f"{config.broker.client_id}-listen-{os.getpid()}"
     return peek(config.broker, topic_filters(config), seconds, handle, client_id, on_ready)

@@ -150,6 +150,7 @@ def listen(config_path, seconds) -> None:
         "refused": "would be refused",
         "held": "would be held",
         "command": "commands",
+        "birth": "Sparkplug births",
     }
     summary = "; ".join(f"{counts[k]} {words}" for k, words in kinds.items() if k in counts) or "nothing arrived"
     click.echo(f"{seen} messages: {summary}.")

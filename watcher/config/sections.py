@@ -228,7 +228,7 @@ def source(r: Reader, zone_ids: set[str]) -> Source:
         "json",
         tuple(FORMATS),
         "how the payload carries the value: a JSON object, a plain number, bare text (a number or a state word), "
-        "or a SenML pack (RFC 8428)",
+        "a SenML pack (RFC 8428), or a Sparkplug B payload",
     )
     unit = _choice(r, "unit", "C", ("C", "F", "K"), "the temperature unit")
     unit_path = r.text("unit_field", doc="JSON field path of a unit the payload names itself; overrides unit")
@@ -238,6 +238,21 @@ def source(r: Reader, zone_ids: set[str]) -> Source:
     time_format = _choice(r, "time_format", "iso", ("iso", "epoch_s", "epoch_ms"), "how the timestamp is written")
     if time_path and not FORMATS[fmt].fields:
         r.fail("time", time_path, f"no timestamp field for {fmt} payloads (their own time or the receive time is used)")
+    if fmt == "sparkplug":
+        levels = text.split("/")
+        if (
+            len(levels) not in (4, 5)
+            or levels[0] != "spBv1.0"
+            or levels[2] != ("DDATA" if len(levels) == 5 else "NDATA")
+        ):
+            r.fail(
+                "pattern",
+                text,
+                "a Sparkplug B data topic: spBv1.0/GROUP/DDATA/{zone}/{sensor} (a device) or spBv1.0/GROUP/NDATA/EDGE "
+                "(an edge node); placeholders or names fill the edge node and device levels",
+            )
+        if "value" not in r.table:
+            r.fail("value", None, "the name of the Sparkplug metric to take, as the birth certificate names it")
     if fmt == "senml" and "value" not in r.table:
         r.fail(
             "value",

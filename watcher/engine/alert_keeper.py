@@ -71,7 +71,6 @@ class AlertKeeper:
         self.rules = list(config.alerting.rules)
         ids = {r.id for r in self.rules}
         self.states = {k: _state_from(d) for k, d in store.alerts.states().items() if k[1] in ids}
-        self._last_obs: dict[tuple, dict] = {}
         self._gathered: dict[int, list] | None = None
 
     def open_by_severity(self) -> dict[str, int]:
@@ -98,20 +97,17 @@ class AlertKeeper:
             self._send(steps, wall_ts)
 
     def evaluate(
-        self, rules: list[Rule], zone: str, obs: dict, now_ts: float, wall_ts: float, skip_same: bool = False
+        self, rules: list[Rule], zone: str, obs: dict, now_ts: float, wall_ts: float, skip_idle: bool = False
     ) -> None:
         """Judge the rules on one observation at now_ts (data time; wall_ts is the service's
-        clock). skip_same: skip it when nothing can change (the same observation as last time
-        and every rule quiet), which keeps minute steps through a long backlog cheap."""
+        clock). skip_idle: skip it when nothing can change (every rule quiet and none holding),
+        which keeps minute steps through a long backlog cheap."""
         if not rules:
             return
-        if skip_same:
-            key = (zone, rules[0].id)
-            if self._last_obs.get(key) == obs and all(
-                self.states.get((zone, r.id), _QUIET).status == "quiet" for r in rules
-            ):
+        if skip_idle and all(self.states.get((zone, r.id), _QUIET).status == "quiet" for r in rules):
+            # Every rule quiet and none holds: the policy would change nothing (the usual step).
+            if not any(obs.get(r.metric) is not None and r.applies_to(zone) and r.holds(obs[r.metric]) for r in rules):
                 return
-            self._last_obs[key] = obs
         a = self.config.alerting
         mine = {(zone, r.id): self.states[(zone, r.id)] for r in rules if (zone, r.id) in self.states}
         new, actions = evaluate(rules, zone, obs, now_ts, mine, a.repeat_s, a.escalate_s)

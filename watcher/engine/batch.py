@@ -20,9 +20,10 @@ from watcher.config import Config
 from watcher.engine.lots import parse_payload, record_event
 from watcher.engine.monitor import Monitor
 from watcher.engine.rejects import Excess, RejectionLimiter
-from watcher.engine.route import is_command, reading_of
+from watcher.engine.route import birth_filters, is_birth, is_command, reading_of
 from watcher.engine.zones import ZoneRunner, spec_key
 from watcher.errors import InputError
+from watcher.ingest import sparkplug
 from watcher.ingest.message import Message
 from watcher.ingest.payload import OutOfClock, Reading, Rejected
 from watcher.ingest.topics import topic_is_clean
@@ -89,6 +90,10 @@ class Engine:
         self.monitor = self._monitor()
         self.held_count = store.record.count("held")
         self.limiter = RejectionLimiter(config.ingest.rejections_per_topic_per_min)
+        # Sparkplug aliases from the births seen since start (not in the record: an edge node
+        # sends its births again when it reconnects, or on a rebirth request).
+        self.aliases = sparkplug.AliasBook()
+        self.birth_filters = birth_filters(config)
 
     def _monitor(self) -> Monitor:
         old = getattr(self, "monitor", None)
@@ -168,7 +173,7 @@ class Engine:
 
     # --- routing -------------------------------------------------------------------------
     def parse(self, msg: Message) -> Reading:
-        reading = reading_of(self.config, msg, self.runners.__contains__)
+        reading = reading_of(self.config, msg, self.runners.__contains__, self.aliases)
         runner = self.runners[reading.zone]
         if reading.sensor not in runner.sensor_names:
             cap = self.config.ingest.max_sensors_per_zone
@@ -191,6 +196,15 @@ class Engine:
         for msg in messages:
             if is_command(self.config, msg.topic):
                 parsed.append((None, msg))
+                continue
+            if self.birth_filters and is_birth(self.config, msg.topic, self.birth_filters):
+                try:
+                    self.aliases.learn(msg.topic, sparkplug.decode(msg.payload))
+                    result.counts["sparkplug_birth"] += 1
+                except Rejected as exc:
+                    parsed.append((f"Sparkplug birth: {exc}", msg))
+                    result.rejections["sparkplug_birth"] += 1
+                    result.counts["rejected"] += 1
                 continue
             try:
                 parsed.append((self.parse(msg), msg))

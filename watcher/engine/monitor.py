@@ -112,9 +112,9 @@ class Monitor:
         with self.alerts.gathered(wall_ts):  # what one step learnt goes out as one message per alert
             if runner.last_ts is not None:
                 for at, obs in reading_steps(lz, runner.last_ts, self.config.ingest.max_gap_s):
-                    self.alerts.evaluate(self.by_source["readings"], zid, obs, at, wall_ts, skip_same=True)
+                    self.alerts.evaluate(self.by_source["readings"], zid, obs, at, wall_ts, skip_idle=True)
             for at, obs in model_steps(lz, runner.take_steps()):
-                self.alerts.evaluate(self.by_source["model"], zid, obs, at, wall_ts, skip_same=True)
+                self.alerts.evaluate(self.by_source["model"], zid, obs, at, wall_ts, skip_idle=True)
             if checkpointed and runner.state is not None:
                 self._analyse(runner, lz, wall_ts, final)
         self._mark(zid, "judged_ts", lz.judged_ts)

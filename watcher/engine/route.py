@@ -10,9 +10,9 @@ from watcher.ingest.message import Message
 from watcher.ingest.payload import Reading, Rejected, parse_message
 
 
-def reading_of(config: Config, msg: Message, known_zone: Callable[[str], bool]) -> Reading:
+def reading_of(config: Config, msg: Message, known_zone: Callable[[str], bool], aliases=None) -> Reading:
     """The reading a message becomes, or Rejected with the reason (OutOfClock, a Rejected, when
-    its time disagrees with the receive time)."""
+    its time disagrees with the receive time). aliases: the Sparkplug births seen so far."""
     for source in config.sources:
         names = source.pattern.match(msg.topic)
         if names is None:
@@ -22,7 +22,7 @@ def reading_of(config: Config, msg: Message, known_zone: Callable[[str], bool]) 
                 "retained message on a source stamped with the receive time: it is replayed at every "
                 "reconnect and would make a dead sensor look alive (publish without retain, or add a time field)"
             )
-        reading = parse_message(source, names, msg.payload, msg.received_ts, config.ingest.limits)
+        reading = parse_message(source, names, msg.payload, msg.received_ts, config.ingest.limits, msg.topic, aliases)
         if not known_zone(reading.zone):
             raise Rejected(f"unknown zone {reading.zone[:64]!r}")
         return reading
@@ -38,7 +38,38 @@ def is_command(config: Config, topic: str) -> bool:
     return any(topic == c or topic.startswith(c + "/") for c in command_topics(config))
 
 
+def birth_filters(config: Config) -> set[str]:
+    """The Sparkplug births that name the metrics of the Sparkplug sources' data (a DDATA
+    source needs its device's DBIRTH and its node's NBIRTH)."""
+    out = set()
+    for s in config.sources:
+        if s.fmt == "sparkplug":
+            levels = s.pattern.filter.split("/")
+            out.add("/".join([*levels[:2], "NBIRTH", levels[3]]))
+            if len(levels) == 5:
+                out.add("/".join([*levels[:2], "DBIRTH", *levels[3:]]))
+    return out
+
+
+def is_birth(config: Config, topic: str, filters: set[str] | None = None) -> bool:
+    """A Sparkplug birth a source needs (filters: birth_filters(config), made once by a caller
+    that asks often)."""
+    return any(filter_matches(f, topic) for f in (birth_filters(config) if filters is None else filters))
+
+
+def filter_matches(topic_filter: str, topic: str) -> bool:
+    """MQTT topic filter matching for the filters watcher makes ('+' whole levels, '#' last)."""
+    want, got = topic_filter.split("/"), topic.split("/")
+    for i, level in enumerate(want):
+        if level == "#":
+            return True
+        if i >= len(got) or (level != "+" and level != got[i]):
+            return False
+    return len(want) == len(got)
+
+
 def topic_filters(config: Config) -> list[str]:
-    """Every filter the service subscribes to: the sources' and the command topics'."""
+    """Every filter the service subscribes to: the sources', their births' and the command topics'."""
     ack, lots = command_topics(config)
-    return sorted({s.pattern.filter for s in config.sources} | {ack, ack + "/+", lots, lots + "/+"})
+    sources = {s.pattern.filter for s in config.sources} | birth_filters(config)
+    return sorted(sources | {ack, ack + "/+", lots, lots + "/+"})

@@ -86,17 +86,18 @@ def model_steps(lz: Live, chunks: list[dict]) -> Iterator[tuple[float, dict]]:
     if not math.isfinite(lz.model_judged_ts):
         lz.model_judged_ts = min(samples_ts[:1].tolist() + macro_ts[:1].tolist()) - 1e-3
     now = lz.model_now
-    for at in judge_points(lz.model_judged_ts, newest):
-        k = int(np.searchsorted(samples_ts, at, side="right")) - 1
+    points = judge_points(lz.model_judged_ts, newest)
+    ks = (np.searchsorted(samples_ts, points, side="right") - 1).tolist()  # the last sample at or before
+    ms = (np.searchsorted(macro_ts, points, side="right") - 1).tolist()  # the last macro end at or before
+    product_l, budget_l, days_l = product.tolist(), budget.tolist(), days.tolist()
+    for at, k, m in zip(points, ks, ms):
         if k >= 0:
-            now["product_c"] = _value(product[k])
-        m = int(np.searchsorted(macro_ts, at, side="right")) - 1
+            now["product_c"] = _value(product_l[k])
         if m >= 0:
-            now["budget_used_pct"], now["days_to_limit"] = _value(budget[m]), _value(days[m])
+            now["budget_used_pct"], now["days_to_limit"] = _value(budget_l[m]), _value(days_l[m])
         lz.model_judged_ts = at
         yield at, dict(now)
 
 
-def _value(x) -> float | None:
-    x = float(x)
+def _value(x: float) -> float | None:
     return None if math.isnan(x) else x

@@ -14,7 +14,7 @@ from typing import NamedTuple
 
 from watcher.declare import setting
 from watcher.errors import OutOfClock, Rejected
-from watcher.ingest import senml
+from watcher.ingest import senml, sparkplug
 from watcher.ingest.jsondoc import BadJson, load_json
 
 __all__ = ["FORMATS", "OutOfClock", "PayloadFormat", "Reading", "Rejected", "Source", "Limits", "parse_message"]
@@ -133,7 +133,8 @@ def _timestamp(raw, fmt: str) -> float:
 
 class Raw(NamedTuple):
     """What a payload format read: the value as written, its unit, the reading's own time
-    (None: the receive time) and how many other records of the message it left (SenML)."""
+    (None: the receive time) and how many other records of the message it left (SenML,
+    Sparkplug)."""
 
     value: object
     unit: str
@@ -142,17 +143,34 @@ class Raw(NamedTuple):
 
 
 @dataclass(frozen=True)
+class Inbound:
+    """One message as a payload format sees it."""
+
+    payload: bytes
+    received_ts: float
+    topic: str = ""
+    aliases: object = None  # sparkplug.AliasBook of the births seen, for Sparkplug sources
+
+    @property
+    def text(self) -> str:
+        try:
+            return self.payload.decode("utf-8")
+        except UnicodeDecodeError:
+            raise Rejected("payload is not UTF-8") from None
+
+
+@dataclass(frozen=True)
 class PayloadFormat:
-    """One way a payload carries its value: read(source, payload, text, received_ts) gives a
-    Raw, or raises Rejected."""
+    """One way a payload carries its value: read(source, inbound) gives a Raw, or raises Rejected."""
 
     name: str
-    read: Callable[[Source, bytes, str, float], Raw]
+    read: Callable[[Source, Inbound], Raw]
     fields: bool  # the payload has named fields (value, unit and time paths apply)
     describe: Callable[[Source], str]  # for `watcher check-config`
 
 
-def _read_number(source: Source, payload: bytes, text: str, received_ts: float) -> Raw:
+def _read_number(source: Source, m: Inbound) -> Raw:
+    text = m.text
     try:
         raw = float(text.strip())
     except ValueError:
@@ -162,10 +180,10 @@ def _read_number(source: Source, payload: bytes, text: str, received_ts: float) 
     return Raw(raw, source.unit, None)
 
 
-def _read_text(source: Source, payload: bytes, text: str, received_ts: float) -> Raw:
+def _read_text(source: Source, m: Inbound) -> Raw:
     """A bare payload: a number, or for a door or defrost a state word (open/closed, on/off,
     true/false, 1/0, any case). What it is not is said by the value's own check."""
-    word = text.strip()
+    word = m.text.strip()
     try:
         return Raw(float(word), source.unit, None)
     except ValueError:
@@ -174,25 +192,31 @@ def _read_text(source: Source, payload: bytes, text: str, received_ts: float) ->
         return Raw(word, source.unit, None)
 
 
-def _read_json(source: Source, payload: bytes, text: str, received_ts: float) -> Raw:
+def _json(m: Inbound):
+    m.text  # noqa: B018 (the UTF-8 check, with its reason)
     try:
-        doc = load_json(payload)
+        return load_json(m.payload)
     except BadJson as exc:
         raise Rejected(str(exc)) from None
+
+
+def _read_json(source: Source, m: Inbound) -> Raw:
+    doc = _json(m)
     unit = source.unit if source.unit_path is None else _unit(_dig(doc, source.unit_path, "unit"))
     ts = None if source.time_path is None else _timestamp(_dig(doc, source.time_path, "timestamp"), source.time_format)
     return Raw(_dig(doc, source.value_path, "value"), unit, ts)
 
 
-def _read_senml(source: Source, payload: bytes, text: str, received_ts: float) -> Raw:
-    try:
-        doc = load_json(payload)
-    except BadJson as exc:
-        raise Rejected(str(exc)) from None
+def _read_senml(source: Source, m: Inbound) -> Raw:
     value, unit, ts, ignored = senml.record(
-        doc, ".".join(source.value_path), source.signal in TEMPERATURE_SIGNALS, received_ts
+        _json(m), ".".join(source.value_path), source.signal in TEMPERATURE_SIGNALS, m.received_ts
     )
     return Raw(value, source.unit if unit is None else unit, ts, ignored)
+
+
+def _read_sparkplug(source: Source, m: Inbound) -> Raw:
+    value, ts, ignored = sparkplug.record(sparkplug.decode(m.payload), ".".join(source.value_path), m.topic, m.aliases)
+    return Raw(value, source.unit, ts, ignored)
 
 
 FORMATS = {
@@ -201,6 +225,7 @@ FORMATS = {
         PayloadFormat("json", _read_json, True, lambda s: f"JSON field {'.'.join(s.value_path)}"),
         PayloadFormat("number", _read_number, False, lambda s: "plain number"),
         PayloadFormat("senml", _read_senml, False, lambda s: f"SenML record {'.'.join(s.value_path)!r}"),
+        PayloadFormat("sparkplug", _read_sparkplug, False, lambda s: f"Sparkplug B metric {'.'.join(s.value_path)!r}"),
         PayloadFormat(
             "text",
             _read_text,
@@ -211,15 +236,21 @@ FORMATS = {
 }
 
 
-def parse_message(source: Source, names: dict[str, str], payload: bytes, received_ts: float, limits: Limits) -> Reading:
-    """One reading from one message, or Rejected with the reason."""
+def parse_message(
+    source: Source,
+    names: dict[str, str],
+    payload: bytes,
+    received_ts: float,
+    limits: Limits,
+    topic: str = "",
+    aliases=None,
+) -> Reading:
+    """One reading from one message, or Rejected with the reason (topic and aliases: for
+    Sparkplug sources, whose data may name metrics by the aliases their births gave)."""
     if len(payload) > limits.max_payload_bytes:
         raise Rejected(f"payload of {len(payload)} bytes exceeds {limits.max_payload_bytes}")
-    try:
-        text = payload.decode("utf-8")
-    except UnicodeDecodeError:
-        raise Rejected("payload is not UTF-8") from None
-    value_raw, unit, ts, ignored = FORMATS[source.fmt].read(source, payload, text, received_ts)
+    inbound = Inbound(payload, received_ts, topic, aliases)
+    value_raw, unit, ts, ignored = FORMATS[source.fmt].read(source, inbound)
     ts = received_ts if ts is None else ts
     if source.signal in TEMPERATURE_SIGNALS:
         value = _to_celsius(_number(value_raw, "value"), unit)
