@@ -26,6 +26,20 @@ sensor = "gw-air"
 """
 
 
+def stored(db, n_readings: int, n_rejections: int) -> tuple[list, list]:
+    """Once the service has stored that many readings and rejections: (sensor, signal, ts,
+    value) in time order, and the rejection reasons in arrival order."""
+
+    def read():
+        with sqlite3.connect(db) as c:
+            readings = c.execute("SELECT sensor, signal, ts, value FROM readings ORDER BY ts").fetchall()
+            reasons = [r[0] for r in c.execute("SELECT reason FROM rejections ORDER BY id")]
+        return readings, reasons
+
+    wait_for(lambda: [len(x) for x in read()] == [n_readings, n_rejections], timeout=30, what="readings and rejections")
+    return read()
+
+
 def pack(ts: float, air=-24.5, unit="Cel") -> bytes:
     return json.dumps(
         [
@@ -59,16 +73,8 @@ def test_text_doors_and_senml_packs_are_stored_and_bad_variants_rejected_with_re
                 ("kp/bulk-a/gw/senml", b"[{oops"),
             ]
         )
-        db = tmp_path / "watcher.db"
-
-        def stored():
-            with sqlite3.connect(db) as c:
-                readings = c.execute("SELECT sensor, signal, ts, value FROM readings ORDER BY signal, ts").fetchall()
-                reasons = [r[0] for r in c.execute("SELECT reason FROM rejections ORDER BY id")]
-            return readings, reasons
-
-        wait_for(lambda: len(stored()[0]) == 4 and len(stored()[1]) == 5, timeout=30, what="readings and rejections")
-        readings, reasons = stored()
+        readings, reasons = stored(tmp_path / "watcher.db", 4, 5)
+        readings = sorted(readings, key=lambda r: (r[1], r[2]))
         air = [r for r in readings if r[1] == "air_c"]
         assert [(r[0], r[2]) for r in air] == [("gw-air", now), ("gw-air", now + 60)]
         assert air[0][3] == -24.5 and abs(air[1][3] - (-24.0)) < 1e-9  # 249.15 K
@@ -141,18 +147,9 @@ def test_sparkplug_birth_then_data_by_alias_and_bad_payloads_rejected(tmp_path, 
                 (data_topic, enc.payload([enc.metric("RH", value=78.0)], timestamp_ms=now_ms + 180_000)),
             ]
         )
-        db = tmp_path / "watcher.db"
-
-        def stored():
-            with sqlite3.connect(db) as c:
-                readings = c.execute("SELECT sensor, ts, value FROM readings ORDER BY ts").fetchall()
-                reasons = [r[0] for r in c.execute("SELECT reason FROM rejections ORDER BY id")]
-            return readings, reasons
-
-        wait_for(lambda: len(stored()[0]) == 2 and len(stored()[1]) == 3, timeout=30, what="readings and rejections")
-        readings, reasons = stored()
-        assert [(s, t) for s, t, _ in readings] == [("edge1", now_ms / 1000 + 60), ("edge1", now_ms / 1000 + 120)]
-        assert readings[0][2] == -23.5 and abs(readings[1][2] - (-23.9)) < 1e-5  # a float32 value
+        readings, reasons = stored(tmp_path / "watcher.db", 2, 3)
+        assert [(s, t) for s, _, t, _ in readings] == [("edge1", now_ms / 1000 + 60), ("edge1", now_ms / 1000 + 120)]
+        assert readings[0][3] == -23.5 and abs(readings[1][3] - (-23.9)) < 1e-5  # a float32 value
         assert "carry only an alias no birth certificate has named yet" in reasons[0]
         assert "ends inside a field" in reasons[1] and "no Sparkplug metric named 'Air'" in reasons[2]
         metrics = w.get("/metrics")[1].decode()
