@@ -117,8 +117,9 @@ class Monitor:
                 self.alerts.evaluate(self.by_source["model"], zid, obs, at, wall_ts, skip_idle=True)
             if checkpointed and runner.state is not None:
                 self._analyse(runner, lz, wall_ts, final)
-        self._mark(zid, "judged_ts", lz.judged_ts)
-        self._mark(zid, "model_judged_ts", lz.model_judged_ts)
+        if checkpointed:  # with the zone's checkpoint: a restart resumes judging from there
+            self._mark(zid, "judged_ts", lz.judged_ts)
+            self._mark(zid, "model_judged_ts", lz.model_judged_ts)
 
     def _mark(self, zone_id: str, name: str, value: float) -> None:
         if math.isfinite(value) and self._marks.get((zone_id, name)) != value:

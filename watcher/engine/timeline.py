@@ -41,10 +41,11 @@ def reading_observations(lz: Live, at_ts: float, max_gap_s: float) -> dict:
     """What the reading rules see at at_ts, from the readings applied so far."""
     fresh = [v for t, v in lz.air.values() if at_ts - t <= max_gap_s]
     values = fresh or [v for _, v in lz.air.values()]
+    switched = bool(lz.switches)  # most zones have no contacts: no need to look
     return {
         "air_c": sum(values) / len(values) if values else None,
-        "door_open_s": lz.on_for("door", at_ts),
-        "defrost_s": lz.on_for("defrost", at_ts),
+        "door_open_s": lz.on_for("door", at_ts) if switched else None,
+        "defrost_s": lz.on_for("defrost", at_ts) if switched else None,
         "sensor_spread_k": max(fresh) - min(fresh) if len(fresh) >= 2 else None,
     }
 

@@ -50,6 +50,8 @@ def load_json(payload: bytes):
         raise BadJson("JSON nested too deeply") from None
     except ValueError as exc:
         raise BadJson(f"invalid JSON ({str(exc)[:60]})") from None
+    if "\\u" not in text:  # a lone surrogate can only come from a \u escape (the text was valid UTF-8)
+        return doc
     try:
         json.dumps(doc, ensure_ascii=False).encode("utf-8")
     except UnicodeEncodeError:

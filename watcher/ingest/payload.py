@@ -142,21 +142,20 @@ class Raw(NamedTuple):
     ignored: int = 0
 
 
-@dataclass(frozen=True)
-class Inbound:
-    """One message as a payload format sees it."""
+class Inbound(NamedTuple):
+    """One message as a payload format sees it (a tuple: one is made per message)."""
 
     payload: bytes
     received_ts: float
     topic: str = ""
     aliases: object = None  # sparkplug.AliasBook of the births seen, for Sparkplug sources
 
-    @property
-    def text(self) -> str:
-        try:
-            return self.payload.decode("utf-8")
-        except UnicodeDecodeError:
-            raise Rejected("payload is not UTF-8") from None
+
+def _utf8(m: Inbound) -> str:
+    try:
+        return m.payload.decode("utf-8")
+    except UnicodeDecodeError:
+        raise Rejected("payload is not UTF-8") from None
 
 
 @dataclass(frozen=True)
@@ -170,7 +169,7 @@ class PayloadFormat:
 
 
 def _read_number(source: Source, m: Inbound) -> Raw:
-    text = m.text
+    text = _utf8(m)
     try:
         raw = float(text.strip())
     except ValueError:
@@ -183,7 +182,7 @@ def _read_number(source: Source, m: Inbound) -> Raw:
 def _read_text(source: Source, m: Inbound) -> Raw:
     """A bare payload: a number, or for a door or defrost a state word (open/closed, on/off,
     true/false, 1/0, any case). What it is not is said by the value's own check."""
-    word = m.text.strip()
+    word = _utf8(m).strip()
     try:
         return Raw(float(word), source.unit, None)
     except ValueError:
@@ -193,8 +192,7 @@ def _read_text(source: Source, m: Inbound) -> Raw:
 
 
 def _json(m: Inbound):
-    m.text  # noqa: B018 (the UTF-8 check, with its reason)
-    try:
+    try:  # load_json says "payload is not UTF-8" itself
         return load_json(m.payload)
     except BadJson as exc:
         raise Rejected(str(exc)) from None
