@@ -111,7 +111,8 @@ def test_sparkplug_birth_then_data_by_alias_and_bad_payloads_rejected(tmp_path, 
     """Data naming the metric only by alias before any birth is refused saying so; then a
     DBIRTH names the aliases and the next DDATA by alias is stored with its own timestamp; a
     truncated payload and a data message without the metric become rejections with reasons.
-    The service subscribes to the births itself (from the source's data topic)."""
+    The service subscribes to the births itself (from the source's data topic), and keeps
+    what they said across a restart."""
     from tests import sparkplug_encode as enc
 
     config = write_config(tmp_path, broker, zones=("bulk-a",), extra=SPARKPLUG, reorder_s=0.0)
@@ -154,6 +155,13 @@ def test_sparkplug_birth_then_data_by_alias_and_bad_payloads_rejected(tmp_path, 
         assert "ends inside a field" in reasons[1] and "no Sparkplug metric named 'Air'" in reasons[2]
         metrics = w.get("/metrics")[1].decode()
         assert 'watcher_readings_total{result="sparkplug_birth"} 1.0' in metrics
+        assert w.stop() == 0
+        # After a restart, with no new birth, alias-only data are still read (the aliases were kept).
+        w = WatcherProcess(config)
+        w.wait_ready()
+        pub.send([(data_topic, enc.payload([enc.metric(alias=7, value=-23.0)], timestamp_ms=now_ms + 240_000))])
+        readings, _ = stored(tmp_path / "watcher.db", 3, 3)
+        assert readings[-1][2:] == (now_ms / 1000 + 240, -23.0)
         assert w.stop() == 0
     finally:
         pub.close()

@@ -234,7 +234,9 @@ def test_sparkplug_data_by_name_by_alias_and_typed_values():
     birth = enc.payload(
         [enc.metric("Air", alias=3, value=-25.0), enc.metric("Door", alias=4, value=False, kind="boolean")]
     )
-    assert book.learn("spBv1.0/kestrel/DBIRTH/bulk-a/probe7", decode(birth)) == 2
+    learnt = book.learn("spBv1.0/kestrel/DBIRTH/bulk-a/probe7", decode(birth))
+    assert learnt == ("kestrel/bulk-a/probe7", {3: "Air", 4: "Door"})
+    assert AliasBook({learnt[0]: learnt[1]}).name_of(topic, 4) == "Door"  # as reloaded from the store
     by_alias = enc.payload([enc.metric(alias=3, value=-19, kind="int32")], timestamp_ms=1_795_000_120_000)
     r = parse_message(
         spb_src("Air"), {"zone": "bulk-a", "sensor": "probe7"}, by_alias, NOW, DEFAULT_LIMITS, topic, book

@@ -26,9 +26,10 @@ def verdict(config: Config, msg: Message, aliases=None) -> tuple[str, Reading | 
         return "command", None, "an acknowledgement or lot event: the running service acts on it"
     if is_birth(config, msg.topic):
         try:
-            n = aliases.learn(msg.topic, sparkplug.decode(msg.payload)) if aliases is not None else 0
+            learnt = aliases.learn(msg.topic, sparkplug.decode(msg.payload)) if aliases is not None else None
         except Rejected as exc:
             return "refused", None, f"Sparkplug birth: {exc}"
+        n = len(learnt[1]) if learnt else 0
         return "birth", None, f"a Sparkplug birth certificate naming {n} aliased metric(s)"
     try:
         return "reading", reading_of(config, msg, lambda zone: config.zone(zone) is not None, aliases), ""

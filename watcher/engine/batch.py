@@ -90,9 +90,8 @@ class Engine:
         self.monitor = self._monitor()
         self.held_count = store.record.count("held")
         self.limiter = RejectionLimiter(config.ingest.rejections_per_topic_per_min)
-        # Sparkplug aliases from the births seen since start (not in the record: an edge node
-        # sends its births again when it reconnects, or on a rebirth request).
-        self.aliases = sparkplug.AliasBook()
+        # Sparkplug aliases as the last births said (kept in the store with the batch).
+        self.aliases = sparkplug.AliasBook(store.aliases.all())
         self.birth_filters = birth_filters(config)
 
     def _monitor(self) -> Monitor:
@@ -193,13 +192,14 @@ class Engine:
             _inject(messages)
         result = BatchResult()
         parsed: list[tuple[Reading | str | tuple | None, Message]] = []
+        births: list[tuple[str, dict[int, str]]] = []
         for msg in messages:
             if is_command(self.config, msg.topic):
                 parsed.append((None, msg))
                 continue
             if self.birth_filters and is_birth(self.config, msg.topic, self.birth_filters):
                 try:
-                    self.aliases.learn(msg.topic, sparkplug.decode(msg.payload))
+                    births.append(self.aliases.learn(msg.topic, sparkplug.decode(msg.payload)))
                     result.counts["sparkplug_birth"] += 1
                 except Rejected as exc:
                     parsed.append((f"Sparkplug birth: {exc}", msg))
@@ -225,6 +225,8 @@ class Engine:
         touched: set[str] = set()
         excess: dict[str, Excess] = {}
         with self._transaction(touched):
+            for key, names in births:  # kept, so alias-only data are read after a restart
+                self.store.aliases.replace(key, names)
             for item, msg in parsed:
                 if item is None:
                     self._command(msg, result, excess)

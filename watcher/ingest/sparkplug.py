@@ -155,20 +155,23 @@ class AliasBook:
     """Which alias stands for which metric name, per (group, edge node, device), from births.
     A device's data may also use its node's aliases."""
 
-    def __init__(self) -> None:
+    def __init__(self, known: dict[str, dict[int, str]] | None = None) -> None:
+        """known: what earlier births said, by key ("group/edge[/device]", as `learn` returns)."""
         self._names: dict[tuple, dict[int, str]] = {}
+        for key, names in (known or {}).items():
+            group, edge, *device = key.split("/")
+            self._names[(group, edge, device[0] if device else None)] = dict(names)
 
-    def learn(self, topic: str, payload: Payload) -> int:
+    def learn(self, topic: str, payload: Payload) -> tuple[str, dict[int, str]] | None:
+        """Take a birth's aliases (they replace what the last birth of that node or device
+        said); returns (key, {alias: name}) to keep, None for a topic that is no birth."""
         parts = topic_parts(topic)
         if parts is None or parts[1] not in BIRTHS:
-            return 0
+            return None
         group, _, edge, device = parts
-        book = self._names.setdefault((group, edge, device), {})
-        book.clear()  # a new birth replaces what the last one said
-        for m in payload.metrics:
-            if m.name is not None and m.alias is not None:
-                book[m.alias] = m.name
-        return len(book)
+        book = {m.alias: m.name for m in payload.metrics if m.name is not None and m.alias is not None}
+        self._names[(group, edge, device)] = book
+        return "/".join(x for x in (group, edge, device) if x is not None), dict(book)
 
     def name_of(self, topic: str, alias: int) -> str | None:
         parts = topic_parts(topic)

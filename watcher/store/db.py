@@ -22,6 +22,7 @@ import sqlite_utils
 from watcher.errors import StoreError
 from watcher.store import chain
 from watcher.store.alerts import Alerts, Commands, Events
+from watcher.store.aliases import Aliases
 from watcher.store.lots import Lots
 from watcher.store.outbox import Outbox
 from watcher.store.readings import Held, Readings, Rejections
@@ -91,6 +92,7 @@ class Store:
         self.zones, self.gaps, self.snapshots, self.daily = Zones(conn), Gaps(conn), Snapshots(conn), Daily(conn)
         self.events, self.alerts, self.commands = Events(conn), Alerts(conn), Commands(conn)
         self.outbox, self.lots, self.reports, self.record = Outbox(conn), Lots(conn), Reports(conn), Record(conn)
+        self.aliases = Aliases(conn)
 
     def close(self) -> None:
         self.conn.close()

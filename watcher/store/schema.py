@@ -277,3 +277,13 @@ def m011_outbox_level(db: sqlite_utils.Database) -> None:
     """How urgent each message is (info, success, warning, failure): channels that show it
     (webhook `type`, chat colours) no longer say `info` for a warning."""
     db.execute("ALTER TABLE outbox ADD COLUMN level TEXT NOT NULL DEFAULT 'info'")
+
+
+@migrations()
+def m012_sparkplug_aliases(db: sqlite_utils.Database) -> None:
+    """Which Sparkplug alias stands for which metric name, as each edge node's and device's last
+    birth said: kept so that alias-only data are read after a restart."""
+    db.execute(
+        "CREATE TABLE sparkplug_aliases (source TEXT NOT NULL, alias INTEGER NOT NULL, name TEXT NOT NULL, "
+        "PRIMARY KEY (source, alias))"
+    )
