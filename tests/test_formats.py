@@ -40,6 +40,13 @@ def stored(db, n_readings: int, n_rejections: int) -> tuple[list, list]:
     return read()
 
 
+def series(end_ts: float) -> bytes:
+    """A gateway's buffered series: three air records a minute apart, relative to bt, and one other."""
+    records = [{"bn": "urn:dev:mac:0024befffe804ff1:", "bt": end_ts, "bu": "Cel", "n": "air", "v": -24.1, "t": -120}]
+    records += [{"n": "air", "v": -24.2, "t": -60}, {"n": "air", "v": -24.3}, {"n": "rh", "u": "%RH", "v": 80}]
+    return json.dumps(records).encode()
+
+
 def pack(ts: float, air=-24.5, unit="Cel") -> bytes:
     return json.dumps(
         [
@@ -64,6 +71,7 @@ def test_text_doors_and_senml_packs_are_stored_and_bad_variants_rejected_with_re
                 ("kp/bulk-a/d1/contact", b"OPEN"),
                 ("kp/bulk-a/gw/senml", pack(now)),
                 ("kp/bulk-a/gw/senml", pack(now + 60, air=249.15, unit="K")),
+                ("kp/bulk-a/gw/senml", series(now + 110)),
                 ("kp/bulk-a/d1/contact", b"closed\n"),
                 # bad variants
                 ("kp/bulk-a/d1/contact", b"ajar"),
@@ -73,11 +81,13 @@ def test_text_doors_and_senml_packs_are_stored_and_bad_variants_rejected_with_re
                 ("kp/bulk-a/gw/senml", b"[{oops"),
             ]
         )
-        readings, reasons = stored(tmp_path / "watcher.db", 4, 5)
+        readings, reasons = stored(tmp_path / "watcher.db", 7, 5)
         readings = sorted(readings, key=lambda r: (r[1], r[2]))
         air = [r for r in readings if r[1] == "air_c"]
-        assert [(r[0], r[2]) for r in air] == [("gw-air", now), ("gw-air", now + 60)]
-        assert air[0][3] == -24.5 and abs(air[1][3] - (-24.0)) < 1e-9  # 249.15 K
+        by_time = {round(r[2] - now): r[3] for r in air}
+        assert {r[0] for r in air} == {"gw-air"} and set(by_time) == {-10, 0, 50, 60, 110}
+        assert by_time[0] == -24.5 and abs(by_time[60] - (-24.0)) < 1e-9  # 249.15 K
+        assert [by_time[t] for t in (-10, 50, 110)] == [-24.1, -24.2, -24.3]  # a series pack: a reading per record
         assert [r[3] for r in readings if r[1] == "door"] == [1.0, 0.0]
         expected = [
             "state 'ajar' is not open/closed",
@@ -89,7 +99,7 @@ def test_text_doors_and_senml_packs_are_stored_and_bad_variants_rejected_with_re
         for want, got in zip(expected, reasons):
             assert want in got, (want, got)
         metrics = w.get("/metrics")[1].decode()
-        assert 'watcher_readings_total{result="records_ignored"} 4.0' in metrics  # coil and fan, twice
+        assert 'watcher_readings_total{result="records_ignored"} 5.0' in metrics  # coil and fan twice, rh once
         assert w.proc.poll() is None
         assert w.stop() == 0
     finally:

@@ -9,7 +9,7 @@ import os
 from collections.abc import Callable
 
 from watcher.config import Config
-from watcher.engine.route import is_birth, is_command, reading_of, topic_filters
+from watcher.engine.route import is_birth, is_command, readings_of, topic_filters
 from watcher.ingest import sparkplug
 from watcher.ingest.message import Message
 from watcher.ingest.mqtt import peek
@@ -19,24 +19,26 @@ SIGNAL_WORDS = {"air_c": "air", "product_c": "product probe", "door": "door", "d
 SWITCH_WORDS = {"door": ("closed", "open"), "defrost": ("off", "on")}
 
 
-def verdict(config: Config, msg: Message, aliases=None) -> tuple[str, Reading | None, str]:
-    """("reading", reading, "") | ("held" | "refused" | "command" | "birth", None, why) for one
-    message; a Sparkplug birth teaches `aliases` its metric names."""
+def verdict(config: Config, msg: Message, aliases=None) -> list[tuple[str, Reading | None, str]]:
+    """For one message: ("reading", reading, "") for each reading it becomes, or one
+    ("held" | "refused" | "command" | "birth", None, why); a Sparkplug birth teaches `aliases`
+    its metric names."""
     if is_command(config, msg.topic):
-        return "command", None, "an acknowledgement or lot event: the running service acts on it"
+        return [("command", None, "an acknowledgement or lot event: the running service acts on it")]
     if is_birth(config, msg.topic):
         try:
             learnt = aliases.learn(msg.topic, sparkplug.decode(msg.payload)) if aliases is not None else None
         except Rejected as exc:
-            return "refused", None, f"Sparkplug birth: {exc}"
+            return [("refused", None, f"Sparkplug birth: {exc}")]
         n = len(learnt[1]) if learnt else 0
-        return "birth", None, f"a Sparkplug birth certificate naming {n} aliased metric(s)"
+        return [("birth", None, f"a Sparkplug birth certificate naming {n} aliased metric(s)")]
     try:
-        return "reading", reading_of(config, msg, lambda zone: config.zone(zone) is not None, aliases), ""
+        readings = readings_of(config, msg, lambda zone: config.zone(zone) is not None, aliases)
     except OutOfClock as exc:
-        return "held", None, f"{exc} (the service would hold it until the clocks agree)"
+        return [("held", None, f"{exc} (the service would hold it until the clocks agree)")]
     except Rejected as exc:
-        return "refused", None, str(exc)
+        return [("refused", None, str(exc))]
+    return [("reading", r, "") for r in readings]
 
 
 def listen(
@@ -49,7 +51,8 @@ def listen(
 
     def handle(topic: str, payload: bytes, received_ts: float, retain: bool) -> None:
         msg = Message(topic, payload, received_ts, retain=retain)
-        show(msg, *verdict(config, msg, aliases))
+        for kind, reading, why in verdict(config, msg, aliases):
+            show(msg, kind, reading, why)
 
     client_id = f"{config.broker.client_id}-listen-{os.getpid()}"
     return peek(config.broker, topic_filters(config), seconds, handle, client_id, on_ready)

@@ -20,7 +20,7 @@ from watcher.config import Config
 from watcher.engine.lots import parse_payload, record_event
 from watcher.engine.monitor import Monitor
 from watcher.engine.rejects import Excess, RejectionLimiter
-from watcher.engine.route import birth_filters, is_birth, is_command, reading_of
+from watcher.engine.route import birth_filters, is_birth, is_command, readings_of
 from watcher.engine.zones import ZoneRunner, spec_key
 from watcher.errors import InputError
 from watcher.ingest import sparkplug
@@ -171,18 +171,19 @@ class Engine:
         return runner
 
     # --- routing -------------------------------------------------------------------------
-    def parse(self, msg: Message) -> Reading:
-        reading = reading_of(self.config, msg, self.runners.__contains__, self.aliases)
-        runner = self.runners[reading.zone]
-        if reading.sensor not in runner.sensor_names:
+    def parse(self, msg: Message) -> list[Reading]:
+        readings = readings_of(self.config, msg, self.runners.__contains__, self.aliases)
+        first = readings[0]  # one source, one topic: one zone and sensor
+        runner = self.runners[first.zone]
+        if first.sensor not in runner.sensor_names:
             cap = self.config.ingest.max_sensors_per_zone
             if len(runner.sensor_names) >= cap:
                 raise Rejected(
-                    f"sensor {reading.sensor[:64]!r}: zone {reading.zone} already has {cap} sensors "
+                    f"sensor {first.sensor[:64]!r}: zone {first.zone} already has {cap} sensors "
                     "(ingest.max_sensors_per_zone; raise it if these sensors are real)"
                 )
-            runner.sensor_names.add(reading.sensor)
-        return reading
+            runner.sensor_names.add(first.sensor)
+        return readings
 
     # --- the batch -----------------------------------------------------------------------
     def process(self, messages: list[Message], now: float | None = None) -> BatchResult:
@@ -191,7 +192,7 @@ class Engine:
         if _RAISE_ON or _CRASH_ON:
             _inject(messages)
         result = BatchResult()
-        parsed: list[tuple[Reading | str | tuple | None, Message]] = []
+        parsed: list[tuple[list[Reading] | str | tuple | None, Message]] = []
         births: list[tuple[str, dict[int, str]]] = []
         for msg in messages:
             if is_command(self.config, msg.topic):
@@ -236,7 +237,7 @@ class Engine:
                     self.store.held.add(msg.received_ts, msg.topic, msg.payload, item[1])
             for topic, ex in excess.items():
                 self.store.rejections.add(ex.first_ts, topic, self.limiter.summary(ex), ex.payload, n=ex.n)
-            good = [(item, msg.received_ts, msg.topic) for item, msg in parsed if isinstance(item, Reading)]
+            good = [(r, msg.received_ts, msg.topic) for item, msg in parsed if isinstance(item, list) for r in item]
             ignored = sum(item.ignored for item, _, _ in good)
             if ignored:  # a SenML pack's other records: not taken, and counted
                 result.counts["records_ignored"] += ignored

@@ -7,12 +7,13 @@ from collections.abc import Callable
 
 from watcher.config import Config
 from watcher.ingest.message import Message
-from watcher.ingest.payload import Reading, Rejected, parse_message
+from watcher.ingest.payload import Reading, Rejected, parse_readings
 
 
-def reading_of(config: Config, msg: Message, known_zone: Callable[[str], bool], aliases=None) -> Reading:
-    """The reading a message becomes, or Rejected with the reason (OutOfClock, a Rejected, when
-    its time disagrees with the receive time). aliases: the Sparkplug births seen so far."""
+def readings_of(config: Config, msg: Message, known_zone: Callable[[str], bool], aliases=None) -> list[Reading]:
+    """The readings a message becomes (one, or a series), or Rejected with the reason
+    (OutOfClock, a Rejected, when a time disagrees with the receive time). aliases: the
+    Sparkplug births seen so far."""
     for source in config.sources:
         names = source.pattern.match(msg.topic)
         if names is None:
@@ -22,10 +23,11 @@ def reading_of(config: Config, msg: Message, known_zone: Callable[[str], bool], 
                 "retained message on a source stamped with the receive time: it is replayed at every "
                 "reconnect and would make a dead sensor look alive (publish without retain, or add a time field)"
             )
-        reading = parse_message(source, names, msg.payload, msg.received_ts, config.ingest.limits, msg.topic, aliases)
-        if not known_zone(reading.zone):
-            raise Rejected(f"unknown zone {reading.zone[:64]!r}")
-        return reading
+        readings = parse_readings(source, names, msg.payload, msg.received_ts, config.ingest.limits, msg.topic, aliases)
+        zone = readings[0].zone  # one source, one topic: one zone
+        if not known_zone(zone):
+            raise Rejected(f"unknown zone {zone[:64]!r}")
+        return readings
     raise Rejected("no source pattern matches the topic")
 
 

@@ -17,7 +17,17 @@ from watcher.errors import OutOfClock, Rejected
 from watcher.ingest import senml, sparkplug
 from watcher.ingest.jsondoc import BadJson, load_json
 
-__all__ = ["FORMATS", "OutOfClock", "PayloadFormat", "Reading", "Rejected", "Source", "Limits", "parse_message"]
+__all__ = [
+    "FORMATS",
+    "OutOfClock",
+    "PayloadFormat",
+    "Reading",
+    "Rejected",
+    "Source",
+    "Limits",
+    "parse_message",
+    "parse_readings",
+]
 
 SIGNALS = ("air_c", "product_c", "door", "defrost")
 TEMPERATURE_SIGNALS = ("air_c", "product_c")
@@ -160,10 +170,11 @@ def _utf8(m: Inbound) -> str:
 
 @dataclass(frozen=True)
 class PayloadFormat:
-    """One way a payload carries its value: read(source, inbound) gives a Raw, or raises Rejected."""
+    """One way a payload carries its value: read(source, inbound) gives a Raw (or a list of
+    them, a series), or raises Rejected."""
 
     name: str
-    read: Callable[[Source, Inbound], Raw]
+    read: Callable[[Source, Inbound], Raw | list[Raw]]
     fields: bool  # the payload has named fields (value, unit and time paths apply)
     describe: Callable[[Source], str]  # for `watcher check-config`
 
@@ -205,16 +216,19 @@ def _read_json(source: Source, m: Inbound) -> Raw:
     return Raw(_dig(doc, source.value_path, "value"), unit, ts)
 
 
-def _read_senml(source: Source, m: Inbound) -> Raw:
-    value, unit, ts, ignored = senml.record(
+def _read_senml(source: Source, m: Inbound) -> list[Raw]:
+    found, ignored = senml.records(
         _json(m), ".".join(source.value_path), source.signal in TEMPERATURE_SIGNALS, m.received_ts
     )
-    return Raw(value, source.unit if unit is None else unit, ts, ignored)
+    return [
+        Raw(value, source.unit if unit is None else unit, ts, ignored if i == 0 else 0)
+        for i, (value, unit, ts) in enumerate(found)
+    ]
 
 
-def _read_sparkplug(source: Source, m: Inbound) -> Raw:
-    value, ts, ignored = sparkplug.record(sparkplug.decode(m.payload), ".".join(source.value_path), m.topic, m.aliases)
-    return Raw(value, source.unit, ts, ignored)
+def _read_sparkplug(source: Source, m: Inbound) -> list[Raw]:
+    found, ignored = sparkplug.records(sparkplug.decode(m.payload), ".".join(source.value_path), m.topic, m.aliases)
+    return [Raw(value, source.unit, ts, ignored if i == 0 else 0) for i, (value, ts) in enumerate(found)]
 
 
 FORMATS = {
@@ -234,7 +248,7 @@ FORMATS = {
 }
 
 
-def parse_message(
+def parse_readings(
     source: Source,
     names: dict[str, str],
     payload: bytes,
@@ -242,13 +256,28 @@ def parse_message(
     limits: Limits,
     topic: str = "",
     aliases=None,
-) -> Reading:
-    """One reading from one message, or Rejected with the reason (topic and aliases: for
-    Sparkplug sources, whose data may name metrics by the aliases their births gave)."""
+) -> list[Reading]:
+    """The readings of one message (one, or a series of one SenML record or Sparkplug metric),
+    or Rejected with the reason: one bad value refuses the whole message, which is kept whole
+    as the rejection. topic and aliases: for Sparkplug sources, whose data may name metrics by
+    the aliases their births gave."""
     if len(payload) > limits.max_payload_bytes:
         raise Rejected(f"payload of {len(payload)} bytes exceeds {limits.max_payload_bytes}")
-    inbound = Inbound(payload, received_ts, topic, aliases)
-    value_raw, unit, ts, ignored = FORMATS[source.fmt].read(source, inbound)
+    raws = FORMATS[source.fmt].read(source, Inbound(payload, received_ts, topic, aliases))
+    return [_reading(source, names, raw, received_ts, limits) for raw in ([raws] if isinstance(raws, Raw) else raws)]
+
+
+def parse_message(*args, **kwargs) -> Reading:
+    """The one reading of a message that carries one (parse_readings' arguments; Rejected
+    when it carries a series)."""
+    readings = parse_readings(*args, **kwargs)
+    if len(readings) != 1:
+        raise Rejected(f"{len(readings)} readings in one message where one was expected")
+    return readings[0]
+
+
+def _reading(source: Source, names: dict[str, str], raw: Raw, received_ts: float, limits: Limits) -> Reading:
+    value_raw, unit, ts, ignored = raw
     ts = received_ts if ts is None else ts
     if source.signal in TEMPERATURE_SIGNALS:
         value = _to_celsius(_number(value_raw, "value"), unit)

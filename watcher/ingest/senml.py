@@ -64,25 +64,24 @@ def resolve(pack) -> list[dict]:
     return out
 
 
-def record(pack, name: str, temperature: bool, received_ts: float) -> tuple[object, str | None, float, int]:
-    """(value, unit or None, time, records ignored) of the one record called `name` in the pack.
+def records(pack, name: str, temperature: bool, received_ts: float) -> tuple[list[tuple], int]:
+    """([(value, unit or None, time)] of every record called `name` in the pack (one, or a
+    series), records of other names ignored).
 
-    temperature: the value must be a number in a SenML temperature unit (or none, when the
-    source's configured unit applies). Any other record is ignored and counted."""
-    records = [r for r in resolve(pack) if r["value"] is not None]
-    mine = [r for r in records if r["name"] == name]
+    temperature: each value must be a number in a SenML temperature unit (or none, when the
+    source's configured unit applies)."""
+    valued = [r for r in resolve(pack) if r["value"] is not None]
+    mine = [r for r in valued if r["name"] == name]
     if not mine:
-        names = sorted({r["name"] for r in records})[:5]
+        names = sorted({r["name"] for r in valued})[:5]
         raise Rejected(f"no SenML record named {name!r} (the pack has {', '.join(map(repr, names)) or 'no values'})")
-    if len(mine) > 1:
-        raise Rejected(f"{len(mine)} SenML records named {name!r} in one pack; one per pack is taken")
-    rec = mine[0]
-    unit = rec["unit"]
-    if temperature:
-        if unit is not None and unit not in TEMPERATURE_UNITS:
-            raise Rejected(f"SenML record {name!r}: unit {unit!r} is not a temperature unit (Cel or K)")
-        unit = None if unit is None else TEMPERATURE_UNITS[unit]
-    ts = rec["time"]
-    if ts < RELATIVE_BELOW:
-        ts = received_ts + ts
-    return rec["value"], unit, ts, len(records) - 1
+    out = []
+    for rec in mine:
+        unit = rec["unit"]
+        if temperature:
+            if unit is not None and unit not in TEMPERATURE_UNITS:
+                raise Rejected(f"SenML record {name!r}: unit {unit!r} is not a temperature unit (Cel or K)")
+            unit = None if unit is None else TEMPERATURE_UNITS[unit]
+        ts = rec["time"]
+        out.append((rec["value"], unit, received_ts + ts if ts < RELATIVE_BELOW else ts))
+    return out, len(valued) - len(mine)

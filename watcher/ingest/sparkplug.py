@@ -185,8 +185,9 @@ class AliasBook:
         return None
 
 
-def record(payload: Payload, name: str, topic: str, aliases: AliasBook | None) -> tuple[object, float | None, int]:
-    """(value, time in epoch seconds or None, metrics ignored) of the metric called `name`."""
+def records(payload: Payload, name: str, topic: str, aliases: AliasBook | None) -> tuple[list[tuple], int]:
+    """([(value, time in epoch seconds or None)] of every metric called `name` (one, or a
+    series of historical values), metrics of other names ignored)."""
 
     def resolved(m: Metric) -> str | None:
         if m.name is not None:
@@ -204,8 +205,8 @@ def record(payload: Payload, name: str, topic: str, aliases: AliasBook | None) -
             else ""
         )
         raise Rejected(f"no Sparkplug metric named {name!r}{hint}")
-    if len(mine) > 1:
-        raise Rejected(f"{len(mine)} Sparkplug metrics named {name!r} in one payload; one per payload is taken")
-    m = mine[0]
-    stamp_ms = m.timestamp_ms if m.timestamp_ms is not None else payload.timestamp_ms
-    return value_of(m), None if stamp_ms is None else stamp_ms / 1000.0, len(payload.metrics) - 1
+    out = []
+    for m in mine:
+        stamp_ms = m.timestamp_ms if m.timestamp_ms is not None else payload.timestamp_ms
+        out.append((value_of(m), None if stamp_ms is None else stamp_ms / 1000.0))
+    return out, len(payload.metrics) - len(mine)
