@@ -292,7 +292,14 @@ def import_cmd(config_path, export_path, mapping, time_format) -> None:
 
 
 @main.command()
-@click.option("--out", "out_path", default="watcher.toml", show_default=True, type=click.Path(dir_okay=False))
+@click.option(
+    "--out",
+    "out_path",
+    default="watcher.toml",
+    show_default=True,
+    type=click.Path(dir_okay=False),
+    help="The configuration file to write (its secrets go in secrets/ beside it).",
+)
 @click.option("--site-id", default=None, help="A short id: letters, digits, '-' and '_'.")
 @click.option("--site-name", default=None, help="The site's name in messages and summaries.")
 @click.option("--timezone", default=None, help="IANA time zone, e.g. Europe/London.")
@@ -302,7 +309,13 @@ def import_cmd(config_path, export_path, mapping, time_format) -> None:
 @click.option(
     "--air-topic", default=None, help="Topic pattern of the air readings (default {site}/{zone}/{sensor}/air)."
 )
-@click.option("--format", "air_format", type=click.Choice(["json", "number", "text"]), default=None)
+@click.option(
+    "--format",
+    "air_format",
+    type=click.Choice(["json", "number", "text"]),
+    default=None,
+    help='How the air payloads are written (default json: {"temp": -24.6, "ts": ...}).',
+)
 @click.option("--door-topic", default=None, help="Topic pattern of door contacts publishing open/closed (optional).")
 @click.option(
     "--channel", "channels", multiple=True, help="A notification channel's name (repeat); its URL goes in a file."
