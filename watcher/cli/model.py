@@ -160,7 +160,7 @@ def profile_show(name, as_json) -> None:
     "--life-spread",
     type=float,
     default=None,
-    help="With --life: the 90 %% range factor of the rate (default: the base profile's).",
+    help="With --life: the 90 % range factor of the rate (default: the base profile's).",
 )
 @click.option("--limit-um", type=float, default=None, help="Texture limit on the trial's own measurement scale.")
 @click.option("--limit-ratio", type=float, default=None, help="Texture limit as a multiple of the trial's day-0 size.")
