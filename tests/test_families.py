@@ -7,7 +7,10 @@ practice of the trade, no source. Every family's declared life is the dairy anch
 (no published life of the family was found); the checks below say where that matters.
 """
 
+import json
 import math
+import subprocess
+import sys
 
 import numpy as np
 import pytest
@@ -118,3 +121,33 @@ def test_a_mix_without_a_known_carbohydrate_is_refused_by_name():
         tg_prime_c(Mix(90.0, 0.0, (("lactic-acid", 1.0),)))
     assert "mix" in str(err.value) and "sucrose" in str(err.value)
     assert math.isfinite(tg_prime_c(Mix(90.0, 0.0, (("sucrose", 10.0),))))
+
+
+def _watcher(*args):
+    return subprocess.run([sys.executable, "-m", "watcher", *args], capture_output=True, text=True, timeout=120)
+
+
+def test_profile_mix_gives_an_operators_recipe_its_curve_and_a_profile_that_keeps_the_declared_life(tmp_path):
+    """`watcher profile mix` (a real process) on the plant-based family's mix prints the family's
+    own curve and Tg'; with --out on a base anchored to a declared life it writes a profile that
+    keeps that life at -18 C and carries the new curve. Bad input: exit 2, naming the part."""
+    mix = FAMILY_MIXES["plant-based-dessert"]
+    solutes = [a for name, pct in mix.solutes_pct for a in ("--solute", f"{name}={pct:g}")]
+    out = tmp_path / "our-oat-dessert.toml"
+    done = _watcher("profile", "mix", "--water", "64.4", *solutes, "--base", "gelato", "--out", str(out), "--json")
+    assert done.returncode == 0, done.stderr
+    fam = load_profile("plant-based-dessert")
+    got = json.loads(done.stdout)
+    assert got["ice"]["initial_freezing_point_c"] == pytest.approx(fam.ice.initial_freezing_point_c, abs=0.005)
+    assert got["ice"]["bound_water_fraction"] == pytest.approx(fam.ice.bound_water_fraction, abs=5e-4)
+    assert got["tg_prime_c"] == pytest.approx(fam.kinetics.tg_prime_c, abs=0.05)
+    mine = load_profile(str(out))
+    assert mine.name == "our-oat-dessert" and mine.ice.initial_freezing_point_c == pytest.approx(-2.24)
+    assert mine.life == load_profile("gelato").life
+    assert days_to_limit_at(mine, -18.0) == pytest.approx(182.6, rel=0.02)
+    text = _watcher("profile", "mix", "--water", "64.4", *solutes)
+    assert text.returncode == 0 and "initial freezing point -2.24 C" in text.stdout and "Tg' -29.9 C" in text.stdout
+    bad = _watcher("profile", "mix", "--water", "64.4", "--solute", "honey=10")
+    assert bad.returncode == 2 and "--solute honey" in bad.stderr and "sucrose" in bad.stderr
+    over = _watcher("profile", "mix", "--water", "90", "--solute", "sucrose=20")
+    assert over.returncode == 2 and "110" in over.stderr and "Traceback" not in over.stderr

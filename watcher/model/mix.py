@@ -107,7 +107,7 @@ def freezing_temp_c(mix: Mix, frozen_share):
 
 def frozen_share_at(mix: Mix, temp_c):
     """Share of the mix's water frozen at temp_c (0 above the initial freezing point)."""
-    shares = np.linspace(0.0, 0.97, 971)
+    shares = 1.0 - np.geomspace(1.0, 1e-4, 4000)
     temps = freezing_temp_c(mix, shares)
     return np.interp(-np.asarray(temp_c, dtype=float), -temps, shares, left=0.0)
 
@@ -126,7 +126,9 @@ def fit_ice_curve(mix: Mix, lo_c: float = -30.0, hi_c: float = -5.0) -> FittedCu
     is the method's initial freezing point; x_b is the least-squares fit (closed form)."""
     x_wo = mix.water_pct / 100.0
     t_f = float(freezing_temp_c(mix, 0.0))
-    temps = np.linspace(lo_c, hi_c, 101)
+    if t_f - 1.0 <= lo_c:
+        raise ProfileError("mix", round(t_f, 2), f"an initial freezing point above {lo_c + 1.0:g} C (too much solute)")
+    temps = np.linspace(lo_c, min(hi_c, t_f - 1.0), 101)
     ice = x_wo * frozen_share_at(mix, temps)
     g = 1.0 - t_f / temps
     freezable = float(np.sum(g * ice) / np.sum(g * g))
@@ -140,6 +142,32 @@ def tg_prime_c(mix: Mix) -> float:
     total = sum(pct for _, pct in pairs)
     if total <= 0:
         raise ProfileError(
-            "mix", dict(mix.parts()), "at least one carbohydrate of known Tg' (" + ", ".join(SOLUTES) + ")"
+            "mix",
+            dict(mix.parts()),
+            "at least one carbohydrate of known Tg' ("
+            + ", ".join(n for n, sol in SOLUTES.items() if sol.tg_prime_c is not None)
+            + ")",
         )
     return float(sum(tg * pct for tg, pct in pairs) / total)
+
+
+def parse_mix(water_pct: float, msnf_pct: float, solutes: dict[str, float], prefix: str = "") -> Mix:
+    """A validated Mix; errors name the part (after prefix, e.g. "--" for options), the value
+    and what was expected."""
+    if not 0.0 < water_pct <= 100.0:
+        raise ProfileError(f"{prefix}water", water_pct, "g water per 100 g of mix, above 0 and at most 100")
+    if not 0.0 <= msnf_pct < 100.0:
+        raise ProfileError(f"{prefix}msnf", msnf_pct, "g milk solids-not-fat per 100 g of mix, 0 or more")
+    for name, pct in solutes.items():
+        if name not in SOLUTES:
+            raise ProfileError(f"{prefix}solute {name}", pct, "a solute of " + ", ".join(SOLUTES))
+        if not 0.0 <= pct < 100.0:
+            raise ProfileError(f"{prefix}solute {name}", pct, "g per 100 g of mix, 0 or more")
+    total = water_pct + msnf_pct + sum(solutes.values())
+    if total > 100.0 + 1e-9:
+        raise ProfileError(
+            f"{prefix}water + {prefix}msnf + {prefix}solute",
+            round(total, 3),
+            "water, milk solids and solutes adding up to at most 100 g per 100 g",
+        )
+    return Mix(float(water_pct), float(msnf_pct), tuple((n, float(p)) for n, p in solutes.items()))
