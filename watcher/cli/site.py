@@ -11,6 +11,7 @@ import click
 from watcher.alerts.metrics import temperature
 from watcher.cli.app import main
 from watcher.cli.common import config_option, db_options, fmt, self_command, site_tz, site_unit, stamp, table
+from watcher.errors import WatcherError
 from watcher.ingest.payload import FORMATS
 from watcher.ranges import figure_text
 
@@ -304,6 +305,12 @@ def import_cmd(config_path, export_path, mapping, time_format) -> None:
 @click.option("--site-name", default=None, help="The site's name in messages and summaries.")
 @click.option("--timezone", default=None, help="IANA time zone, e.g. Europe/London.")
 @click.option("--zone", "zones", multiple=True, help="ID:SETPOINT_C[:NAME], e.g. 'bulk-a:-25:Bulk store A' (repeat).")
+@click.option(
+    "--product",
+    default=None,
+    help="The product profile the zones hold: a shipped name (watcher profile list) or a TOML file "
+    "(default dairy-ice-cream).",
+)
 @click.option("--broker", default=None, help="HOST[:PORT] of the site broker (default 127.0.0.1:1883).")
 @click.option("--tls-ca", default=None, help="The broker's CA certificate file, for TLS.")
 @click.option(
@@ -328,6 +335,7 @@ def init(
     site_name,
     timezone,
     zones,
+    product,
     broker,
     tls_ca,
     air_topic,
@@ -366,6 +374,18 @@ def init(
     if not zones:
         click.echo("watcher: error: --zone: at least one zone, as ID:SETPOINT_C[:NAME]", err=True)
         sys.exit(2)
+    if product is None and ask:
+        from watcher.files.profiles import builtin_names
+
+        click.echo("Products: " + ", ".join(builtin_names()) + " (or a profile TOML file)")
+    product = answer(product, "Product the zones hold", "dairy-ice-cream")
+    from watcher.files.profiles import load_profile
+
+    try:
+        load_profile(product)
+    except WatcherError as exc:
+        click.echo(f"watcher: error: --product: {exc}", err=True)
+        sys.exit(2)
     broker = answer(broker, "Broker HOST[:PORT]", "127.0.0.1:1883")
     host, _, port = broker.partition(":")
     try:
@@ -396,6 +416,7 @@ def init(
         door_topic=door_topic,
         channels=tuple((c, str(secrets / f"notify-{c}")) for c in channels),
         database=str(folder / "watcher.db"),
+        product=product,
     )
     out.write_text(starter_toml(answers), encoding="utf-8")
     click.echo(f"Wrote {out}.")

@@ -37,6 +37,7 @@ class Answers:
     door_topic: str | None = None
     channels: tuple[tuple[str, str], ...] = field(default_factory=tuple)  # (name, url file)
     database: str = "watcher.db"
+    product: str = "dairy-ice-cream"  # the profile every zone starts with
 
 
 def _q(text) -> str:
@@ -85,7 +86,11 @@ def starter_toml(a: Answers) -> str:
         lines += ["[[zones]]", f"id = {_q(z.id)}"]
         if z.name:
             lines.append(f"name = {_q(z.name)}")
-        lines += [f"setpoint_c = {z.setpoint_c:g}", ""]
+        lines += [
+            f"setpoint_c = {z.setpoint_c:g}",
+            f"profile = {_q(a.product)}   # `watcher profile list`; calibrate it to your declared life",
+            "",
+        ]
     lines += ["[[sources]]", f"pattern = {_q(air)}   # payload: {example}", 'signal = "air_c"']
     lines.append(f"format = {_q(a.air_format)}")
     if value_key:
