@@ -54,6 +54,7 @@ def test_the_site_page_shows_every_zone_the_open_alert_and_charts_without_script
         assert page.count("<svg") == 4 and "<script" not in page and "http-equiv='refresh'" in page
         for z in ZONES:
             assert f"<td>{z}</td>" in page and f"id='zone-{z}'" in page
+        assert "<th>product profile</th>" in page and page.count("<td>dairy-ice-cream</td>") == len(ZONES)
         assert "Open alerts" in page and "air temperature at or above -30.0 C" in page, page[:3000]
         assert "not a food-safety verdict" in page
         assert w.get("/metrics")[0] == 200 and w.get("/healthz")[0] == 200  # the page took nothing from them

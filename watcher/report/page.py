@@ -36,7 +36,7 @@ body{font:14px/1.45 system-ui,sans-serif;margin:0 auto;max-width:1100px;padding:
 h1{font-size:20px;margin:6px 0 2px}h2{font-size:16px;margin:22px 0 6px;border-bottom:1px solid #d5dade}
 h3{font-size:14px;margin:14px 0 4px}.sub{color:#5b666d;margin:0 0 10px}
 table{border-collapse:collapse;width:100%}th,td{padding:4px 8px;border-bottom:1px solid #e6e9eb;text-align:left}
-td.n{text-align:right;font-variant-numeric:tabular-nums}th{font-weight:600;background:#f3f5f6}
+td.n{text-align:right;font-variant-numeric:tabular-nums;white-space:nowrap}th{font-weight:600;background:#f3f5f6}
 .stale{color:#a4471b;font-weight:600}.critical{color:#a0181b;font-weight:600}.warning{color:#8a5a00;font-weight:600}
 .charts{display:flex;flex-wrap:wrap;gap:8px}.charts figure{margin:0;flex:1 1 480px}.charts svg{width:100%;height:auto}
 .caution{margin-top:24px;color:#5b666d;font-size:12px}
@@ -99,7 +99,7 @@ def _page(cfg: Config, store: Store, now_ts: float) -> str:
 
 def _zones(cfg: Config, store: Store, rows: dict, now_ts: float) -> str:
     out = [
-        "<h2>Zones</h2><table><tr><th>zone</th><th>air</th><th>product (est.)</th><th>mean crystal</th>"
+        "<h2>Zones</h2><table><tr><th>zone</th><th>product profile</th><th>air</th><th>product (est.)</th><th>mean crystal</th>"
         "<th>budget used (90 % range)</th><th>days left (range)</th><th>newest reading</th></tr>"
     ]
     for z in cfg.zones:
@@ -112,7 +112,7 @@ def _zones(cfg: Config, store: Store, rows: dict, now_ts: float) -> str:
         product = row.last_product_c if row and row.last_product_c is not None else fig.get("product_c")
         mean = fig.get("mean_diameter_um")
         out.append(
-            f"<tr><td>{_e(z.name)}</td>"
+            f"<tr><td>{_e(z.name)}</td><td>{_e(z.profile.name)}</td>"
             f"<td class='n'>{_e(temperature(row.last_air_c if row else None, unit, '-'))}</td>"
             f"<td class='n'>{_e(temperature(product, unit, '-'))}</td>"
             f"<td class='n'>{'-' if mean is None else f'{mean:.1f} um'}</td>"
