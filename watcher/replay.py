@@ -6,77 +6,95 @@ from __future__ import annotations
 import math
 import time
 from collections import Counter
+from collections.abc import Iterable, Iterator
+from contextlib import closing
 from pathlib import Path
 
 from watcher.config import Config
 from watcher.engine.batch import Engine
 from watcher.errors import SeriesError
-from watcher.files.csvtable import number, read_rows
+from watcher.files.csvtable import iter_rows, number
 from watcher.files.logger import ColumnMap, read_export
 from watcher.files.series import parse_time
 from watcher.ingest.payload import SIGNALS, TEMPERATURE_SIGNALS, Reading
 from watcher.store.db import Store
+from watcher.store.staging import Staging
 
 BATCH = 5000
+#: A long replay is checkpointed every this many readings, as the service checkpoints as it
+#: goes: model state saved, snapshots taken, events analysed, and memory flat for any length.
+CHECKPOINT_READINGS = 200_000
 
 
-def read_readings(cfg: Config, path: str) -> list[Reading]:
-    header, rows = read_rows(path, ("time", "zone", "signal", "value"), SeriesError)
+def iter_readings(cfg: Config, path: str) -> Iterator[Reading]:
+    """The file's readings, each checked, as they are read (memory flat for any file size)."""
+    _, rows = iter_rows(path, ("time", "zone", "signal", "value"), SeriesError)
     zones = {z.id for z in cfg.zones}
     lo, hi = cfg.ingest.limits.temp_range_c
-    out = []
-    for line, row in rows:
-        where = f"{path}: line {line}"
-        zone = (row.get("zone") or "").strip()
-        if zone not in zones:
-            raise SeriesError(f"{where}, column zone", zone, "one of the configured zones: " + ", ".join(sorted(zones)))
-        signal = (row.get("signal") or "").strip()
-        if signal not in SIGNALS:
-            raise SeriesError(f"{where}, column signal", signal, "one of " + ", ".join(SIGNALS))
-        value = number(row.get("value"), f"{where}, column value", SeriesError)
-        if signal in TEMPERATURE_SIGNALS and not lo <= value <= hi:
-            raise SeriesError(f"{where}, column value", value, f"a temperature in [{lo}, {hi}] C")
-        sensor = (row.get("sensor") or "").strip() or signal
-        ts = parse_time(row.get("time"), f"{where}, column time")
-        if not math.isfinite(ts):
-            raise SeriesError(f"{where}, column time", row.get("time"), "a finite time")
-        out.append(Reading(zone, sensor, signal, round(ts, 3), value))
-    return out
+    with closing(rows):  # an error mid-file closes the file at once
+        for line, row in rows:
+            where = f"{path}: line {line}"
+            zone = (row.get("zone") or "").strip()
+            if zone not in zones:
+                raise SeriesError(
+                    f"{where}, column zone", zone, "one of the configured zones: " + ", ".join(sorted(zones))
+                )
+            signal = (row.get("signal") or "").strip()
+            if signal not in SIGNALS:
+                raise SeriesError(f"{where}, column signal", signal, "one of " + ", ".join(SIGNALS))
+            value = number(row.get("value"), f"{where}, column value", SeriesError)
+            if signal in TEMPERATURE_SIGNALS and not lo <= value <= hi:
+                raise SeriesError(f"{where}, column value", value, f"a temperature in [{lo}, {hi}] C")
+            sensor = (row.get("sensor") or "").strip() or signal
+            ts = parse_time(row.get("time"), f"{where}, column time")
+            if not math.isfinite(ts):
+                raise SeriesError(f"{where}, column time", row.get("time"), "a finite time")
+            yield Reading(zone, sensor, signal, round(ts, 3), value)
 
 
 def replay_file(cfg: Config, path: str, progress=None) -> Counter:
-    readings = read_readings(cfg, path)
-    return feed(cfg, [(r, f"replay:{path}") for r in readings], "replaying", progress)
+    topic = f"replay:{path}"
+    return feed(cfg, ((r, topic) for r in iter_readings(cfg, path)), "replaying", progress)
 
 
-def feed(cfg: Config, items: list[tuple[Reading, str]], label: str, progress=None, refused=()) -> Counter:
+def feed(cfg: Config, items: Iterable[tuple[Reading, str]], label: str, progress=None, refused=()) -> Counter:
     """(reading, topic) pairs through the service's engine in time order, in batches, with a
-    progress bar for long files; `refused` rows (topic, reason, row) are stored as rejections
-    in the same record. Returns the engine's counts."""
-    items = sorted(items, key=lambda item: item[0].ts)
-    store = Store(cfg.storage.path)
+    progress bar for long inputs; `refused` rows (topic, reason, row) are stored as rejections
+    in the same record. Returns the engine's counts.
+
+    The pairs are staged on disk first (store/staging.py): every one is read and checked
+    before any reaches the record, and they come back in time order with memory flat."""
     counts: Counter = Counter()
-    try:
-        engine = Engine(cfg, store, checkpoint_s=math.inf)
-        now = time.time()
-        if refused:
-            with store.atomic():
-                for topic, reason, row in refused:
-                    store.rejections.add(now, topic, reason, row.encode())
-            counts["refused"] += len(refused)
-        chunks = range(0, len(items), BATCH)
-        bar = progress(chunks, label=label, length=len(chunks)) if progress and len(items) > 5 * BATCH else None
-        iterator = bar.__enter__() if bar else chunks
+    with Staging(cfg.storage.path) as stage:
+        stage.add((r.zone, r.sensor, r.signal, r.ts, r.value, topic) for r, topic in items)
+        store = Store(cfg.storage.path)
         try:
-            for lo in iterator:
-                result = engine.process_readings([(r, now, topic) for r, topic in items[lo : lo + BATCH]], now)
-                counts.update(result.counts)
+            engine = Engine(cfg, store, checkpoint_s=math.inf)
+            now = time.time()
+            if refused:
+                with store.atomic():
+                    for topic, reason, row in refused:
+                        store.rejections.add(now, topic, reason, row.encode())
+                counts["refused"] += len(refused)
+            batches = stage.in_time_order(BATCH)
+            n_batches = -(-stage.count // BATCH)
+            bar = progress(batches, label=label, length=n_batches) if progress and stage.count > 5 * BATCH else None
+            iterator = bar.__enter__() if bar else batches
+            try:
+                since = 0
+                for rows in iterator:
+                    batch = [(Reading(z, s, sig, ts, v), now, topic) for z, s, sig, ts, v, topic in rows]
+                    counts.update(engine.process_readings(batch, now).counts)
+                    since += len(batch)
+                    if since >= CHECKPOINT_READINGS:
+                        engine.checkpoint_all(now, final=False)
+                        since = 0
+            finally:
+                if bar:
+                    bar.__exit__(None, None, None)
+            engine.checkpoint_all(now)
         finally:
-            if bar:
-                bar.__exit__(None, None, None)
-        engine.checkpoint_all(now)
-    finally:
-        store.close()
+            store.close()
     return counts
 
 

@@ -455,13 +455,15 @@ class Engine:
             self.store.rejections.prune(cutoff, now)
         return folded
 
-    def checkpoint_all(self, now: float | None = None) -> None:
-        """Checkpoint every zone and bring its events up to the data it has (stop, reload, end of a replay)."""
+    def checkpoint_all(self, now: float | None = None, final: bool = True) -> None:
+        """Checkpoint every zone and bring its events up to the data it has (final: stop, reload,
+        end of a replay; not final: a checkpoint along a long replay, events judged only at their
+        grid points of data time, as the live service does)."""
         now = time.time() if now is None else now
         with self.store.atomic():
             for zid in self.runners:
                 self.checkpoint(zid, now)
-                self.monitor.zone_step(self.runners[zid], self.last_figures.get(zid), True, now, final=True)
+                self.monitor.zone_step(self.runners[zid], self.last_figures.get(zid), True, now, final=final)
 
 
 def _inject(messages: list[Message]) -> None:
