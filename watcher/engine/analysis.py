@@ -57,24 +57,21 @@ class Findings:
     days: list[str] = field(default_factory=list)  # days whose daily figures were written
 
 
-def binned_air(rows) -> tuple[np.ndarray, np.ndarray]:
-    """Air readings of every sensor averaged into one-minute bins (bin start times)."""
+def binned_air(store: Store, zone_id: str, after_ts: float, upto_ts: float) -> tuple[np.ndarray, np.ndarray]:
+    """The zone's air readings in (after_ts, upto_ts], every sensor averaged into one-minute
+    bins (bin start times), summed by the database."""
+    rows = store.readings.bins(zone_id, "air_c", after_ts, upto_ts, BIN_S)
     if not rows:
         return np.empty(0), np.empty(0)
-    ts = np.array([r[2] for r in rows])
-    val = np.array([r[3] for r in rows])
-    idx = np.floor(ts / BIN_S).astype(np.int64)
-    keys, inv = np.unique(idx, return_inverse=True)
-    sums = np.bincount(inv, weights=val)
-    counts = np.bincount(inv)
-    return keys * BIN_S, sums / counts
+    k, sums, counts = (np.array(c, dtype=float) for c in zip(*rows))
+    return k * BIN_S, sums / counts
 
 
 def air_samples(store: Store, zone_id: str, after_ts: float, upto_ts: float) -> tuple[np.ndarray, np.ndarray]:
     """The zone's air as one sample per whole one-minute bin, stamped at the bin's end (when its
     mean is known), for the samples in (after_ts, upto_ts]. The same readings always give the same
     samples, however the span is cut (lots and the what-if replay rely on it)."""
-    starts, air = binned_air(store.readings.signals(zone_id, ("air_c",), after_ts - BIN_S, upto_ts))
+    starts, air = binned_air(store, zone_id, after_ts - BIN_S, upto_ts)
     t = starts + BIN_S
     keep = (t > after_ts) & (t <= upto_ts)
     return t[keep], air[keep]
@@ -94,7 +91,7 @@ def _intervals(rows, kind: str) -> list[Event]:
 def detect(store: Store, zone, events_cfg, span_start: float, fed_ts: float) -> list[Event]:
     """All events overlapping (span_start, fed_ts], with context before the span."""
     since = span_start - CONTEXT_S
-    t, air = binned_air(store.readings.signals(zone.id, ("air_c",), since, fed_ts))
+    t, air = binned_air(store, zone.id, since, fed_ts)
     doors = _intervals(store.readings.signals(zone.id, ("door",), since, fed_ts), "door")
     defrost_rows = store.readings.signals(zone.id, ("defrost",), since, fed_ts)
     if defrost_rows:
@@ -135,7 +132,7 @@ def merge_events(store: Store, zone_id: str, found: list[Event], span_start: flo
 
 
 def _history(store: Store, zone_id: str, t0: float, t1: float) -> tuple[np.ndarray, np.ndarray]:
-    t, air = binned_air(store.readings.signals(zone_id, ("air_c",), t0, t1))
+    t, air = binned_air(store, zone_id, t0, t1)
     keep = t > t0
     return t[keep], air[keep]
 

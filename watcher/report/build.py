@@ -166,7 +166,7 @@ def summary_text(
     return " ".join(parts)
 
 
-def zone_section(sw: SiteWeek, zone, end_ts: float) -> ZoneSection:
+def zone_section(store: Store, sw: SiteWeek, zone, end_ts: float) -> ZoneSection:
     """end_ts: where this zone's held values and open events stop counting: the week's end, or
     earlier when the week is in progress or the zone's data stop (never past the last reading)."""
     m = sw.models.get(zone.id)
@@ -199,7 +199,7 @@ def zone_section(sw: SiteWeek, zone, end_ts: float) -> ZoneSection:
         temperatures=temps,
         doors=doors,
         doors_by_hour=by_hour,
-        defrosts=defrost_figures(ev, sw.readings[sw.readings["zone"] == zone.id], end_ts),
+        defrosts=defrost_figures(ev, lambda a, b: _week_peak(store, zone.id, week, a, b), end_ts),
         excursions=event_list(ev, "excursion", tz),
         growth=growth,
     )
@@ -213,6 +213,11 @@ def zone_section(sw: SiteWeek, zone, end_ts: float) -> ZoneSection:
     return sec
 
 
+def _week_peak(store: Store, zone_id: str, week: Week, start_ts: float, end_ts: float) -> float | None:
+    """The zone's highest air reading in [start_ts, end_ts] within the week's own readings."""
+    return store.reports.peak(zone_id, "air_c", max(start_ts, week.start_ts), min(end_ts, week.end_ts - 1e-3))
+
+
 def build(store: Store, cfg: Config, site: Site, week: Week, generated_ts: float) -> Report:
     """The week's summary as of generated_ts. A week that has not begun is refused; a week in
     progress covers its start to now and says so (Report.upto_ts)."""
@@ -224,10 +229,12 @@ def build(store: Store, cfg: Config, site: Site, week: Week, generated_ts: float
     sw = load(store, cfg, site, week)
     # Each zone's figures stop at its newest reading when that is earlier than upto_ts.
     zones = [
-        zone_section(sw, z, min(upto_ts, max(store.readings.newest_of(z.id) or 0.0, week.start_ts))) for z in sw.zones
+        zone_section(store, sw, z, min(upto_ts, max(store.readings.newest_of(z.id) or 0.0, week.start_ts)))
+        for z in sw.zones
     ]
     alerts = alert_table(sw.alerts, sw.alert_log, site.timezone, upto_ts)
-    comp = completeness(sw.readings, upto_ts - week.start_ts)
+    ids = tuple(z.id for z in sw.zones)
+    comp = completeness(store.reports.sensor_weeks(ids, week.start_ts, week.end_ts), upto_ts - week.start_ts)
     gaps = sw.gaps.assign(minutes=(sw.gaps["seconds"] / 60.0).round(1)) if len(sw.gaps) else sw.gaps
     heads = store.record.heads()
     lots = lots_table(store, cfg, site, week)

@@ -34,9 +34,14 @@ CAUSES = {
 }
 
 
-def _svg(fig) -> str:
+def _svg(fig, bottom_in: float = 0.3, left_in: float = 0.6) -> str:
+    """The figure as SVG text. Margins are set in inches (room for the y labels, the title and
+    the x tick labels) rather than found by a "tight" bounding box, which draws every chart
+    twice: a week's summary of a big site draws dozens."""
+    w, h = fig.get_size_inches()
+    fig.subplots_adjust(left=left_in / w, right=1.0 - 0.12 / w, top=1.0 - 0.26 / h, bottom=bottom_in / h)
     buf = io.StringIO()
-    fig.savefig(buf, format="svg", bbox_inches="tight", metadata={"Date": None})
+    fig.savefig(buf, format="svg", metadata={"Date": None})
     plt.close(fig)
     text = buf.getvalue()
     text = re.sub(r"<metadata>.*?</metadata>", "", text, flags=re.S)  # authoring metadata only
@@ -117,7 +122,7 @@ def growth_bars(growth: pd.DataFrame, title: str) -> str:
     ax.set_ylabel("um of mean diameter")
     ax.set_title(title, loc="left", fontsize=9)
     ax.legend(fontsize=6.5, frameon=False, ncol=4, loc="upper left")
-    return _svg(fig)
+    return _svg(fig, left_in=0.85)  # room for tick labels such as 0.0150
 
 
 def hour_bars(by_hour: pd.DataFrame, title: str) -> str:
@@ -126,7 +131,7 @@ def hour_bars(by_hour: pd.DataFrame, title: str) -> str:
     ax.set_xticks(range(0, 24, 2))
     ax.set_xlabel("hour of day (site time)")
     ax.set_title(title, loc="left", fontsize=9)
-    return _svg(fig)
+    return _svg(fig, bottom_in=0.45)
 
 
 def whatif_chart(result: dict, time_ts, tz: str, title: str) -> str:

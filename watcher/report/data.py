@@ -51,7 +51,6 @@ class SiteWeek:
     site: Site
     week: Week
     zones: list[Zone]
-    readings: pd.DataFrame
     events: pd.DataFrame
     alerts: pd.DataFrame
     alert_log: pd.DataFrame
@@ -76,9 +75,9 @@ def load(store: Store, cfg: Config, site: Site, week: Week) -> SiteWeek:
     for key in ("source", "peak_c", "excess_um", "budget_share_pct", "cost"):
         events[key] = [d.get(key) for d in details] if len(events) else []
     events = events.drop(columns=["detail"])
-    readings, alerts, alert_log = tables["readings"], tables["alerts"], tables["alert_log"]
+    alerts, alert_log = tables["alerts"], tables["alert_log"]
     gaps, rejections, daily = tables["gaps"], tables["rejections"], tables["daily"]
-    sw = SiteWeek(site, week, zones, readings, events, alerts, alert_log, gaps, rejections, daily)
+    sw = SiteWeek(site, week, zones, events, alerts, alert_log, gaps, rejections, daily)
     for z in zones:
         sw.models[z.id] = zone_model(store, z, week.start_ts, week.end_ts)
     return sw
@@ -97,7 +96,7 @@ def zone_model(store: Store, zone: Zone, start_ts: float, end_ts: float, period:
     if snap is None:
         return None
     state = State.from_arrays(unpack_state(snap[1]))
-    t, air = binned_air(store.readings.signals(zone.id, ("air_c",), state.time_ts, end_ts))
+    t, air = binned_air(store, zone.id, state.time_ts, end_ts)
     t, air = t[t > state.time_ts], air[t > state.time_ts]
     before = t <= start_ts
     if before.any():

@@ -59,16 +59,14 @@ def door_figures(ev: pd.DataFrame, tz: str, week_end: float) -> tuple[dict, pd.D
     return summary, by_hour.rename_axis("hour").reset_index()
 
 
-def defrost_figures(ev: pd.DataFrame, readings: pd.DataFrame, week_end: float) -> dict:
+def defrost_figures(ev: pd.DataFrame, peak_air, week_end: float) -> dict:
+    """peak_air(start_ts, end_ts): the zone's highest air reading in that span (or None)."""
     d = ev[ev["kind"] == "defrost"].copy()
     if d.empty:
         return {"count": 0, "mean_min": None, "longest_min": None, "peak_air_c": None, "inferred": 0}
     d["dur_s"] = d["end_ts"].fillna(week_end) - d["start_ts"]
-    air = readings[readings["signal"] == "air_c"]
-    peaks = [
-        air[(air["ts"] >= r.start_ts) & (air["ts"] <= (r.end_ts if pd.notna(r.end_ts) else week_end))]["value"].max()
-        for r in d.itertuples()
-    ]
+    peaks = [peak_air(r.start_ts, r.end_ts if pd.notna(r.end_ts) else week_end) for r in d.itertuples()]
+    peaks = [np.nan if p is None else p for p in peaks]
     return {
         "count": int(len(d)),
         "mean_min": float(d["dur_s"].mean() / 60.0),
@@ -141,12 +139,13 @@ def alert_table(alerts: pd.DataFrame, alert_log: pd.DataFrame, tz: str, upto_ts:
     )
 
 
-def completeness(readings: pd.DataFrame, week_s: float) -> pd.DataFrame:
+def completeness(sensors, week_s: float) -> pd.DataFrame:
     """Per sensor and signal: readings received against those expected at the sensor's own
-    median interval over the whole week."""
+    median interval over the whole week. sensors: (zone, sensor, signal, times in order, late
+    count) one sensor at a time (store.reports.sensor_weeks)."""
     rows = []
-    for (zone, sensor, signal), g in readings.groupby(["zone", "sensor", "signal"]):
-        ts = np.sort(g["ts"].to_numpy())
+    for zone, sensor, signal, times, late in sensors:
+        ts = np.asarray(times, dtype=float)
         periodic = signal in ("air_c", "product_c")  # doors and defrosts report on change only
         step = float(np.median(np.diff(ts))) if periodic and ts.size > 1 else None
         expected = int(round(week_s / step)) if step else None
@@ -159,7 +158,7 @@ def completeness(readings: pd.DataFrame, week_s: float) -> pd.DataFrame:
                 "median_interval_s": step,
                 "expected": expected,
                 "complete_pct": min(100.0, 100.0 * ts.size / expected) if expected else None,
-                "late": int(g["late"].sum()),
+                "late": int(late),
             }
         )
     return pd.DataFrame(rows)

@@ -112,6 +112,16 @@ class Readings(Repo):
             (zone, *signals, after_ts, upto_ts),
         ).fetchall()
 
+    def bins(self, zone: str, signal: str, after_ts: float, upto_ts: float, bin_s: float) -> list[tuple]:
+        """(bin number, sum, count) of a signal's readings in (after_ts, upto_ts] per bin of
+        bin_s seconds (bin k covers [k bin_s, (k + 1) bin_s)), in bin order: the sums are made
+        here, so a week of many sensors leaves the database as one row a minute."""
+        return self.conn.execute(
+            "SELECT CAST(ts / ? AS INTEGER) AS k, sum(value), count(*) FROM readings "
+            "WHERE zone = ? AND signal = ? AND ts > ? AND ts <= ? GROUP BY k ORDER BY k",
+            (float(bin_s), zone, signal, after_ts, upto_ts),
+        ).fetchall()
+
     def newest_of(self, zone: str) -> float | None:
         """The time of the zone's newest stored raw reading (an index lookup)."""
         return self.conn.execute("SELECT max(ts) FROM readings WHERE zone = ?", (zone,)).fetchone()[0]

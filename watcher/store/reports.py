@@ -5,8 +5,9 @@
 from __future__ import annotations
 
 import json
+import sqlite3
 
-from watcher.store.repo import Repo, marks
+from watcher.store.repo import Repo, marks, translate
 from watcher.store.subjects import LOT_PREFIX, SERVICE_KEY
 
 Table = tuple[list[str], list[tuple]]
@@ -34,20 +35,61 @@ class Reports(Repo):
     ) -> dict[str, Table]:
         return week_tables(self.conn, zone_ids, start_ts, end_ts, days)
 
+    def sensor_weeks(self, zone_ids: tuple[str, ...], start_ts: float, end_ts: float):
+        """Per sensor and signal of the zones in [start_ts, end_ts): (zone, sensor, signal, the
+        reading times in order, how many were late), one sensor at a time, so memory holds one
+        sensor's week, never the site's."""
+        try:
+            yield from self._sensor_weeks(zone_ids, start_ts, end_ts)
+        except (sqlite3.Error, OSError) as exc:  # a generator is not wrapped by Repo: translate here
+            raise translate(exc, "reports.sensor_weeks") from exc
+
+    def _sensor_weeks(self, zone_ids: tuple[str, ...], start_ts: float, end_ts: float):
+        for zone in zone_ids:
+            for sensor, signal in self._keys(zone):
+                # Covering index (zone, sensor, signal, ts): the table itself is not read.
+                times = [
+                    r[0]
+                    for r in self.conn.execute(
+                        "SELECT ts FROM readings WHERE zone = ? AND sensor = ? AND signal = ? AND ts >= ? AND ts < ? "
+                        "ORDER BY ts",
+                        (zone, sensor, signal, start_ts, end_ts),
+                    )
+                ]
+                if not times:
+                    continue
+                late = self.conn.execute(
+                    "SELECT count(*) FROM readings WHERE zone = ? AND sensor = ? AND signal = ? AND late = 1 "
+                    "AND ts >= ? AND ts < ?",
+                    (zone, sensor, signal, start_ts, end_ts),
+                ).fetchone()[0]
+                yield zone, sensor, signal, times, late
+
+    def _keys(self, zone: str):
+        """The zone's (sensor, signal) pairs, one index seek each (a skip scan), whatever the history."""
+        key = ("", "")
+        sql = (
+            "SELECT sensor, signal FROM readings WHERE zone = ? AND (sensor, signal) > (?, ?) "
+            "ORDER BY sensor, signal LIMIT 1"
+        )
+        while row := self.conn.execute(sql, (zone, *key)).fetchone():
+            key = row
+            yield row
+
+    def peak(self, zone: str, signal: str, start_ts: float, end_ts: float) -> float | None:
+        """The highest value of a zone's signal in [start_ts, end_ts] (an index range)."""
+        sql = "SELECT max(value) FROM readings WHERE zone = ? AND signal = ? AND ts >= ? AND ts <= ?"
+        return self.conn.execute(sql, (zone, signal, start_ts, end_ts)).fetchone()[0]
+
 
 def week_tables(
     conn, zone_ids: tuple[str, ...], start_ts: float, end_ts: float, days: tuple[str, ...]
 ) -> dict[str, Table]:
-    """Readings, events, alerts (with the service's and the site's lots'), their log, gaps,
-    rejections and daily growth of a site's zones for [start_ts, end_ts)."""
+    """Events, alerts (with the service's and the site's lots'), their log, gaps, rejections and
+    daily growth of a site's zones for [start_ts, end_ts). The week's raw readings are not
+    among them: a big site's week is millions of rows (see sensor_weeks and peak)."""
     ids, s, e = zone_ids, start_ts, end_ts
     out = {
-        "readings": _table(
-            conn,
-            f"SELECT zone, sensor, signal, ts, value, received_ts, late FROM readings WHERE zone IN ({marks(len(ids))}) "
-            "AND ts >= ? AND ts < ? ORDER BY zone, ts",
-            (*ids, s, e),
-        ),
         "events": _table(
             conn,
             f"SELECT id, zone, kind, start_ts, end_ts, detail FROM events WHERE zone IN ({marks(len(ids))}) "

@@ -287,3 +287,10 @@ def m012_sparkplug_aliases(db: sqlite_utils.Database) -> None:
         "CREATE TABLE sparkplug_aliases (source TEXT NOT NULL, alias INTEGER NOT NULL, name TEXT NOT NULL, "
         "PRIMARY KEY (source, alias))"
     )
+
+
+@migrations()
+def m013_late_index(db: sqlite_utils.Database) -> None:
+    """Late readings indexed on their own (a few rows: a partial index), so the weekly summary
+    counts each sensor's late readings without reading the week's rows from the table."""
+    db.execute("CREATE INDEX readings_late ON readings(zone, sensor, signal, ts) WHERE late = 1")

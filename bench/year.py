@@ -1,0 +1,165 @@
+"""A big site's history, grown to a year: what each command costs as the record grows.
+
+A synthetic site of --sensors air sensors (ten a zone) at one reading a minute. History is
+grown in steps (default 1, 4 and 13 weeks; --year adds 52). Before each step's last week the
+older weeks are written straight through the store's own chained insert (fast, no model);
+the last week goes through `watcher replay`, the service's engine, so it has what a live
+week has (model state, snapshots, events, daily growth). Then each command runs as its own
+process and its wall time and peak resident memory are printed:
+
+- `watcher report` of the last week, `watcher verify`, `watcher verify --since` (last week),
+  `watcher status`; the replay of the week's file itself (its memory is the replay figure);
+- the database's bytes a reading (file size over rows, indexes included).
+
+Usage: python bench/year.py [--sensors 200] [--steps 1,4,13] [--year] [--folder DIR]
+Figures go in DEVELOPERS.md and docs/scaling.md. Timings are single runs on a shared machine:
+compare them across steps of one run, not across machines.
+"""
+
+from __future__ import annotations
+
+import argparse
+import datetime as dt
+import subprocess
+import sys
+import tempfile
+from pathlib import Path
+
+import numpy as np
+
+ROOT = Path(__file__).resolve().parent.parent
+sys.path.insert(0, str(ROOT))
+
+from watcher.ingest.payload import Reading  # noqa: E402
+from watcher.store.db import Store  # noqa: E402
+
+WEEK_S = 7 * 86400.0
+#: Monday 2026-11-02 00:00 UTC minus 60 weeks: a year of history ends before today.
+T0 = 1_793_577_600.0 - 60 * WEEK_S
+PER_ZONE = 10
+
+
+def config_text(folder: Path, zones: int) -> str:
+    blocks = "".join(f'[[zones]]\nid = "z{i:02d}"\nsetpoint_c = -25.0\n' for i in range(zones))
+    (folder / "pw").write_text("x\n")
+    (folder / "pw").chmod(0o600)
+    return f"""
+[broker]
+password_file = "{folder / "pw"}"
+[storage]
+path = "{folder / "year.db"}"
+[reports]
+dir = "{folder / "reports"}"
+[[sites]]
+id = "yr"
+name = "Year bench"
+timezone = "UTC"
+{blocks}
+[[sources]]
+pattern = "yr/{{zone}}/{{sensor}}/air"
+signal = "air_c"
+"""
+
+
+def air_week(start_ts: float, zones: int, seed: int):
+    """One week of every sensor at one reading a minute: -25 C with noise and four defrost
+    spikes a day (to +8 K for 20 minutes). Yields (ts, zone, sensor, value) minute by minute."""
+    rng = np.random.default_rng(seed)
+    minutes = np.arange(7 * 1440)
+    spike = np.where((minutes % 360) < 20, 8.0 * np.sin(np.pi * (minutes % 360) / 20.0), 0.0)
+    for m in minutes:
+        ts = start_ts + 60.0 * m
+        noise = rng.normal(0.0, 0.3, zones * PER_ZONE)
+        for k in range(zones * PER_ZONE):
+            yield ts, f"z{k // PER_ZONE:02d}", f"s{k % PER_ZONE}", round(-25.0 + spike[m] + noise[k], 2)
+
+
+def fill_week(store: Store, start_ts: float, zones: int, seed: int) -> int:
+    """An older week straight through the store's chained insert (no model)."""
+    n, batch = 0, []
+    for ts, zone, sensor, value in air_week(start_ts, zones, seed):
+        batch.append((Reading(zone, sensor, "air_c", ts, value), ts + 5.0, f"yr/{zone}/{sensor}/air"))
+        if len(batch) == 20_000:
+            with store.atomic():
+                if not store.readings.add_all_new(batch):
+                    raise SystemExit("filler met stored readings: start from an empty folder")
+            n, batch = n + len(batch), []
+    if batch:
+        with store.atomic():
+            store.readings.add_all_new(batch)
+        n += len(batch)
+    return n
+
+
+def write_csv(path: Path, start_ts: float, zones: int, seed: int) -> int:
+    n = 0
+    with path.open("w") as fh:
+        fh.write("time,zone,sensor,signal,value\n")
+        for ts, zone, sensor, value in air_week(start_ts, zones, seed):
+            fh.write(f"{ts:.0f},{zone},{sensor},air_c,{value}\n")
+            n += 1
+    return n
+
+
+def measured(args: list[str], cwd: Path) -> tuple[float, float, str]:
+    """Wall seconds, peak resident MB and stdout of one command in its own process."""
+    cmd = ["/usr/bin/time", "-f", "%e %M", sys.executable, "-m", "watcher", *args]
+    done = subprocess.run(cmd, cwd=cwd, capture_output=True, text=True)
+    last = done.stderr.strip().splitlines()[-1].split()
+    if done.returncode != 0:
+        raise SystemExit(f"{' '.join(args)} failed ({done.returncode}):\n{done.stdout[-2000:]}\n{done.stderr[-2000:]}")
+    return float(last[0]), float(last[1]) / 1024.0, done.stdout
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser()
+    ap.add_argument("--sensors", type=int, default=200)
+    ap.add_argument("--steps", default="1,4,13", help="weeks of history at which to measure, ascending")
+    ap.add_argument("--year", action="store_true", help="also measure at 52 weeks")
+    ap.add_argument("--folder", default=None, help="where to build (default: a temporary folder)")
+    a = ap.parse_args()
+    steps = [int(s) for s in a.steps.split(",")] + ([52] if a.year else [])
+    zones = a.sensors // PER_ZONE
+    folder = Path(a.folder) if a.folder else Path(tempfile.mkdtemp(prefix="watcher-year-"))
+    folder.mkdir(parents=True, exist_ok=True)
+    cfg = folder / "year.toml"
+    cfg.write_text(config_text(folder, zones))
+    print(f"site: {zones} zones x {PER_ZONE} sensors, one reading a minute ({a.sensors * 10080:,} a week); {folder}")
+    header = (
+        f"{'weeks':>5} {'rows':>12} {'B/row':>6} {'replay s':>8} {'MB':>6} {'report s':>8} {'MB':>6} "
+        f"{'verify s':>8} {'rows/s':>9} {'since s':>7} {'status s':>8}"
+    )
+    print(header)
+    weeks_done = 0
+    for step in steps:
+        store = Store(str(folder / "year.db"))
+        try:
+            for w in range(weeks_done, step - 1):
+                fill_week(store, T0 + w * WEEK_S, zones, seed=w)
+        finally:
+            store.close()
+        last_start = T0 + (step - 1) * WEEK_S
+        csv = folder / f"week{step}.csv"
+        write_csv(csv, last_start, zones, seed=step)
+        replay_s, replay_mb, _ = measured(["replay", "--config", str(cfg), str(csv)], folder)
+        csv.unlink()
+        weeks_done = step
+        y, wk, _ = dt.datetime.fromtimestamp(last_start + 86400.0, tz=dt.UTC).isocalendar()
+        report_s, report_mb, _ = measured(
+            ["report", "--config", str(cfg), "--week", f"{y}-W{wk:02d}", "--format", "json"], folder
+        )
+        verify_s, _, out = measured(["verify", "--config", str(cfg)], folder)
+        since = dt.datetime.fromtimestamp(last_start, tz=dt.UTC).strftime("%Y-%m-%d")
+        since_s, _, _ = measured(["verify", "--config", str(cfg), "--since", since], folder)
+        status_s, _, _ = measured(["status", "--config", str(cfg)], folder)
+        rows = a.sensors * 10080 * step
+        size = sum(p.stat().st_size for p in folder.glob("year.db*"))
+        print(
+            f"{step:5d} {rows:12,d} {size / rows:6.0f} {replay_s:8.1f} {replay_mb:6.0f} {report_s:8.1f} "
+            f"{report_mb:6.0f} {verify_s:8.1f} {rows / verify_s:9,.0f} {since_s:7.1f} {status_s:8.1f}",
+            flush=True,
+        )
+
+
+if __name__ == "__main__":
+    main()
