@@ -108,6 +108,41 @@ def test_altered_value_names_exactly_that_row(filled):
     assert [(f.chain, f.row_id) for f in findings] == [("readings/bulk-a", row_id)]
 
 
+def test_worker_processes_find_what_one_process_finds(filled, monkeypatch):
+    """The chains walked in worker processes (as on a big record) give the same findings and
+    counts as one process: an intact record, then one altered and one deleted reading."""
+    path = str(filled)
+    with sqlite3.connect(path) as db:
+        serial = chain.verify(db)
+    monkeypatch.setattr(chain, "PARALLEL_ROWS", 0)
+    with sqlite3.connect(path) as db:
+        assert chain.verify(db) == serial and serial[0] == []
+        db.execute(
+            "UPDATE readings SET value = -30.0 WHERE zone = 'dispatch' AND id = (SELECT id FROM readings WHERE zone = 'dispatch' ORDER BY id LIMIT 1 OFFSET 7)"
+        )
+        db.execute(
+            "DELETE FROM readings WHERE id = (SELECT id FROM readings WHERE zone = 'bulk-a' ORDER BY id LIMIT 1 OFFSET 9)"
+        )
+    with sqlite3.connect(path) as db:
+        parallel = chain.verify(db)
+    monkeypatch.setattr(chain, "PARALLEL_ROWS", 10**12)
+    with sqlite3.connect(path) as db:
+        assert chain.verify(db) == parallel
+    assert {f.chain for f in parallel[0] if f.kind == "MISMATCH"} == {"readings/dispatch", "readings/bulk-a"}
+
+
+def test_reading_hash_is_chain_hash():
+    """The verify loop's one-step hash of a readings row is exactly the general chain hash, for
+    stored types and for odd ones (which take the general way)."""
+    for values in (
+        ("z", "s1", "air_c", 1.5e9, -25.25, 1.5e9 + 0.125, "kp/z/s1/air", 0),
+        ("z", "s1", "air_c", 1.5e9, -0.0, 1.5e9, "t", 1),
+        ("z", "s1", "air_c", 1500000000, -25, 1.5e9, "t", 0),
+    ):
+        for prev in (None, "ab" * 32):
+            assert chain.reading_hash(prev, *values) == chain.chain_hash(prev, *values)
+
+
 def test_retention_keeps_the_chain_verifiable(tmp_path):
     """Folding old raw readings into hourly rows deletes them; the chain still verifies."""
     cfg, store, engine = make(tmp_path, reorder=0.0)

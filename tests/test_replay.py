@@ -80,7 +80,9 @@ def test_replay_orders_a_shuffled_file_checks_it_all_first_and_leaves_no_scratch
     bad = tmp_path / "bad"
     bad.mkdir()
     cfg = write_config(bad)
-    (bad / "r.csv").write_text("time,zone,signal,value,sensor\n" + "\n".join(rows) + "\nnot-a-time,bulk-a,air_c,-25,s1\n")
+    (bad / "r.csv").write_text(
+        "time,zone,signal,value,sensor\n" + "\n".join(rows) + "\nnot-a-time,bulk-a,air_c,-25,s1\n"
+    )
     refused = CliRunner().invoke(main, ["replay", "--config", str(cfg), str(bad / "r.csv")])
     assert refused.exit_code == 2 and "line 1442, column time" in refused.output, refused.output
     assert not list(bad.glob(".watcher-staging-*"))

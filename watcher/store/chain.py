@@ -26,8 +26,13 @@ import datetime as dt
 import hashlib
 import json
 import math
+import multiprocessing
+import os
+import sqlite3
 import time
+from concurrent.futures import ProcessPoolExecutor
 from dataclasses import dataclass
+from pathlib import Path
 
 READING_FIELDS = ("zone", "sensor", "signal", "ts", "value", "received_ts", "topic", "late")
 ALERT_LOG_FIELDS = ("alert_id", "step", "at_ts", "wall_ts", "value", "by", "note")
@@ -50,6 +55,27 @@ def chain_hash(prev, *fields) -> str:
     -0.0 did it); adding 0.0 turns -0.0 into 0.0 and leaves every other value as it is."""
     text = "".join("\x1f" + repr(f + 0.0 if isinstance(f, float) else f) for f in fields)
     return hashlib.sha256(((prev or "") + text).encode()).hexdigest()
+
+
+def reading_hash(prev, zone, sensor, signal, ts, value, received_ts, topic, late) -> str:
+    """chain_hash for a readings row, the same text built in one step (verify's hot loop);
+    a row of other types than a stored reading's goes the general way."""
+    if (
+        type(ts) is float
+        and type(value) is float
+        and type(received_ts) is float
+        and type(late) is int
+        and type(zone) is str
+        and type(sensor) is str
+        and type(signal) is str
+        and type(topic) is str
+    ):
+        text = (
+            f"{prev or ''}\x1f{zone!r}\x1f{sensor!r}\x1f{signal!r}\x1f{ts + 0.0!r}\x1f{value + 0.0!r}"
+            f"\x1f{received_ts + 0.0!r}\x1f{topic!r}\x1f{late!r}"
+        )
+        return hashlib.sha256(text.encode()).hexdigest()
+    return chain_hash(prev, zone, sensor, signal, ts, value, received_ts, topic, late)
 
 
 def register(conn) -> None:
@@ -101,6 +127,7 @@ class Finding:
 
 def _walk(conn, chain: str, sql: str, args: tuple, fields: int, folds: dict, start_prev, hashed_from: float):
     """Recompute one chain; yield findings, then the number of rows checked."""
+    hasher = reading_hash if chain.startswith("readings/") else chain_hash
     prev = start_prev
     n = 0
     for row in conn.execute(sql, args):
@@ -112,7 +139,7 @@ def _walk(conn, chain: str, sql: str, args: tuple, fields: int, folds: dict, sta
             yield Finding(chain, row_id, "no hash from this row on (its chain value was removed)", "MISSING")
             return
         candidates = [prev] + folds.get(row_id, [])
-        if not any(chain_hash(p, *values) == stored for p in candidates):
+        if not any(hasher(p, *values) == stored for p in candidates):
             yield Finding(
                 chain,
                 row_id,
@@ -122,6 +149,53 @@ def _walk(conn, chain: str, sql: str, args: tuple, fields: int, folds: dict, sta
             return
         prev = stored
     yield n
+
+
+#: Rows above which verify walks the chains in worker processes, one per core (each chain is
+#: independent; hashing in Python is the cost). Below it, starting workers costs more.
+PARALLEL_ROWS = 300_000
+
+
+def _walk_one(conn, job) -> tuple[str, list[Finding], int | None]:
+    found, n = [], None
+    for item in _walk(conn, *job):
+        if isinstance(item, Finding):
+            found.append(item)
+        else:
+            n = item
+    return job[0], found, n
+
+
+def _walk_in_worker(path: str, job) -> tuple[str, list[Finding], int | None]:
+    conn = sqlite3.connect(Path(path).resolve().as_uri() + "?mode=ro", uri=True)
+    try:
+        return _walk_one(conn, job)
+    finally:
+        conn.close()
+
+
+def _walk_all(conn, jobs: list[tuple]):
+    """Every chain's (name, findings, rows checked), in the jobs' order: in worker processes
+    when the record is a big file and there is more than one core, else here."""
+    path = conn.execute("PRAGMA database_list").fetchone()[2]
+    big = (conn.execute("SELECT max(id) FROM readings").fetchone()[0] or 0) > PARALLEL_ROWS
+    workers = min(len(jobs), os.cpu_count() or 1)
+    if not path or not big or workers < 2:
+        return [_walk_one(conn, job) for job in jobs]
+    ctx = multiprocessing.get_context("spawn")  # never fork a process holding SQLite connections
+    with ProcessPoolExecutor(max_workers=workers, mp_context=ctx) as pool:
+        # Longest chains first, so the last worker to finish is not left with a long one.
+        order = sorted(range(len(jobs)), key=lambda i: -_rows_hint(conn, jobs[i]))
+        futures = {i: pool.submit(_walk_in_worker, path, jobs[i]) for i in order}
+        return [futures[i].result() for i in range(len(jobs))]
+
+
+def _rows_hint(conn, job) -> int:
+    chain, _sql, args = job[0], job[1], job[2]
+    if chain.startswith("readings/"):
+        row = conn.execute("SELECT max(id) - min(id) FROM readings WHERE zone = ? AND id >= ?", args).fetchone()
+        return row[0] or 0
+    return 0
 
 
 def _meta(conn) -> dict[str, float]:
@@ -170,18 +244,18 @@ def verify(conn, since_ts: float | None = None, now_ts: float | None = None) -> 
     for r in fold_rows:
         if r["next_id"]:
             folds.setdefault(f"{r['tbl']}/{r['zone']}", {}).setdefault(r["next_id"], []).append(r["prev_chain"])
+    jobs = []
     for chain, table, id_col, sql, args, fields, scope, scope_args, first in _plans(conn, since_ts):
         prev = conn.execute(
             f"SELECT chain FROM {table} WHERE {scope}{id_col} < ? ORDER BY {id_col} DESC LIMIT 1", (*scope_args, first)
         ).fetchone()
         key = chain if table == "readings" else f"{table}/"
         hashed_from = meta.get(f"chained_from:{table}", 0.0)
-        walk = _walk(conn, chain, sql, args, len(fields), folds.get(key, {}), prev[0] if prev else None, hashed_from)
-        for item in walk:
-            if isinstance(item, Finding):
-                findings.append(item)
-            else:
-                counts[chain] = item
+        jobs.append((chain, sql, args, len(fields), folds.get(key, {}), prev[0] if prev else None, hashed_from))
+    for chain, found, n in _walk_all(conn, jobs):
+        findings += found
+        if n is not None:
+            counts[chain] = n
     counts["chain_folds"] = len(fold_rows)
     if fold_break is not None:
         findings.append(fold_break)
