@@ -60,6 +60,16 @@ def test_door_and_defrost_figures_match_the_events_table(w47):
     assert z["defrosts"]["count"] == len(defrosts) == 21  # every 8 h over 7 days, signalled
     assert z["defrosts"]["mean_min"] == pytest.approx(np.mean(defrosts) / 60.0)
     assert z["defrosts"]["inferred"] == 0
+    peaks = [
+        db.execute(
+            "SELECT max(value) FROM readings WHERE zone = 'bulk-a' AND signal = 'air_c' AND ts >= ? AND ts <= ? "
+            "AND ts >= ? AND ts < ?",
+            (s, e, week.start_ts, week.end_ts),
+        ).fetchone()[0]
+        for k, s, e in rows
+        if k == "defrost"
+    ]
+    assert z["defrosts"]["peak_air_c"] == pytest.approx(max(peaks))
     excursions = [r for r in rows if r[0] == "excursion"]
     assert len(z["excursions"]) == len(excursions) == 1
     assert z["excursions"][0]["minutes"] == pytest.approx((excursions[0][2] - excursions[0][1]) / 60.0, abs=1)
@@ -104,11 +114,13 @@ def test_growth_completeness_gaps_alerts_match_their_tables(w47):
     assert growth["week"]["baseline_um"] == pytest.approx(sum(r[1] for r in stored))
     assert growth["2026-11-19"]["excursion_um"] > 0.1  # the fault's day
     comp = {(r["zone"], r["sensor"], r["signal"]): r for r in data["completeness"]}
-    for zid, sensor, signal, n in db.execute(
-        "SELECT zone, sensor, signal, count(*) FROM readings WHERE ts >= ? AND ts < ? GROUP BY zone, sensor, signal",
+    for zid, sensor, signal, n, late in db.execute(
+        "SELECT zone, sensor, signal, count(*), sum(late) FROM readings WHERE ts >= ? AND ts < ? "
+        "GROUP BY zone, sensor, signal",
         (week.start_ts, week.end_ts),
     ):
-        assert comp[(zid, sensor, signal)]["received"] == n
+        assert (comp[(zid, sensor, signal)]["received"], comp[(zid, sensor, signal)]["late"]) == (n, late)
+    assert len(comp) == len({(r["zone"], r["sensor"], r["signal"]) for r in data["completeness"]})
     assert comp[("bulk-a", "s1", "air_c")]["expected"] == 7 * 1440
     assert comp[("bulk-a", "s1", "air_c")]["received"] == 7 * 1440 - 120  # the 2-hour outage
     assert comp[("bulk-a", "dock", "door")]["expected"] is None  # reports on change only
@@ -335,3 +347,25 @@ def test_a_week_in_progress_says_so_and_no_duration_runs_past_the_last_reading(t
         timeout=120,
     )
     assert out.returncode == 2 and "--week: got '2030-W01', expected a week that has begun" in out.stderr, out.stderr
+
+
+def test_sensor_weeks_counts_late_readings_and_reads_one_sensor_at_a_time(tmp_path):
+    """The summary's per-sensor rows: every sensor with readings in the week, its times in
+    order and its late readings (found through the partial index), nothing outside the week."""
+    from watcher.ingest.payload import Reading
+    from watcher.store.db import Store
+
+    store = Store(str(tmp_path / "w.db"))
+    week0 = 1_795_000_000.0
+    with store.atomic():
+        for k in range(30):
+            for sensor in ("s1", "s2"):
+                store.readings.add(Reading("bulk-a", sensor, "air_c", week0 + 60 * k, -25.0), 0.0, "t", late=k % 7 == 0)
+        store.readings.add(Reading("bulk-a", "s1", "air_c", week0 - 60, -25.0), 0.0, "t", late=True)  # before the week
+        store.readings.add(Reading("bulk-a", "dock", "door", week0 + 5, 1.0), 0.0, "t", late=True)
+    rows = list(store.reports.sensor_weeks(("bulk-a", "dispatch"), week0, week0 + 7 * 86400))
+    store.close()
+    got = {(z, s, sig): (times, late) for z, s, sig, times, late in rows}
+    assert set(got) == {("bulk-a", "dock", "door"), ("bulk-a", "s1", "air_c"), ("bulk-a", "s2", "air_c")}
+    assert got[("bulk-a", "s1", "air_c")] == ([week0 + 60 * k for k in range(30)], 5)  # k = 0, 7, 14, 21, 28
+    assert got[("bulk-a", "dock", "door")] == ([week0 + 5], 1)
