@@ -248,6 +248,11 @@ def _report_then_truncate(db) -> None:
         (lambda db: db.execute("DELETE FROM alerts"), "MISSING alerts row 1", "gone from the alerts table"),
         (lambda db: db.execute("UPDATE rejections SET reason = 'fine'"), "MISMATCH rejections row", "does not follow"),
         (lambda db: db.execute("DELETE FROM record_meta"), "MISSING readings", "where its hashing began"),
+        (
+            lambda db: db.execute("UPDATE reading_counts SET rows = rows + 3 WHERE zone = 'dispatch'"),
+            "MISSING readings/dispatch",
+            "counted as they were written",
+        ),
     ],
     ids=[
         "hole-covered-by-unhashed-fold",
@@ -261,6 +266,7 @@ def _report_then_truncate(db) -> None:
         "alerts-table-emptied",
         "rejection-altered",
         "hashing-start-erased",
+        "written-count-differs",
     ],
 )
 def test_what_is_missing_is_named(filled, edit, first_line, words):

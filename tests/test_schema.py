@@ -63,6 +63,42 @@ def test_a_database_from_before_the_instant_rename_opens_and_verifies(tmp_path):
         store.close()
 
 
+def test_readings_written_before_their_counts_were_kept_are_counted_once(tmp_path):
+    """m014 counts each zone's readings already stored (and those retention folded) once; from
+    then on every write adds to the count, and a full verify finds the counts and the rows agree."""
+    from watcher.ingest.payload import Reading
+    from watcher.store import chain
+    from watcher.store.readings import READING_INSERT
+
+    path = str(tmp_path / "old.db")
+    conn = sqlite3.connect(path, isolation_level=None)
+    chain.register(conn)
+    db = sqlite_utils.Database(conn)
+    migrations.apply(db, stop_before="m014_reading_counts")
+    for k in range(40):
+        values = ("bulk-a", "s1", "air_c", 1_795_000_000.0 + 60 * k, -25.0, 0.0, "t", 0)
+        conn.execute(READING_INSERT, chain.params(values, "bulk-a"))
+    chain.add_fold(conn, "readings", "bulk-a", [], 25, 1_795_000_000.0 - 400 * 86400, 1_795_000_000.0)
+    conn.execute(
+        "INSERT INTO readings_hourly (zone, sensor, signal, hour_ts, mean, min, max, n) "
+        "VALUES ('bulk-a', 's1', 'air_c', 3600.0, -25.0, -25.5, -24.5, 25)"
+    )
+    conn.close()
+    store = Store(path)
+    try:
+        assert dict(store.conn.execute("SELECT zone, rows FROM reading_counts")) == {"bulk-a": 65}
+        with store.atomic():
+            store.readings.add(Reading("bulk-a", "s2", "air_c", 1_795_100_000.0, -24.0), 0.0, "t", False)
+            store.readings.add(Reading("bulk-a", "s2", "air_c", 1_795_100_000.0, -24.0), 0.0, "t", False)  # duplicate
+            store.readings.add_all_new([(Reading("dispatch", "s1", "air_c", 1_795_100_000.0, -24.0), 0.0, "t")])
+        assert dict(store.conn.execute("SELECT zone, rows FROM reading_counts")) == {"bulk-a": 66, "dispatch": 1}
+        assert store.record.heads()["readings/bulk-a"][2] == 66
+        findings, _ = store.record.verify()
+        assert [f for f in findings if f.chain.startswith("readings/")] == [], findings
+    finally:
+        store.close()
+
+
 def test_a_checkpoint_written_under_the_old_field_names_loads():
     """A model state packed when its time fields were `t_s` and `thawed_at_s` loads unchanged."""
     spec = Spec(load_profile("dairy-ice-cream"), (Position("core", 8 * 3600.0),))

@@ -269,7 +269,10 @@ def verify(conn, since_ts: float | None = None, now_ts: float | None = None) -> 
     if fold_break is not None:
         findings.append(fold_break)
     findings += check_folds(conn, fold_rows, meta, now_ts)
-    findings += check_lengths(conn, fold_rows)
+    have = lengths(conn, fold_rows, exact=since_ts is None)
+    findings += check_lengths(conn, have)
+    if since_ts is None:
+        findings += check_counts(conn, have)
     return findings, counts
 
 
@@ -343,24 +346,49 @@ def check_folds(conn, fold_rows: list[dict], meta: dict, now_ts: float | None) -
     return out
 
 
-def lengths(conn, fold_rows: list[dict] | None = None) -> dict[str, int]:
-    """Rows each chain has ever held: rows stored plus rows retention folded away."""
-    if fold_rows is None:
-        fold_rows = _fold_rows(conn, _meta(conn))[0]
+def lengths(conn, fold_rows: list[dict] | None = None, exact: bool = True) -> dict[str, int]:
+    """Rows each chain has ever held: rows stored plus rows retention folded away. exact
+    counts the readings (a full verify); otherwise each zone's count kept as they were
+    written is read (the weekly summary, `verify --since`): no scan of the history."""
     out: dict[str, int] = {}
-    for zone, n in conn.execute("SELECT zone, count(*) FROM readings GROUP BY zone"):
-        out[f"readings/{zone}"] = n
+    if exact:
+        if fold_rows is None:
+            fold_rows = _fold_rows(conn, _meta(conn))[0]
+        for zone, n in conn.execute("SELECT zone, count(*) FROM readings GROUP BY zone"):
+            out[f"readings/{zone}"] = n
+        for p in _passes(fold_rows):
+            if p["tbl"] == "readings":
+                out[f"readings/{p['zone']}"] = out.get(f"readings/{p['zone']}", 0) + int(p["folded"])
+    else:
+        for zone, n in conn.execute("SELECT zone, rows FROM reading_counts"):
+            out[f"readings/{zone}"] = n
     for table, _, _ in LOGS:
         out[table] = conn.execute(f"SELECT count(*) FROM {table}").fetchone()[0]
-    for p in _passes(fold_rows):
-        name = f"readings/{p['zone']}" if p["tbl"] == "readings" else p["tbl"]
-        out[name] = out.get(name, 0) + int(p["folded"])
+    for p in _passes(fold_rows if fold_rows is not None else _fold_rows(conn, _meta(conn))[0]):
+        if p["tbl"] != "readings":
+            out[p["tbl"]] = out.get(p["tbl"], 0) + int(p["folded"])
     return out
 
 
-def check_lengths(conn, fold_rows: list[dict]) -> list[Finding]:
+def check_counts(conn, exact: dict[str, int]) -> list[Finding]:
+    """Each zone's readings counted as they were written must equal those stored or folded."""
+    kept = lengths(conn, exact=False)
+    out = []
+    for name in sorted(set(exact) | set(kept)):
+        if name.startswith("readings/") and exact.get(name, 0) != kept.get(name, 0):
+            out.append(
+                Finding(
+                    name,
+                    0,
+                    f"{kept.get(name, 0)} readings counted as they were written, {exact.get(name, 0)} stored or folded",
+                    "MISSING" if exact.get(name, 0) < kept.get(name, 0) else "MISMATCH",
+                )
+            )
+    return out
+
+
+def check_lengths(conn, have: dict[str, int]) -> list[Finding]:
     """Rows cut from a chain's end, or a whole zone gone, against the last checkpoint's counts."""
-    have = lengths(conn, fold_rows)
     out = []
     for zone, total, updated in conn.execute("SELECT zone, readings_total, updated_ts FROM zone_state ORDER BY zone"):
         now = have.get(f"readings/{zone}", 0)
@@ -378,13 +406,15 @@ def check_lengths(conn, fold_rows: list[dict]) -> list[Finding]:
 
 
 def heads(conn) -> dict[str, list]:
-    """Each chain's newest row and length: {chain name: [row id, hash, rows ever held]}."""
-    size = lengths(conn)
+    """Each chain's newest row and length: {chain name: [row id, hash, rows ever held]}; an
+    index seek per zone and the counts kept as rows were written, whatever the history."""
+    size = lengths(conn, exact=False)
     out = {}
-    for zone, row_id, chain in conn.execute(
-        "SELECT zone, id, chain FROM readings WHERE id IN (SELECT max(id) FROM readings GROUP BY zone) ORDER BY zone"
-    ):
-        out[f"readings/{zone}"] = [row_id, chain, size[f"readings/{zone}"]]
+    for zone in reading_zones(conn):
+        row_id, chain = conn.execute(
+            "SELECT id, chain FROM readings WHERE zone = ? ORDER BY id DESC LIMIT 1", (zone,)
+        ).fetchone()
+        out[f"readings/{zone}"] = [row_id, chain, size.get(f"readings/{zone}", 0)]
     for table, _, _ in LOGS:
         row = conn.execute(f"SELECT id, chain FROM {table} ORDER BY id DESC LIMIT 1").fetchone()
         if row:
@@ -417,11 +447,11 @@ def check_lots(conn) -> list[Finding]:
     return out
 
 
-def check_reports(conn) -> list[Finding]:
+def check_reports(conn, exact: bool = True) -> list[Finding]:
     """Each stored summary's printed heads must still be there with the same hash, and no chain
-    may be shorter than the summary printed it."""
+    may be shorter than the summary printed it (exact: counted, else as kept when written)."""
     out = []
-    have = lengths(conn)
+    have = lengths(conn, exact=exact)
     folded_after: dict[str, float] = {}
     for tbl, zone, wall_ts in conn.execute(
         "SELECT tbl, zone, max(wall_ts) FROM chain_folds WHERE next_id = 0 GROUP BY tbl, zone"

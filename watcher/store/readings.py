@@ -13,6 +13,9 @@ READING_INSERT_CHAINED = (
     f"INSERT OR IGNORE INTO readings ({', '.join(chain.READING_FIELDS)}, chain) "
     f"VALUES ({marks(len(chain.READING_FIELDS) + 1)})"
 )
+COUNT_ADD = (
+    "INSERT INTO reading_counts (zone, rows) VALUES (?, ?) ON CONFLICT(zone) DO UPDATE SET rows = rows + excluded.rows"
+)
 REJECTION_INSERT = chain.insert_sql("rejections", chain.REJECTION_FIELDS, zone_scoped=False)
 PAYLOAD_KEEP_BYTES = 512
 
@@ -37,7 +40,10 @@ class Readings(Repo):
             int(late),
         )
         cur = self.conn.execute(READING_INSERT, chain.params(values, reading.zone))
-        return cur.rowcount == 1
+        if cur.rowcount != 1:
+            return False
+        self.conn.execute(COUNT_ADD, (reading.zone, 1))
+        return True
 
     def add_all_new(self, items) -> bool:
         """Insert (reading, received_ts, topic) rows in one statement if none is stored yet;
@@ -65,6 +71,10 @@ class Readings(Repo):
         before = self.conn.total_changes
         self.conn.executemany(READING_INSERT_CHAINED, rows)
         if self.conn.total_changes - before == len(items):
+            per_zone: dict[str, int] = {}
+            for r, _, _ in items:
+                per_zone[r.zone] = per_zone.get(r.zone, 0) + 1
+            self.conn.executemany(COUNT_ADD, per_zone.items())
             self.conn.execute("RELEASE SAVEPOINT bulk")
             self._heads.update(heads)
             return True

@@ -51,6 +51,6 @@ class Record(Repo):
     def verify(self, since_ts: float | None = None) -> tuple[list[chain.Finding], dict[str, int]]:
         """Everything `watcher verify` checks: the findings, and rows checked per chain."""
         findings, counts = chain.verify(self.conn, since_ts)
-        findings += chain.check_reports(self.conn) + chain.check_lots(self.conn)
+        findings += chain.check_reports(self.conn, exact=since_ts is None) + chain.check_lots(self.conn)
         findings += crosscheck.check_alerts(self.conn) + crosscheck.check_outbox(self.conn)
         return findings, counts

@@ -294,3 +294,20 @@ def m013_late_index(db: sqlite_utils.Database) -> None:
     """Late readings indexed on their own (a few rows: a partial index), so the weekly summary
     counts each sensor's late readings without reading the week's rows from the table."""
     db.execute("CREATE INDEX readings_late ON readings(zone, sensor, signal, ts) WHERE late = 1")
+
+
+@migrations()
+def m014_reading_counts(db: sqlite_utils.Database) -> None:
+    """Each zone's readings ever stored (kept or folded by retention), counted as they are
+    written: chain lengths for the weekly summary and the status without counting a year of
+    rows. A full `verify` still counts them and says when the two disagree."""
+    conn = db.conn
+    conn.execute("CREATE TABLE reading_counts (zone TEXT PRIMARY KEY, rows INTEGER NOT NULL)")
+    conn.execute("INSERT INTO reading_counts (zone, rows) SELECT zone, count(*) FROM readings GROUP BY zone")
+    for zone, folded in conn.execute(
+        "SELECT zone, sum(folded) FROM chain_folds WHERE tbl = 'readings' AND next_id = 0 GROUP BY zone"
+    ).fetchall():
+        conn.execute(
+            "INSERT INTO reading_counts (zone, rows) VALUES (?, ?) ON CONFLICT(zone) DO UPDATE SET rows = rows + ?",
+            (zone, folded, folded),
+        )
