@@ -131,6 +131,29 @@ def test_worker_processes_find_what_one_process_finds(filled, monkeypatch):
     assert {f.chain for f in parallel[0] if f.kind == "MISMATCH"} == {"readings/dispatch", "readings/bulk-a"}
 
 
+def test_numpy_floats_are_hashed_as_sqlite_gives_them_back(tmp_path):
+    """A value written as numpy's float64 (repr "np.float64(...)") is stored as a plain REAL:
+    the chain hashes that, so a reading or log row written with one still verifies."""
+    import numpy as np
+
+    from watcher.ingest.payload import Reading
+
+    assert chain.chain_hash(None, np.float64(-25.12), 1) == chain.chain_hash(None, -25.12, 1)
+    _, store, _ = make(tmp_path, reorder=0.0)
+    with store.atomic():
+        store.readings.add_all_new(
+            [(Reading("bulk-a", "s1", "air_c", np.float64(1.7e9), np.float64(-25.12)), 0.0, "t")]
+        )
+        store.readings.add(
+            Reading("bulk-a", "s1", "air_c", np.float64(1.7e9 + 60), np.float64(-25.13)), 0.0, "t", False
+        )
+        an_alert(store)
+        store.alerts.log_add(1, "raise", 1.0, 2.0, np.float64(3.5))
+    findings, counts = chain.verify(store.conn)
+    store.close()
+    assert findings == [] and counts["readings/bulk-a"] == 2
+
+
 def test_reading_hash_is_chain_hash():
     """The verify loop's one-step hash of a readings row is exactly the general chain hash, for
     stored types and for odd ones (which take the general way)."""

@@ -52,8 +52,10 @@ def chain_hash(prev, *fields) -> str:
 
     A float is hashed as SQLite stores it: SQLite keeps -0.0 as 0.0, so hashing repr(-0.0) at
     insert broke the chain the moment verify read the row back (an alert cleared with a cost of
-    -0.0 did it); adding 0.0 turns -0.0 into 0.0 and leaves every other value as it is."""
-    text = "".join("\x1f" + repr(f + 0.0 if isinstance(f, float) else f) for f in fields)
+    -0.0 did it); adding 0.0 turns -0.0 into 0.0 and leaves every other value as it is. A float
+    of a subclass (numpy's float64, whose repr is "np.float64(...)") is hashed as the plain
+    float SQLite gives back."""
+    text = "".join("\x1f" + repr(float(f) + 0.0 if isinstance(f, float) else f) for f in fields)
     return hashlib.sha256(((prev or "") + text).encode()).hexdigest()
 
 
