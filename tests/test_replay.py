@@ -10,11 +10,11 @@ from watcher.cli import main
 T0 = 1_795_000_000
 
 
-def write_config(tmp_path):
+def write_config(tmp_path, db_name="w.db"):
     (tmp_path / "pw").write_text("x")
     cfg = tmp_path / "c.toml"
     cfg.write_text(
-        f'[broker]\npassword_file = "{tmp_path / "pw"}"\n[storage]\npath = "{tmp_path / "w.db"}"\n'
+        f'[broker]\npassword_file = "{tmp_path / "pw"}"\n[storage]\npath = "{tmp_path / db_name}"\n'
         '[[sites]]\nid = "kp"\n[[zones]]\nid = "bulk-a"\nsetpoint_c = -25.0\n'
         '[[sources]]\npattern = "kp/{zone}/{sensor}/air"\nsignal = "air_c"\n'
     )
@@ -87,3 +87,13 @@ def test_replay_orders_a_shuffled_file_checks_it_all_first_and_leaves_no_scratch
     assert refused.exit_code == 2 and "line 1442, column time" in refused.output, refused.output
     assert not list(bad.glob(".watcher-staging-*"))
     assert not (bad / "w.db").exists()  # the record was not even opened
+
+
+def test_a_first_replay_makes_the_database_folder(tmp_path):
+    """The database's folder need not exist yet: replay makes it (as the service does) and the
+    scratch file beside the database with it."""
+    cfg = write_config(tmp_path, "new/folder/w.db")
+    (tmp_path / "r.csv").write_text("time,zone,signal,value\n" + f"{T0},bulk-a,air_c,-25.0\n")
+    done = CliRunner().invoke(main, ["replay", "--config", str(cfg), str(tmp_path / "r.csv")])
+    assert done.exit_code == 0 and "accepted: 1" in done.output, done.output
+    assert (tmp_path / "new/folder/w.db").is_file() and not list((tmp_path / "new/folder").glob(".watcher-staging-*"))

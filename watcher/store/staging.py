@@ -25,6 +25,7 @@ class Staging:
     def __init__(self, beside: str | Path):
         folder = Path(beside).resolve().parent
         try:
+            folder.mkdir(parents=True, exist_ok=True)  # as the store makes it for a first database
             self._dir = tempfile.TemporaryDirectory(prefix=".watcher-staging-", dir=folder)
             self.conn = sqlite3.connect(Path(self._dir.name) / "stage.db", isolation_level=None)
             for pragma in (
