@@ -10,7 +10,8 @@ import pytest
 from tests.test_engine import NOW, T0, make, msg
 from watcher.engine.batch import Message
 from watcher.engine.lots import record_event
-from watcher.store import chain
+from watcher.store import chain, walk
+from watcher.store.hashing import ReadingHasher
 
 
 def an_alert(store, **fields) -> int:
@@ -114,7 +115,7 @@ def test_worker_processes_find_what_one_process_finds(filled, monkeypatch):
     path = str(filled)
     with sqlite3.connect(path) as db:
         serial = chain.verify(db)
-    monkeypatch.setattr(chain, "PARALLEL_ROWS", 0)
+    monkeypatch.setattr(walk, "PARALLEL_ROWS", 0)
     with sqlite3.connect(path) as db:
         assert chain.verify(db) == serial and serial[0] == []
         db.execute(
@@ -125,10 +126,28 @@ def test_worker_processes_find_what_one_process_finds(filled, monkeypatch):
         )
     with sqlite3.connect(path) as db:
         parallel = chain.verify(db)
-    monkeypatch.setattr(chain, "PARALLEL_ROWS", 10**12)
+    monkeypatch.setattr(walk, "PARALLEL_ROWS", 10**12)
     with sqlite3.connect(path) as db:
         assert chain.verify(db) == parallel
     assert {f.chain for f in parallel[0] if f.kind == "MISMATCH"} == {"readings/dispatch", "readings/bulk-a"}
+
+
+@pytest.mark.parametrize("offset", [-1, 0])
+def test_a_break_at_the_edge_of_a_workers_range_is_found(filled, monkeypatch, offset):
+    """The walk cut into row ranges (one a worker): a reading altered as the last row of the
+    first range, or the first of the second, is named as one process names it."""
+    path = str(filled)
+    with sqlite3.connect(path) as db:
+        first, last = db.execute("SELECT min(id), max(id) FROM readings").fetchone()
+        edge = first + (last + 1 - first) // 2 + 1 + offset  # walk_readings' cut with two workers
+        (zone,) = db.execute("SELECT zone FROM readings WHERE id = ?", (edge,)).fetchone()
+        db.execute("UPDATE readings SET value = value + 1 WHERE id = ?", (edge,))
+        serial = chain.verify(db)
+    monkeypatch.setattr(walk, "PARALLEL_ROWS", 0)
+    monkeypatch.setattr(walk.os, "cpu_count", lambda: 2)
+    with sqlite3.connect(path) as db:
+        assert chain.verify(db) == serial
+    assert [(f.chain, f.row_id) for f in serial[0]] == [(f"readings/{zone}", edge)]
 
 
 def test_numpy_floats_are_hashed_as_sqlite_gives_them_back(tmp_path):
@@ -155,15 +174,16 @@ def test_numpy_floats_are_hashed_as_sqlite_gives_them_back(tmp_path):
 
 
 def test_reading_hash_is_chain_hash():
-    """The verify loop's one-step hash of a readings row is exactly the general chain hash, for
-    stored types and for odd ones (which take the general way)."""
+    """The verify loop's hash of a readings row (its constant text kept from row to row) is
+    exactly the general chain hash, for stored types and for odd ones (the general way)."""
+    hasher = ReadingHasher()
     for values in (
         ("z", "s1", "air_c", 1.5e9, -25.25, 1.5e9 + 0.125, "kp/z/s1/air", 0),
         ("z", "s1", "air_c", 1.5e9, -0.0, 1.5e9, "t", 1),
         ("z", "s1", "air_c", 1500000000, -25, 1.5e9, "t", 0),
     ):
         for prev in (None, "ab" * 32):
-            assert chain.reading_hash(prev, *values) == chain.chain_hash(prev, *values)
+            assert hasher(prev, *values) == chain.chain_hash(prev, *values)
 
 
 def test_retention_keeps_the_chain_verifiable(tmp_path):

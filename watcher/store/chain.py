@@ -26,15 +26,13 @@ import datetime as dt
 import hashlib
 import json
 import math
-import multiprocessing
-import os
-import sqlite3
 import time
-from concurrent.futures import ProcessPoolExecutor
-from dataclasses import dataclass
-from pathlib import Path
 
-READING_FIELDS = ("zone", "sensor", "signal", "ts", "value", "received_ts", "topic", "late")
+from watcher.store import walk
+from watcher.store.hashing import READING_FIELDS, Finding, chain_hash, register
+
+__all__ = ["READING_FIELDS", "Finding", "chain_hash", "register"]
+
 ALERT_LOG_FIELDS = ("alert_id", "step", "at_ts", "wall_ts", "value", "by", "note")
 EVENT_LOG_FIELDS = ("event_id", "op", "zone", "kind", "start_ts", "end_ts", "detail")
 LOT_EVENT_FIELDS = ("lot", "kind", "zone", "ts", "source", "sender", "received_ts", "note", "detail")
@@ -45,43 +43,6 @@ LOGS += (("lot_events", LOT_EVENT_FIELDS, "received_ts"), ("rejections", REJECTI
 CHAINED_TABLES = tuple((name, "id") for name in ("readings", *(t for t, _, _ in LOGS))) + (("chain_folds", "rowid"),)
 MIN_RETENTION_S = 366 * 86400.0  # storage.raw_retention_days cannot be set lower
 CLOCK_SLACK_S = 86400.0
-
-
-def chain_hash(prev, *fields) -> str:
-    """SHA-256 over the previous hash and the fields' exact text (repr keeps every float bit).
-
-    A float is hashed as SQLite stores it: SQLite keeps -0.0 as 0.0, so hashing repr(-0.0) at
-    insert broke the chain the moment verify read the row back (an alert cleared with a cost of
-    -0.0 did it); adding 0.0 turns -0.0 into 0.0 and leaves every other value as it is. A float
-    of a subclass (numpy's float64, whose repr is "np.float64(...)") is hashed as the plain
-    float SQLite gives back."""
-    text = "".join("\x1f" + repr(float(f) + 0.0 if isinstance(f, float) else f) for f in fields)
-    return hashlib.sha256(((prev or "") + text).encode()).hexdigest()
-
-
-def reading_hash(prev, zone, sensor, signal, ts, value, received_ts, topic, late) -> str:
-    """chain_hash for a readings row, the same text built in one step (verify's hot loop);
-    a row of other types than a stored reading's goes the general way."""
-    if (
-        type(ts) is float
-        and type(value) is float
-        and type(received_ts) is float
-        and type(late) is int
-        and type(zone) is str
-        and type(sensor) is str
-        and type(signal) is str
-        and type(topic) is str
-    ):
-        text = (
-            f"{prev or ''}\x1f{zone!r}\x1f{sensor!r}\x1f{signal!r}\x1f{ts + 0.0!r}\x1f{value + 0.0!r}"
-            f"\x1f{received_ts + 0.0!r}\x1f{topic!r}\x1f{late!r}"
-        )
-        return hashlib.sha256(text.encode()).hexdigest()
-    return chain_hash(prev, zone, sensor, signal, ts, value, received_ts, topic, late)
-
-
-def register(conn) -> None:
-    conn.create_function("chain_hash", -1, chain_hash, deterministic=True)
 
 
 def _prev_sql(table: str, zone_scoped: bool) -> str:
@@ -119,87 +80,6 @@ def add_fold(
         )
 
 
-@dataclass(frozen=True)
-class Finding:
-    chain: str  # "readings/<zone>", "alert_log", ..., "chain_folds", "lots", "alerts", "outbox"
-    row_id: int
-    what: str
-    kind: str = "MISMATCH"  # or "MISSING": rows, a zone or a record that should be there is not
-
-
-def _walk(conn, chain: str, sql: str, args: tuple, fields: int, folds: dict, start_prev, hashed_from: float):
-    """Recompute one chain; yield findings, then the number of rows checked."""
-    hasher = reading_hash if chain.startswith("readings/") else chain_hash
-    prev = start_prev
-    n = 0
-    for row in conn.execute(sql, args):
-        row_id, stored, values = row[0], row[1], row[2 : 2 + fields]
-        n += 1
-        if stored is None:
-            if row_id < hashed_from:  # written before this chain was hashed (an older database)
-                continue
-            yield Finding(chain, row_id, "no hash from this row on (its chain value was removed)", "MISSING")
-            return
-        candidates = [prev] + folds.get(row_id, [])
-        if not any(hasher(p, *values) == stored for p in candidates):
-            yield Finding(
-                chain,
-                row_id,
-                "does not follow from the row before it: rows before it were deleted, or this row or the "
-                "one before it was altered or added",
-            )
-            return
-        prev = stored
-    yield n
-
-
-#: Rows above which verify walks the chains in worker processes, one per core (each chain is
-#: independent; hashing in Python is the cost). Below it, starting workers costs more.
-PARALLEL_ROWS = 300_000
-
-
-def _walk_one(conn, job) -> tuple[str, list[Finding], int | None]:
-    found, n = [], None
-    for item in _walk(conn, *job):
-        if isinstance(item, Finding):
-            found.append(item)
-        else:
-            n = item
-    return job[0], found, n
-
-
-def _walk_in_worker(path: str, job) -> tuple[str, list[Finding], int | None]:
-    conn = sqlite3.connect(Path(path).resolve().as_uri() + "?mode=ro", uri=True)
-    try:
-        return _walk_one(conn, job)
-    finally:
-        conn.close()
-
-
-def _walk_all(conn, jobs: list[tuple]):
-    """Every chain's (name, findings, rows checked), in the jobs' order: in worker processes
-    when the record is a big file and there is more than one core, else here."""
-    path = conn.execute("PRAGMA database_list").fetchone()[2]
-    big = (conn.execute("SELECT max(id) FROM readings").fetchone()[0] or 0) > PARALLEL_ROWS
-    workers = min(len(jobs), os.cpu_count() or 1)
-    if not path or not big or workers < 2:
-        return [_walk_one(conn, job) for job in jobs]
-    ctx = multiprocessing.get_context("spawn")  # never fork a process holding SQLite connections
-    with ProcessPoolExecutor(max_workers=workers, mp_context=ctx) as pool:
-        # Longest chains first, so the last worker to finish is not left with a long one.
-        order = sorted(range(len(jobs)), key=lambda i: -_rows_hint(conn, jobs[i]))
-        futures = {i: pool.submit(_walk_in_worker, path, jobs[i]) for i in order}
-        return [futures[i].result() for i in range(len(jobs))]
-
-
-def _rows_hint(conn, job) -> int:
-    chain, _sql, args = job[0], job[1], job[2]
-    if chain.startswith("readings/"):
-        row = conn.execute("SELECT max(id) - min(id) FROM readings WHERE zone = ? AND id >= ?", args).fetchone()
-        return row[0] or 0
-    return 0
-
-
 def _meta(conn) -> dict[str, float]:
     return dict(conn.execute("SELECT key, value FROM record_meta"))
 
@@ -213,28 +93,30 @@ def reading_zones(conn) -> list[str]:
     return zones
 
 
-def _plans(conn, since_ts) -> list[tuple]:
-    plans = []
-    zones = reading_zones(conn)
-    for zone in zones:
-        first = 0
-        if since_ts is not None:
-            row = conn.execute("SELECT min(id) FROM readings WHERE zone = ? AND ts >= ?", (zone, since_ts)).fetchone()
-            first = row[0] if row[0] is not None else 1 << 62
-        cols = ", ".join(READING_FIELDS)
-        sql = f"SELECT id, chain, {cols} FROM readings WHERE zone = ? AND id >= ? ORDER BY id"
-        plans.append(
-            (f"readings/{zone}", "readings", "id", sql, (zone, first), READING_FIELDS, "zone = ? AND ", (zone,), first)
-        )
-    for name, fields, time_col in LOGS:
-        id_col = "id"
-        first = 0
-        if since_ts is not None and time_col:
-            row = conn.execute(f"SELECT min(id) FROM {name} WHERE {time_col} >= ?", (since_ts,)).fetchone()
-            first = row[0] if row[0] is not None else 1 << 62
-        sql = f"SELECT {id_col}, chain, {', '.join(fields)} FROM {name} WHERE {id_col} >= ? ORDER BY {id_col}"
-        plans.append((name, name, id_col, sql, (first,), fields, "", (), first))
-    return plans
+def _first_id(conn, table: str, time_col: str, since_ts: float | None, scope: str = "", args: tuple = ()) -> int:
+    """The first row at or after since_ts (0: every row; past the end: none)."""
+    if since_ts is None:
+        return 0
+    row = conn.execute(f"SELECT min(id) FROM {table} WHERE {scope}{time_col} >= ?", (*args, since_ts)).fetchone()
+    return row[0] if row[0] is not None else 1 << 62
+
+
+def _walk_log(conn, name: str, fields: tuple[str, ...], first: int, folds: dict, hashed_from: float):
+    """Recompute one log's chain from row `first`: (its first break or None, rows checked)."""
+    prev = conn.execute(f"SELECT chain FROM {name} WHERE id < ? ORDER BY id DESC LIMIT 1", (first,)).fetchone()
+    prev = prev[0] if prev else None
+    n = 0
+    sql = f"SELECT id, chain, {', '.join(fields)} FROM {name} WHERE id >= ? ORDER BY id"
+    for row_id, stored, *values in conn.execute(sql, (first,)):
+        n += 1
+        if stored is None:
+            if row_id < hashed_from:  # written before this chain was hashed (an older database)
+                continue
+            return Finding(name, row_id, "no hash from this row on (its chain value was removed)", "MISSING"), n
+        if not any(chain_hash(p, *values) == stored for p in [prev] + folds.get(row_id, [])):
+            return Finding(name, row_id, walk.BROKEN), n
+        prev = stored
+    return None, n
 
 
 def verify(conn, since_ts: float | None = None, now_ts: float | None = None) -> tuple[list[Finding], dict[str, int]]:
@@ -255,18 +137,22 @@ def verify(conn, since_ts: float | None = None, now_ts: float | None = None) -> 
     for r in fold_rows:
         if r["next_id"]:
             folds.setdefault(f"{r['tbl']}/{r['zone']}", {}).setdefault(r["next_id"], []).append(r["prev_chain"])
-    jobs = []
-    for chain, table, id_col, sql, args, fields, scope, scope_args, first in _plans(conn, since_ts):
-        prev = conn.execute(
-            f"SELECT chain FROM {table} WHERE {scope}{id_col} < ? ORDER BY {id_col} DESC LIMIT 1", (*scope_args, first)
-        ).fetchone()
-        key = chain if table == "readings" else f"{table}/"
-        hashed_from = meta.get(f"chained_from:{table}", 0.0)
-        jobs.append((chain, sql, args, len(fields), folds.get(key, {}), prev[0] if prev else None, hashed_from))
-    for chain, found, n in _walk_all(conn, jobs):
-        findings += found
-        if n is not None:
-            counts[chain] = n
+    zones = reading_zones(conn)
+    first = min((_first_id(conn, "readings", "ts", since_ts, "zone = ? AND ", (z,)) for z in zones), default=0)
+    hashed_from = meta.get("chained_from:readings", 0.0)
+    walked, breaks = walk.walk_readings(conn, zones, first, folds, hashed_from)
+    findings += breaks
+    broken = {f.chain for f in breaks}
+    counts.update({f"readings/{z}": walked.get(z, 0) for z in zones if f"readings/{z}" not in broken})
+    for name, fields, time_col in LOGS:
+        start = _first_id(conn, name, time_col, since_ts) if time_col else 0
+        found, n = _walk_log(
+            conn, name, fields, start, folds.get(f"{name}/", {}), meta.get(f"chained_from:{name}", 0.0)
+        )
+        if found is None:
+            counts[name] = n
+        else:
+            findings.append(found)
     counts["chain_folds"] = len(fold_rows)
     if fold_break is not None:
         findings.append(fold_break)
