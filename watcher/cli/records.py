@@ -11,7 +11,7 @@ import click
 
 from watcher.cli.app import main
 from watcher.cli.common import config_option, database_of, db_options, site_tz, site_unit, stamp, table
-from watcher.errors import InputError
+from watcher.errors import InputError, StoreError
 
 
 @main.command()
@@ -151,23 +151,50 @@ def verify(since, config_path, db_path) -> None:
             since_ts = dt.datetime.fromisoformat(since).replace(tzinfo=dt.UTC).timestamp()
         except ValueError:
             raise InputError("--since", since, "a date such as 2026-11-23") from None
-    store = Store(database_of(config_path, db_path), readonly=True)
+    path = database_of(config_path, db_path)
+    store = Store(path, readonly=True)
     try:
+        mark = store.record.newest_mark() if since_ts is not None else None
         findings, counts = store.record.verify(since_ts)
+        heads = store.record.verified
     finally:
         store.close()
     for name, n in sorted(counts.items()):
         click.echo(f"{name:<32} {n:>10} rows checked")
+    if mark is not None:
+        click.echo(
+            f"Hashed from {since}, or from verification mark {mark['id']} ({stamp(mark['wall_ts'], 'UTC')}) where that "
+            "is later: the rows before the mark were hashed by that verification and the rows it names still hold "
+            "its hashes. `watcher verify` without --since hashes everything again."
+        )
     if not findings:
         click.echo(
             "Record intact: every chain recomputes to its stored hashes and nothing checked is missing"
             + (f" (from {since})." if since else ".")
         )
+        _record_mark(path, heads, since_ts)
         return
     for f in findings:
         where = f" row {f.row_id}" if f.row_id else ""
         click.echo(f"{f.kind} {f.chain}{where}: {f.what}")
     sys.exit(1)
+
+
+def _record_mark(path: str, heads: dict, since_ts: float | None) -> None:
+    """Record the intact verification as a mark (store/marks.py): the next `--since` and the
+    daily check hash only what comes after it. Someone allowed to read the record but not to
+    write it still gets the verification, without the mark."""
+    from watcher.store.db import Store
+
+    try:
+        store = Store(path)
+        try:
+            with store.atomic():
+                store.record.mark(heads, since_ts)
+        finally:
+            store.close()
+    except StoreError as exc:
+        click.echo(f"(no verification mark recorded: {exc})")
 
 
 @main.command()

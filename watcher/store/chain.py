@@ -28,7 +28,7 @@ import json
 import math
 import time
 
-from watcher.store import walk
+from watcher.store import marks, walk
 from watcher.store.hashing import READING_FIELDS, Finding, chain_hash, register
 
 __all__ = ["READING_FIELDS", "Finding", "chain_hash", "register"]
@@ -40,6 +40,7 @@ REJECTION_FIELDS = ("received_ts", "topic", "reason", "payload", "n")
 FOLD_FIELDS = ("tbl", "zone", "next_id", "prev_chain", "cutoff_ts", "folded", "wall_ts")
 LOGS = (("alert_log", ALERT_LOG_FIELDS, "wall_ts"), ("event_log", EVENT_LOG_FIELDS, None))
 LOGS += (("lot_events", LOT_EVENT_FIELDS, "received_ts"), ("rejections", REJECTION_FIELDS, "received_ts"))
+LOGS += (("verify_marks", marks.MARK_FIELDS, "wall_ts"),)
 CHAINED_TABLES = tuple((name, "id") for name in ("readings", *(t for t, _, _ in LOGS))) + (("chain_folds", "rowid"),)
 MIN_RETENTION_S = 366 * 86400.0  # storage.raw_retention_days cannot be set lower
 CLOCK_SLACK_S = 86400.0
@@ -124,7 +125,9 @@ def verify(conn, since_ts: float | None = None, now_ts: float | None = None) -> 
 
     Returns the findings (the first break of each chain, then every missing part) and rows
     checked per chain. With since_ts, each chain starts at its first row at or after that
-    time, trusting the stored hash of the row before it.
+    time, or after the newest verification mark's row if that is later (store/marks.py),
+    trusting the stored hash of the row before it; the rows the mark names must still hold
+    the hashes it recorded.
     """
     meta = _meta(conn)
     findings: list[Finding] = []
@@ -137,15 +140,23 @@ def verify(conn, since_ts: float | None = None, now_ts: float | None = None) -> 
     for r in fold_rows:
         if r["next_id"]:
             folds.setdefault(f"{r['tbl']}/{r['zone']}", {}).setdefault(r["next_id"], []).append(r["prev_chain"])
+    mark = marks.newest(conn)
+    since_mark = mark if since_ts is not None else None
     zones = reading_zones(conn)
-    first = min((_first_id(conn, "readings", "ts", since_ts, "zone = ? AND ", (z,)) for z in zones), default=0)
+    starts = []
+    for zone in zones:
+        start = marks.start_after(
+            since_mark, f"readings/{zone}", _first_id(conn, "readings", "ts", since_ts, "zone = ? AND ", (zone,))
+        )
+        if conn.execute("SELECT 1 FROM readings WHERE zone = ? AND id >= ? LIMIT 1", (zone, start)).fetchone():
+            starts.append(start)  # a zone with nothing to walk does not hold the walk's start back
     hashed_from = meta.get("chained_from:readings", 0.0)
-    walked, breaks = walk.walk_readings(conn, zones, first, folds, hashed_from)
+    walked, breaks = walk.walk_readings(conn, zones, min(starts, default=1 << 62), folds, hashed_from)
     findings += breaks
     broken = {f.chain for f in breaks}
     counts.update({f"readings/{z}": walked.get(z, 0) for z in zones if f"readings/{z}" not in broken})
     for name, fields, time_col in LOGS:
-        start = _first_id(conn, name, time_col, since_ts) if time_col else 0
+        start = marks.start_after(since_mark, name, _first_id(conn, name, time_col, since_ts) if time_col else 0)
         found, n = _walk_log(
             conn, name, fields, start, folds.get(f"{name}/", {}), meta.get(f"chained_from:{name}", 0.0)
         )
@@ -153,6 +164,7 @@ def verify(conn, since_ts: float | None = None, now_ts: float | None = None) -> 
             counts[name] = n
         else:
             findings.append(found)
+    findings += marks.check_positions(conn, mark)
     counts["chain_folds"] = len(fold_rows)
     if fold_break is not None:
         findings.append(fold_break)

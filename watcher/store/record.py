@@ -3,7 +3,9 @@ and `verify` (every chain, the fold passes, lengths, and the checks between tabl
 
 from __future__ import annotations
 
-from watcher.store import chain, crosscheck
+import time
+
+from watcher.store import chain, crosscheck, marks
 from watcher.store.repo import Repo
 
 COUNTED_TABLES = frozenset(
@@ -49,8 +51,26 @@ class Record(Repo):
         return chain.heads(self.conn)
 
     def verify(self, since_ts: float | None = None) -> tuple[list[chain.Finding], dict[str, int]]:
-        """Everything `watcher verify` checks: the findings, and rows checked per chain."""
-        findings, counts = chain.verify(self.conn, since_ts)
-        findings += chain.check_reports(self.conn, exact=since_ts is None) + chain.check_lots(self.conn)
-        findings += crosscheck.check_alerts(self.conn) + crosscheck.check_outbox(self.conn)
+        """Everything `watcher verify` checks: the findings, and rows checked per chain. It reads
+        one snapshot of the record; `self.verified` holds the chains' heads in it (what a mark
+        of this verification records)."""
+        begun = not self.conn.in_transaction
+        if begun:
+            self.conn.execute("BEGIN")
+        try:
+            self.verified = chain.heads(self.conn)
+            findings, counts = chain.verify(self.conn, since_ts)
+            findings += chain.check_reports(self.conn, exact=since_ts is None) + chain.check_lots(self.conn)
+            findings += crosscheck.check_alerts(self.conn) + crosscheck.check_outbox(self.conn)
+        finally:
+            if begun:
+                self.conn.execute("COMMIT")
         return findings, counts
+
+    def newest_mark(self) -> dict | None:
+        """The newest verification mark (store/marks.py), or None."""
+        return marks.newest(self.conn)
+
+    def mark(self, heads: dict[str, list], since_ts: float | None, wall_ts: float | None = None) -> None:
+        """Record an intact verification of the chains up to these heads."""
+        marks.add(self.conn, heads, since_ts, time.time() if wall_ts is None else wall_ts)

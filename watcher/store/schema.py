@@ -188,7 +188,8 @@ def m008_record_seal(db: sqlite_utils.Database) -> None:
         """
     )
     conn = db.conn
-    for table, id_col in chain.CHAINED_TABLES:
+    tables = ("readings", "alert_log", "event_log", "lot_events", "rejections")  # the chains as they were then
+    for table, id_col in (*((t, "id") for t in tables), ("chain_folds", "rowid")):
         first = conn.execute(f"SELECT coalesce(max({id_col}), 0) + 1 FROM {table} WHERE chain IS NULL").fetchone()[0]
         conn.execute("INSERT INTO record_meta (key, value) VALUES (?, ?)", (f"chained_from:{table}", first))
     # Raw readings folded before passes were recorded: one pass row per zone says how many.
@@ -311,3 +312,15 @@ def m014_reading_counts(db: sqlite_utils.Database) -> None:
             "INSERT INTO reading_counts (zone, rows) VALUES (?, ?) ON CONFLICT(zone) DO UPDATE SET rows = rows + ?",
             (zone, folded, folded),
         )
+
+
+@migrations()
+def m015_verify_marks(db: sqlite_utils.Database) -> None:
+    """Verification marks: what each intact `verify` proved (every chain's position and hash),
+    itself a chain, so `verify --since` and the daily check hash only what came after."""
+    conn = db.conn
+    conn.execute(
+        "CREATE TABLE verify_marks (id INTEGER PRIMARY KEY, wall_ts REAL NOT NULL, since_ts REAL, "
+        "heads TEXT NOT NULL, chain TEXT)"
+    )
+    conn.execute("INSERT INTO record_meta (key, value) VALUES ('chained_from:verify_marks', 0)")
