@@ -73,13 +73,13 @@ def test_month_first_fahrenheit_export_and_an_ambiguous_one(tmp_path):
     us = tmp_path / "us.csv"
     us.write_text('"Time","Temp (F)"\n"11/13/2026 08:00:00 AM","-13.0"\n"11/13/2026 01:00:00 PM","-4.0"\n')
     got = read_export(str(us), ColumnMap(time="Time", value="Temp (F)", unit="F"), "America/Chicago")
-    assert got.time_format == "%m/%d/%Y %I:%M:%S %p" and [r[2] for r in got.rows] == [-13.0, -4.0]
+    assert got.time_format == "%m/%d/%Y %I:%M:%S %p" and [r[2] for r in got.records()] == [-13.0, -4.0]
     ambiguous = tmp_path / "amb.csv"
     ambiguous.write_text("when,t\n03/04/2026 08:00,-24.0\n04/05/2026 08:00,-24.1\n")
     with pytest.raises(SeriesError, match="both day-first and month-first fit every row; give --time-format"):
         read_export(str(ambiguous), ColumnMap(time="when", value="t"), "UTC")
     chosen = read_export(str(ambiguous), ColumnMap(time="when", value="t"), "UTC", "%d/%m/%Y %H:%M")
-    assert datetime.fromtimestamp(chosen.rows[0][1], ZoneInfo("UTC")).month == 4
+    assert datetime.fromtimestamp(next(chosen.records())[1], ZoneInfo("UTC")).month == 4
     out = run("import", "--config", str(config(tmp_path)), str(us), "--map", "time=Time,value=Temp (F),unit=F")
     assert "2 readings taken" in out.stdout, out.stdout + out.stderr
 

@@ -59,8 +59,9 @@ def replay_file(cfg: Config, path: str, progress=None) -> Counter:
 
 def feed(cfg: Config, items: Iterable[tuple[Reading, str]], label: str, progress=None, refused=()) -> Counter:
     """(reading, topic) pairs through the service's engine in time order, in batches, with a
-    progress bar for long inputs; `refused` rows (topic, reason, row) are stored as rejections
-    in the same record. Returns the engine's counts.
+    progress bar for long inputs; `refused` rows (topic, reason, row), which may be filled as
+    the items are read, are stored as rejections in the same record. Returns the engine's
+    counts.
 
     The pairs are staged on disk first (store/staging.py): every one is read and checked
     before any reaches the record, and they come back in time order with memory flat."""
@@ -112,18 +113,20 @@ def import_export(cfg: Config, path: str, cmap: ColumnMap, time_format: str | No
     sensor = cmap.sensor or Path(path).stem
     topic = f"import:{Path(path).name}"
     lo, hi = cfg.ingest.limits.temp_range_c
-    items, refused = [], [(topic, f"line {line}: {why}", row) for line, why, row in export.refused]
-    for line, ts, value, row in export.rows:
-        if cmap.signal in TEMPERATURE_SIGNALS:
-            value = (value - 32.0) * 5.0 / 9.0 if cmap.unit == "F" else value
-            if not lo <= value <= hi:
-                refused.append(
-                    (topic, f"line {line}: temperature {value:.2f} C outside [{lo}, {hi}] (sensor fault?)", row)
-                )
+    refused: list[tuple[str, str, str]] = []  # filled as the rows are read; stored after them
+
+    def items() -> Iterator[tuple[Reading, str]]:
+        for line, ts, value, row, why in export.records():
+            if why is None and cmap.signal in TEMPERATURE_SIGNALS:
+                value = (value - 32.0) * 5.0 / 9.0 if cmap.unit == "F" else value
+                if not lo <= value <= hi:
+                    why = f"temperature {value:.2f} C outside [{lo}, {hi}] (sensor fault?)"
+            elif why is None and value not in (0.0, 1.0):
+                why = f"state {value:g} is not 0 or 1"
+            if why is not None:
+                refused.append((topic, f"line {line}: {why}", row))
                 continue
-        elif value not in (0.0, 1.0):
-            refused.append((topic, f"line {line}: state {value:g} is not 0 or 1", row))
-            continue
-        items.append((Reading(zone, sensor, cmap.signal, round(ts, 3), value), topic))
-    counts = feed(cfg, items, "importing", progress, refused)
+            yield Reading(zone, sensor, cmap.signal, round(ts, 3), value), topic
+
+    counts = feed(cfg, items(), "importing", progress, refused)
     return counts, export, refused

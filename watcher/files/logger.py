@@ -2,15 +2,22 @@
 commas, lines of preamble above the header, its own time format (found from the rows, or
 given), local times in the site's time zone, a UTF-8 or Windows-1252 file. Each row becomes a
 (line, time, value) or a refusal naming the line, the column, the value and what was expected.
+
+The file is read as a stream, never whole (memory flat for any export): one pass finds its
+encoding, one its header and time format from the first rows, and the rows are read as they
+are consumed.
 """
 
 from __future__ import annotations
 
+import codecs
 import csv
+import itertools
 import math
 import re
 from collections import Counter
-from dataclasses import dataclass, field
+from collections.abc import Iterator
+from dataclasses import dataclass
 from datetime import datetime
 from pathlib import Path
 from zoneinfo import ZoneInfo
@@ -49,10 +56,53 @@ class ColumnMap:
 
 @dataclass
 class Export:
-    rows: list[tuple[int, float, float, str]] = field(default_factory=list)  # (line, epoch s, value, the row)
-    refused: list[tuple[int, str, str]] = field(default_factory=list)  # (line, reason, the row as written)
-    time_format: str = ""
-    delimiter: str = ","
+    path: Path
+    encoding: str
+    delimiter: str
+    head_at: int  # the header's index among the file's lines
+    columns: tuple[int, int]  # the time and value columns' indexes
+    names: tuple[str, str]  # their names
+    time_format: str
+    tz: str
+
+    def records(self) -> Iterator[tuple[int, float | None, float | None, str, str | None]]:
+        """(line, epoch s, value, the row as written, None) for each row read, or (line, None,
+        None, the row, why) for one refused; as the file is read."""
+        (ti, vi), (tname, vname) = self.columns, self.names
+        zone = ZoneInfo(self.tz)
+        d = self.delimiter
+        table = csv.reader(_lines(self.path, self.encoding), delimiter=d)
+        for k, row in enumerate(itertools.islice(table, self.head_at + 1, None)):
+            if not any(c.strip() for c in row):
+                continue
+            line = self.head_at + 2 + k
+            if len(row) <= max(ti, vi):
+                yield line, None, None, d.join(row), f"{len(row)} columns, expected {tname!r} and {vname!r}"
+                continue
+            raw_t, raw_v = row[ti].strip(), row[vi].strip()
+            try:
+                stamp = datetime.strptime(raw_t, self.time_format)
+            except ValueError:
+                yield (
+                    line,
+                    None,
+                    None,
+                    d.join(row),
+                    f"column {tname}: {raw_t!r} is not a time in the form {self.time_format}",
+                )
+                continue
+            text = raw_v.replace("−", "-")
+            if _DECIMAL_COMMA.match(text):
+                text = text.replace(",", ".")
+            try:
+                value = float(text)
+            except ValueError:
+                yield line, None, None, d.join(row), f"column {vname}: {raw_v!r} is not a number"
+                continue
+            if not math.isfinite(value):
+                yield line, None, None, d.join(row), f"column {vname}: {raw_v!r} is not a finite number"
+                continue
+            yield line, stamp.replace(tzinfo=zone).timestamp(), value, d.join(row), None
 
 
 def parse_map(text: str) -> ColumnMap:
@@ -80,67 +130,50 @@ def parse_map(text: str) -> ColumnMap:
     )
 
 
-def _text(path: Path) -> str:
+def _encoding(path: Path) -> str:
+    """UTF-8 (with or without its mark) when every byte decodes as that, else Windows-1252
+    (loggers' Windows exports, "°C" as 0xB0); checked in chunks, never the file whole."""
+    decoder = codecs.getincrementaldecoder("utf-8")()
     try:
-        raw = path.read_bytes()
+        with path.open("rb") as fh:
+            while chunk := fh.read(1 << 20):
+                decoder.decode(chunk)
+            decoder.decode(b"", final=True)
+    except UnicodeDecodeError:
+        return "cp1252"
     except OSError as exc:
         raise SeriesError(str(path), type(exc).__name__, f"a readable file ({exc.strerror})") from None
-    try:
-        return raw.decode("utf-8-sig")
-    except UnicodeDecodeError:
-        return raw.decode("cp1252", errors="replace")  # loggers' Windows exports ("°C" as 0xB0)
+    return "utf-8-sig"
+
+
+def _lines(path: Path, encoding: str) -> Iterator[str]:
+    """The file's lines without their ends, as they are read."""
+    with path.open(encoding=encoding, errors="replace", newline=None) as fh:
+        for line in fh:
+            yield line.rstrip("\n")
 
 
 def read_export(path: str, cmap: ColumnMap, tz: str, time_format: str | None = None) -> Export:
+    """The export's layout (delimiter, header, time format) from its first lines and rows; its
+    rows come from Export.records() as the file is read."""
     p = Path(path)
-    lines = _text(p).splitlines()
-    delimiter = _delimiter(lines[:200])
-    table = list(csv.reader(lines, delimiter=delimiter))
-    head_at = next(
-        (
-            i
-            for i, row in enumerate(table)
-            if cmap.time in [c.strip() for c in row] and cmap.value in [c.strip() for c in row]
-        ),
-        None,
-    )
+    encoding = _encoding(p)
+    delimiter = _delimiter(list(itertools.islice(_lines(p, encoding), 200)))
+    table = csv.reader(_lines(p, encoding), delimiter=delimiter)
+    head_at, header = None, []
+    for i, row in enumerate(table):
+        cells = [c.strip() for c in row]
+        if cmap.time in cells and cmap.value in cells:
+            head_at, header = i, cells
+            break
     if head_at is None:
         raise SeriesError(f"{p}: header", cmap.time + ", " + cmap.value, "a header line naming both mapped columns")
-    header = [c.strip() for c in table[head_at]]
     ti, vi = header.index(cmap.time), header.index(cmap.value)
-    body = [(head_at + 2 + k, row) for k, row in enumerate(table[head_at + 1 :]) if any(c.strip() for c in row)]
-    if not body:
+    probe = [row for row in itertools.islice((r for r in table if any(c.strip() for c in r)), 500)]
+    if not probe:
         raise SeriesError(str(p), "no data rows", "rows under the header")
-    fmt = time_format or _find_format([row[ti].strip() for _, row in body if len(row) > ti], p)
-    zone = ZoneInfo(tz)
-    out = Export(time_format=fmt, delimiter=delimiter)
-    for line, row in body:
-        if len(row) <= max(ti, vi):
-            out.refused.append(
-                (line, f"{len(row)} columns, expected {cmap.time!r} and {cmap.value!r}", delimiter.join(row))
-            )
-            continue
-        raw_t, raw_v = row[ti].strip(), row[vi].strip()
-        try:
-            stamp = datetime.strptime(raw_t, fmt)
-        except ValueError:
-            out.refused.append(
-                (line, f"column {cmap.time}: {raw_t!r} is not a time in the form {fmt}", delimiter.join(row))
-            )
-            continue
-        text = raw_v.replace("−", "-")
-        if _DECIMAL_COMMA.match(text):
-            text = text.replace(",", ".")
-        try:
-            value = float(text)
-        except ValueError:
-            out.refused.append((line, f"column {cmap.value}: {raw_v!r} is not a number", delimiter.join(row)))
-            continue
-        if not math.isfinite(value):
-            out.refused.append((line, f"column {cmap.value}: {raw_v!r} is not a finite number", delimiter.join(row)))
-            continue
-        out.rows.append((line, stamp.replace(tzinfo=zone).timestamp(), value, delimiter.join(row)))
-    return out
+    fmt = time_format or _find_format([row[ti].strip() for row in probe if len(row) > ti], p)
+    return Export(p, encoding, delimiter, head_at, (ti, vi), (cmap.time, cmap.value), fmt, tz)
 
 
 def _delimiter(lines: list[str]) -> str:
