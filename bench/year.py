@@ -9,6 +9,12 @@ command runs as its own process and its wall time and peak resident memory are p
 
 - `watcher report` of the last week, `watcher verify`, `watcher verify --since` (last week),
   `watcher status`; the replay of the week's file itself (its memory is the replay figure);
+- `verify --since` twice: before the full verify (the week is new since the last mark, as for
+  a weekly check) and after it (nothing new: the cost of a check with nothing to hash);
+- live ingest on this database against an empty one, in the same run (median of 3 each,
+  alternating): messages parsed, stored with the chain, committed with synchronous=FULL and fed
+  to the model, a minute of every sensor a batch; the broker's part does not depend on
+  history and is left out (bench/service_ingest.py measures it);
 - the database's bytes a reading (file size over rows, indexes included).
 
 Usage: python bench/year.py [--sensors 200] [--steps 1,4,13] [--year] [--folder DIR]
@@ -21,9 +27,12 @@ from __future__ import annotations
 
 import argparse
 import datetime as dt
+import json
+import statistics
 import subprocess
 import sys
 import tempfile
+import time
 from pathlib import Path
 
 import numpy as np
@@ -32,8 +41,10 @@ ROOT = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(ROOT))
 
 from watcher.config import load_config  # noqa: E402
+from watcher.engine.batch import Engine, Message  # noqa: E402
 from watcher.ingest.payload import Reading  # noqa: E402
 from watcher.replay import feed  # noqa: E402
+from watcher.store.db import Store  # noqa: E402
 
 WEEK_S = 7 * 86400.0
 #: Monday 2026-11-02 00:00 UTC minus 60 weeks: a year of history ends before today.
@@ -97,6 +108,46 @@ def write_csv(path: Path, start_ts: float, zones: int, seed: int) -> int:
     return n
 
 
+def live_rate(cfg_path: Path, start_ts: float, zones: int, minutes: int) -> float:
+    """Readings a second through the live path from start_ts on (the engine's start left out)."""
+    cfg = load_config(str(cfg_path))
+    store = Store(cfg.storage.path)
+    try:
+        engine = Engine(cfg, store)
+        rng = np.random.default_rng(int(start_ts))
+        batches = []
+        for m in range(minutes):
+            ts = start_ts + 60.0 * m
+            values = rng.normal(-25.0, 0.3, zones * PER_ZONE).round(2)
+            batches.append(
+                [
+                    Message(f"yr/z{k // PER_ZONE:02d}/s{k % PER_ZONE}/air", json.dumps({"value": v}).encode(), ts, 0, 1)
+                    for k, v in enumerate(values.tolist())
+                ]
+            )
+        t = time.perf_counter()
+        for batch in batches:
+            engine.process(batch, now=batch[0].received_ts)
+        return sum(len(b) for b in batches) / (time.perf_counter() - t)
+    finally:
+        store.close()
+
+
+def live_ratio(cfg: Path, start_ts: float, zones: int, minutes: int = 120) -> tuple[float, float]:
+    """Median live rate on this database and on an empty one beside it (same run, alternating)."""
+    empty = cfg.parent / "empty"
+    empty.mkdir(exist_ok=True)
+    empty_cfg = empty / "year.toml"
+    empty_cfg.write_text(config_text(empty, zones))
+    big, small = [], []
+    for k in range(3):
+        big.append(live_rate(cfg, start_ts + k * minutes * 60.0, zones, minutes))
+        small.append(live_rate(empty_cfg, start_ts + k * minutes * 60.0, zones, minutes))
+    for p in empty.glob("year.db*"):
+        p.unlink()
+    return statistics.median(big), statistics.median(small)
+
+
 def measured(args: list[str], cwd: Path) -> tuple[float, float, str]:
     """Wall seconds, peak resident MB and stdout of one command in its own process."""
     cmd = ["/usr/bin/time", "-f", "%e %M", sys.executable, "-m", "watcher", *args]
@@ -123,7 +174,7 @@ def main() -> None:
     print(f"site: {zones} zones x {PER_ZONE} sensors, one reading a minute ({a.sensors * 10080:,} a week); {folder}")
     header = (
         f"{'weeks':>5} {'rows':>12} {'B/row':>6} {'replay s':>8} {'MB':>6} {'report s':>8} {'MB':>6} "
-        f"{'verify s':>8} {'rows/s':>9} {'since s':>7} {'status s':>8}"
+        f"{'verify s':>8} {'rows/s':>9} {'since s':>7} {'marked s':>8} {'status s':>8} {'live/s':>7} {'empty/s':>7}"
     )
     print(header)
     weeks_done = 0
@@ -140,15 +191,18 @@ def main() -> None:
         report_s, report_mb, _ = measured(
             ["report", "--config", str(cfg), "--week", f"{y}-W{wk:02d}", "--format", "json"], folder
         )
-        verify_s, _, out = measured(["verify", "--config", str(cfg)], folder)
         since = dt.datetime.fromtimestamp(last_start, tz=dt.UTC).strftime("%Y-%m-%d")
         since_s, _, _ = measured(["verify", "--config", str(cfg), "--since", since], folder)
+        verify_s, _, out = measured(["verify", "--config", str(cfg)], folder)
+        marked_s, _, _ = measured(["verify", "--config", str(cfg), "--since", since], folder)
         status_s, _, _ = measured(["status", "--config", str(cfg)], folder)
         rows = a.sensors * 10080 * step
         size = sum(p.stat().st_size for p in folder.glob("year.db*"))
+        live, empty = live_ratio(cfg, T0 + step * WEEK_S, zones)
         print(
             f"{step:5d} {rows:12,d} {size / rows:6.0f} {replay_s:8.1f} {replay_mb:6.0f} {report_s:8.1f} "
-            f"{report_mb:6.0f} {verify_s:8.1f} {rows / verify_s:9,.0f} {since_s:7.1f} {status_s:8.1f}",
+            f"{report_mb:6.0f} {verify_s:8.1f} {rows / verify_s:9,.0f} {since_s:7.1f} {marked_s:8.1f} {status_s:8.1f} "
+            f"{live:7,.0f} {empty:7,.0f}  (live ingest ratio {live / empty:.2f})",
             flush=True,
         )
 
