@@ -68,7 +68,9 @@ def test_readings_written_before_their_counts_were_kept_are_counted_once(tmp_pat
     then on every write adds to the count, and a full verify finds the counts and the rows agree."""
     from watcher.ingest.payload import Reading
     from watcher.store import chain
-    from watcher.store.readings import READING_INSERT
+
+    # The per-row insert of the layout before m016 (readings a table, each row's hash in SQL).
+    reading_insert = chain.insert_sql("readings", chain.READING_FIELDS, zone_scoped=True, verb="INSERT OR IGNORE")
 
     path = str(tmp_path / "old.db")
     conn = sqlite3.connect(path, isolation_level=None)
@@ -77,7 +79,7 @@ def test_readings_written_before_their_counts_were_kept_are_counted_once(tmp_pat
     migrations.apply(db, stop_before="m014_reading_counts")
     for k in range(40):
         values = ("bulk-a", "s1", "air_c", 1_795_000_000.0 + 60 * k, -25.0, 0.0, "t", 0)
-        conn.execute(READING_INSERT, chain.params(values, "bulk-a"))
+        conn.execute(reading_insert, chain.params(values, "bulk-a"))
     chain.add_fold(conn, "readings", "bulk-a", [], 25, 1_795_000_000.0 - 400 * 86400, 1_795_000_000.0)
     conn.execute(
         "INSERT INTO readings_hourly (zone, sensor, signal, hour_ts, mean, min, max, n) "

@@ -86,12 +86,11 @@ def _meta(conn) -> dict[str, float]:
 
 
 def reading_zones(conn) -> list[str]:
-    """The zones that have readings, one index seek each (a skip scan), whatever the history."""
-    zones: list[str] = []
-    sql = "SELECT zone FROM readings WHERE zone > ? ORDER BY zone LIMIT 1"
-    while row := conn.execute(sql, (zones[-1] if zones else "",)).fetchone():
-        zones.append(row[0])
-    return zones
+    """The zones that have readings (an index seek a series), whatever the history."""
+    sql = (
+        "SELECT DISTINCT zone FROM series s WHERE EXISTS (SELECT 1 FROM reading_rows WHERE series = s.id) ORDER BY zone"
+    )
+    return [z for (z,) in conn.execute(sql)]
 
 
 def _first_id(conn, table: str, time_col: str, since_ts: float | None, scope: str = "", args: tuple = ()) -> int:
@@ -136,22 +135,19 @@ def verify(conn, since_ts: float | None = None, now_ts: float | None = None) -> 
         if f"chained_from:{table}" not in meta:
             findings.append(Finding(table, 0, "the record of where its hashing began (record_meta) is gone", "MISSING"))
     fold_rows, fold_break = _fold_rows(conn, meta)
-    folds: dict[str, dict[int, list[str]]] = {}
-    for r in fold_rows:
-        if r["next_id"]:
-            folds.setdefault(f"{r['tbl']}/{r['zone']}", {}).setdefault(r["next_id"], []).append(r["prev_chain"])
+    folds = _links(fold_rows)
     mark = marks.newest(conn)
     since_mark = mark if since_ts is not None else None
     zones = reading_zones(conn)
-    starts = []
+    firsts = {}
     for zone in zones:
-        start = marks.start_after(
-            since_mark, f"readings/{zone}", _first_id(conn, "readings", "ts", since_ts, "zone = ? AND ", (zone,))
-        )
-        if conn.execute("SELECT 1 FROM readings WHERE zone = ? AND id >= ? LIMIT 1", (zone, start)).fetchone():
-            starts.append(start)  # a zone with nothing to walk does not hold the walk's start back
+        since_first = _first_id(conn, "readings", "ts", since_ts, "zone = ? AND ", (zone,))
+        start = marks.start_after(since_mark, f"readings/{zone}", since_first)
+        last = walk.head_row(conn, zone)
+        if last is not None and last[0] >= start:
+            firsts[zone] = start  # a zone with nothing to walk does not hold the walk's start back
     hashed_from = meta.get("chained_from:readings", 0.0)
-    walked, breaks = walk.walk_readings(conn, zones, min(starts, default=1 << 62), folds, hashed_from)
+    walked, breaks = walk.walk_readings(conn, firsts, folds, hashed_from)
     findings += breaks
     broken = {f.chain for f in breaks}
     counts.update({f"readings/{z}": walked.get(z, 0) for z in zones if f"readings/{z}" not in broken})
@@ -174,6 +170,20 @@ def verify(conn, since_ts: float | None = None, now_ts: float | None = None) -> 
     if since_ts is None:
         findings += check_counts(conn, have)
     return findings, counts
+
+
+def _links(fold_rows: list[dict]) -> dict[str, dict[int, list[str]]]:
+    """{chain: {row: [hashes of the deleted rows before it]}} from the fold record."""
+    folds: dict[str, dict[int, list[str]]] = {}
+    for r in fold_rows:
+        if r["next_id"]:
+            folds.setdefault(f"{r['tbl']}/{r['zone']}", {}).setdefault(r["next_id"], []).append(r["prev_chain"])
+    return folds
+
+
+def fold_links(conn) -> dict[str, dict[int, list[str]]]:
+    """The fold record's links, as verify reads them (those that hash into the fold chain)."""
+    return _links(_fold_rows(conn, _meta(conn))[0])
 
 
 def _fold_rows(conn, meta) -> tuple[list[dict], Finding | None]:
@@ -254,7 +264,10 @@ def lengths(conn, fold_rows: list[dict] | None = None, exact: bool = True) -> di
     if exact:
         if fold_rows is None:
             fold_rows = _fold_rows(conn, _meta(conn))[0]
-        for zone, n in conn.execute("SELECT zone, count(*) FROM readings GROUP BY zone"):
+        for zone, n in conn.execute(
+            "SELECT s.zone, sum(n) FROM (SELECT series, count(*) AS n FROM reading_rows GROUP BY series) "
+            "JOIN series s ON s.id = series GROUP BY s.zone"
+        ):
             out[f"readings/{zone}"] = n
         for p in _passes(fold_rows):
             if p["tbl"] == "readings":
@@ -311,9 +324,7 @@ def heads(conn) -> dict[str, list]:
     size = lengths(conn, exact=False)
     out = {}
     for zone in reading_zones(conn):
-        row_id, chain = conn.execute(
-            "SELECT id, chain FROM readings WHERE zone = ? ORDER BY id DESC LIMIT 1", (zone,)
-        ).fetchone()
+        row_id, chain = walk.head_row(conn, zone)
         out[f"readings/{zone}"] = [row_id, chain, size.get(f"readings/{zone}", 0)]
     for table, _, _ in LOGS:
         row = conn.execute(f"SELECT id, chain FROM {table} ORDER BY id DESC LIMIT 1").fetchone()

@@ -42,21 +42,31 @@ class ReadingHasher:
             text = self._floats[x] = repr(x + 0.0)  # -0.0 and 0.0 are one key and one text, as in chain_hash
         return text
 
+    def parts(self, zone, sensor, signal, topic, late) -> tuple[str, str] | None:
+        """The constant text before a row's numbers and after them (None: not all names are
+        text, so the row goes the general way)."""
+        texts = self._texts.get((zone, sensor, signal, topic, late))
+        if texts is None:
+            if not all(type(x) is str for x in (zone, sensor, signal, topic)) or type(late) is not int:
+                return None
+            texts = f"\x1f{zone!r}\x1f{sensor!r}\x1f{signal!r}\x1f", f"\x1f{topic!r}\x1f{late!r}"
+            self._texts[(zone, sensor, signal, topic, late)] = texts
+        return texts
+
+    def numbers(self, prev, head: str, ts: float, value: float, received_ts: float, tail: str) -> str:
+        """The hash of a row whose constant text is (head, tail) and whose numbers are floats."""
+        f = self._floats.get
+        text = (
+            f"{prev or ''}{head}{f(ts) or self._float(ts)}\x1f{f(value) or self._float(value)}"
+            f"\x1f{f(received_ts) or self._float(received_ts)}{tail}"
+        )
+        return hashlib.sha256(text.encode()).hexdigest()
+
     def __call__(self, prev, zone, sensor, signal, ts, value, received_ts, topic, late) -> str:
-        if type(ts) is float and type(value) is float and type(received_ts) is float and type(late) is int:
-            texts = self._texts.get((zone, sensor, signal, topic, late))
-            if texts is None:
-                if not all(type(x) is str for x in (zone, sensor, signal, topic)):
-                    return chain_hash(prev, zone, sensor, signal, ts, value, received_ts, topic, late)
-                texts = f"\x1f{zone!r}\x1f{sensor!r}\x1f{signal!r}\x1f", f"\x1f{topic!r}\x1f{late!r}"
-                self._texts[(zone, sensor, signal, topic, late)] = texts
-            head, tail = texts
-            f = self._floats.get
-            text = (
-                f"{prev or ''}{head}{f(ts) or self._float(ts)}\x1f{f(value) or self._float(value)}"
-                f"\x1f{f(received_ts) or self._float(received_ts)}{tail}"
-            )
-            return hashlib.sha256(text.encode()).hexdigest()
+        if type(ts) is float and type(value) is float and type(received_ts) is float:
+            parts = self.parts(zone, sensor, signal, topic, late)
+            if parts is not None:
+                return self.numbers(prev, parts[0], ts, value, received_ts, parts[1])
         return chain_hash(prev, zone, sensor, signal, ts, value, received_ts, topic, late)
 
 
@@ -70,3 +80,4 @@ class Finding:
     row_id: int
     what: str
     kind: str = "MISMATCH"  # or "MISSING": rows, a zone or a record that should be there is not
+    last_id: int = 0  # readings: the row with the next kept hash (the break lies in row_id..last_id)

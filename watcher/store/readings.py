@@ -5,14 +5,14 @@ from __future__ import annotations
 
 from collections.abc import Iterator
 
-from watcher.store import chain
+from watcher.store import chain, walk
 from watcher.store.repo import Repo, marks, text
+from watcher.store.schema import KEEP_EVERY
 
-READING_INSERT = chain.insert_sql("readings", chain.READING_FIELDS, zone_scoped=True, verb="INSERT OR IGNORE")
-READING_INSERT_CHAINED = (
-    f"INSERT OR IGNORE INTO readings ({', '.join(chain.READING_FIELDS)}, chain) "
-    f"VALUES ({marks(len(chain.READING_FIELDS) + 1)})"
-)
+ROW_INSERT = "INSERT OR IGNORE INTO reading_rows (series, ts, value, received_ts, topic, late, chain) VALUES (?, ?, ?, ?, ?, ?, ?)"
+#: The zone's newest reading time: an index seek for each of its series (max() over the view
+#: would read every row of the zone).
+NEWEST = "SELECT max((SELECT max(ts) FROM reading_rows WHERE series = s.id)) FROM series s WHERE s.zone = ?"
 COUNT_ADD = (
     "INSERT INTO reading_counts (zone, rows) VALUES (?, ?) ON CONFLICT(zone) DO UPDATE SET rows = rows + excluded.rows"
 )
@@ -21,14 +21,47 @@ PAYLOAD_KEEP_BYTES = 512
 
 
 class Readings(Repo):
+    """Readings are written to `reading_rows` (schema m016: names interned, the hash kept on
+    some rows) and read through the `readings` view, which has the old columns."""
+
     def __init__(self, conn):
         super().__init__(conn)
-        self._heads: dict[str, str | None] = {}  # chain heads, valid while data_version holds
+        self._heads: dict[str, str | None] = {}  # each zone's running hash, valid while data_version holds
         self._heads_version = None
+        self._series: dict[tuple[str, str, str], int] = {}
+        self._topics: dict[str, int] = {}
+
+    def _series_id(self, zone: str, sensor: str, signal: str) -> int:
+        key = (zone, sensor, signal)
+        sid = self._series.get(key)
+        if sid is None:
+            self.conn.execute("INSERT OR IGNORE INTO series (zone, sensor, signal) VALUES (?, ?, ?)", key)
+            sid = self._series[key] = self.conn.execute(
+                "SELECT id FROM series WHERE zone = ? AND sensor = ? AND signal = ?", key
+            ).fetchone()[0]
+        return sid
+
+    def _topic_id(self, topic: str) -> int:
+        tid = self._topics.get(topic)
+        if tid is None:
+            self.conn.execute("INSERT OR IGNORE INTO topics (topic) VALUES (?)", (topic,))
+            tid = self._topics[topic] = self.conn.execute("SELECT id FROM topics WHERE topic = ?", (topic,)).fetchone()[
+                0
+            ]
+        return tid
+
+    def _head(self, zone: str) -> str | None:
+        """The zone's running hash: that of its newest row (whose hash is always kept)."""
+        version = self.conn.execute("PRAGMA data_version").fetchone()[0]
+        if version != self._heads_version:  # another connection has committed: heads may have moved
+            self._heads, self._heads_version = {}, version
+        if zone not in self._heads:
+            row = walk.head_row(self.conn, zone)
+            self._heads[zone] = row[1] if row else None
+        return self._heads[zone]
 
     def add(self, reading, received_ts: float, topic: str, late: bool) -> bool:
-        """Insert one reading; False when its natural key is already stored (a duplicate)."""
-        self._heads.pop(reading.zone, None)  # chained in SQL: the cached head moves
+        """Insert one reading (its hash kept); False when its natural key is already stored."""
         values = (
             reading.zone,
             reading.sensor,
@@ -39,9 +72,11 @@ class Readings(Repo):
             topic,
             int(late),
         )
-        cur = self.conn.execute(READING_INSERT, chain.params(values, reading.zone))
-        if cur.rowcount != 1:
+        head = chain.chain_hash(self._head(reading.zone), *values)
+        row = (self._series_id(*values[:3]), *values[3:6], self._topic_id(topic), int(late), head)
+        if self.conn.execute(ROW_INSERT, row).rowcount != 1:
             return False
+        self._heads[reading.zone] = head
         self.conn.execute(COUNT_ADD, (reading.zone, 1))
         return True
 
@@ -49,32 +84,27 @@ class Readings(Repo):
         """Insert (reading, received_ts, topic) rows in one statement if none is stored yet;
         otherwise insert nothing and return False (the caller goes row by row).
 
-        The chain is computed here in Python from each zone's stored head (a callback from
-        SQLite per row costs more). That is safe with other writers: in WAL mode a write from a
-        stale snapshot fails (SQLITE_BUSY_SNAPSHOT), the batch is retried and re-reads the heads.
-        """
+        The chain is computed here in Python from each zone's newest hash; the hash is kept on
+        every KEEP_EVERY-th row of a zone in the batch and on its last. That is safe with other
+        writers: in WAL mode a write from a stale snapshot fails (SQLITE_BUSY_SNAPSHOT), the
+        batch is retried and re-reads the heads."""
         self.conn.execute("SAVEPOINT bulk")
-        version = self.conn.execute("PRAGMA data_version").fetchone()[0]
-        if version != self._heads_version:  # another connection has committed: heads may have moved
-            self._heads, self._heads_version = {}, version
-        heads = {}
-        for zone in {r.zone for r, _, _ in items}:
-            if zone not in self._heads:
-                row = self.conn.execute("SELECT chain FROM readings WHERE zone = ? ORDER BY id DESC LIMIT 1", (zone,))
-                self._heads[zone] = (row.fetchone() or (None,))[0]
-            heads[zone] = self._heads[zone]
+        heads = {zone: self._head(zone) for zone in {r.zone for r, _, _ in items}}
+        last = {r.zone: i for i, (r, _, _) in enumerate(items)}
+        seen: dict[str, int] = {}
         rows = []
-        for r, rts, topic in items:
+        for i, (r, rts, topic) in enumerate(items):
             values = (r.zone, r.sensor, r.signal, r.ts, r.value, rts, topic, 0)
             heads[r.zone] = chain.chain_hash(heads[r.zone], *values)
-            rows.append((*values, heads[r.zone]))
+            seen[r.zone] = n = seen.get(r.zone, 0) + 1
+            keep = heads[r.zone] if i == last[r.zone] or n % KEEP_EVERY == 0 else None
+            rows.append(
+                (self._series_id(r.zone, r.sensor, r.signal), r.ts, r.value, rts, self._topic_id(topic), 0, keep)
+            )
         before = self.conn.total_changes
-        self.conn.executemany(READING_INSERT_CHAINED, rows)
+        self.conn.executemany(ROW_INSERT, rows)
         if self.conn.total_changes - before == len(items):
-            per_zone: dict[str, int] = {}
-            for r, _, _ in items:
-                per_zone[r.zone] = per_zone.get(r.zone, 0) + 1
-            self.conn.executemany(COUNT_ADD, per_zone.items())
+            self.conn.executemany(COUNT_ADD, seen.items())
             self.conn.execute("RELEASE SAVEPOINT bulk")
             self._heads.update(heads)
             return True
@@ -83,8 +113,9 @@ class Readings(Repo):
         return False
 
     def forget_heads(self) -> None:
-        """After a failed transaction: the cached chain heads may name rows that were rolled back."""
+        """After a failed transaction: cached heads, series and topics may name rows rolled back."""
         self._heads, self._heads_version = {}, None
+        self._series, self._topics = {}, {}
 
     def value_of(self, reading) -> float | None:
         """The stored value under the reading's natural key, if any."""
@@ -95,7 +126,10 @@ class Readings(Repo):
         return None if row is None else row[0]
 
     def sensors(self, zone: str) -> set[str]:
-        sql = "SELECT DISTINCT sensor FROM readings WHERE zone = ? UNION SELECT DISTINCT sensor FROM readings_hourly WHERE zone = ?"
+        sql = (
+            "SELECT sensor FROM series s WHERE zone = ? AND EXISTS (SELECT 1 FROM reading_rows WHERE series = s.id) "
+            "UNION SELECT DISTINCT sensor FROM readings_hourly WHERE zone = ?"
+        )
         return {r[0] for r in self.conn.execute(sql, (zone, zone))}
 
     def newest_ts(self) -> float | None:
@@ -133,15 +167,14 @@ class Readings(Repo):
         ).fetchall()
 
     def newest_of(self, zone: str) -> float | None:
-        """The time of the zone's newest stored raw reading (an index lookup)."""
-        return self.conn.execute("SELECT max(ts) FROM readings WHERE zone = ?", (zone,)).fetchone()[0]
+        """The time of the zone's newest stored raw reading (an index seek a series)."""
+        return self.conn.execute(NEWEST, (zone,)).fetchone()[0]
 
     def summary(self, zone: str) -> tuple[int, float | None]:
         """Readings stored for the zone (raw, plus those folded into hourly rows: the count kept
         as they were written) and the newest time (an index seek): no count of the history."""
         row = self.conn.execute("SELECT rows FROM reading_counts WHERE zone = ?", (zone,)).fetchone()
-        last = self.conn.execute("SELECT max(ts) FROM readings WHERE zone = ?", (zone,)).fetchone()[0]
-        return (row[0] if row else 0), last
+        return (row[0] if row else 0), self.newest_of(zone)
 
     def last_received(self, zone: str, recent_s: float = 2 * 86400.0) -> dict[tuple[str, str], float]:
         """(sensor, signal) -> newest receive time, for the signals sent at a steady rate (air and
@@ -149,7 +182,7 @@ class Readings(Repo):
         older than the zone's newest (an index range, not a scan of the zone's whole history)."""
         rows = self.conn.execute(
             "SELECT sensor, signal, max(received_ts) FROM readings WHERE zone = ? AND signal IN ('air_c', 'product_c') "
-            "AND ts >= (SELECT max(ts) FROM readings WHERE zone = ?) - ? GROUP BY sensor, signal",
+            f"AND ts >= ({NEWEST}) - ? GROUP BY sensor, signal",
             (zone, zone, recent_s),
         )
         return {(sensor, signal): t for sensor, signal, t in rows.fetchall()}
@@ -160,7 +193,7 @@ class Readings(Repo):
         out = []
         for sensor, signal, ts, value in self.conn.execute(
             "SELECT sensor, signal, max(ts), value FROM readings WHERE zone = ? AND signal IN ('door', 'defrost') "
-            "AND ts >= (SELECT max(ts) FROM readings WHERE zone = ?) - 30 * 86400.0 GROUP BY sensor, signal",
+            f"AND ts >= ({NEWEST}) - 30 * 86400.0 GROUP BY sensor, signal",
             (zone, zone),
         ).fetchall():
             since = self.conn.execute(
@@ -183,7 +216,7 @@ class Readings(Repo):
             "max = max(max, excluded.max), n = n + excluded.n",
             (zone, upto_ts),
         )
-        return cut(self.conn, "readings", zone, "ts", upto_ts, wall_ts)
+        return _cut_zone(self.conn, zone, upto_ts, wall_ts)
 
 
 class Rejections(Repo):
@@ -220,6 +253,31 @@ class Held(Repo):
 
     def remove(self, ids: list[int]) -> None:
         self.conn.executemany("DELETE FROM held WHERE id = ?", [(i,) for i in ids])
+
+
+def _cut_zone(conn, zone: str, upto_ts: float, wall_ts: float) -> int:
+    """Delete a zone's readings at or before the cut-off, keeping its chain verifiable: for
+    each surviving row whose row before it is deleted, that row's running hash (recomputed,
+    as most rows keep none) goes into the chained fold record with the pass itself."""
+    series = walk.zone_series(conn, zone)
+    in_zone = f"series IN ({marks(len(series))})"
+    n = conn.execute(f"SELECT count(*) FROM reading_rows WHERE {in_zone} AND ts <= ?", (*series, upto_ts)).fetchone()[0]
+    if not n:
+        return 0
+    pairs = conn.execute(
+        f"SELECT id, prev_id FROM (SELECT id, ts AS t, lag(id) OVER (ORDER BY id) AS prev_id, "
+        f"lag(ts) OVER (ORDER BY id) AS prev_t FROM reading_rows WHERE {in_zone}) WHERE t > ? AND prev_t <= ?",
+        (*series, upto_ts, upto_ts),
+    ).fetchall()
+    links = []
+    if pairs:
+        meta = dict(conn.execute("SELECT key, value FROM record_meta"))
+        folds = chain.fold_links(conn)
+        hashes = walk.running(conn, zone, max(p for _, p in pairs), folds, meta.get("chained_from:readings", 0.0))
+        links = [(row_id, hashes.get(prev_id)) for row_id, prev_id in pairs]
+    chain.add_fold(conn, "readings", zone, links, n, upto_ts, wall_ts)
+    conn.execute(f"DELETE FROM reading_rows WHERE {in_zone} AND ts <= ?", (*series, upto_ts))
+    return n
 
 
 def cut(conn, table: str, zone: str, time_col: str, upto_ts: float, wall_ts: float) -> int:

@@ -36,7 +36,7 @@ class Record(Repo):
         """Messages the service has dealt with: readings, rejected (a row may stand for n), held,
         lot events."""
         return self.conn.execute(
-            "SELECT (SELECT count(*) FROM readings) + (SELECT coalesce(sum(n), 0) FROM rejections) "
+            "SELECT (SELECT count(*) FROM reading_rows) + (SELECT coalesce(sum(n), 0) FROM rejections) "
             "+ (SELECT count(*) FROM held) + (SELECT count(*) FROM lot_events)"
         ).fetchone()[0]
 

@@ -66,19 +66,13 @@ class Reports(Repo):
                 yield zone, sensor, signal, times, late
 
     def _keys(self, zone: str):
-        """The zone's (sensor, signal) pairs by index seeks (a skip scan), whatever the history:
-        the next sensor after the last one, then that sensor's signals one after another."""
-        sensor = ""
-        while row := self.conn.execute(
-            "SELECT sensor FROM readings WHERE zone = ? AND sensor > ? ORDER BY sensor LIMIT 1", (zone, sensor)
-        ).fetchone():
-            sensor, signal = row[0], ""
-            while found := self.conn.execute(
-                "SELECT signal FROM readings WHERE zone = ? AND sensor = ? AND signal > ? ORDER BY signal LIMIT 1",
-                (zone, sensor, signal),
-            ).fetchone():
-                signal = found[0]
-                yield sensor, signal
+        """The zone's (sensor, signal) pairs that have raw readings (the series table; an index
+        seek each), whatever the history."""
+        yield from self.conn.execute(
+            "SELECT sensor, signal FROM series s WHERE zone = ? AND EXISTS (SELECT 1 FROM reading_rows "
+            "WHERE series = s.id) ORDER BY sensor, signal",
+            (zone,),
+        ).fetchall()
 
     def peak(self, zone: str, signal: str, start_ts: float, end_ts: float) -> float | None:
         """The highest value of a zone's signal in [start_ts, end_ts] (an index range)."""

@@ -324,3 +324,62 @@ def m015_verify_marks(db: sqlite_utils.Database) -> None:
         "heads TEXT NOT NULL, chain TEXT)"
     )
     conn.execute("INSERT INTO record_meta (key, value) VALUES ('chained_from:verify_marks', 0)")
+
+
+#: A reading's hash is kept on every this many rows of a zone, on the last row of each zone a
+#: batch writes, and on every row a summary or a verification mark names (store/walk.py).
+KEEP_EVERY = 16
+
+COMPACT = (
+    "CREATE TABLE series (id INTEGER PRIMARY KEY, zone TEXT NOT NULL, sensor TEXT NOT NULL, signal TEXT NOT NULL, "
+    "UNIQUE (zone, sensor, signal))",
+    "CREATE TABLE topics (id INTEGER PRIMARY KEY, topic TEXT NOT NULL UNIQUE)",
+    "CREATE TABLE reading_rows (id INTEGER PRIMARY KEY, series INTEGER NOT NULL, ts REAL NOT NULL, "
+    "value REAL NOT NULL, received_ts REAL NOT NULL, topic INTEGER NOT NULL, late INTEGER NOT NULL DEFAULT 0, "
+    "chain TEXT)",
+)
+COMPACT_INDEXES = (
+    "CREATE UNIQUE INDEX reading_rows_key ON reading_rows (series, ts)",
+    "CREATE INDEX reading_rows_late ON reading_rows (series, ts) WHERE late = 1",
+    "CREATE INDEX reading_rows_kept ON reading_rows (series, id) WHERE chain IS NOT NULL",
+    "CREATE VIEW readings (id, zone, sensor, signal, ts, value, received_ts, topic, late, chain) AS "
+    "SELECT r.id, s.zone, s.sensor, s.signal, r.ts, r.value, r.received_ts, t.topic, r.late, r.chain "
+    "FROM reading_rows r JOIN series s ON s.id = r.series LEFT JOIN topics t ON t.id = r.topic",
+    # For a person (or a test) editing the record by hand: the view's rows edit the table's.
+    "CREATE TRIGGER readings_update INSTEAD OF UPDATE ON readings BEGIN "
+    "UPDATE reading_rows SET ts = NEW.ts, value = NEW.value, received_ts = NEW.received_ts, late = NEW.late, "
+    "chain = NEW.chain WHERE id = OLD.id; END",
+    "CREATE TRIGGER readings_delete INSTEAD OF DELETE ON readings BEGIN DELETE FROM reading_rows WHERE id = OLD.id; END",
+)
+
+
+@migrations()
+def m016_compact_readings(db: sqlite_utils.Database) -> None:
+    """Readings in the compact layout: zone, sensor and signal (a series) and the topic
+    interned, a reading as numbers, one unique index (series, ts), and the hash kept on every
+    KEEP_EVERY-th row of a zone, on each zone's newest row and on every row a stored summary or
+    verification mark names. The chain itself does not change: the rows between two kept
+    hashes are hashed as before and checked at the next one (store/walk.py). `readings` stays
+    as a view with the old columns for every reader."""
+    conn = db.conn
+    for sql in COMPACT:
+        conn.execute(sql)
+    conn.execute("INSERT INTO series (zone, sensor, signal) SELECT DISTINCT zone, sensor, signal FROM readings")
+    conn.execute("INSERT INTO topics (topic) SELECT DISTINCT topic FROM readings")
+    pinned = {row_id for (row_id,) in conn.execute("SELECT max(id) FROM readings GROUP BY zone")}
+    for (heads,) in conn.execute("SELECT heads FROM reports UNION ALL SELECT heads FROM verify_marks").fetchall():
+        pinned |= {v[0] for k, v in json.loads(heads).items() if k.startswith("readings/")}
+    conn.execute("CREATE TEMP TABLE pinned (id INTEGER PRIMARY KEY)")
+    conn.executemany("INSERT INTO temp.pinned VALUES (?)", [(i,) for i in sorted(pinned)])
+    conn.execute(
+        "INSERT INTO reading_rows SELECT id, series, ts, value, received_ts, topic, late, "
+        f"CASE WHEN n % {KEEP_EVERY} = 0 OR id IN (SELECT id FROM temp.pinned) THEN chain END FROM ("
+        "SELECT r.id, s.id AS series, r.ts, r.value, r.received_ts, t.id AS topic, r.late, r.chain, "
+        "row_number() OVER (PARTITION BY r.zone ORDER BY r.id) AS n FROM readings r "
+        "JOIN series s ON s.zone = r.zone AND s.sensor = r.sensor AND s.signal = r.signal "
+        "JOIN topics t ON t.topic = r.topic) ORDER BY id"
+    )
+    conn.execute("DROP TABLE temp.pinned")
+    conn.execute("DROP TABLE readings")
+    for sql in COMPACT_INDEXES:
+        conn.execute(sql)

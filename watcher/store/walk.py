@@ -1,15 +1,17 @@
-"""Verify's walk over the readings: every zone's chain recomputed in one pass in row order.
+"""The readings' chains: where each zone's hash is kept, and verify's walk over them.
 
-The readings of all zones are interleaved on disk in the order they were written. Walking one
-zone at a time through its index reads every page once per zone (twenty zones: twenty reads
-of the table); one pass in row order reads each page once and carries each zone's chain in a
-dict (store/hashing.py's ReadingHasher renders each row's constant text once).
+Each zone's readings form one chain (store/chain.py): a row's hash is SHA-256 of the hash of
+the zone's row before it and the row's own fields. Since schema m016 the hash is kept (the
+`chain` column) only on some rows: every KEEP_EVERY-th row of a zone, each zone's newest row,
+and every row a stored summary or verification mark names. The rows between two kept hashes
+are hashed as before and checked at the next one, so a change to any of them still shows; a
+finding names the rows from the last hash that held to the one that does not.
 
-A big record is cut into as many row ranges as there are cores, each walked in its own
-process. A range after the first starts each zone from the stored hash of that zone's last
-row before it; the range before checks that very row against what it recomputes, so the
-pieces together prove what one pass would, and the first break of each zone is the earliest
-range's.
+The walk reads the readings of all zones in one pass in the order they were written (each
+page once) and carries each zone's running hash in a dict. A big record is cut into row
+ranges walked in worker processes, one per core: a range starts each zone from the zone's
+last kept hash before it (the range before checks that very hash), so the pieces prove what
+one pass would.
 """
 
 from __future__ import annotations
@@ -20,7 +22,7 @@ import sqlite3
 from concurrent.futures import ProcessPoolExecutor
 from pathlib import Path
 
-from watcher.store.hashing import READING_FIELDS, Finding, ReadingHasher, chain_hash
+from watcher.store.hashing import Finding, ReadingHasher, chain_hash
 
 #: Rows above which the walk runs in worker processes, one per core; below it, starting
 #: workers costs more than it saves.
@@ -32,46 +34,97 @@ BROKEN = (
 )
 
 
+def zone_series(conn, zone: str) -> list[int]:
+    return [sid for (sid,) in conn.execute("SELECT id FROM series WHERE zone = ?", (zone,))]
+
+
+def kept_before(conn, zone: str, before_id: int) -> tuple[int, str | None]:
+    """(row, hash) of the zone's last kept hash before before_id; (0, None) if none: a seek a
+    series in the index of kept hashes."""
+    best = (0, None)
+    for sid in zone_series(conn, zone):
+        row = conn.execute(
+            "SELECT id, chain FROM reading_rows WHERE series = ? AND id < ? AND chain IS NOT NULL "
+            "ORDER BY id DESC LIMIT 1",
+            (sid, before_id),
+        ).fetchone()
+        if row and row[0] > best[0]:
+            best = (row[0], row[1])
+    return best
+
+
+def head_row(conn, zone: str) -> tuple[int, str] | None:
+    """(row, hash) of the zone's newest row, whose hash is always kept; None without rows."""
+    row = kept_before(conn, zone, 1 << 62)
+    return row if row[0] else None
+
+
+def names(conn) -> tuple[dict[int, tuple[str, str, str]], dict[int, str]]:
+    series = {sid: (z, s, g) for sid, z, s, g in conn.execute("SELECT id, zone, sensor, signal FROM series")}
+    return series, dict(conn.execute("SELECT id, topic FROM topics"))
+
+
+def follow(hasher, prev, row_id: int, values: tuple, stored, links: dict) -> str:
+    """A row's running hash: from the hash before it, or, when retention deleted the rows
+    before it, from the hash its fold link recorded (the one that gives its kept hash)."""
+    candidates = links.get(row_id)
+    if candidates:
+        for p in candidates:
+            h = hasher(p, *values)
+            if stored is None or h == stored:
+                return h
+        return hasher(candidates[-1], *values)
+    return hasher(prev, *values)
+
+
 def walk_range(conn, lo: int, hi: int, starts: dict, folds: dict, hashed_from: float) -> dict[str, list]:
-    """Recompute every zone's chain over rows lo <= id < hi, each zone starting from its hash
-    in `starts` (None: the chain's first row). Returns {zone: [rows checked, first Finding or
-    None]}; a zone's walk stops at its first break."""
+    """Recompute every zone's chain over rows < hi, each zone from its (row, hash) in
+    `starts` on (rows up to that row are skipped), counting the rows from lo on. Returns
+    {zone: [rows checked, first Finding or None, newest row, whether its hash is kept, the
+    last row whose kept hash held]}."""
+    series, topics = names(conn)
     hasher = ReadingHasher()
-    prevs = dict(starts)
+    begin = {z: s[0] for z, s in starts.items()}
+    prevs = {z: s[1] for z, s in starts.items()}
+    since_ok = dict(begin)  # each zone's last row whose hash held
     out: dict[str, list] = {}
-    cols = ", ".join(READING_FIELDS)
-    cur = conn.execute(f"SELECT id, chain, {cols} FROM readings WHERE id >= ? AND id < ? ORDER BY id", (lo, hi))
+    first = min([b + 1 for b in begin.values()] + [lo])
+    cur = conn.execute(
+        "SELECT id, series, ts, value, received_ts, topic, late, chain FROM reading_rows "
+        "WHERE id >= ? AND id < ? ORDER BY id",
+        (first, hi),
+    )
     while rows := cur.fetchmany(BATCH):
-        for row_id, stored, zone, sensor, signal, ts, value, received_ts, topic, late in rows:
+        for row_id, sid, ts, value, received_ts, tid, late, stored in rows:
+            zone, sensor, signal = series[sid]
+            if zone not in begin or row_id <= begin[zone]:
+                continue  # a zone not walked, or a row before its start
             got = out.get(zone)
             if got is None:
-                got = out[zone] = [0, None]
+                got = out[zone] = [0, None, 0, False, begin[zone]]
             elif got[1] is not None:
                 continue
-            got[0] += 1
-            if stored is None:
-                if row_id >= hashed_from:
-                    what = "no hash from this row on (its chain value was removed)"
-                    got[1] = Finding(f"readings/{zone}", row_id, what, "MISSING")
-                continue  # else written before this chain was hashed (an older database)
-            if hasher(prevs.get(zone), zone, sensor, signal, ts, value, received_ts, topic, late) != stored:
-                values = (zone, sensor, signal, ts, value, received_ts, topic, late)
-                links = folds.get(f"readings/{zone}", {}).get(row_id, [])
-                if not any(chain_hash(p, *values) == stored for p in links):
-                    got[1] = Finding(f"readings/{zone}", row_id, BROKEN)
+            if row_id >= lo:
+                got[0] += 1
+            got[2], got[3] = row_id, stored is not None
+            if row_id < hashed_from:
+                continue  # written before this chain was hashed (an older database)
+            values = (zone, sensor, signal, ts, value, received_ts, topics[tid], late)
+            links = folds.get(f"readings/{zone}", {})
+            h = follow(hasher, prevs.get(zone), row_id, values, stored, links)
+            if stored is not None:
+                if h != stored:
+                    start = since_ok.get(zone, 0) + 1
+                    what = (
+                        BROKEN
+                        if start >= row_id
+                        else f"rows {start} to {row_id} do not hash to the hash kept at row {row_id}: one of them "
+                        "was altered, added or deleted, or rows just before them were deleted"
+                    )
+                    got[1] = Finding(f"readings/{zone}", start, what, last_id=row_id)
                     continue
-            prevs[zone] = stored
-    return out
-
-
-def _starts_before(conn, zones: list[str], first_id: int) -> dict[str, str | None]:
-    """Each zone's stored hash of its last row before first_id (an index seek a zone)."""
-    out = {}
-    for zone in zones:
-        row = conn.execute(
-            "SELECT chain FROM readings WHERE zone = ? AND id < ? ORDER BY id DESC LIMIT 1", (zone, first_id)
-        ).fetchone()
-        out[zone] = row[0] if row else None
+                since_ok[zone] = got[4] = row_id
+            prevs[zone] = h
     return out
 
 
@@ -83,30 +136,62 @@ def _in_worker(path: str, lo: int, hi: int, starts: dict, folds: dict, hashed_fr
         conn.close()
 
 
-def walk_readings(conn, zones: list[str], first_id: int, folds: dict, hashed_from: float):
-    """Every zone's chain from row first_id on: ({zone: rows checked} of the zones that hold,
-    [first break of each zone that does not]). In worker processes when the record is big and
-    there is more than one core."""
-    last = conn.execute("SELECT max(id) FROM readings").fetchone()[0] or 0
+def walk_readings(conn, firsts: dict[str, int], folds: dict, hashed_from: float):
+    """Every zone's chain from its row in `firsts` on: ({zone: rows checked} of the zones that
+    hold, [first break of each zone that does not]). In worker processes when the record is
+    big and there is more than one core."""
+    last = conn.execute("SELECT max(id) FROM reading_rows").fetchone()[0] or 0
+    first_id = min(firsts.values(), default=last + 1)
     path = conn.execute("PRAGMA database_list").fetchone()[2]
     workers = os.cpu_count() or 1
+    starts = {z: kept_before(conn, z, f) for z, f in firsts.items()}
     if not path or workers < 2 or last - first_id < PARALLEL_ROWS:
-        parts = [walk_range(conn, first_id, last + 1, _starts_before(conn, zones, first_id), folds, hashed_from)]
+        parts = [walk_range(conn, first_id, last + 1, starts, folds, hashed_from)]
     else:
         step = (last + 1 - first_id) // workers + 1
         bounds = [(first_id + k * step, min(first_id + (k + 1) * step, last + 1)) for k in range(workers)]
         ctx = multiprocessing.get_context("spawn")  # never fork a process holding SQLite connections
         with ProcessPoolExecutor(max_workers=workers, mp_context=ctx) as pool:
-            futures = [
-                pool.submit(_in_worker, path, lo, hi, _starts_before(conn, zones, lo), folds, hashed_from)
-                for lo, hi in bounds
-            ]
+            futures = []
+            for k, (lo, hi) in enumerate(bounds):
+                part_starts = starts if k == 0 else {z: max(starts[z], kept_before(conn, z, lo)) for z in firsts}
+                futures.append(pool.submit(_in_worker, path, lo, hi, part_starts, folds, hashed_from))
             parts = [f.result() for f in futures]
     counts: dict[str, int] = {}
     breaks: dict[str, Finding] = {}
+    newest: dict[str, tuple[int, bool, int]] = {}
     for part in parts:  # in row order: a zone's first break is the earliest range's
-        for zone, (n, found) in part.items():
+        for zone, (n, found, row_id, kept, ok_id) in part.items():
             counts[zone] = counts.get(zone, 0) + n
             if found is not None and zone not in breaks:
                 breaks[zone] = found
+            if row_id:
+                ok_id = max(ok_id, newest.get(zone, (0, False, 0))[2])
+                newest[zone] = (row_id, kept, ok_id)
+    for zone, (row_id, kept, ok_id) in newest.items():
+        if not kept and zone not in breaks:
+            what = (
+                f"no hash from this row on is kept, up to the zone's newest row {row_id}, which must keep one: "
+                "hashes were removed, or rows after the last one deleted"
+            )
+            breaks[zone] = Finding(f"readings/{zone}", ok_id + 1, what, "MISSING", last_id=row_id)
     return {z: n for z, n in counts.items() if z not in breaks}, [breaks[z] for z in sorted(breaks)]
+
+
+def running(conn, zone: str, upto_id: int, folds: dict, hashed_from: float) -> dict[int, str]:
+    """The zone's running hash at each of its rows up to upto_id (retention needs the hash of
+    a row it deletes when the row after it stays, and most rows keep none)."""
+    hasher = ReadingHasher()
+    links = folds.get(f"readings/{zone}", {})
+    prev, out = None, {}
+    cols = "zone, sensor, signal, ts, value, received_ts, topic, late"
+    for row_id, stored, *values in conn.execute(
+        f"SELECT id, chain, {cols} FROM readings WHERE zone = ? AND id <= ? ORDER BY id", (zone, upto_id)
+    ):
+        if row_id < hashed_from:
+            continue
+        prev = out[row_id] = follow(hasher, prev, row_id, tuple(values), stored, links)
+    return out
+
+
+__all__ = ["BROKEN", "chain_hash", "head_row", "kept_before", "running", "walk_readings"]
