@@ -30,7 +30,7 @@ from watcher.health import HealthServer, Metrics
 from watcher.ingest.mqtt_process import MqttProcess
 from watcher.ingest.suspects import Suspects
 from watcher.report.schedule import due_weeks
-from watcher.store.db import Store
+from watcher.store.db import Store, pending_migrations
 from watcher.systemd import sd_notify
 
 log = logging.getLogger("watcher.service")
@@ -57,6 +57,11 @@ class Service:
         self._reload_not_before = 0.0
         self._queue_peak = 0
         self._config_lock = threading.Lock()
+        pending = pending_migrations(config.storage.path)
+        if pending:  # a big record's migration takes minutes: systemd's start timeout must wait
+            sd_notify("EXTEND_TIMEOUT_USEC=7200000000")
+            sd_notify(f"STATUS=bringing the database up to date ({', '.join(pending)})")
+            log.info("bringing %s up to date (%s): a big record takes minutes", config.storage.path, ", ".join(pending))
         self.store = Store(config.storage.path)
         self.suspects = Suspects(config.storage.path + ".inhand")
         self.last_progress = time.monotonic()  # the writer's last commit, or its last idle moment

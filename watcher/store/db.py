@@ -64,6 +64,22 @@ def _check_schema(db: sqlite_utils.Database, path: str) -> None:
         )
 
 
+def pending_migrations(path: str) -> list[str]:
+    """The schema steps a writer would apply to this file now (none for a new file): a long
+    one (m016 on a big record takes minutes) lets the service tell systemd to wait."""
+    if not Path(path).is_file():
+        return []
+    try:
+        conn = _connect(path, readonly=True)
+        try:
+            db = sqlite_utils.Database(conn)
+            return [m.name for m in migrations.pending(db)] if migrations.applied(db) else []
+        finally:
+            conn.close()
+    except sqlite3.Error:
+        return []  # the writer's own open says what is wrong
+
+
 class Store:
     """The writer's handle (or, with readonly=True, a reader's): one connection, its repositories."""
 

@@ -86,7 +86,6 @@ def walk_range(conn, lo: int, hi: int, starts: dict, folds: dict, hashed_from: f
     hasher = ReadingHasher()
     begin = {z: s[0] for z, s in starts.items()}
     prevs = {z: s[1] for z, s in starts.items()}
-    since_ok = dict(begin)  # each zone's last row whose hash held
     out: dict[str, list] = {}
     first = min([b + 1 for b in begin.values()] + [lo])
     cur = conn.execute(
@@ -94,10 +93,23 @@ def walk_range(conn, lo: int, hi: int, starts: dict, folds: dict, hashed_from: f
         "WHERE id >= ? AND id < ? ORDER BY id",
         (first, hi),
     )
+    texts: dict[tuple, tuple | None] = {}  # (series, topic, late) -> (zone, head text, tail text, row's names)
+    links_of = {zone: folds.get(f"readings/{zone}", {}) for zone in begin}
+    numbers = hasher.numbers
     while rows := cur.fetchmany(BATCH):
         for row_id, sid, ts, value, received_ts, tid, late, stored in rows:
-            zone, sensor, signal = series[sid]
-            if zone not in begin or row_id <= begin[zone]:
+            key = (sid, tid, late)
+            parts = texts.get(key)
+            if parts is None:
+                zone, sensor, signal = series[sid]
+                if zone not in begin:
+                    texts[key] = (zone, None, None, None)
+                    continue
+                ht = hasher.parts(zone, sensor, signal, topics[tid], late)
+                row_names = (zone, sensor, signal, topics[tid], late)
+                parts = texts[key] = (zone, *(ht or (None, None)), row_names)
+            zone, head, tail, row_names = parts
+            if row_names is None or row_id <= begin[zone]:
                 continue  # a zone not walked, or a row before its start
             got = out.get(zone)
             if got is None:
@@ -109,12 +121,28 @@ def walk_range(conn, lo: int, hi: int, starts: dict, folds: dict, hashed_from: f
             got[2], got[3] = row_id, stored is not None
             if row_id < hashed_from:
                 continue  # written before this chain was hashed (an older database)
-            values = (zone, sensor, signal, ts, value, received_ts, topics[tid], late)
-            links = folds.get(f"readings/{zone}", {})
-            h = follow(hasher, prevs.get(zone), row_id, values, stored, links)
+            links = links_of[zone]
+            if (
+                head is not None
+                and type(ts) is float
+                and type(value) is float
+                and type(received_ts) is float
+                and (not links or row_id not in links)
+            ):
+                h = numbers(prevs.get(zone), head, ts, value, received_ts, tail)
+            else:
+                z, sensor, signal, topic, lt = row_names
+                h = follow(
+                    hasher,
+                    prevs.get(zone),
+                    row_id,
+                    (z, sensor, signal, ts, value, received_ts, topic, lt),
+                    stored,
+                    links,
+                )
             if stored is not None:
                 if h != stored:
-                    start = since_ok.get(zone, 0) + 1
+                    start = got[4] + 1
                     what = (
                         BROKEN
                         if start >= row_id
@@ -123,7 +151,7 @@ def walk_range(conn, lo: int, hi: int, starts: dict, folds: dict, hashed_from: f
                     )
                     got[1] = Finding(f"readings/{zone}", start, what, last_id=row_id)
                     continue
-                since_ok[zone] = got[4] = row_id
+                got[4] = row_id
             prevs[zone] = h
     return out
 
