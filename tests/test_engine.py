@@ -155,7 +155,7 @@ def test_failed_commit_stores_nothing_and_memory_follows_the_record(tmp_path):
     cfg, store, eng = make(tmp_path, reorder=0.0)
     eng.process([msg("bulk-a", k) for k in range(500)], NOW)
     store.conn.execute(
-        "CREATE TRIGGER full BEFORE INSERT ON readings WHEN NEW.value < -29 BEGIN SELECT RAISE(ABORT, 'disk full'); END"
+        "CREATE TRIGGER full BEFORE INSERT ON reading_rows WHEN NEW.value < -29 BEGIN SELECT RAISE(ABORT, 'disk full'); END"
     )
     batch = [msg("bulk-a", k) for k in range(500, 700)] + [msg("bulk-a", 700, -30.0)]
     with pytest.raises(Exception, match="disk full"):
