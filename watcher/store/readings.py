@@ -88,6 +88,9 @@ class Readings(Repo):
         every KEEP_EVERY-th row of a zone in the batch and on its last. That is safe with other
         writers: in WAL mode a write from a stale snapshot fails (SQLITE_BUSY_SNAPSHOT), the
         batch is retried and re-reads the heads."""
+        # Names interned before the savepoint: a rollback to it must not leave cached ids of
+        # series or topics it undid.
+        ids = [(self._series_id(r.zone, r.sensor, r.signal), self._topic_id(topic)) for r, _, topic in items]
         self.conn.execute("SAVEPOINT bulk")
         heads = {zone: self._head(zone) for zone in {r.zone for r, _, _ in items}}
         last = {r.zone: i for i, (r, _, _) in enumerate(items)}
@@ -98,9 +101,7 @@ class Readings(Repo):
             heads[r.zone] = chain.chain_hash(heads[r.zone], *values)
             seen[r.zone] = n = seen.get(r.zone, 0) + 1
             keep = heads[r.zone] if i == last[r.zone] or n % KEEP_EVERY == 0 else None
-            rows.append(
-                (self._series_id(r.zone, r.sensor, r.signal), r.ts, r.value, rts, self._topic_id(topic), 0, keep)
-            )
+            rows.append((ids[i][0], r.ts, r.value, rts, ids[i][1], 0, keep))
         before = self.conn.total_changes
         self.conn.executemany(ROW_INSERT, rows)
         if self.conn.total_changes - before == len(items):
