@@ -282,18 +282,17 @@ def _cut_zone(conn, zone: str, upto_ts: float, wall_ts: float) -> int:
 
 
 def cut(conn, table: str, zone: str, time_col: str, upto_ts: float, wall_ts: float) -> int:
-    """Delete a chain's rows at or before the cut-off, keeping the chain verifiable: each
-    surviving row's link to a deleted predecessor, and the pass itself (cut-off, rows, when),
-    go into the chained fold record (store/chain.py checks them)."""
-    scope, args = ("zone = ? AND ", (zone,)) if table == "readings" else ("", ())
-    n = conn.execute(f"SELECT count(*) FROM {table} WHERE {scope}{time_col} <= ?", (*args, upto_ts)).fetchone()[0]
+    """Delete a log's rows at or before the cut-off (rejections; readings go by _cut_zone),
+    keeping the chain verifiable: each surviving row's link to a deleted predecessor (every
+    row of a log keeps its hash), and the pass itself, go into the chained fold record."""
+    n = conn.execute(f"SELECT count(*) FROM {table} WHERE {time_col} <= ?", (upto_ts,)).fetchone()[0]
     if not n:
         return 0
     links = conn.execute(
         f"SELECT id, prev FROM (SELECT id, {time_col} AS t, lag(chain) OVER (ORDER BY id) AS prev, "
-        f"lag({time_col}) OVER (ORDER BY id) AS prev_t FROM {table} WHERE {scope}1) WHERE t > ? AND prev_t <= ?",
-        (*args, upto_ts, upto_ts),
+        f"lag({time_col}) OVER (ORDER BY id) AS prev_t FROM {table}) WHERE t > ? AND prev_t <= ?",
+        (upto_ts, upto_ts),
     ).fetchall()
     chain.add_fold(conn, table, zone, links, n, upto_ts, wall_ts)
-    conn.execute(f"DELETE FROM {table} WHERE {scope}{time_col} <= ?", (*args, upto_ts))
+    conn.execute(f"DELETE FROM {table} WHERE {time_col} <= ?", (upto_ts,))
     return n
