@@ -60,6 +60,7 @@ def head_row(conn, zone: str) -> tuple[int, str] | None:
 
 
 def names(conn) -> tuple[dict[int, tuple[str, str, str]], dict[int, str]]:
+    """{series id: (zone, sensor, signal)} and {topic id: topic}: a row's names."""
     series = {sid: (z, s, g) for sid, z, s, g in conn.execute("SELECT id, zone, sensor, signal FROM series")}
     return series, dict(conn.execute("SELECT id, topic FROM topics"))
 
