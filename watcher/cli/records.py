@@ -163,9 +163,9 @@ def verify(since, config_path, db_path) -> None:
         click.echo(f"{name:<32} {n:>10} rows checked")
     if mark is not None:
         click.echo(
-            f"Hashed from {since}, or from verification mark {mark['id']} ({stamp(mark['wall_ts'], 'UTC')}) where that "
-            "is later: the rows before the mark were hashed by that verification and the rows it names still hold "
-            "its hashes. `watcher verify` without --since hashes everything again."
+            f"Hashed from {since}, or after verification mark {mark['id']} ({stamp(mark['wall_ts'], 'UTC')}) where "
+            "that is later; the rows that mark names still hold its hashes. A full `watcher verify` (no --since) "
+            "hashes everything again."
         )
     if not findings:
         click.echo(
