@@ -50,11 +50,15 @@ class Readings(Repo):
             ]
         return tid
 
-    def _head(self, zone: str) -> str | None:
-        """The zone's running hash: that of its newest row (whose hash is always kept)."""
+    def _fresh_heads(self) -> None:
+        """Forget the cached heads if another connection has committed since (they may have moved)."""
         version = self.conn.execute("PRAGMA data_version").fetchone()[0]
-        if version != self._heads_version:  # another connection has committed: heads may have moved
+        if version != self._heads_version:
             self._heads, self._heads_version = {}, version
+
+    def _head(self, zone: str) -> str | None:
+        """The zone's running hash: that of its newest row (whose hash is always kept); call
+        _fresh_heads first, once for a batch."""
         if zone not in self._heads:
             row = walk.head_row(self.conn, zone)
             self._heads[zone] = row[1] if row else None
@@ -72,6 +76,7 @@ class Readings(Repo):
             topic,
             int(late),
         )
+        self._fresh_heads()
         head = chain.chain_hash(self._head(reading.zone), *values)
         row = (self._series_id(*values[:3]), *values[3:6], self._topic_id(topic), int(late), head)
         if self.conn.execute(ROW_INSERT, row).rowcount != 1:
@@ -92,6 +97,7 @@ class Readings(Repo):
         # series or topics it undid.
         ids = [(self._series_id(r.zone, r.sensor, r.signal), self._topic_id(topic)) for r, _, topic in items]
         self.conn.execute("SAVEPOINT bulk")
+        self._fresh_heads()
         heads = {zone: self._head(zone) for zone in {r.zone for r, _, _ in items}}
         last = {r.zone: i for i, (r, _, _) in enumerate(items)}
         seen: dict[str, int] = {}

@@ -22,7 +22,7 @@ import sqlite3
 from concurrent.futures import ProcessPoolExecutor
 from pathlib import Path
 
-from watcher.store.hashing import Finding, ReadingHasher, chain_hash
+from watcher.store.hashing import READING_FIELDS, Finding, ReadingHasher
 
 #: Rows above which the walk runs in worker processes, one per core; below it, starting
 #: workers costs more than it saves.
@@ -213,7 +213,7 @@ def running(conn, zone: str, upto_id: int, folds: dict, hashed_from: float) -> d
     hasher = ReadingHasher()
     links = folds.get(f"readings/{zone}", {})
     prev, out = None, {}
-    cols = "zone, sensor, signal, ts, value, received_ts, topic, late"
+    cols = ", ".join(READING_FIELDS)
     for row_id, stored, *values in conn.execute(
         f"SELECT id, chain, {cols} FROM readings WHERE zone = ? AND id <= ? ORDER BY id", (zone, upto_id)
     ):
@@ -221,6 +221,3 @@ def running(conn, zone: str, upto_id: int, folds: dict, hashed_from: float) -> d
             continue
         prev = out[row_id] = follow(hasher, prev, row_id, tuple(values), stored, links)
     return out
-
-
-__all__ = ["BROKEN", "chain_hash", "head_row", "kept_before", "running", "walk_readings"]
