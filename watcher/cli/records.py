@@ -154,9 +154,8 @@ def verify(since, config_path, db_path) -> None:
     path = database_of(config_path, db_path)
     store = Store(path, readonly=True)
     try:
-        mark = store.record.newest_mark() if since_ts is not None else None
         findings, counts = store.record.verify(since_ts)
-        heads = store.record.verified
+        heads, mark = store.record.verified, store.record.since_mark
     finally:
         store.close()
     for name, n in sorted(counts.items()):

@@ -53,12 +53,13 @@ class Record(Repo):
     def verify(self, since_ts: float | None = None) -> tuple[list[chain.Finding], dict[str, int]]:
         """Everything `watcher verify` checks: the findings, and rows checked per chain. It reads
         one snapshot of the record; `self.verified` holds the chains' heads in it (what a mark
-        of this verification records)."""
+        of this verification records), `self.since_mark` the mark a --since walk starts after."""
         begun = not self.conn.in_transaction
         if begun:
             self.conn.execute("BEGIN")
         try:
             self.verified = chain.heads(self.conn)
+            self.since_mark = marks.newest(self.conn) if since_ts is not None else None  # the one chain.verify reads
             findings, counts = chain.verify(self.conn, since_ts)
             findings += chain.check_reports(self.conn, exact=since_ts is None) + chain.check_lots(self.conn)
             findings += crosscheck.check_alerts(self.conn) + crosscheck.check_outbox(self.conn)
@@ -66,10 +67,6 @@ class Record(Repo):
             if begun:
                 self.conn.execute("COMMIT")
         return findings, counts
-
-    def newest_mark(self) -> dict | None:
-        """The newest verification mark (store/marks.py), or None."""
-        return marks.newest(self.conn)
 
     def mark(self, heads: dict[str, list], since_ts: float | None, wall_ts: float | None = None) -> None:
         """Record an intact verification of the chains up to these heads."""
