@@ -60,10 +60,7 @@ class Findings:
 def binned_air(store: Store, zone_id: str, after_ts: float, upto_ts: float) -> tuple[np.ndarray, np.ndarray]:
     """The zone's air readings in (after_ts, upto_ts], every sensor averaged into one-minute
     bins (bin start times), summed by the database."""
-    rows = store.readings.bins(zone_id, "air_c", after_ts, upto_ts, BIN_S)
-    if not rows:
-        return np.empty(0), np.empty(0)
-    k, sums, counts = (np.array(c, dtype=float) for c in zip(*rows))
+    k, sums, counts = store.readings.bins(zone_id, "air_c", after_ts, upto_ts, BIN_S)
     return k * BIN_S, sums / counts
 
 

@@ -83,28 +83,64 @@ def state_intervals(time_ts: np.ndarray, state: np.ndarray, kind: str) -> list[E
     return events
 
 
+def _refresh_points(time_ts: np.ndarray, every_s: float) -> np.ndarray:
+    """The samples where the baseline is recomputed: the first, then each first sample at
+    least every_s after the previous refresh. Each sample's successor is found by one search
+    for all samples, then checked with the test as written (t[j] - t[i] >= every_s; the search
+    adds instead, which rounding can move by a sample) and corrected where it fails."""
+    t = np.asarray(time_ts, float)
+    n = t.size
+    nxt = np.searchsorted(t, t + every_s, side="left")
+    at = np.minimum(nxt, n - 1)
+    before = np.maximum(nxt - 1, 0)
+    ok = ((nxt >= n) | (t[at] - t >= every_s)) & ((nxt - 1 <= np.arange(n)) | (t[before] - t < every_s))
+    nxt = nxt.tolist()
+    for i in np.flatnonzero(~ok).tolist():
+        j = i + 1
+        while j < n and t[j] - t[i] < every_s:
+            j += 1
+        nxt[i] = j
+    out, r = [], 0
+    while r < n:
+        out.append(r)
+        r = nxt[r]
+    return np.array(out)
+
+
+def _low_quantile(rows: np.ndarray, lengths: np.ndarray) -> np.ndarray:
+    """The 25 % quantile of each row's first `length` values, as np.percentile's linear method
+    computes it (rows padded past their length; tested equal to np.percentile row by row)."""
+    s = np.sort(rows, axis=1)
+    vi = (lengths - 1) * 0.25
+    lo = np.floor(vi).astype(int)
+    hi = np.minimum(lo + 1, lengths - 1)
+    gamma = vi - lo
+    a, b = s[np.arange(len(s)), lo], s[np.arange(len(s)), hi]
+    diff = b - a
+    return np.where(gamma >= 0.5, b - diff * (1 - gamma), a + diff * gamma)
+
+
 def _baseline(time_ts: np.ndarray, air_c: np.ndarray, window_s: float, every_s: float = 600.0) -> np.ndarray:
     """A running low quantile (25 %) of the air over the preceding window: the cold, settled
     level. Recomputed every `every_s` and held in between. The window start is found by time;
-    the quantiles of all refresh points are taken in one vectorised call per window length."""
+    the full-length windows' quantiles are taken in one vectorised call, the shorter ones at the
+    start of the data in another."""
     n = time_ts.size
-    refresh = [0]
-    for i in range(1, n):  # the samples where the value is recomputed
-        if time_ts[i] - time_ts[refresh[-1]] >= every_s:
-            refresh.append(i)
-    idx = np.array(refresh)
+    idx = _refresh_points(time_ts, every_s)
     lo = np.searchsorted(time_ts, time_ts[idx] - window_s, side="left")
     values = np.empty(idx.size)
     lengths = idx - lo + 1
-    for length in np.unique(lengths):  # regular data: one or two distinct lengths
-        sel = lengths == length
-        windows = np.lib.stride_tricks.sliding_window_view(air_c, int(length))[lo[sel]]
-        values[sel] = np.percentile(windows, 25, axis=1)
-    out = np.empty_like(air_c, dtype=float)
-    bounds = np.append(idx, n)
-    for k in range(idx.size):
-        out[bounds[k] : bounds[k + 1]] = values[k]
-    return out
+    full = lengths.max()
+    sel = lengths == full  # regular data: all but the first window_s
+    windows = np.lib.stride_tricks.sliding_window_view(air_c, int(full))[lo[sel]]
+    values[sel] = np.percentile(windows, 25, axis=1)
+    if not sel.all():
+        short = np.flatnonzero(~sel)
+        pad = np.full((short.size, int(lengths[short].max())), np.inf)
+        for row, k in enumerate(short):
+            pad[row, : lengths[k]] = air_c[lo[k] : idx[k] + 1]
+        values[short] = _low_quantile(pad, lengths[short])
+    return np.repeat(values, np.diff(np.append(idx, n)))
 
 
 def _episodes(time_ts: np.ndarray, excess: np.ndarray, threshold: float) -> list[tuple[int, int]]:

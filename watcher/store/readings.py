@@ -3,9 +3,13 @@ fold of old raw readings into hourly rows."""
 
 from __future__ import annotations
 
+import math
 from collections.abc import Iterator
 
+import numpy as np
+
 from watcher.store import chain, walk
+from watcher.store.bincache import BinArrays, BinWindow, as_arrays
 from watcher.store.repo import Repo, marks, text
 from watcher.store.schema import KEEP_EVERY
 
@@ -18,6 +22,13 @@ COUNT_ADD = (
 )
 REJECTION_INSERT = chain.insert_sql("rejections", chain.REJECTION_FIELDS, zone_scoped=False)
 PAYLOAD_KEEP_BYTES = 512
+#: How far back per-bin sums are kept: the event analysis reads four days before each pass.
+BIN_WINDOW_S = 5 * 86400.0
+BINS = (
+    "SELECT CAST(ts / ? AS INTEGER) AS k, sum(value), count(*) FROM readings "
+    "WHERE zone = ? AND signal = ? AND ts > ? AND ts <= ? GROUP BY k HAVING k >= ? AND k < ? ORDER BY k"
+)
+ALL_BINS = (-(2**62), 2**62)
 
 
 class Readings(Repo):
@@ -30,6 +41,7 @@ class Readings(Repo):
         self._heads_version = None
         self._series: dict[tuple[str, str, str], int] = {}
         self._topics: dict[str, int] = {}
+        self._windows: dict[tuple[str, str], dict[float, BinWindow]] = {}  # per-bin sums, same validity
 
     def _series_id(self, zone: str, sensor: str, signal: str) -> int:
         key = (zone, sensor, signal)
@@ -51,10 +63,16 @@ class Readings(Repo):
         return tid
 
     def _fresh_heads(self) -> None:
-        """Forget the cached heads if another connection has committed since (they may have moved)."""
+        """Forget the cached heads and bin sums if another connection has committed since (they
+        may have moved)."""
         version = self.conn.execute("PRAGMA data_version").fetchone()[0]
         if version != self._heads_version:
-            self._heads, self._heads_version = {}, version
+            self._heads, self._heads_version, self._windows = {}, version, {}
+
+    def _touch(self, zone: str, signal: str, ts: float) -> None:
+        """A row of the series may be written at ts: its bin is no longer known."""
+        for bin_s, window in self._windows.get((zone, signal), {}).items():
+            window.forget(int(ts / bin_s))  # the bin as SQL's CAST(ts / bin_s AS INTEGER) makes it
 
     def _head(self, zone: str) -> str | None:
         """The zone's running hash: that of its newest row (whose hash is always kept); call
@@ -79,6 +97,7 @@ class Readings(Repo):
         self._fresh_heads()
         head = chain.chain_hash(self._head(reading.zone), *values)
         row = (self._series_id(*values[:3]), *values[3:6], self._topic_id(topic), int(late), head)
+        self._touch(reading.zone, reading.signal, reading.ts)
         if self.conn.execute(ROW_INSERT, row).rowcount != 1:
             return False
         self._heads[reading.zone] = head
@@ -108,6 +127,7 @@ class Readings(Repo):
             seen[r.zone] = n = seen.get(r.zone, 0) + 1
             keep = heads[r.zone] if i == last[r.zone] or n % KEEP_EVERY == 0 else None
             rows.append((ids[i][0], r.ts, r.value, rts, ids[i][1], 0, keep))
+            self._touch(r.zone, r.signal, r.ts)
         before = self.conn.total_changes
         self.conn.executemany(ROW_INSERT, rows)
         if self.conn.total_changes - before == len(items):
@@ -120,9 +140,10 @@ class Readings(Repo):
         return False
 
     def forget_heads(self) -> None:
-        """After a failed transaction: cached heads, series and topics may name rows rolled back."""
+        """After a failed transaction or a fold: cached heads, series, topics and bin sums may
+        name rows rolled back or deleted."""
         self._heads, self._heads_version = {}, None
-        self._series, self._topics = {}, {}
+        self._series, self._topics, self._windows = {}, {}, {}
 
     def value_of(self, reading) -> float | None:
         """The stored value under the reading's natural key, if any."""
@@ -163,15 +184,39 @@ class Readings(Repo):
             (zone, *signals, after_ts, upto_ts),
         ).fetchall()
 
-    def bins(self, zone: str, signal: str, after_ts: float, upto_ts: float, bin_s: float) -> list[tuple]:
-        """(bin number, sum, count) of a signal's readings in (after_ts, upto_ts] per bin of
-        bin_s seconds (bin k covers [k bin_s, (k + 1) bin_s)), in bin order: the sums are made
-        here, so a week of many sensors leaves the database as one row a minute."""
-        return self.conn.execute(
-            "SELECT CAST(ts / ? AS INTEGER) AS k, sum(value), count(*) FROM readings "
-            "WHERE zone = ? AND signal = ? AND ts > ? AND ts <= ? GROUP BY k ORDER BY k",
-            (float(bin_s), zone, signal, after_ts, upto_ts),
-        ).fetchall()
+    def bins(self, zone: str, signal: str, after_ts: float, upto_ts: float, bin_s: float) -> BinArrays:
+        """Bin numbers, sums and counts of a signal's readings in (after_ts, upto_ts] per bin of
+        bin_s seconds (bin k covers [k bin_s, (k + 1) bin_s)), in bin order, bins without
+        readings left out: the sums are made here, so a week of many sensors leaves the
+        database as one row a minute.
+
+        Whole bins of the last BIN_WINDOW_S are kept from earlier answers (bincache), so a pass
+        that reads the same days again asks the database only for the bins written since."""
+        if not (math.isfinite(after_ts) and math.isfinite(upto_ts)):
+            return as_arrays(self._bins(zone, signal, after_ts, upto_ts, bin_s))
+        ka, kb = int(after_ts / bin_s), int(upto_ts / bin_s)  # the edge bins, as the query numbers them
+        if kb - ka < 2:
+            return as_arrays(self._bins(zone, signal, after_ts, upto_ts, bin_s))
+        self._fresh_heads()
+        window = self._windows.setdefault((zone, signal), {}).get(bin_s)
+        if window is None:
+            window = self._windows[(zone, signal)][bin_s] = BinWindow(max(2, int(BIN_WINDOW_S / bin_s)))
+        window.slide(kb)
+        lo, hi = ka + 1, kb  # the whole bins inside (after_ts, upto_ts]
+        m = window.first_unknown(lo, hi)
+        if m == lo:
+            rows = self._bins(zone, signal, after_ts, upto_ts, bin_s)
+            window.store(rows, lo, hi)
+            return as_arrays(rows)
+        # Edge reads go by bin number; the time bounds, a bin wider, only narrow the index range.
+        head = self._bins(zone, signal, after_ts, (lo + 1) * bin_s, bin_s, (ALL_BINS[0], lo))
+        tail = self._bins(zone, signal, (m - 1) * bin_s, upto_ts, bin_s, (m, ALL_BINS[1]))
+        window.store(tail, m, hi)
+        parts = [as_arrays(head), window.arrays(lo, m), as_arrays(tail)]
+        return tuple(np.concatenate([p[i] for p in parts]) for i in range(3))
+
+    def _bins(self, zone: str, signal: str, after_ts: float, upto_ts: float, bin_s: float, ks=ALL_BINS) -> list[tuple]:
+        return self.conn.execute(BINS, (float(bin_s), zone, signal, after_ts, upto_ts, *ks)).fetchall()
 
     def newest_of(self, zone: str) -> float | None:
         """The time of the zone's newest stored raw reading (an index seek a series)."""
