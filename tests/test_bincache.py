@@ -1,6 +1,7 @@
-"""Per-bin sums kept between event-analysis passes (watcher/store/bincache.py): every answer
-equals the database's own sums, whatever was written, undone or deleted in between (real
-SQLite files, a second connection for another process's writes)."""
+"""Per-bin sums kept between event-analysis passes (watcher/store/bincache.py) and the
+summary's one pass over many zones (Reports.zone_bins): every answer equals the database's own
+sums, whatever was written, undone or deleted in between (real SQLite files, a second
+connection for another process's writes)."""
 
 import numpy as np
 import pytest
@@ -131,3 +132,35 @@ def test_a_window_keeps_only_its_last_bins_and_forgets_touched_ones():
     assert w.k0 == 94 and w.first_unknown(94, 95) == 95 and w.first_unknown(96, 104) == 100
     w.slide(200)
     assert w.first_unknown(190, 200) == 190
+
+
+def test_many_zones_at_once_give_each_zones_own_sums(tmp_path):
+    """The summary's one pass over a span's rows (Reports.zone_bins) gives each zone what its
+    own query gives (to rounding: the sums add the same readings in another order), for a span
+    stored in order and for one whose readings partly arrived long after (a backfill: the row
+    range is then far wider than the span and the zones are read one by one)."""
+    _, store, _ = make(tmp_path, reorder=0.0)
+    for m in range(0, 3000, 10):
+        rows = [
+            (Reading(zone, s, "air_c", T + 60.0 * k, -25.0 + 0.37 * k + i), T, f"kp/{zone}/{s}/air")
+            for k in range(m, m + 10)
+            for zone in ("bulk-a", "dispatch")
+            for i, s in enumerate(("s1", "s2", "s3"))
+        ]
+        with store.atomic():
+            assert store.readings.add_all_new(rows)
+    after, upto = T + 60.0 * 1000 + 30.0, T + 60.0 * 2000
+    by_zone = []
+    indexed = store.reports._zone_bins_indexed
+    store.reports._zone_bins_indexed = lambda zone, *a: by_zone.append(zone) or indexed(zone, *a)
+    for label in ("in order", "backfilled"):
+        if label == "backfilled":
+            write(store, range(3000, 12000))  # much else stored, then rows of the span
+            write(store, range(1500, 1510), sensors=("late",))
+        got = store.reports.zone_bins(("bulk-a", "dispatch"), "air_c", after, upto, BIN_S)
+        for zone in ("bulk-a", "dispatch"):
+            want = as_arrays(store.readings._bins(zone, "air_c", after, upto, BIN_S))
+            assert np.array_equal(got[zone][0], want[0]) and np.array_equal(got[zone][2], want[2]), label
+            assert np.allclose(got[zone][1], want[1], rtol=1e-12, atol=0.0), label
+    assert got["bulk-a"][2].max() == 4  # the backfilled sensor is in its bins
+    assert by_zone == ["bulk-a", "dispatch"]  # read zone by zone, the second time only

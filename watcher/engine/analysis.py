@@ -60,7 +60,12 @@ class Findings:
 def binned_air(store: Store, zone_id: str, after_ts: float, upto_ts: float) -> tuple[np.ndarray, np.ndarray]:
     """The zone's air readings in (after_ts, upto_ts], every sensor averaged into one-minute
     bins (bin start times), summed by the database."""
-    k, sums, counts = store.readings.bins(zone_id, "air_c", after_ts, upto_ts, BIN_S)
+    return bin_means(store.readings.bins(zone_id, "air_c", after_ts, upto_ts, BIN_S))
+
+
+def bin_means(bins) -> tuple[np.ndarray, np.ndarray]:
+    """(bin start times, mean air) of the store's (k, sum, count) one-minute bins."""
+    k, sums, counts = bins
     return k * BIN_S, sums / counts
 
 

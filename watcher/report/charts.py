@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import io
 import re
+from zoneinfo import ZoneInfo
 
 import matplotlib
 
@@ -48,8 +49,14 @@ def _svg(fig, bottom_in: float = 0.3, left_in: float = 0.6) -> str:
     return text[text.index("<svg") :]
 
 
-def _times(time_ts, tz: str):
-    return pd.to_datetime(pd.Series(time_ts, dtype="float64"), unit="s", utc=True).dt.tz_convert(tz)
+def _days(time_ts) -> np.ndarray:
+    """Times as matplotlib's date numbers (days since its epoch, 1970-01-01 UTC): plotting plain
+    floats skips a conversion of every point through datetime objects. Ticks and their labels
+    are placed and written in the site's time zone by the locators and formatters."""
+    return np.asarray(time_ts, dtype=float) / 86400.0 - EPOCH_DAYS
+
+
+EPOCH_DAYS = float(np.datetime64(mdates.get_epoch(), "s").astype(np.int64)) / 86400.0
 
 
 def zone_chart(
@@ -58,22 +65,27 @@ def zone_chart(
     """Air and estimated product temperature with defrosts and door openings marked; below,
     the predicted mean crystal diameter against the limit."""
     fig, (top, bottom) = plt.subplots(2, 1, figsize=(7.0, 3.9), sharex=True, height_ratios=(3, 2))
-    x0, x1 = _times([start_ts, end_ts], tz)
+    zone = ZoneInfo(tz)
+    x0, x1 = _days([start_ts, end_ts])
     if model is not None and model.time_ts.size:
         step = max(1, model.time_ts.size // 2000)  # keep the SVG small: at most ~2000 points a line
-        t = _times(model.time_ts[::step], tz)
+        t = _days(model.time_ts[::step])
         top.plot(t, model.air_c[::step], color=AIR, lw=0.8, label="air")
         top.plot(t, model.product_c[::step], color=PRODUCT, lw=1.1, label="product (est.)")
     top.axhline(setpoint_c, color="#555", lw=0.7, ls="--", label=f"setpoint {setpoint_c:g} C")
     top.axhline(-18.0, color="#999", lw=0.7, ls=":", label="-18 C benchmark")
+    # Each kind of event as one collection (a busy week has hundreds of door openings).
+    spans = {"defrost": [], "excursion": [], "door": []}
     for r in events.itertuples():
-        a, b = _times([max(r.start_ts, start_ts), min(r.end_ts if pd.notna(r.end_ts) else end_ts, end_ts)], tz)
-        if r.kind == "defrost":
-            top.axvspan(a, b, color="#e0a030", alpha=0.25, lw=0)
-        elif r.kind == "excursion":
-            top.axvspan(a, b, color="#c4573a", alpha=0.18, lw=0)
-        elif r.kind == "door":
-            top.axvline(a, ymin=0.0, ymax=0.06, color="#4f8fbf", lw=0.8)
+        if r.kind in spans:
+            a, b = _days([max(r.start_ts, start_ts), min(r.end_ts if pd.notna(r.end_ts) else end_ts, end_ts)])
+            spans[r.kind].append((a, b - a))
+    across = top.get_xaxis_transform()  # x in data, y in the axes' own 0..1
+    for kind, colour, alpha in (("defrost", "#e0a030", 0.25), ("excursion", "#c4573a", 0.18)):
+        if spans[kind]:
+            top.broken_barh(spans[kind], (0.0, 1.0), transform=across, color=colour, alpha=alpha, lw=0)
+    if spans["door"]:
+        top.vlines([a for a, _ in spans["door"]], 0.0, 0.06, transform=across, color="#4f8fbf", lw=0.8)
     top.set_ylabel("C")
     top.set_title(title, loc="left", fontsize=9)
     top.legend(loc="upper right", ncol=4, fontsize=6.5, frameon=False)
@@ -88,7 +100,7 @@ def zone_chart(
     )
     if model is not None and model.trace_ts.size:
         bottom.plot(
-            _times(model.trace_ts, tz),
+            _days(model.trace_ts),
             model.mean_diameter_um,
             color=SIZE,
             lw=1.2,
@@ -101,11 +113,11 @@ def zone_chart(
     bottom.set_ylabel("um")
     bottom.set_xlim(x0, x1)
     if end_ts - start_ts <= 2 * 86400.0:  # a day or two: hours, the day named at midnight
-        bottom.xaxis.set_major_locator(mdates.HourLocator(byhour=range(0, 24, 3), tz=x0.tzinfo))
-        bottom.xaxis.set_major_formatter(mdates.DateFormatter("%H:%M", tz=x0.tzinfo))
+        bottom.xaxis.set_major_locator(mdates.HourLocator(byhour=range(0, 24, 3), tz=zone))
+        bottom.xaxis.set_major_formatter(mdates.DateFormatter("%H:%M", tz=zone))
     else:
-        bottom.xaxis.set_major_locator(mdates.DayLocator(tz=x0.tzinfo))
-        bottom.xaxis.set_major_formatter(mdates.DateFormatter("%a %d", tz=x0.tzinfo))
+        bottom.xaxis.set_major_locator(mdates.DayLocator(tz=zone))
+        bottom.xaxis.set_major_formatter(mdates.DateFormatter("%a %d", tz=zone))
     return _svg(fig)
 
 
@@ -138,18 +150,18 @@ def whatif_chart(result: dict, time_ts, tz: str, title: str) -> str:
     """The recorded and the changed air above; the texture budget used by each below."""
     fig, (top, bottom) = plt.subplots(2, 1, figsize=(7.0, 3.9), sharex=True, height_ratios=(1, 1))
     step = max(1, len(time_ts) // 2000)
-    t = _times(np.asarray(time_ts)[::step], tz)
+    t = _days(np.asarray(time_ts)[::step])
     top.plot(t, np.asarray(result["air_recorded_c"])[::step], color="#9aa5b1", lw=0.8, label="air as recorded")
     top.plot(t, np.asarray(result["air_changed_c"])[::step], color=AIR, lw=0.9, label="air with the change")
     top.set_ylabel("C")
     top.set_title(title, loc="left", fontsize=9)
     top.legend(loc="upper right", ncol=2, fontsize=6.5, frameon=False)
-    tt = _times(result["trace_ts"], tz)
+    tt = _days(result["trace_ts"])
     bottom.plot(tt, result["trace_recorded_pct"], color="#9aa5b1", lw=1.2, label="as recorded")
     bottom.plot(tt, result["trace_changed_pct"], color=SIZE, lw=1.2, label="with the change")
     bottom.set_ylabel("% of texture budget")
     bottom.legend(loc="upper left", fontsize=6.5, frameon=False)
-    zone = t.iloc[0].tzinfo if len(t) else None
+    zone = ZoneInfo(tz)
     locator = mdates.AutoDateLocator(tz=zone, minticks=3, maxticks=8)
     bottom.xaxis.set_major_locator(locator)  # hours for a short period, days for a long one
     bottom.xaxis.set_major_formatter(mdates.ConciseDateFormatter(locator, tz=zone))

@@ -15,7 +15,7 @@ import numpy as np
 import pandas as pd
 
 from watcher.config import Config, Site, Zone
-from watcher.engine.analysis import binned_air
+from watcher.engine.analysis import BIN_S, bin_means, binned_air
 from watcher.engine.zones import spec_key
 from watcher.model.additive import additive_budget_pct
 from watcher.model.integrator import Spec, State, advance, outputs
@@ -60,6 +60,9 @@ class SiteWeek:
     models: dict[str, ZoneModel] = field(default_factory=dict)
 
 
+_FIND = object()  # zone_model's start state: look it up
+
+
 def _frame(table) -> pd.DataFrame:
     columns, rows = table
     return pd.DataFrame(rows, columns=columns)
@@ -78,25 +81,43 @@ def load(store: Store, cfg: Config, site: Site, week: Week) -> SiteWeek:
     alerts, alert_log = tables["alerts"], tables["alert_log"]
     gaps, rejections, daily = tables["gaps"], tables["rejections"], tables["daily"]
     sw = SiteWeek(site, week, zones, events, alerts, alert_log, gaps, rejections, daily)
+    starts = {z.id: _start_snapshot(store, z, week.start_ts, week.end_ts, "week") for z in zones}
+    found = [snap[0][0] for snap in starts.values() if snap is not None]
+    # Every zone's air from the earliest start state on, in one pass over the rows (each zone
+    # then drops the bins before its own start state, as binned_air's own range would).
+    air = store.reports.zone_bins(ids, "air_c", min(found), week.end_ts, BIN_S) if found else {}
     for z in zones:
-        sw.models[z.id] = zone_model(store, z, week.start_ts, week.end_ts)
+        sw.models[z.id] = zone_model(store, z, week.start_ts, week.end_ts, start=starts[z.id], air=air.get(z.id))
     return sw
 
 
-def zone_model(store: Store, zone: Zone, start_ts: float, end_ts: float, period: str = "week") -> ZoneModel | None:
-    """The zone's model re-run over [start_ts, end_ts] (a week, or the site page's last day)
-    from the snapshot saved at or before its start."""
-    spec = Spec(zone.profile, zone.positions)
+def _start_snapshot(store: Store, zone: Zone, start_ts: float, end_ts: float, period: str):
+    """(snapshot row, note) the zone's model starts from: the state saved at or before the
+    period's start, else the first inside it; None when there is neither."""
     key = spec_key(zone)
     snap = store.snapshots.before(zone.id, start_ts, key)
-    note = f"from the model state saved before the {period} began"
-    if snap is None:
-        snap = store.snapshots.first_after(zone.id, start_ts, end_ts, key)
-        note = f"from the first model state saved inside the {period} (no earlier state: figures cover part of the {period})"
-    if snap is None:
+    if snap is not None:
+        return snap, f"from the model state saved before the {period} began"
+    snap = store.snapshots.first_after(zone.id, start_ts, end_ts, key)
+    note = (
+        f"from the first model state saved inside the {period} (no earlier state: figures cover part of the {period})"
+    )
+    return None if snap is None else (snap, note)
+
+
+def zone_model(
+    store: Store, zone: Zone, start_ts: float, end_ts: float, period: str = "week", start=_FIND, air=None
+) -> ZoneModel | None:
+    """The zone's model re-run over [start_ts, end_ts] (a week, or the site page's last day)
+    from the snapshot saved at or before its start (start: that, found already by the caller;
+    air: the zone's binned air from at least that snapshot's time to end_ts, read already)."""
+    spec = Spec(zone.profile, zone.positions)
+    start = _start_snapshot(store, zone, start_ts, end_ts, period) if start is _FIND else start
+    if start is None:
         return None
+    snap, note = start
     state = State.from_arrays(unpack_state(snap[1]))
-    t, air = binned_air(store, zone.id, state.time_ts, end_ts)
+    t, air = binned_air(store, zone.id, state.time_ts, end_ts) if air is None else bin_means(air)
     t, air = t[t > state.time_ts], air[t > state.time_ts]
     before = t <= start_ts
     if before.any():
