@@ -32,14 +32,15 @@ class ReadingHasher:
 
     def __init__(self):
         self._texts: dict[tuple, tuple[str, str]] = {}
-        self._floats: dict[float, str] = {}
+        self.floats: dict[float, str] = {}  # a number's text, for the numbers seen lately
 
-    def _float(self, x: float) -> str:
-        text = self._floats.get(x)
+    def float_text(self, x: float) -> str:
+        """A float's text as chain_hash writes it, kept in `floats`."""
+        text = self.floats.get(x)
         if text is None:
-            if len(self._floats) >= self.FLOATS_KEPT:
-                self._floats.clear()
-            text = self._floats[x] = repr(x + 0.0)  # -0.0 and 0.0 are one key and one text, as in chain_hash
+            if len(self.floats) >= self.FLOATS_KEPT:
+                self.floats.clear()
+            text = self.floats[x] = repr(x + 0.0)  # -0.0 and 0.0 are one key and one text, as in chain_hash
         return text
 
     def parts(self, zone, sensor, signal, topic, late) -> tuple[str, str] | None:
@@ -55,10 +56,9 @@ class ReadingHasher:
 
     def numbers(self, prev, head: str, ts: float, value: float, received_ts: float, tail: str) -> str:
         """The hash of a row whose constant text is (head, tail) and whose numbers are floats."""
-        f = self._floats.get
+        f, n = self.floats.get, self.float_text
         text = (
-            f"{prev or ''}{head}{f(ts) or self._float(ts)}\x1f{f(value) or self._float(value)}"
-            f"\x1f{f(received_ts) or self._float(received_ts)}{tail}"
+            f"{prev or ''}{head}{f(ts) or n(ts)}\x1f{f(value) or n(value)}\x1f{f(received_ts) or n(received_ts)}{tail}"
         )
         return hashlib.sha256(text.encode()).hexdigest()
 

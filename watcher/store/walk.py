@@ -20,6 +20,7 @@ import multiprocessing
 import os
 import sqlite3
 from concurrent.futures import ProcessPoolExecutor
+from hashlib import sha256
 from pathlib import Path
 
 from watcher.store.hashing import READING_FIELDS, Finding, ReadingHasher
@@ -78,83 +79,82 @@ def follow(hasher, prev, row_id: int, values: tuple, stored, links: dict) -> str
     return hasher(prev, *values)
 
 
+class _Zone:
+    """One zone's walk: where it starts, its running hash, what was found."""
+
+    __slots__ = ("begin", "prev", "n", "finding", "last", "last_chain", "ok", "links")
+
+    def __init__(self, begin: int, prev, links: dict):
+        self.begin, self.prev, self.links = begin, prev, links
+        self.n, self.finding, self.last, self.last_chain, self.ok = 0, None, 0, None, begin
+
+
 def walk_range(conn, lo: int, hi: int, starts: dict, folds: dict, hashed_from: float) -> dict[str, list]:
     """Recompute every zone's chain over rows < hi, each zone from its (row, hash) in
     `starts` on (rows up to that row are skipped), counting the rows from lo on. Returns
     {zone: [rows checked, first Finding or None, newest row, whether its hash is kept, the
-    last row whose kept hash held]}."""
+    last row whose kept hash held]} of the zones with rows in the range."""
     series, topics = names(conn)
     hasher = ReadingHasher()
-    begin = {z: s[0] for z, s in starts.items()}
-    prevs = {z: s[1] for z, s in starts.items()}
-    out: dict[str, list] = {}
-    first = min([b + 1 for b in begin.values()] + [lo])
+    zones = {z: _Zone(s[0], s[1], folds.get(f"readings/{z}", {})) for z, s in starts.items()}
+    first = min([z.begin + 1 for z in zones.values()] + [lo])
     cur = conn.execute(
         "SELECT id, series, ts, value, received_ts, topic, late, chain FROM reading_rows "
         "WHERE id >= ? AND id < ? ORDER BY id",
         (first, hi),
     )
-    texts: dict[tuple, tuple | None] = {}  # (series, topic, late) -> (zone, head text, tail text, row's names)
-    links_of = {zone: folds.get(f"readings/{zone}", {}) for zone in begin}
-    numbers = hasher.numbers
+    # (series, topic, late) -> (the zone's walk or None, head text, tail text, the row's names)
+    texts: dict[tuple, tuple] = {}
+    text, number = hasher.floats.get, hasher.float_text
     while rows := cur.fetchmany(BATCH):
         for row_id, sid, ts, value, received_ts, tid, late, stored in rows:
-            key = (sid, tid, late)
-            parts = texts.get(key)
+            parts = texts.get((sid, tid, late))
             if parts is None:
                 zone, sensor, signal = series[sid]
-                if zone not in begin:
-                    texts[key] = (zone, None, None, None)
-                    continue
-                ht = hasher.parts(zone, sensor, signal, topics[tid], late)
                 row_names = (zone, sensor, signal, topics[tid], late)
-                parts = texts[key] = (zone, *(ht or (None, None)), row_names)
-            zone, head, tail, row_names = parts
-            if row_names is None or row_id <= begin[zone]:
-                continue  # a zone not walked, or a row before its start
-            got = out.get(zone)
-            if got is None:
-                got = out[zone] = [0, None, 0, False, begin[zone]]
-            elif got[1] is not None:
-                continue
+                ht = hasher.parts(*row_names) or (None, None)
+                parts = texts[(sid, tid, late)] = (zones.get(zone), *ht, row_names)
+            z, head, tail, row_names = parts
+            if z is None or row_id <= z.begin or z.finding is not None:
+                continue  # a zone not walked, a row before its start, or a zone already broken
             if row_id >= lo:
-                got[0] += 1
-            got[2], got[3] = row_id, stored is not None
+                z.n += 1
+            z.last, z.last_chain = row_id, stored
             if row_id < hashed_from:
                 continue  # written before this chain was hashed (an older database)
-            links = links_of[zone]
             if (
                 head is not None
                 and type(ts) is float
                 and type(value) is float
                 and type(received_ts) is float
-                and (not links or row_id not in links)
+                and (not z.links or row_id not in z.links)
             ):
-                h = numbers(prevs.get(zone), head, ts, value, received_ts, tail)
+                # ReadingHasher.numbers, inlined: this runs for every row of the record.
+                h = sha256(
+                    f"{z.prev or ''}{head}{text(ts) or number(ts)}\x1f{text(value) or number(value)}"
+                    f"\x1f{text(received_ts) or number(received_ts)}{tail}".encode()
+                ).hexdigest()
             else:
-                z, sensor, signal, topic, lt = row_names
-                h = follow(
-                    hasher,
-                    prevs.get(zone),
-                    row_id,
-                    (z, sensor, signal, ts, value, received_ts, topic, lt),
-                    stored,
-                    links,
-                )
+                zone, sensor, signal, topic, lt = row_names
+                values = (zone, sensor, signal, ts, value, received_ts, topic, lt)
+                h = follow(hasher, z.prev, row_id, values, stored, z.links)
             if stored is not None:
                 if h != stored:
-                    start = got[4] + 1
-                    what = (
-                        BROKEN
-                        if start >= row_id
-                        else f"rows {start} to {row_id} do not hash to the hash kept at row {row_id}: one of them "
-                        "was altered, added or deleted, or rows just before them were deleted"
-                    )
-                    got[1] = Finding(f"readings/{zone}", start, what, last_id=row_id)
+                    z.finding = _broken(row_names[0], z.ok + 1, row_id)
                     continue
-                got[4] = row_id
-            prevs[zone] = h
-    return out
+                z.ok = row_id
+            z.prev = h
+    return {name: [z.n, z.finding, z.last, z.last_chain is not None, z.ok] for name, z in zones.items() if z.last}
+
+
+def _broken(zone: str, start: int, row_id: int) -> Finding:
+    what = (
+        BROKEN
+        if start >= row_id
+        else f"rows {start} to {row_id} do not hash to the hash kept at row {row_id}: one of them "
+        "was altered, added or deleted, or rows just before them were deleted"
+    )
+    return Finding(f"readings/{zone}", start, what, last_id=row_id)
 
 
 def _in_worker(path: str, lo: int, hi: int, starts: dict, folds: dict, hashed_from: float) -> dict[str, list]:
