@@ -121,6 +121,30 @@ def test_altered_value_names_the_rows_around_it(filled):
         assert len(findings) == 1 and covers(findings[0], "readings/bulk-a", row_id, db), findings
 
 
+@pytest.mark.parametrize(
+    "change",
+    ["late = 4", "late = 'x'", "late = 1", "topic = 1073741824 + topic", "topic = -1"],
+    ids=["flag-4", "flag-text", "flag-set", "topic-id-large", "topic-id-negative"],
+)
+def test_a_rows_flag_or_topic_id_altered_past_what_packs_is_found(filled, change):
+    """The walk reads a row's series, topic and flag as one packed number; a row whose flag or
+    topic id was altered to a value that number cannot hold (a flag of 4 would wrap to 0) is
+    read as stored, and the alteration is named."""
+    with sqlite3.connect(filled) as db:
+        (row_id,) = db.execute(
+            "SELECT id FROM readings WHERE zone = 'bulk-a' ORDER BY id LIMIT 1 OFFSET 300"
+        ).fetchone()
+        db.execute("PRAGMA foreign_keys = OFF")
+        db.execute(f"UPDATE reading_rows SET {change} WHERE id = ?", (row_id,))
+    with sqlite3.connect(filled) as db:
+        if "topic" in change:  # the id names no topic: the row's names cannot be read at all
+            db.execute(
+                "INSERT INTO topics (id, topic) SELECT topic, 'made up' FROM reading_rows WHERE id = ?", (row_id,)
+            )
+        findings, _ = chain.verify(db)
+        assert len(findings) == 1 and covers(findings[0], "readings/bulk-a", row_id, db), findings
+
+
 def test_worker_processes_find_what_one_process_finds(filled, monkeypatch):
     """The chains walked in worker processes (as on a big record) give the same findings and
     counts as one process: an intact record, then one altered and one deleted reading."""
