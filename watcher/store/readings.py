@@ -10,6 +10,7 @@ import numpy as np
 
 from watcher.store import chain, walk
 from watcher.store.bincache import BinArrays, BinWindow, as_arrays
+from watcher.store.hashing import ReadingHasher
 from watcher.store.repo import Repo, marks, text
 from watcher.store.schema import KEEP_EVERY
 
@@ -42,6 +43,7 @@ class Readings(Repo):
         self._series: dict[tuple[str, str, str], int] = {}
         self._topics: dict[str, int] = {}
         self._windows: dict[tuple[str, str], dict[float, BinWindow]] = {}  # per-bin sums, same validity
+        self._hash = ReadingHasher()  # chain_hash, with the text of names and recent numbers kept
 
     def _series_id(self, zone: str, sensor: str, signal: str) -> int:
         key = (zone, sensor, signal)
@@ -95,7 +97,7 @@ class Readings(Repo):
             int(late),
         )
         self._fresh_heads()
-        head = chain.chain_hash(self._head(reading.zone), *values)
+        head = self._hash(self._head(reading.zone), *values)
         row = (self._series_id(*values[:3]), *values[3:6], self._topic_id(topic), int(late), head)
         self._touch(reading.zone, reading.signal, reading.ts)
         if self.conn.execute(ROW_INSERT, row).rowcount != 1:
@@ -123,7 +125,7 @@ class Readings(Repo):
         rows = []
         for i, (r, rts, topic) in enumerate(items):
             values = (r.zone, r.sensor, r.signal, r.ts, r.value, rts, topic, 0)
-            heads[r.zone] = chain.chain_hash(heads[r.zone], *values)
+            heads[r.zone] = self._hash(heads[r.zone], *values)
             seen[r.zone] = n = seen.get(r.zone, 0) + 1
             keep = heads[r.zone] if i == last[r.zone] or n % KEEP_EVERY == 0 else None
             rows.append((ids[i][0], r.ts, r.value, rts, ids[i][1], 0, keep))
