@@ -7,7 +7,7 @@ events, daily growth): the older weeks in this process (replay's own path, no CS
 last week through `watcher replay`, whose time and memory are the replay figures. Then each
 command runs as its own process and its wall time and peak resident memory are printed:
 
-- `watcher report` of the last week, `watcher verify`, `watcher verify --since` (last week),
+- `watcher report` of the last week (HTML, CSV and JSON, as the schedule writes it), `watcher verify`, `watcher verify --since` (last week),
   `watcher status`; the replay of the week's file itself (its memory is the replay figure);
 - `verify --since` twice: before the full verify (the week is new since the last mark, as for
   a weekly check) and after it (nothing new: the cost of a check with nothing to hash);
@@ -193,7 +193,8 @@ def main() -> None:
         weeks_done = step
         y, wk, _ = dt.datetime.fromtimestamp(last_start + 86400.0, tz=dt.UTC).isocalendar()
         report_s, report_mb, _ = measured(
-            ["report", "--config", str(cfg), "--week", f"{y}-W{wk:02d}", "--format", "json"], folder
+            ["report", "--config", str(cfg), "--week", f"{y}-W{wk:02d}"],
+            folder,  # the schedule's formats
         )
         since = dt.datetime.fromtimestamp(last_start, tz=dt.UTC).strftime("%Y-%m-%d")
         since_s, _, _ = measured(["verify", "--config", str(cfg), "--since", since], folder)
