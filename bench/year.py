@@ -7,8 +7,8 @@ events, daily growth): the older weeks in this process (replay's own path, no CS
 last week through `watcher replay`, whose time and memory are the replay figures. Then each
 command runs as its own process and its wall time and peak resident memory are printed:
 
-- `watcher report` of the last week (HTML, CSV and JSON, as the schedule writes it), `watcher verify`, `watcher verify --since` (last week),
-  `watcher status`; the replay of the week's file itself (its memory is the replay figure);
+- `watcher report` of the last week (HTML, CSV and JSON, as the schedule writes it),
+  `watcher verify`, `watcher verify --since` (last week), `watcher status`; the replay of the week's file itself (its memory is the replay figure);
 - `verify --since` twice: before the full verify (the week is new since the last mark, as for
   a weekly check) and after it (nothing new: the cost of a check with nothing to hash);
 - live ingest on this database against an empty one, in the same run (median of 3 each,
