@@ -119,14 +119,17 @@ def _walk_log(conn, name: str, fields: tuple[str, ...], first: int, folds: dict,
     return None, n
 
 
-def verify(conn, since_ts: float | None = None, now_ts: float | None = None) -> tuple[list[Finding], dict[str, int]]:
+def verify(
+    conn, since_ts: float | None = None, now_ts: float | None = None, have: dict | None = None
+) -> tuple[list[Finding], dict[str, int]]:
     """Walk every chain, then check what chains cannot show (folds, lengths, missing zones).
 
     Returns the findings (the first break of each chain, then every missing part) and rows
     checked per chain. With since_ts, each chain starts at its first row at or after that
     time, or after the newest verification mark's row if that is later (store/marks.py),
     trusting the stored hash of the row before it; the rows the mark names must still hold
-    the hashes it recorded.
+    the hashes it recorded. `have`, if given, receives the rows each chain has ever held (what
+    check_reports compares with the lengths a summary printed).
     """
     meta = _meta(conn)
     findings: list[Finding] = []
@@ -165,10 +168,13 @@ def verify(conn, since_ts: float | None = None, now_ts: float | None = None) -> 
     if fold_break is not None:
         findings.append(fold_break)
     findings += check_folds(conn, fold_rows, meta, now_ts)
-    have = lengths(conn, fold_rows, exact=since_ts is None)
-    findings += check_lengths(conn, have)
+    # A full walk has counted every row of each zone it found intact: no second pass to count.
+    held = lengths(conn, fold_rows, exact=since_ts is None, counted=walked if since_ts is None else None)
+    if have is not None:
+        have.update(held)
+    findings += check_lengths(conn, held)
     if since_ts is None:
-        findings += check_counts(conn, have)
+        findings += check_counts(conn, held)
     return findings, counts
 
 
@@ -256,19 +262,26 @@ def check_folds(conn, fold_rows: list[dict], meta: dict, now_ts: float | None) -
     return out
 
 
-def lengths(conn, fold_rows: list[dict] | None = None, exact: bool = True) -> dict[str, int]:
+def lengths(
+    conn, fold_rows: list[dict] | None = None, exact: bool = True, counted: dict[str, int] | None = None
+) -> dict[str, int]:
     """Rows each chain has ever held: rows stored plus rows retention folded away. exact
-    counts the readings (a full verify); otherwise each zone's count kept as they were
+    counts the readings (a full verify: `counted` gives the zones whose every stored row its
+    walk counted, the others are counted here); otherwise each zone's count kept as they were
     written is read (the weekly summary, `verify --since`): no scan of the history."""
     out: dict[str, int] = {}
     if exact:
         if fold_rows is None:
             fold_rows = _fold_rows(conn, _meta(conn))[0]
-        for zone, n in conn.execute(
-            "SELECT s.zone, sum(n) FROM (SELECT series, count(*) AS n FROM reading_rows GROUP BY series) "
-            "JOIN series s ON s.id = series GROUP BY s.zone"
-        ):
-            out[f"readings/{zone}"] = n
+        counted = counted or {}
+        for (zone,) in conn.execute("SELECT DISTINCT zone FROM series"):
+            n = counted.get(zone)
+            if n is None:
+                n = conn.execute(
+                    "SELECT count(*) FROM reading_rows WHERE series IN (SELECT id FROM series WHERE zone = ?)", (zone,)
+                ).fetchone()[0]
+            if n:
+                out[f"readings/{zone}"] = n
         for p in _passes(fold_rows):
             if p["tbl"] == "readings":
                 out[f"readings/{p['zone']}"] = out.get(f"readings/{p['zone']}", 0) + int(p["folded"])
@@ -358,11 +371,12 @@ def check_lots(conn) -> list[Finding]:
     return out
 
 
-def check_reports(conn, exact: bool = True) -> list[Finding]:
+def check_reports(conn, exact: bool = True, have: dict[str, int] | None = None) -> list[Finding]:
     """Each stored summary's printed heads must still be there with the same hash, and no chain
-    may be shorter than the summary printed it (exact: counted, else as kept when written)."""
+    may be shorter than the summary printed it (exact: counted, else as kept when written;
+    have: those lengths, found already by verify)."""
     out = []
-    have = lengths(conn, exact=exact)
+    have = lengths(conn, exact=exact) if have is None else have
     folded_after: dict[str, float] = {}
     for tbl, zone, wall_ts in conn.execute(
         "SELECT tbl, zone, max(wall_ts) FROM chain_folds WHERE next_id = 0 GROUP BY tbl, zone"

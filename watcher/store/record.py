@@ -60,8 +60,9 @@ class Record(Repo):
         try:
             self.verified = chain.heads(self.conn)
             self.since_mark = marks.newest(self.conn) if since_ts is not None else None  # the one chain.verify reads
-            findings, counts = chain.verify(self.conn, since_ts)
-            findings += chain.check_reports(self.conn, exact=since_ts is None) + chain.check_lots(self.conn)
+            have: dict[str, int] = {}
+            findings, counts = chain.verify(self.conn, since_ts, have=have)
+            findings += chain.check_reports(self.conn, exact=since_ts is None, have=have) + chain.check_lots(self.conn)
             findings += crosscheck.check_alerts(self.conn) + crosscheck.check_outbox(self.conn)
         finally:
             if begun:
