@@ -8,6 +8,7 @@ import json
 import sqlite3
 
 from watcher.store.bincache import BinArrays, as_arrays
+from watcher.store.readings import ALL_BINS, BINS
 from watcher.store.repo import Repo, marks, translate
 from watcher.store.subjects import LOT_PREFIX, SERVICE_KEY
 
@@ -76,11 +77,7 @@ class Reports(Repo):
         return {**out, **{z: as_arrays(r) for z, r in by_zone.items()}}
 
     def _zone_bins_indexed(self, zone: str, signal: str, after_ts: float, upto_ts: float, bin_s: float) -> list:
-        return self.conn.execute(
-            "SELECT CAST(ts / ? AS INTEGER) AS k, sum(value), count(*) FROM readings "
-            "WHERE zone = ? AND signal = ? AND ts > ? AND ts <= ? GROUP BY k ORDER BY k",
-            (float(bin_s), zone, signal, after_ts, upto_ts),
-        ).fetchall()
+        return self.conn.execute(BINS, (float(bin_s), zone, signal, after_ts, upto_ts, *ALL_BINS)).fetchall()
 
     def sensor_weeks(self, zone_ids: tuple[str, ...], start_ts: float, end_ts: float):
         """Per sensor and signal of the zones in [start_ts, end_ts): (zone, sensor, signal, the
