@@ -134,3 +134,38 @@ def test_regularity_with_intervals_on_the_last_histogram_edge():
     day = shape.max_period_s
     found = _regular([Event("defrost", k * day, k * day + 1800.0, source="inferred") for k in range(4)], shape)
     assert len(found) == 4
+
+
+def _baseline_by_definition(time_ts, air_c, window_s, every_s=600.0):
+    """The defrost baseline written out plainly (the form before it was vectorised): refresh
+    at the first sample, then at each first sample at least every_s after the last refresh;
+    the 25 % quantile of the window_s before each refresh, held until the next."""
+    refresh = [0]
+    for i in range(1, time_ts.size):
+        if time_ts[i] - time_ts[refresh[-1]] >= every_s:
+            refresh.append(i)
+    out = np.empty(time_ts.size)
+    for k, r in enumerate(refresh):
+        lo = int(np.searchsorted(time_ts, time_ts[r] - window_s, side="left"))
+        end = refresh[k + 1] if k + 1 < len(refresh) else time_ts.size
+        out[r:end] = np.percentile(air_c[lo : r + 1], 25)
+    return out
+
+
+@pytest.mark.parametrize("step_s", [60.0, 17.3, 599.99, 1.0])
+def test_the_vectorised_baseline_equals_its_plain_definition(step_s):
+    """The baseline's vectorised form (refresh points found by search, short windows' quantile
+    computed as np.percentile's linear method) gives exactly the plain definition's values, on
+    regular, irregular, rounded and repeated sample times (derived: the same definition)."""
+    from watcher.events.detect import _baseline
+
+    rng = np.random.default_rng(int(step_s * 100))
+    for trial in range(12):
+        n = int(rng.integers(2, 2500))
+        t = 1.7e9 + (np.cumsum(rng.exponential(step_s, n)) if trial % 2 else step_s * np.arange(n))
+        if trial % 3 == 0:
+            t = np.round(t, 1)
+        if trial % 4 == 0:
+            t = np.sort(np.concatenate([t, t[: n // 3]]))
+        air = rng.normal(-25.0, 1.0, t.size).round(int(rng.integers(0, 3)))
+        assert np.array_equal(_baseline(t, air, 6 * 3600.0), _baseline_by_definition(t, air, 6 * 3600.0)), trial

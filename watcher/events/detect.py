@@ -109,7 +109,8 @@ def _refresh_points(time_ts: np.ndarray, every_s: float) -> np.ndarray:
 
 def _low_quantile(rows: np.ndarray, lengths: np.ndarray) -> np.ndarray:
     """The 25 % quantile of each row's first `length` values, as np.percentile's linear method
-    computes it (rows padded past their length; tested equal to np.percentile row by row)."""
+    computes it (rows padded past their length; tests/test_events.py checks the baseline built
+    on it against the plain definition)."""
     s = np.sort(rows, axis=1)
     vi = (lengths - 1) * 0.25
     lo = np.floor(vi).astype(int)
