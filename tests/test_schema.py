@@ -138,3 +138,37 @@ def test_database_errors_leave_the_store_as_the_error_tree(tmp_path):
         )
     assert store.alerts.list() == []
     store.close()
+
+
+def test_a_zones_events_are_read_by_their_end_not_from_the_zones_first(tmp_path):
+    """The analysis asks for a zone's events ending after a time several times a pass: the
+    answer is every event of that zone that ends at or after it or is still open (and starts
+    before `until` when given), in start order, and the ended ones come from a range of the
+    end index, so a year of events costs no more to ask than a week (derived: the query's
+    plan, on a real SQLite file)."""
+    store = Store(str(tmp_path / "w.db"))
+    rng = np.random.default_rng(3)
+    made = []
+    with store.atomic():
+        for k in range(400):
+            zone = "z1" if k % 3 else "z2"
+            start = 1.7e9 + 3600.0 * k + float(rng.integers(0, 600))
+            end = None if k % 97 == 0 else start + float(rng.integers(60, 7200))
+            store.events.upsert(zone, ("door", "defrost", "excursion")[k % 3], start, end, {"n": k})
+            made.append((zone, start, end, k))
+    for since in (0.0, 1.7e9 + 3600.0 * 200, 1.7e9 + 3600.0 * 399.5, 2e9):
+        for until in (None, 1.7e9 + 3600.0 * 300):
+            got = [(e["start_ts"], e["end_ts"], e["n"]) for e in store.events.of_zone("z1", since, until)]
+            want = sorted(
+                (s, e, n)
+                for z, s, e, n in made
+                if z == "z1" and (e is None or e >= since) and (until is None or s < until)
+            )
+            assert got == want, (since, until)
+    asked: list[str] = []
+    store.conn.set_trace_callback(asked.append)  # the statement as run, its values filled in
+    store.events.of_zone("z1", 1.7e9)
+    store.conn.set_trace_callback(None)
+    plan = " ".join(r[3] for r in store.conn.execute(f"EXPLAIN QUERY PLAN {asked[-1]}"))
+    assert "events_end (zone=? AND end_ts>?)" in plan, plan
+    store.close()

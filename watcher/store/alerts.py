@@ -113,6 +113,9 @@ class Commands(Repo):
         return None if row is None else row[0]
 
 
+EVENT_COLUMNS = "SELECT id, kind, start_ts, end_ts, detail FROM events"
+
+
 class Events(Repo):
     def upsert(self, zone: str, kind: str, start_ts: float, end_ts: float | None, detail: dict) -> None:
         """Insert or update an event; detail keys merge into what is stored (costs are kept)."""
@@ -128,13 +131,14 @@ class Events(Repo):
         self.conn.execute(EVENT_LOG_INSERT, chain.params((row[0], "set", zone, kind, start_ts, row[1], row[2])))
 
     def of_zone(self, zone: str, since_ts: float, until_ts: float | None = None) -> list[dict]:
-        """Events of a zone that end after since_ts (or are still open) and start before until_ts."""
-        sql = "SELECT id, kind, start_ts, end_ts, detail FROM events WHERE zone = ? AND (end_ts IS NULL OR end_ts >= ?)"
-        args: list = [zone, since_ts]
-        if until_ts is not None:
-            sql += " AND start_ts < ?"
-            args.append(until_ts)
-        rows = self.conn.execute(sql + " ORDER BY start_ts", args)
+        """Events of a zone that end after since_ts (or are still open) and start before until_ts.
+        The ended and the open are asked for apart, so each half is a range of events_end."""
+        until = "" if until_ts is None else " AND start_ts < :until"
+        rows = self.conn.execute(
+            f"{EVENT_COLUMNS} WHERE zone = :zone AND end_ts >= :since{until} UNION ALL "
+            f"{EVENT_COLUMNS} WHERE zone = :zone AND end_ts IS NULL{until} ORDER BY start_ts, id",
+            {"zone": zone, "since": since_ts, "until": until_ts},
+        )
         return [{"id": r[0], "kind": r[1], "start_ts": r[2], "end_ts": r[3], **json.loads(r[4])} for r in rows]
 
     def delete(self, event_id: int) -> None:

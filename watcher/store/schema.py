@@ -396,3 +396,10 @@ def m017_give_back_space(db: sqlite_utils.Database) -> None:
     total = conn.execute("PRAGMA page_count").fetchone()[0]
     if total and free > total // 4:
         conn.execute("VACUUM")
+
+
+@migrations()
+def m018_event_ends(db: sqlite_utils.Database) -> None:
+    """Events indexed by their end, so a pass that asks for the events ending after a time reads
+    those, not every event the zone ever had (the live analysis asks several times a pass)."""
+    db.execute("CREATE INDEX events_end ON events(zone, end_ts)")
