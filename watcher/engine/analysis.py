@@ -25,7 +25,7 @@ from zoneinfo import ZoneInfo
 import numpy as np
 
 from watcher.events.attribution import attribute, day_growth, default_tail_s
-from watcher.events.detect import Event, excursions, infer_defrosts, state_intervals
+from watcher.events.detect import BaselineMemo, Event, excursions, infer_defrosts, state_intervals
 from watcher.model.integrator import Spec, State
 from watcher.store.db import Store
 from watcher.store.zones import pack_state, unpack_state
@@ -90,8 +90,11 @@ def _intervals(rows, kind: str) -> list[Event]:
     return out
 
 
-def detect(store: Store, zone, events_cfg, span_start: float, fed_ts: float) -> list[Event]:
-    """All events overlapping (span_start, fed_ts], with context before the span."""
+def detect(
+    store: Store, zone, events_cfg, span_start: float, fed_ts: float, memo: BaselineMemo | None = None
+) -> list[Event]:
+    """All events overlapping (span_start, fed_ts], with context before the span (memo: the
+    zone's previous pass, which saves the detector work and never changes what it finds)."""
     since = span_start - CONTEXT_S
     t, air = binned_air(store, zone.id, since, fed_ts)
     doors = _intervals(store.readings.signals(zone.id, ("door",), since, fed_ts), "door")
@@ -99,7 +102,7 @@ def detect(store: Store, zone, events_cfg, span_start: float, fed_ts: float) -> 
     if defrost_rows:
         defrosts = _intervals(defrost_rows, "defrost")
     elif events_cfg.infer_defrosts and t.size:
-        defrosts = infer_defrosts(t, air, doors, events_cfg.defrost)
+        defrosts = infer_defrosts(t, air, doors, events_cfg.defrost, memo)
     else:
         defrosts = []
     warm = excursions(t, air, zone.setpoint_c, doors + defrosts, events_cfg.excursion_k, events_cfg.excursion_min_s)
@@ -268,9 +271,17 @@ def defrosts_on_day(store: Store, zone_id: str, tz: str, at_ts: float) -> int:
 
 
 def analyse(
-    store: Store, zone, spec: Spec, key: str, tz: str, events_cfg, span_start: float, fed_ts: float
+    store: Store,
+    zone,
+    spec: Spec,
+    key: str,
+    tz: str,
+    events_cfg,
+    span_start: float,
+    fed_ts: float,
+    memo: BaselineMemo | None = None,
 ) -> Findings:
-    found = detect(store, zone, events_cfg, span_start, fed_ts)
+    found = detect(store, zone, events_cfg, span_start, fed_ts, memo)
     merge_events(store, zone.id, found, span_start, fed_ts)
     return Findings(
         defrosts_today=defrosts_on_day(store, zone.id, tz, fed_ts),

@@ -7,6 +7,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass, field
 
+from watcher.events.detect import BaselineMemo
 from watcher.store.db import Store
 
 
@@ -27,6 +28,7 @@ class Live:
     event_cost: tuple[float, float] | None = None  # (budget share %, excess um) of the latest costed event
     snapshot_ts: float = -math.inf
     analysed_ts: float = -math.inf
+    baseline: BaselineMemo = field(default_factory=BaselineMemo)  # the defrost detector's last pass (work saved)
 
     def switch(self, signal: str, sensor: str, ts: float, value: float) -> None:
         cur = self.switches.get((signal, sensor))

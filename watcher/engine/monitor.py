@@ -173,6 +173,7 @@ class Monitor:
             self.config.events,
             start,
             at_ts,
+            lz.baseline,
         )
         lz.analysed_ts = at_ts
         self.store.zones.mark_set(zid, "analysed_ts", at_ts)

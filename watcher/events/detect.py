@@ -19,7 +19,7 @@ quoted in docs/events.md.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 
@@ -84,27 +84,11 @@ def state_intervals(time_ts: np.ndarray, state: np.ndarray, kind: str) -> list[E
 
 
 def _refresh_points(time_ts: np.ndarray, every_s: float) -> np.ndarray:
-    """The samples where the baseline is recomputed: the first, then each first sample at
-    least every_s after the previous refresh. Each sample's successor is found by one search
-    for all samples, then checked with the test as written (t[j] - t[i] >= every_s; the search
-    adds instead, which rounding can move by a sample) and corrected where it fails."""
-    t = np.asarray(time_ts, float)
-    n = t.size
-    nxt = np.searchsorted(t, t + every_s, side="left")
-    at = np.minimum(nxt, n - 1)
-    before = np.maximum(nxt - 1, 0)
-    ok = ((nxt >= n) | (t[at] - t >= every_s)) & ((nxt - 1 <= np.arange(n)) | (t[before] - t < every_s))
-    nxt = nxt.tolist()
-    for i in np.flatnonzero(~ok).tolist():
-        j = i + 1
-        while j < n and t[j] - t[i] < every_s:
-            j += 1
-        nxt[i] = j
-    out, r = [], 0
-    while r < n:
-        out.append(r)
-        r = nxt[r]
-    return np.array(out)
+    """The samples where the baseline is recomputed: the first sample of each every_s cell of
+    absolute time (cells are fixed on the clock, not on the first sample, so the same readings
+    give the same baseline however the span handed to the detector is cut)."""
+    cell = np.floor_divide(np.asarray(time_ts, float), every_s)
+    return np.flatnonzero(np.concatenate(([True], cell[1:] != cell[:-1])))
 
 
 def _low_quantile(rows: np.ndarray, lengths: np.ndarray) -> np.ndarray:
@@ -121,26 +105,82 @@ def _low_quantile(rows: np.ndarray, lengths: np.ndarray) -> np.ndarray:
     return np.where(gamma >= 0.5, b - diff * (1 - gamma), a + diff * gamma)
 
 
-def _baseline(time_ts: np.ndarray, air_c: np.ndarray, window_s: float, every_s: float = 600.0) -> np.ndarray:
+@dataclass
+class BaselineMemo:
+    """One zone's previous baseline call: its samples and the values of its complete windows.
+    The next call takes a window's value from here only when that window's samples are the
+    same, time for time and value for value (checked, not assumed), so the result never
+    depends on the memo; only the work does. The live analysis re-reads days of air every
+    pass, of which a few minutes are new."""
+
+    time_ts: np.ndarray = field(default_factory=lambda: np.empty(0))
+    air_c: np.ndarray = field(default_factory=lambda: np.empty(0))
+    refresh_ts: np.ndarray = field(default_factory=lambda: np.empty(0))
+    values: np.ndarray = field(default_factory=lambda: np.empty(0))  # NaN: window was cut short
+    reused: int = 0  # windows the last call took from here (for tests and benchmarks)
+
+
+def _unchanged(memo: BaselineMemo, t: np.ndarray, air: np.ndarray) -> np.ndarray:
+    """Per sample of t: True where the memo holds the same sample (time and value) and every
+    sample between the start of the overlap and this one is the same too (prefix), else False."""
+    same = np.zeros(t.size, bool)
+    if memo.time_ts.size == 0 or t.size == 0:
+        return same
+    lo_ts, hi_ts = max(t[0], memo.time_ts[0]), min(t[-1], memo.time_ts[-1])
+    c0, c1 = np.searchsorted(t, lo_ts, side="left"), np.searchsorted(t, hi_ts, side="right")
+    p0, p1 = np.searchsorted(memo.time_ts, lo_ts, side="left"), np.searchsorted(memo.time_ts, hi_ts, side="right")
+    if c1 <= c0 or c1 - c0 != p1 - p0:
+        return same
+    eq = (t[c0:c1] == memo.time_ts[p0:p1]) & (air[c0:c1] == memo.air_c[p0:p1])
+    same[c0:c1] = np.logical_and.accumulate(eq)
+    return same
+
+
+def _from_memo(memo: BaselineMemo, t, air, idx, lo, complete) -> np.ndarray:
+    """Values of the refresh points whose complete window the memo holds unchanged; NaN elsewhere."""
+    out = np.full(idx.size, np.nan)
+    if memo is None or memo.refresh_ts.size == 0:
+        return out
+    same = _unchanged(memo, t, air)
+    # A window is unchanged when its first and last samples lie in the unchanged prefix run
+    # (the prefix is contiguous, so every sample between them is unchanged too).
+    ok = complete & same[lo] & same[idx]
+    at = np.searchsorted(memo.refresh_ts, t[idx])
+    at = np.minimum(at, memo.refresh_ts.size - 1)
+    ok &= memo.refresh_ts[at] == t[idx]
+    out[ok] = memo.values[at[ok]]
+    memo.reused = int(np.count_nonzero(~np.isnan(out)))
+    return out
+
+
+def _baseline(
+    time_ts: np.ndarray, air_c: np.ndarray, window_s: float, every_s: float = 600.0, memo: BaselineMemo | None = None
+) -> np.ndarray:
     """A running low quantile (25 %) of the air over the preceding window: the cold, settled
-    level. Recomputed every `every_s` and held in between. The window start is found by time;
-    the full-length windows' quantiles are taken in one vectorised call, the shorter ones at the
-    start of the data in another."""
+    level. Recomputed at each refresh point and held in between. The window start is found by
+    time; windows whose values the memo holds unchanged are taken from it, the full-length
+    windows' quantiles are taken in one vectorised call, the shorter ones in another."""
     n = time_ts.size
     idx = _refresh_points(time_ts, every_s)
     lo = np.searchsorted(time_ts, time_ts[idx] - window_s, side="left")
-    values = np.empty(idx.size)
+    complete = time_ts[idx] - window_s >= time_ts[0]  # no sample of the window can lie before the data
+    values = _from_memo(memo, time_ts, air_c, idx, lo, complete)
+    todo = np.isnan(values)
     lengths = idx - lo + 1
     full = lengths.max()
-    sel = lengths == full  # regular data: all but the first window_s
-    windows = np.lib.stride_tricks.sliding_window_view(air_c, int(full))[lo[sel]]
-    values[sel] = np.percentile(windows, 25, axis=1)
-    if not sel.all():
-        short = np.flatnonzero(~sel)
+    sel = todo & (lengths == full)  # regular data: all but the first window_s
+    if sel.any():
+        windows = np.lib.stride_tricks.sliding_window_view(air_c, int(full))[lo[sel]]
+        values[sel] = np.percentile(windows, 25, axis=1)
+    short = np.flatnonzero(todo & ~sel)
+    if short.size:
         pad = np.full((short.size, int(lengths[short].max())), np.inf)
         for row, k in enumerate(short):
             pad[row, : lengths[k]] = air_c[lo[k] : idx[k] + 1]
         values[short] = _low_quantile(pad, lengths[short])
+    if memo is not None:
+        memo.time_ts, memo.air_c = time_ts.copy(), air_c.copy()
+        memo.refresh_ts, memo.values = time_ts[idx], np.where(complete, values, np.nan)
     return np.repeat(values, np.diff(np.append(idx, n)))
 
 
@@ -161,13 +201,16 @@ def _overlaps(a0: float, a1: float, events: list[Event]) -> bool:
     return any(e.start_ts <= a1 and (e.end_ts is None or e.end_ts >= a0) for e in events)
 
 
-def infer_defrosts(time_ts, air_c, doors: list[Event] = (), shape: DefrostShape = DefrostShape()) -> list[Event]:
-    """Defrost cycles inferred from the air temperature pattern."""
+def infer_defrosts(
+    time_ts, air_c, doors: list[Event] = (), shape: DefrostShape = DefrostShape(), memo: BaselineMemo | None = None
+) -> list[Event]:
+    """Defrost cycles inferred from the air temperature pattern (memo: the zone's previous
+    call, which saves work and never changes the answer)."""
     t = np.asarray(time_ts, float)
     air = np.asarray(air_c, float)
     if t.size < 3:
         return []
-    base = _baseline(t, air, shape.baseline_window_s)
+    base = _baseline(t, air, shape.baseline_window_s, memo=memo)
     candidates = []
     for i, j in _episodes(t, air - base, shape.rise_k):
         start, end = float(t[max(i - 1, 0)]), float(t[min(j + 1, t.size - 1)])
