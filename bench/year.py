@@ -13,8 +13,9 @@ command runs as its own process and its wall time and peak resident memory are p
   a weekly check) and after it (nothing new: the cost of a check with nothing to hash);
 - live ingest on this database against an empty one, in the same run (median of 3 each,
   alternating): messages parsed, stored with the chain, committed with synchronous=FULL and fed
-  to the model, a minute of every sensor a batch; the broker's part does not depend on
-  history and is left out (bench/service_ingest.py measures it);
+  to the model, a minute of every sensor a batch, timed just after start and eight hours on
+  (LIVE_SPANS); the broker's part does not depend on history and is left out
+  (bench/service_ingest.py measures it);
 - the database's bytes a reading (file size over rows, indexes included).
 
 Usage: python bench/year.py [--sensors 200] [--steps 1,4,13] [--year] [--folder DIR]
@@ -108,48 +109,61 @@ def write_csv(path: Path, start_ts: float, zones: int, seed: int) -> int:
     return n
 
 
-def live_rate(cfg_path: Path, start_ts: float, zones: int, minutes: int, warm_minutes: int = 16) -> float:
-    """Readings a second through the live path from start_ts on, in the steady state: the
-    engine's start and its first warm_minutes (the first event-analysis pass, which reads the
-    zone's last days once) are left out of the timing."""
+#: Live ingest is timed over two spans of one run, in minutes from its start: just after the
+#: engine's first analysis pass (which reads the zone's last days once), and eight hours on,
+#: when the history's due event costs are done and an empty record has grown its own first
+#: hours (separate index pages per sensor, detector context).
+LIVE_SPANS = ((16, 136), (480, 600))
+
+
+def live_rates(cfg_path: Path, start_ts: float, zones: int, spans=LIVE_SPANS) -> list[float]:
+    """Readings a second through the live path from start_ts on, over each span of minutes of
+    one run (the minutes before and between spans are fed, not timed)."""
     cfg = load_config(str(cfg_path))
     store = Store(cfg.storage.path)
     try:
         engine = Engine(cfg, store)
         rng = np.random.default_rng(int(start_ts))
-        batches = []
-        for m in range(warm_minutes + minutes):
-            ts = start_ts + 60.0 * m
-            values = rng.normal(-25.0, 0.3, zones * PER_ZONE).round(2)
-            batches.append(
-                [
+        rates = []
+        minute = 0
+        for first, last in spans:
+            taken = 0.0
+            for m in range(minute, last):
+                ts = start_ts + 60.0 * m
+                values = rng.normal(-25.0, 0.3, zones * PER_ZONE).round(2)
+                batch = [
                     Message(f"yr/z{k // PER_ZONE:02d}/s{k % PER_ZONE}/air", json.dumps({"value": v}).encode(), ts, 0, 1)
                     for k, v in enumerate(values.tolist())
                 ]
-            )
-        for batch in batches[:warm_minutes]:
-            engine.process(batch, now=batch[0].received_ts)
-        t = time.perf_counter()
-        for batch in batches[warm_minutes:]:
-            engine.process(batch, now=batch[0].received_ts)
-        return sum(len(b) for b in batches[warm_minutes:]) / (time.perf_counter() - t)
+                t = time.perf_counter()
+                engine.process(batch, now=ts)
+                if m >= first:
+                    taken += time.perf_counter() - t
+            rates.append((last - first) * zones * PER_ZONE / taken)
+            minute = last
+        return rates
     finally:
         store.close()
 
 
-def live_ratio(cfg: Path, start_ts: float, zones: int, minutes: int = 120) -> tuple[float, float]:
-    """Median live rate on this database and on an empty one beside it (same run, alternating)."""
+def live_ratio(cfg: Path, start_ts: float, zones: int) -> tuple[list[float], list[float]]:
+    """Median live rates (per span) on this database and on an empty one beside it (same run,
+    alternating)."""
     empty = cfg.parent / "empty"
     empty.mkdir(exist_ok=True)
     empty_cfg = empty / "year.toml"
     empty_cfg.write_text(config_text(empty, zones))
     big, small = [], []
+    run_s = LIVE_SPANS[-1][1] * 60.0
     for k in range(3):
-        big.append(live_rate(cfg, start_ts + k * minutes * 60.0, zones, minutes))
-        small.append(live_rate(empty_cfg, start_ts + k * minutes * 60.0, zones, minutes))
+        for p in empty.glob("year.db*"):
+            p.unlink()
+        big.append(live_rates(cfg, start_ts + k * run_s, zones))
+        small.append(live_rates(empty_cfg, start_ts + k * run_s, zones))
     for p in empty.glob("year.db*"):
         p.unlink()
-    return statistics.median(big), statistics.median(small)
+    medians = [[statistics.median(r[i] for r in runs) for i in range(len(LIVE_SPANS))] for runs in (big, small)]
+    return medians[0], medians[1]
 
 
 def measured(args: list[str], cwd: Path) -> tuple[float, float, str]:
@@ -178,7 +192,8 @@ def main() -> None:
     print(f"site: {zones} zones x {PER_ZONE} sensors, one reading a minute ({a.sensors * 10080:,} a week); {folder}")
     header = (
         f"{'weeks':>5} {'rows':>12} {'B/row':>6} {'replay s':>8} {'MB':>6} {'report s':>8} {'MB':>6} "
-        f"{'verify s':>8} {'rows/s':>9} {'since s':>7} {'marked s':>8} {'status s':>8} {'live/s':>7} {'empty/s':>7}"
+        f"{'verify s':>8} {'rows/s':>9} {'since s':>7} {'marked s':>8} {'status s':>8} "
+        f"{'live/s':>7} {'empty/s':>7} {'8h live':>7} {'8h empty':>8}"
     )
     print(header)
     weeks_done = 0
@@ -207,7 +222,8 @@ def main() -> None:
         print(
             f"{step:5d} {rows:12,d} {size / rows:6.0f} {replay_s:8.1f} {replay_mb:6.0f} {report_s:8.1f} "
             f"{report_mb:6.0f} {verify_s:8.1f} {rows / verify_s:9,.0f} {since_s:7.1f} {marked_s:8.1f} {status_s:8.1f} "
-            f"{live:7,.0f} {empty:7,.0f}  (live ingest ratio {live / empty:.2f})",
+            f"{live[0]:7,.0f} {empty[0]:7,.0f} {live[1]:7,.0f} {empty[1]:8,.0f}  "
+            f"(live ingest ratio {live[0] / empty[0]:.2f}; eight hours on {live[1] / empty[1]:.2f})",
             flush=True,
         )
 
