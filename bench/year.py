@@ -4,21 +4,22 @@ A synthetic site of --sensors air sensors (ten a zone) at one reading a minute. 
 grown in steps (default 1, 4 and 13 weeks; --year adds 52). Every week goes through the
 service's engine, so the history is what a live site leaves (model state, daily snapshots,
 events, daily growth): the older weeks in this process (replay's own path, no CSV), each step's
-last week through `watcher replay`, whose time and memory are the replay figures. Then each
-command runs as its own process and its wall time and peak resident memory are printed:
+last --replay-weeks weeks (default 1) as one file through `watcher replay`, whose time and
+memory are the replay figures. Then each command runs as its own process and its wall time and
+peak resident memory are printed:
 
 - `watcher report` of the last week (HTML, CSV and JSON, as the schedule writes it),
-  `watcher verify`, `watcher verify --since` (last week), `watcher status`; the replay of the week's file itself (its memory is the replay figure);
+  `watcher verify`, `watcher verify --since` (last week), `watcher status`;
 - `verify --since` twice: before the full verify (the week is new since the last mark, as for
   a weekly check) and after it (nothing new: the cost of a check with nothing to hash);
-- live ingest on this database against an empty one, in the same run (median of 3 each,
-  alternating): messages parsed, stored with the chain, committed with synchronous=FULL and fed
-  to the model, a minute of every sensor a batch, timed just after start and eight hours on
-  (LIVE_SPANS); the broker's part does not depend on history and is left out
+- live ingest on a copy of this database against an empty one, in the same run (median of 3
+  each, alternating): messages parsed, stored with the chain, committed with synchronous=FULL
+  and fed to the model, a minute of every sensor a batch, timed just after start and eight
+  hours on (LIVE_SPANS); the broker's part does not depend on history and is left out
   (bench/service_ingest.py measures it);
 - the database's bytes a reading (file size over rows, indexes included).
 
-Usage: python bench/year.py [--sensors 200] [--steps 1,4,13] [--year] [--folder DIR]
+Usage: python bench/year.py [--sensors 200] [--steps 1,4,13] [--year] [--replay-weeks 1] [--folder DIR]
 About a minute and a half of building per week of history on 2 cores (13 weeks: ~25 minutes).
 Figures go in DEVELOPERS.md and docs/scaling.md. Timings are single runs on a shared machine:
 compare them across steps of one run, not across machines.
@@ -29,6 +30,7 @@ from __future__ import annotations
 import argparse
 import datetime as dt
 import json
+import shutil
 import statistics
 import subprocess
 import sys
@@ -99,13 +101,14 @@ def fill_week(cfg, start_ts: float, zones: int, seed: int) -> int:
     return sum(feed(cfg, items, "filling").values())
 
 
-def write_csv(path: Path, start_ts: float, zones: int, seed: int) -> int:
+def write_csv(path: Path, start_ts: float, zones: int, seed: int, weeks: int = 1) -> int:
     n = 0
     with path.open("w") as fh:
         fh.write("time,zone,sensor,signal,value\n")
-        for ts, zone, sensor, value in air_week(start_ts, zones, seed):
-            fh.write(f"{ts:.0f},{zone},{sensor},air_c,{value}\n")
-            n += 1
+        for w in range(weeks):
+            for ts, zone, sensor, value in air_week(start_ts + w * WEEK_S, zones, seed + 1000 * w):
+                fh.write(f"{ts:.0f},{zone},{sensor},air_c,{value}\n")
+                n += 1
     return n
 
 
@@ -147,23 +150,28 @@ def live_rates(cfg_path: Path, start_ts: float, zones: int, spans=LIVE_SPANS) ->
 
 
 def live_ratio(cfg: Path, start_ts: float, zones: int) -> tuple[list[float], list[float]]:
-    """Median live rates (per span) on this database and on an empty one beside it (same run,
-    alternating)."""
-    empty = cfg.parent / "empty"
-    empty.mkdir(exist_ok=True)
-    empty_cfg = empty / "year.toml"
-    empty_cfg.write_text(config_text(empty, zones))
-    big, small = [], []
-    run_s = LIVE_SPANS[-1][1] * 60.0
-    for k in range(3):
-        for p in empty.glob("year.db*"):
-            p.unlink()
-        big.append(live_rates(cfg, start_ts + k * run_s, zones))
-        small.append(live_rates(empty_cfg, start_ts + k * run_s, zones))
-    for p in empty.glob("year.db*"):
-        p.unlink()
-    medians = [[statistics.median(r[i] for r in runs) for i in range(len(LIVE_SPANS))] for runs in (big, small)]
-    return medians[0], medians[1]
+    """Median live rates (per span) on a copy of this database and on an empty one beside it
+    (same run, alternating). The copy keeps the live rows out of the history the next step
+    grows (they would collide with its readings)."""
+    rates = {}
+    for name in ("grown", "empty"):
+        (cfg.parent / name).mkdir(exist_ok=True)
+        (cfg.parent / name / "year.toml").write_text(config_text(cfg.parent / name, zones))
+    for _ in range(3):
+        for name in ("grown", "empty"):
+            where = cfg.parent / name
+            for p in where.glob("year.db*"):
+                p.unlink()
+            if name == "grown":
+                for p in cfg.parent.glob("year.db*"):
+                    shutil.copyfile(p, where / p.name)
+            rates.setdefault(name, []).append(live_rates(where / "year.toml", start_ts, zones))
+    for name in ("grown", "empty"):
+        shutil.rmtree(cfg.parent / name)
+    big, small = (
+        [statistics.median(r[i] for r in rates[n]) for i in range(len(LIVE_SPANS))] for n in ("grown", "empty")
+    )
+    return big, small
 
 
 def measured(args: list[str], cwd: Path) -> tuple[float, float, str]:
@@ -182,6 +190,9 @@ def main() -> None:
     ap.add_argument("--steps", default="1,4,13", help="weeks of history at which to measure, ascending")
     ap.add_argument("--year", action="store_true", help="also measure at 52 weeks")
     ap.add_argument("--folder", default=None, help="where to build (default: a temporary folder)")
+    ap.add_argument(
+        "--replay-weeks", type=int, default=1, help="weeks in each step's replayed file (the rest is grown)"
+    )
     a = ap.parse_args()
     steps = [int(s) for s in a.steps.split(",")] + ([52] if a.year else [])
     zones = a.sensors // PER_ZONE
@@ -198,11 +209,12 @@ def main() -> None:
     print(header)
     weeks_done = 0
     for step in steps:
-        for w in range(weeks_done, step - 1):
+        replayed = min(a.replay_weeks, step - weeks_done)
+        for w in range(weeks_done, step - replayed):
             fill_week(load_config(str(cfg)), T0 + w * WEEK_S, zones, seed=w)
-        last_start = T0 + (step - 1) * WEEK_S
         csv = folder / f"week{step}.csv"
-        write_csv(csv, last_start, zones, seed=step)
+        write_csv(csv, T0 + (step - replayed) * WEEK_S, zones, seed=step, weeks=replayed)
+        last_start = T0 + (step - 1) * WEEK_S
         replay_s, replay_mb, _ = measured(["replay", "--config", str(cfg), str(csv)], folder)
         csv.unlink()
         weeks_done = step
