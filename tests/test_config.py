@@ -140,6 +140,15 @@ def test_password_from_systemd_credentials(tmp_path, monkeypatch):
             lambda d: d["sources"][0].update(pattern="kp/{sensor}/air"),
             "sources[0].zone: got None, expected a zone id, or a {zone} placeholder",
         ),
+        (
+            lambda d: d["sources"][0].update(zone="{site}-{zone}"),  # the pattern has no {site}
+            "sources[0].zone: got '{site}-{zone}', expected a zone id, or a template of the placeholders of "
+            "'kp/{zone}/{sensor}/air'",
+        ),
+        (
+            lambda d: d["sources"][0].update(zone="kp-{zone"),
+            "sources[0].zone: got 'kp-{zone', expected a zone id, or a template",
+        ),
         (lambda d: d["sources"][0].update(unit="R"), "sources[0].unit: got 'R', expected C, F or K"),
         (
             lambda d: (d["sources"][0].update(format="senml"), d["sources"][0].pop("value")),

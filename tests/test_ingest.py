@@ -296,3 +296,37 @@ def test_a_malformed_or_unresolvable_sparkplug_payload_is_refused_with_the_reaso
             DEFAULT_LIMITS,
             "spBv1.0/kestrel/DDATA/bulk-a/s",
         )
+
+
+def test_a_zone_template_names_the_zone_from_the_topic(tmp_path):
+    """A central watcher reads several sites whose zones share names: the source's zone
+    template ("{site}-{zone}") makes the zone id from the topic's placeholders, so
+    fleet/kestrel/bulk-a/... and fleet/harbour/bulk-a/... are two zones; a topic whose made-up
+    zone is not configured is refused with its name."""
+    from watcher.config import config_from_dict
+    from watcher.engine.route import readings_of
+    from watcher.ingest.message import Message
+
+    (tmp_path / "pw").write_text("x\n")
+    cfg = config_from_dict(
+        {
+            "broker": {"password_file": str(tmp_path / "pw")},
+            "storage": {"path": str(tmp_path / "w.db")},
+            "sites": [{"id": "kestrel"}, {"id": "harbour"}],
+            "zones": [
+                {"id": "kestrel-bulk-a", "site": "kestrel", "setpoint_c": -25.0},
+                {"id": "harbour-bulk-a", "site": "harbour", "setpoint_c": -25.0},
+            ],
+            "sources": [
+                {"pattern": "fleet/{site}/{zone}/{sensor}/air", "zone": "{site}-{zone}", "signal": "air_c"},
+            ],
+        },
+        "central.toml",
+    )
+    known = {z.id for z in cfg.zones}.__contains__
+    for site in ("kestrel", "harbour"):
+        msg = Message(f"fleet/{site}/bulk-a/s1/air", b'{"value": -24.5}', NOW, 0, 1)
+        (r,) = readings_of(cfg, msg, known)
+        assert (r.zone, r.sensor, r.value) == (f"{site}-bulk-a", "s1", -24.5)
+    with pytest.raises(Rejected, match="unknown zone 'depot-bulk-a'"):
+        readings_of(cfg, Message("fleet/depot/bulk-a/s1/air", b'{"value": -24.5}', NOW, 0, 1), known)

@@ -28,7 +28,7 @@ DEFAULT_SOURCES = [
 ]
 
 
-def make(tmp_path, rules=(), keep=(), channels=(), zones=None, sources=None, ingest=None):
+def make(tmp_path, rules=(), keep=(), channels=(), zones=None, sources=None, ingest=None, sites=None):
     write_secret(tmp_path / "pw", "x")
     notify = []
     for name, url, tags in channels:
@@ -39,7 +39,7 @@ def make(tmp_path, rules=(), keep=(), channels=(), zones=None, sources=None, ing
             "broker": {"password_file": str(tmp_path / "pw")},
             "storage": {"path": str(tmp_path / "w.db")},
             "ingest": {"reorder_window_s": 0.0, "max_gap_s": 900.0, **(ingest or {})},
-            "sites": [{"id": "kp", "timezone": "UTC"}],
+            "sites": sites or [{"id": "kp", "timezone": "UTC"}],
             "zones": zones or [{"id": "bulk-a", "setpoint_c": -25.0}],
             "sources": sources or DEFAULT_SOURCES,
             "alerts": {
@@ -238,6 +238,27 @@ def test_failing_channel_raises_undelivered_through_the_others(tmp_path):
     (alert,) = store.alerts.list()
     assert alert["rule"] == "undelivered" and alert["zone"] == "service"
     assert rows(store, "SELECT channel FROM outbox WHERE alert_id = ?", alert["id"]) == [("mail",)]
+
+
+def test_a_sites_alerts_reach_the_channel_tagged_with_that_site_only(tmp_path):
+    """A central watcher of two sites: an alert of a zone of site "hb" goes to the channel
+    tagged site:hb and to the one taking all alerts, not to site kp's channel."""
+    channels = [
+        ("kp-qa", "json://127.0.0.1:9/kp", ("site:kp",)),
+        ("hb-qa", "json://127.0.0.1:9/hb", ("site:hb",)),
+        ("head-office", "json://127.0.0.1:9/all", ("alerts",)),
+    ]
+    zones = [{"id": "bulk-a", "setpoint_c": -25.0, "site": "kp"}, {"id": "hb-1", "setpoint_c": -25.0, "site": "hb"}]
+    sites = [{"id": "kp", "timezone": "UTC"}, {"id": "hb", "name": "Harbour Row", "timezone": "UTC"}]
+    cfg, store, engine = make(
+        tmp_path, rules=[{"id": "budget-50", "above": 0.001}], channels=channels, zones=zones, sites=sites
+    )
+    play(engine, 0, 120, zone="hb-1")
+    (alert,) = store.alerts.list()
+    assert alert["zone"] == "hb-1"
+    sent = rows(store, "SELECT channel, tags FROM outbox WHERE alert_id = ?", alert["id"])
+    assert {c for c, tags in sent if "escalation" not in tags} == {"hb-qa", "head-office"}
+    assert {c for c, tags in sent if "escalation" in tags} == {None}  # no escalation contact here
 
 
 def test_latched_budget_alert_stays_quiet_after_ack(tmp_path):

@@ -15,7 +15,7 @@ from watcher.config.reader import REQUIRED, Reader, choice_text, read_secret
 from watcher.config.settings import REPORT_FORMATS, WEEKDAYS, Alerting, Events, Reports
 from watcher.events.detect import DefrostShape
 from watcher.ingest.payload import FORMATS, SIGNALS, Source
-from watcher.ingest.topics import parse_pattern
+from watcher.ingest.topics import ZONE_TEMPLATE, parse_pattern
 from watcher.model.integrator import DEFAULT_POSITIONS, Position
 
 log = logging.getLogger("watcher.config")
@@ -215,13 +215,21 @@ def source(r: Reader, zone_ids: set[str]) -> Source:
     except ValueError as exc:
         r.fail("pattern", text, str(exc))
     signal = _choice(r, "signal", REQUIRED, SIGNALS, "what the topic carries")
-    fixed_zone = r.text("zone", doc="fixed zone when the pattern has no {zone}")
+    fixed_zone = r.text(
+        "zone",
+        doc="a fixed zone id when the pattern has no {zone}; or the zone id made from the pattern's placeholders, "
+        'e.g. "{site}-{zone}" (a central watcher of several sites whose zones share names)',
+    )
     if "zone" not in pattern.placeholders and not fixed_zone:
         r.fail("zone", None, "a zone id, or a {zone} placeholder in the pattern")
-    if fixed_zone and fixed_zone not in zone_ids:
-        r.fail("zone", fixed_zone, "one of the [[zones]] ids")
     if pattern.placeholders - {"zone", "sensor", "site"}:
         r.fail("pattern", text, "placeholders among {site}, {zone}, {sensor}")
+    if fixed_zone and ("{" in fixed_zone or "}" in fixed_zone):
+        named, rest = ZONE_TEMPLATE.findall(fixed_zone), ZONE_TEMPLATE.sub("", fixed_zone)
+        if not named or set(named) - pattern.placeholders or "{" in rest or "}" in rest:
+            r.fail("zone", fixed_zone, f"a zone id, or a template of the placeholders of {text!r}")
+    elif fixed_zone and fixed_zone not in zone_ids:
+        r.fail("zone", fixed_zone, "one of the [[zones]] ids")
     fmt = _choice(
         r,
         "format",

@@ -217,6 +217,8 @@ class AlertKeeper:
             state = self.store.lots.state_get(lot)
             figures = {**(state[2] if state else {}), "air_c": lz.air_c if lz else None}
         tags = ["escalation"] if kind == "escalate" else ["alerts", alert["severity"], f"zone:{key}"]
+        if kind != "escalate" and zone is not None and site is not None:
+            tags.append(f"site:{site.id}")  # a central watcher routes each site's alerts to its own people
         if escalated:  # learnt late and open past the escalation time: the escalation contacts too
             tags.append("escalation")
         exclude = set(self.store.outbox.failing_channels()) if alert["metric"] == "undelivered_s" else set()

@@ -16,6 +16,7 @@ from watcher.declare import setting
 from watcher.errors import OutOfClock, Rejected
 from watcher.ingest import senml, sparkplug
 from watcher.ingest.jsondoc import BadJson, load_json
+from watcher.ingest.topics import fill_template
 
 __all__ = [
     "FORMATS",
@@ -48,7 +49,7 @@ class Source:
     unit_path: tuple[str, ...] | None = None  # the payload names its unit here (else `unit` applies)
     time_path: tuple[str, ...] | None = None
     time_format: str = "iso"  # "iso", "epoch_s" or "epoch_ms"
-    zone: str | None = None  # fixed zone when the pattern has no {zone}
+    zone: str | None = None  # fixed zone when the pattern has no {zone}, or a template ("{site}-{zone}")
     sensor: str | None = None  # fixed sensor when the pattern has no {sensor}
 
 
@@ -292,7 +293,10 @@ def _reading(source: Source, names: dict[str, str], raw: Raw, received_ts: float
         raise OutOfClock(f"timestamp {ts - received_ts:.0f} s in the future (tolerance {limits.future_skew_s:.0f} s)")
     if ts < received_ts - limits.past_limit_s:
         raise OutOfClock(f"timestamp {(received_ts - ts) / 86400:.0f} days in the past")
-    zone = names.get("zone") or source.zone
+    if source.zone and "{" in source.zone:  # a template of the topic's placeholders (checked by the config)
+        zone = fill_template(source.zone, names)
+    else:
+        zone = names.get("zone") or source.zone
     sensor = names.get("sensor") or source.sensor or source.signal
     # Microseconds: readings stamped with the receive time must not collide in the natural key.
     return Reading(zone=zone, sensor=sensor, signal=source.signal, ts=round(ts, 6), value=value, ignored=ignored)

@@ -11,6 +11,7 @@ from dataclasses import dataclass
 
 _PLACEHOLDER = re.compile(r"^\{([a-z_][a-z0-9_]*)\}$")
 _BAD_LEVEL_CHARS = re.compile(r"[+#\x00-\x1f\x7f]")
+ZONE_TEMPLATE = re.compile(r"\{([a-z_][a-z0-9_]*)\}")  # a source's zone made of placeholders: "{site}-{zone}"
 
 
 @dataclass(frozen=True)
@@ -69,3 +70,8 @@ def parse_pattern(text: str) -> TopicPattern:
 def topic_is_clean(topic: str) -> bool:
     """A concrete topic: no wildcard, no control character, no empty level."""
     return bool(topic) and not _BAD_LEVEL_CHARS.search(topic) and "" not in topic.split("/")
+
+
+def fill_template(text: str, names: dict[str, str]) -> str:
+    """A zone template ("{site}-{zone}") with the placeholder values of a matched topic."""
+    return ZONE_TEMPLATE.sub(lambda m: names[m.group(1)], text)

@@ -31,9 +31,9 @@ def produce(
                 f"Weekly texture summary {week.label}: {site.name or site.id}",
                 report.summary
                 + "\n\nThe full summary is attached (HTML; opens in any browser, prints on A4 or Letter).",
-                ["reports"],
+                ["reports", f"site:{site.id}"],
                 now_ts,
-                route(list(cfg.channels), ["reports"]),
+                route(list(cfg.channels), ["reports", f"site:{site.id}"]),
                 dedupe=f"report:{site.id}:{week.label}:{'auto' if auto else now_ts}",
                 attach=str(html_path.resolve()) if html_path else None,
             )
