@@ -23,8 +23,10 @@ def free_port() -> int:
         return s.getsockname()[1]
 
 
-def make_ca(folder: Path) -> dict[str, Path]:
-    """A test CA, a server certificate for localhost/127.0.0.1 and a client certificate."""
+def make_ca(folder: Path, clients: tuple[str, ...] = ()) -> dict[str, Path]:
+    """A test CA, a server certificate for localhost/127.0.0.1 and a client certificate; and
+    one more client certificate for each name in `clients` (its common name; files
+    <name>.pem and <name>.key, keys "<name>_cert" and "<name>_key")."""
     from cryptography import x509
     from cryptography.hazmat.primitives import hashes, serialization
     from cryptography.hazmat.primitives.asymmetric import ec
@@ -58,11 +60,14 @@ def make_ca(folder: Path) -> dict[str, Path]:
     for name, sans in (
         ("server", [x509.DNSName("localhost"), x509.IPAddress(ipaddress.ip_address("127.0.0.1"))]),
         ("client", None),
+        *((c, None) for c in clients),
     ):
         k = key()
         b = (
             x509.CertificateBuilder()
-            .subject_name(x509.Name([x509.NameAttribute(NameOID.COMMON_NAME, f"watcher-{name}")]))
+            .subject_name(
+                x509.Name([x509.NameAttribute(NameOID.COMMON_NAME, name if name in clients else f"watcher-{name}")])
+            )
             .issuer_name(ca_name)
             .public_key(k.public_key())
             .serial_number(x509.random_serial_number())

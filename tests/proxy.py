@@ -83,8 +83,10 @@ class Proxy:
 
     def stall(self) -> None:
         """Freeze the open connections: a half-open link that only a keepalive can detect. New
-        connections stall too until `resume`."""
+        connections stall too until `resume`. Returns once every pump has seen it (a pump that
+        was waiting in select when the mode changed forwards what that select returned)."""
         self.mode = "stall"
+        time.sleep(0.3)  # longer than a pump's select timeout
 
     def slow(self, delay_s: float) -> None:
         self.delay_s, self.mode = delay_s, "slow"

@@ -21,6 +21,7 @@ from watcher.engine.batch import Engine
 from watcher.store.db import Store
 
 T0 = 1_795_000_000.0  # 2026-11-18T...Z; readings are stamped from here, a minute apart
+SITE_NAMES = {"kp": "Kestrel Point", "kestrel": "Kestrel Point", "harbour": "Harbour Row"}
 AIR_SOURCE_TOML = """[[sources]]
 pattern = "kp/{zone}/{sensor}/air"
 signal = "air_c"
@@ -77,6 +78,7 @@ def write_config(
     reorder_s: float = 120.0,
     reports: bool = False,
     stall_limit_s: float = 600.0,
+    site: str = "kp",
 ) -> Path:
     port = broker.tls_port if tls else broker.port
     tls_block = f'\n[broker.tls]\nca_file = "{broker.tls["ca"]}"\n' if tls else ""
@@ -109,13 +111,13 @@ enabled = {"true" if reports else "false"}
 dir = "{folder / "reports"}"
 
 [[sites]]
-id = "kp"
-name = "Kestrel Point (test)"
+id = "{site}"
+name = "{SITE_NAMES.get(site, site)} (test)"
 timezone = "Europe/London"
 {zone_blocks}
-{AIR_SOURCE_TOML}
+{AIR_SOURCE_TOML.replace('"kp/', f'"{site}/')}
 [[sources]]
-pattern = "kp/{{zone}}/door"
+pattern = "{site}/{{zone}}/door"
 signal = "door"
 format = "number"
 {extra}
@@ -131,11 +133,11 @@ def air_value(zone_index: int, k: int) -> float:
     return -25.0 + (6.0 if ((k + 37 * zone_index) % 360) < 30 else 0.0)
 
 
-def messages(zones, first: int, count: int) -> list[tuple[str, bytes]]:
+def messages(zones, first: int, count: int, site: str = "kp") -> list[tuple[str, bytes]]:
     out = []
     for k in range(first, first + count):
         for i, z in enumerate(zones):
-            out.append((f"kp/{z}/s1/air", json.dumps({"temp_c": air_value(i, k), "ts": T0 + 60 * k}).encode()))
+            out.append((f"{site}/{z}/s1/air", json.dumps({"temp_c": air_value(i, k), "ts": T0 + 60 * k}).encode()))
     return out
 
 

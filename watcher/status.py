@@ -29,6 +29,7 @@ def read_status(config_path: str | None, db_path: str | None, now: float | None 
             zones.append(
                 {
                     "id": zid,
+                    "site": cfg.site_of(zid).id if cfg else "site",
                     "air_c": row.last_air_c if row else None,
                     "product_c": row.last_product_c if row and row.last_product_c is not None else fig.get("product_c"),
                     "mean_diameter_um": fig.get("mean_diameter_um"),
@@ -47,16 +48,48 @@ def read_status(config_path: str | None, db_path: str | None, now: float | None 
                     "figures_updated_ts": row.updated_ts if row else None,
                 }
             )
+        alerts = [
+            {k: a[k] for k in ("id", "zone", "severity", "status", "label", "raised_ts", "acked_by")}
+            for a in store.alerts.list(open_only=True)
+        ]
         return {
             "database": path,
             "now_ts": now,
+            "sites": site_lines(cfg, zones, alerts),
             "zones": zones,
             "rejections_total": store.rejections.since(-float("inf")),
-            "open_alerts": [
-                {k: a[k] for k in ("id", "zone", "severity", "status", "label", "raised_ts", "acked_by")}
-                for a in store.alerts.list(open_only=True)
-            ],
+            "open_alerts": alerts,
             "gaps_total": store.record.count("gaps"),
         }
     finally:
         store.close()
+
+
+def site_lines(cfg, zones: list[dict], alerts: list[dict]) -> list[dict]:
+    """One summary a site, in the configuration's order: its zones, open alerts, the most
+    budget used and fewest days left among its zones, its stalest zone's last reading."""
+    sites = [(s.id, s.name, s.timezone) for s in cfg.sites] if cfg else [("site", "", "UTC")]
+    out = []
+    for site_id, name, tz in sites:
+        mine = [z for z in zones if z["site"] == site_id]
+        ids = {z["id"] for z in mine}
+        ages = [z["last_reading_age_s"] for z in mine if z["last_reading_age_s"] is not None]
+        out.append(
+            {
+                "id": site_id,
+                "name": name,
+                "timezone": tz,
+                "zones": len(mine),
+                "open_alerts": sum(1 for a in alerts if a["zone"] in ids),
+                "most_budget_used_pct": max(
+                    (z["budget_used_pct"] for z in mine if z["budget_used_pct"] is not None), default=None
+                ),
+                "fewest_days_left": min(
+                    (z["days_to_limit"] for z in mine if z["days_to_limit"] is not None), default=None
+                ),
+                "stalest_reading_age_s": max(ages, default=None),
+                "zones_without_data": len(mine) - len(ages),
+                "zones_with_gap_open": sum(1 for z in mine if z["open_gap"] and z["last_reading_age_s"] is not None),
+            }
+        )
+    return out

@@ -10,10 +10,9 @@ import click
 
 from watcher.alerts.metrics import temperature
 from watcher.cli.app import main
-from watcher.cli.common import config_option, db_options, fmt, self_command, site_tz, site_unit, stamp, table
+from watcher.cli.common import config_option, db_options, self_command, site_tz, site_unit, stamp, table
 from watcher.errors import WatcherError
 from watcher.ingest.payload import FORMATS
-from watcher.ranges import figure_text
 
 
 @main.command()
@@ -174,8 +173,10 @@ def run(config_path, log_level) -> None:
 @main.command()
 @db_options
 @click.option("--json", "as_json", is_flag=True, help="Print JSON.")
-def status(config_path, db_path, as_json) -> None:
+@click.option("--all-sites", is_flag=True, help="One line a site first, then each site's zones (a central watcher).")
+def status(config_path, db_path, as_json, all_sites) -> None:
     """Show each zone's temperatures, crystal size, budget and data freshness (read-only)."""
+    from watcher.cli.status_view import show
     from watcher.config import load_config
     from watcher.status import read_status
 
@@ -183,55 +184,7 @@ def status(config_path, db_path, as_json) -> None:
     if as_json:
         click.echo(json.dumps(report, indent=2))
         return
-    cfg = load_config(config_path) if config_path else None
-    tz = site_tz(cfg)
-    click.echo(f"Database {report['database']} (read-only), as of {stamp(report['now_ts'], tz)}")
-    lines = []
-    for z in report["zones"]:
-        age = z["last_reading_age_s"]
-        data = "no data" if age is None else "gap open" if z["open_gap"] else "ok"
-        days_none = "never" if z["state"] == "frozen" else "-"  # 'never': no coarsening below Tg'; '-': no figures yet
-        lines.append(
-            [
-                z["id"],
-                temperature(z["air_c"], site_unit(cfg, z["id"]), "-"),
-                temperature(z["product_c"], site_unit(cfg, z["id"]), "-"),
-                fmt(z["mean_diameter_um"], ".1f"),
-                figure_text(z, "budget_used_pct", ".1f"),
-                figure_text(z, "days_to_limit", ".0f", days_none),
-                _age(age),
-                _age(None if z["model_time_ts"] is None else max(0.0, report["now_ts"] - z["model_time_ts"])),
-                str(z["readings_total"]),
-                data,
-            ]
-        )
-    head = [
-        "zone",
-        "air",
-        "product",
-        "mean um",
-        "budget % (90 % range)",
-        "days left (range)",
-        "last reading",
-        "figures of",
-        "readings",
-        "data",
-    ]
-    click.echo(table(lines, head, ["left"] + ["right"] * 8 + ["left"]))
-    click.echo(
-        "Days left: if the product stayed at its current temperature. Ranges: 90 % range from the profile's "
-        "uncertainty; alerts on days left use the cautious (lower) end. Figures of: how old the data time is that "
-        "the figures describe (they reach the last reading once it has waited out the reorder window)."
-    )
-    click.echo(f"Rejected messages stored: {report['rejections_total']}; data gaps recorded: {report['gaps_total']}.")
-    alerts = report["open_alerts"]
-    if alerts:
-        click.echo(f"Open alerts ({len(alerts)}; `watcher alerts --open` for more):")
-        for a in alerts[:10]:
-            ack = f", acknowledged by {a['acked_by']}" if a["acked_by"] else ""
-            click.echo(f"  {a['id']:>5} {a['severity']:<8} {a['zone']:<12} {a['label']}{ack}")
-    else:
-        click.echo("No open alerts.")
+    show(report, load_config(config_path) if config_path else None, all_sites)
     from watcher.simulation import CAUTION
 
     click.echo(CAUTION)
@@ -249,14 +202,6 @@ def replay(config_path, readings_path) -> None:
     counts = replay_file(cfg, readings_path, progress=click.progressbar)
     click.echo(", ".join(f"{k}: {v}" for k, v in sorted(counts.items())) or "nothing to replay")
     click.echo(f"Database {cfg.storage.path}; see `watcher status --config {config_path}`.")
-
-
-def _age(age_s: float | None) -> str:
-    if age_s is None:
-        return "-"
-    if age_s < 120:
-        return f"{age_s:.0f} s ago"
-    return f"{age_s / 60:.0f} min ago" if age_s < 7200 else f"{age_s / 3600:.1f} h ago"
 
 
 @main.command("import")
