@@ -16,6 +16,9 @@ need() {  # need COMMAND PACKAGE WHY: install a Debian package when its command 
 need mosquitto mosquitto "the MQTT tests start their own broker on loopback"
 need chromium chromium "the weekly summary is rendered in headless Chromium"
 need faketime faketime "the clock tests run watcher with its wall clock offset and stepped (libfaketime)"
+if ! ls /usr/lib/postgresql/*/bin/initdb >/dev/null 2>&1; then  # Debian keeps the server off PATH
+  need initdb postgresql "the PostgreSQL tests start their own server on loopback as an unprivileged user"
+fi
 bash scripts/setup-venv.sh test
 .venv/bin/ruff check watcher tests bench
 .venv/bin/lint-imports --no-cache
