@@ -369,3 +369,48 @@ def test_sensor_weeks_counts_late_readings_and_reads_one_sensor_at_a_time(tmp_pa
     assert set(got) == {("bulk-a", "dock", "door"), ("bulk-a", "s1", "air_c"), ("bulk-a", "s2", "air_c")}
     assert got[("bulk-a", "s1", "air_c")] == ([week0 + 60 * k for k in range(30)], 5)  # k = 0, 7, 14, 21, 28
     assert got[("bulk-a", "dock", "door")] == ([week0 + 5], 1)
+
+
+def test_a_central_records_site_summary_lists_that_sites_rejections_only(tmp_path):
+    """A central watcher of two sites: Kestrel Point's summary counts the messages refused on
+    Kestrel Point's topics and those no site can claim (a zone nobody configured), not Harbour
+    Row's; Harbour Row's likewise (derived: the messages sent)."""
+    from watcher.config import config_from_dict
+    from watcher.ingest.message import Message as Msg
+
+    (tmp_path / "pw").write_text("x\n")
+    (tmp_path / "pw").chmod(0o600)
+    cfg = config_from_dict(
+        {
+            "broker": {"password_file": str(tmp_path / "pw")},
+            "storage": {"path": str(tmp_path / "central.db")},
+            "sites": [{"id": "kestrel", "timezone": "UTC"}, {"id": "harbour", "timezone": "UTC"}],
+            "zones": [
+                {"id": "kestrel-bulk-a", "site": "kestrel", "setpoint_c": -25.0},
+                {"id": "harbour-store-1", "site": "harbour", "setpoint_c": -25.0},
+            ],
+            "sources": [{"pattern": "fleet/{site}/{zone}/{sensor}/air", "zone": "{site}-{zone}", "signal": "air_c"}],
+        },
+        "central.toml",
+    )
+    store = Store(cfg.storage.path)
+    engine = Engine(cfg, store)
+    start = ts(2026, 11, 16)
+    for m in range(0, 6 * 60, 10):
+        at = start + 60.0 * m
+        ok = [
+            Msg(f"fleet/{s}/{z}/s1/air", b'{"value": -25.0}', at, 0, 1)
+            for s, z in (("kestrel", "bulk-a"), ("harbour", "store-1"))
+        ]
+        engine.process(ok, now=at)
+    bad = {"kestrel": 3, "harbour": 5, "depot": 2}  # depot: a site nobody configured
+    at = start + 7 * 3600.0
+    zones = {"kestrel": "bulk-a", "harbour": "store-1", "depot": "bulk-a"}
+    refused = [Msg(f"fleet/{s}/{zones[s]}/s1/air", b"{not json", at, 0, 1) for s, n in bad.items() for _ in range(n)]
+    engine.process(refused, now=at)
+    week = week_of("2026-W47", "UTC")
+    for site in cfg.sites:
+        (path,) = produce(store, cfg, site, week, ts(2026, 11, 25), str(tmp_path / site.id), ("json",), False, False)
+        refused = sum(r["messages"] for r in json.loads(path.read_text())["rejections"])
+        assert refused == bad[site.id] + bad["depot"], site.id
+    store.close()

@@ -7,7 +7,7 @@ from collections.abc import Callable
 
 from watcher.config import Config
 from watcher.ingest.message import Message
-from watcher.ingest.payload import Reading, Rejected, parse_readings
+from watcher.ingest.payload import Reading, Rejected, parse_readings, zone_of
 
 
 def readings_of(config: Config, msg: Message, known_zone: Callable[[str], bool], aliases=None) -> list[Reading]:
@@ -29,6 +29,17 @@ def readings_of(config: Config, msg: Message, known_zone: Callable[[str], bool],
             raise Rejected(f"unknown zone {zone[:64]!r}")
         return readings
     raise Rejected("no source pattern matches the topic")
+
+
+def site_of_topic(config: Config, topic: str) -> str | None:
+    """The site whose zone a topic names (by the first source whose pattern matches it); None
+    when no source matches or the zone is not configured."""
+    for source in config.sources:
+        names = source.pattern.match(topic)
+        if names is not None:
+            zone = config.zone(zone_of(source, names) or "")
+            return zone.site if zone is not None else None
+    return None
 
 
 def command_topics(config: Config) -> tuple[str, str]:

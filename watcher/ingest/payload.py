@@ -277,6 +277,14 @@ def parse_message(*args, **kwargs) -> Reading:
     return readings[0]
 
 
+def zone_of(source: Source, names: dict[str, str]) -> str | None:
+    """The zone a topic matched by `source` names: the source's zone template filled with the
+    topic's placeholders, else the topic's {zone}, else the source's fixed zone."""
+    if source.zone and "{" in source.zone:  # a template of the topic's placeholders (checked by the config)
+        return fill_template(source.zone, names)
+    return names.get("zone") or source.zone
+
+
 def _reading(source: Source, names: dict[str, str], raw: Raw, received_ts: float, limits: Limits) -> Reading:
     value_raw, unit, ts, ignored = raw
     ts = received_ts if ts is None else ts
@@ -293,10 +301,7 @@ def _reading(source: Source, names: dict[str, str], raw: Raw, received_ts: float
         raise OutOfClock(f"timestamp {ts - received_ts:.0f} s in the future (tolerance {limits.future_skew_s:.0f} s)")
     if ts < received_ts - limits.past_limit_s:
         raise OutOfClock(f"timestamp {(received_ts - ts) / 86400:.0f} days in the past")
-    if source.zone and "{" in source.zone:  # a template of the topic's placeholders (checked by the config)
-        zone = fill_template(source.zone, names)
-    else:
-        zone = names.get("zone") or source.zone
+    zone = zone_of(source, names)
     sensor = names.get("sensor") or source.sensor or source.signal
     # Microseconds: readings stamped with the receive time must not collide in the natural key.
     return Reading(zone=zone, sensor=sensor, signal=source.signal, ts=round(ts, 6), value=value, ignored=ignored)

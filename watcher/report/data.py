@@ -16,6 +16,7 @@ import pandas as pd
 
 from watcher.config import Config, Site, Zone
 from watcher.engine.analysis import BIN_S, bin_means, binned_air
+from watcher.engine.route import site_of_topic
 from watcher.engine.zones import spec_key
 from watcher.model.additive import additive_budget_pct
 from watcher.model.integrator import Spec, State, advance, outputs
@@ -80,6 +81,8 @@ def load(store: Store, cfg: Config, site: Site, week: Week) -> SiteWeek:
     events = events.drop(columns=["detail"])
     alerts, alert_log = tables["alerts"], tables["alert_log"]
     gaps, rejections, daily = tables["gaps"], tables["rejections"], tables["daily"]
+    if len(cfg.sites) > 1 and len(rejections):  # a central record: this site's, and those no site can claim
+        rejections = rejections[[site_of_topic(cfg, t) in (site.id, None) for t in rejections["topic"]]]
     sw = SiteWeek(site, week, zones, events, alerts, alert_log, gaps, rejections, daily)
     starts = {z.id: _start_snapshot(store, z, week.start_ts, week.end_ts, "week") for z in zones}
     found = [snap[0][0] for snap in starts.values() if snap is not None]
