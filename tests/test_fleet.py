@@ -5,10 +5,12 @@ client certificates on the bridges; the central watcher's record on SQLite."""
 
 from __future__ import annotations
 
+import html
 import sqlite3
 import subprocess
 import sys
 import time
+import urllib.request
 from pathlib import Path
 
 import paho.mqtt.client as mqtt
@@ -192,6 +194,7 @@ def test_two_sites_reach_the_central_record_once_through_a_cut_wan(tmp_path):
         assert rows(central_db) == site_rows
         assert wan["kestrel"].accepted >= 2  # the bridge reconnected through the restored link
         assert bridge_states(watcher_port, certs) == {"kestrel": b"1", "harbour": b"1"}
+        fleet_page(watchers["central"])
     finally:
         for name, w in watchers.items():
             if w.proc.poll() is None:
@@ -209,6 +212,19 @@ def test_two_sites_reach_the_central_record_once_through_a_cut_wan(tmp_path):
         done = verify(config)
         assert done.returncode == 0, (name, done.stdout[-2000:], done.stderr[-2000:])
     fleet_view(configs["central"])
+
+
+def fleet_page(central: WatcherProcess) -> None:
+    """The central watcher's page at / lists every site (a line each) and every zone with its site."""
+    with urllib.request.urlopen(central.url("/"), timeout=60) as r:  # the first render draws every chart
+        page = r.read().decode()
+    assert "<h1>2 sites: the site now</h1>" in page and "<h2>Sites</h2>" in page
+    sites = page[page.index("<h2>Sites</h2>") : page.index("<h2>Zones</h2>")]
+    for name in ("Kestrel Point Frozen Distribution, Unit 4", "Harbour Row Cold Store"):
+        assert html.escape(name) in sites
+    zones = page[page.index("<h2>Zones</h2>") :]
+    for zone in ("Kestrel Point: bulk store A", "Kestrel Point: dispatch freezer", "Harbour Row: store 1"):
+        assert html.escape(zone) in zones
 
 
 def fleet_view(config: Path) -> None:

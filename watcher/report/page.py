@@ -25,6 +25,7 @@ from watcher.lots.rank import at_risk, rank_key
 from watcher.ranges import figure_text
 from watcher.report.charts import zone_chart
 from watcher.report.data import zone_model
+from watcher.report.sites import site_lines
 from watcher.store.db import Store
 
 REFRESH_S = 60
@@ -74,8 +75,9 @@ def _e(x) -> str:
 def _page(cfg: Config, store: Store, now_ts: float) -> str:
     site = cfg.sites[0] if len(cfg.sites) == 1 else None
     tz = site.timezone if site else "UTC"
-    title = (site.name or site.id) if site else "watcher"
+    title = (site.name or site.id) if site else f"{len(cfg.sites)} sites"
     rows = store.zones.rows()
+    zone_table, zones = _zones(cfg, store, rows, now_ts)
     parts = [
         "<!doctype html><html lang='en'><head><meta charset='utf-8'>",
         f"<meta http-equiv='refresh' content='{REFRESH_S}'>",
@@ -84,7 +86,8 @@ def _page(cfg: Config, store: Store, now_ts: float) -> str:
         f"<h1>{_e(title)}: the site now</h1>",
         f"<p class='sub'>As of {_e(local_time(now_ts, tz))} ({_e(tz)}); this page refreshes every minute. "
         "Product temperatures and texture figures are model estimates.</p>",
-        _zones(cfg, store, rows, now_ts),
+        "" if site else _sites(cfg, store, zones),
+        zone_table,
         _alerts(cfg, store),
         _lots(cfg, store),
     ]
@@ -97,11 +100,36 @@ def _page(cfg: Config, store: Store, now_ts: float) -> str:
     return "".join(parts)
 
 
-def _zones(cfg: Config, store: Store, rows: dict, now_ts: float) -> str:
+def _sites(cfg: Config, store: Store, zones: list[dict]) -> str:
+    """A line a site (a watcher of several sites): zones, open alerts, the most budget used,
+    the fewest days left and the stalest reading among its zones."""
     out = [
-        "<h2>Zones</h2><table><tr><th>zone</th><th>product profile</th><th>air</th><th>product (est.)</th><th>mean crystal</th>"
+        "<h2>Sites</h2><table><tr><th>site</th><th>zones</th><th>open alerts</th><th>most budget used</th>"
+        "<th>fewest days left</th><th>stalest reading</th></tr>"
+    ]
+    for s in site_lines(cfg, zones, store.alerts.list(open_only=True)):
+        age = s["stalest_reading_age_s"]
+        budget, days = s["most_budget_used_pct"], s["fewest_days_left"]
+        out.append(
+            f"<tr><td>{_e(s['name'] or s['id'])}</td><td class='n'>{s['zones']}</td><td class='n'>{s['open_alerts']}</td>"
+            f"<td class='n'>{'-' if budget is None else f'{budget:.1f} %'}</td>"
+            f"<td class='n'>{'-' if days is None else f'{days:.0f}'}</td>"
+            f"<td>{'no data' if age is None else _e(duration(age)) + ' ago'}</td></tr>"
+        )
+    out.append("</table>")
+    return "".join(out)
+
+
+def _zones(cfg: Config, store: Store, rows: dict, now_ts: float) -> tuple[str, list[dict]]:
+    """The zones table, and each zone's figures as `site_lines` reads them."""
+    several = len(cfg.sites) > 1
+    out = [
+        "<h2>Zones</h2><table><tr>"
+        + ("<th>site</th>" if several else "")
+        + "<th>zone</th><th>product profile</th><th>air</th><th>product (est.)</th><th>mean crystal</th>"
         "<th>budget used (90 % range)</th><th>days left (range)</th><th>newest reading</th></tr>"
     ]
+    zones = []
     for z in cfg.zones:
         row = rows.get(z.id)
         fig = row.figures if row else {}
@@ -111,8 +139,20 @@ def _zones(cfg: Config, store: Store, rows: dict, now_ts: float) -> str:
         stale = age is None or age > cfg.ingest.max_gap_s
         product = row.last_product_c if row and row.last_product_c is not None else fig.get("product_c")
         mean = fig.get("mean_diameter_um")
+        zones.append(
+            {
+                "id": z.id,
+                "site": z.site,
+                "last_reading_age_s": age,
+                "open_gap": stale,
+                "budget_used_pct": fig.get("budget_used_pct"),
+                "days_to_limit": fig.get("days_to_limit"),
+            }
+        )
         out.append(
-            f"<tr><td>{_e(z.name)}</td><td>{_e(z.profile.name)}</td>"
+            "<tr>"
+            + (f"<td>{_e(cfg.site_of(z.id).name or z.site)}</td>" if several else "")
+            + f"<td>{_e(z.name)}</td><td>{_e(z.profile.name)}</td>"
             f"<td class='n'>{_e(temperature(row.last_air_c if row else None, unit, '-'))}</td>"
             f"<td class='n'>{_e(temperature(product, unit, '-'))}</td>"
             f"<td class='n'>{'-' if mean is None else f'{mean:.1f} um'}</td>"
@@ -121,7 +161,7 @@ def _zones(cfg: Config, store: Store, rows: dict, now_ts: float) -> str:
             f"<td{' class=stale' if stale else ''}>{'no data' if age is None else _e(duration(age)) + ' ago'}</td></tr>"
         )
     out.append("</table>")
-    return "".join(out)
+    return "".join(out), zones
 
 
 def _alerts(cfg: Config, store: Store) -> str:
