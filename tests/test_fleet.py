@@ -151,8 +151,9 @@ def test_two_sites_reach_the_central_record_once_through_a_cut_wan(tmp_path):
     the central watcher under the site's zone names ("kestrel-bulk-a"), with kestrel's WAN link
     stalled mid-stream (half-open: the bridge must notice and reconnect) and then restored:
     while cut, the site keeps recording and the centre gets harbour's readings only; after,
-    the queued readings arrive; nothing lost, nothing doubled, and `verify` passes on all
-    three records."""
+    the queued readings arrive. Then the central watcher is killed (SIGKILL) while both sites
+    go on, and restarted. Nothing lost, nothing doubled, and `verify` passes on all three
+    records."""
     certs = make_ca(tmp_path, clients=tuple(SITES))
     (tmp_path / "central").mkdir()
     central_proc, bridge_port, watcher_port = start_central_broker(tmp_path / "central", certs)
@@ -195,6 +196,24 @@ def test_two_sites_reach_the_central_record_once_through_a_cut_wan(tmp_path):
         assert wan["kestrel"].accepted >= 2  # the bridge reconnected through the restored link
         assert bridge_states(watcher_port, certs) == {"kestrel": b"1", "harbour": b"1"}
         fleet_page(watchers["central"])
+
+        # The central watcher dies (SIGKILL) while the sites go on: its session at the central
+        # broker keeps what it had not acknowledged and what arrives meanwhile.
+        watchers["central"].kill()
+        for site, zones in SITES.items():
+            publishers[site].send(messages(zones, 60, 30, site=site))
+        wait_for(
+            lambda: sum(counts(tmp_path / "kestrel" / "watcher.db").values()) == 180, 60, "kestrel's third half hour"
+        )
+        watchers["central"] = WatcherProcess(configs["central"])
+        watchers["central"].wait_ready()
+        wait_for(lambda: sum(counts(central_db).values()) == 270, 90, "the readings sent while the centre was down")
+        time.sleep(3)
+        assert counts(central_db) == {"kestrel-bulk-a": 90, "kestrel-dispatch": 90, "harbour-store-1": 90}
+        site_rows = set()
+        for site in SITES:
+            site_rows |= rows(tmp_path / site / "watcher.db", lambda z, site=site: f"{site}-{z}")
+        assert rows(central_db) == site_rows
     finally:
         for name, w in watchers.items():
             if w.proc.poll() is None:
@@ -248,4 +267,4 @@ def fleet_view(config: Path) -> None:
     )
     for zone in ("kestrel-bulk-a", "kestrel-dispatch", "harbour-store-1"):
         (row,) = [line.split() for line in out.splitlines() if line.startswith(zone)]
-        assert "60" in row, row  # its readings, all of them
+        assert "90" in row, row  # its readings, all of them
