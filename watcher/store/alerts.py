@@ -6,7 +6,7 @@ from __future__ import annotations
 import json
 
 from watcher.store import chain
-from watcher.store.repo import Repo, marks
+from watcher.store.repo import Repo, marks, upsert
 
 ALERT_LOG_INSERT = chain.insert_sql("alert_log", chain.ALERT_LOG_FIELDS, zone_scoped=False)
 EVENT_LOG_INSERT = chain.insert_sql("event_log", chain.EVENT_LOG_FIELDS, zone_scoped=False)
@@ -38,9 +38,7 @@ class Alerts(Repo):
         return {(z, r): json.loads(s) for z, r, s in self.conn.execute("SELECT zone, rule, state FROM alert_state")}
 
     def state_save(self, zone: str, rule: str, state: dict) -> None:
-        self.conn.execute(
-            "INSERT OR REPLACE INTO alert_state (zone, rule, state) VALUES (?,?,?)", (zone, rule, json.dumps(state))
-        )
+        self.conn.execute(upsert("alert_state", "zone, rule, state", "zone, rule"), (zone, rule, json.dumps(state)))
 
     def add(self, **row) -> int:
         cols = ", ".join(row)

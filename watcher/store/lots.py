@@ -6,7 +6,7 @@ import json
 
 from watcher.lots.events import last_zone
 from watcher.store import chain
-from watcher.store.repo import Repo
+from watcher.store.repo import Repo, upsert
 
 LOT_EVENT_INSERT = chain.insert_sql("lot_events", chain.LOT_EVENT_FIELDS, zone_scoped=False)
 
@@ -55,7 +55,7 @@ class Lots(Repo):
 
     def state_save(self, lot: str, time_ts: float, blob: bytes, figures: dict, now_ts: float) -> None:
         self.conn.execute(
-            "INSERT OR REPLACE INTO lot_state (lot, time_ts, state, figures, updated_ts) VALUES (?,?,?,?,?)",
+            upsert("lot_state", "lot, time_ts, state, figures, updated_ts", "lot"),
             (lot, time_ts, blob, json.dumps(figures), now_ts),
         )
 

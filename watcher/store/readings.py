@@ -18,9 +18,7 @@ ROW_INSERT = "INSERT OR IGNORE INTO reading_rows (series, ts, value, received_ts
 #: The zone's newest reading time: an index seek for each of its series (max() over the view
 #: would read every row of the zone).
 NEWEST = "SELECT max((SELECT max(ts) FROM reading_rows WHERE series = s.id)) FROM series s WHERE s.zone = ?"
-COUNT_ADD = (
-    "INSERT INTO reading_counts (zone, rows) VALUES (?, ?) ON CONFLICT(zone) DO UPDATE SET rows = rows + excluded.rows"
-)
+COUNT_ADD = "INSERT INTO reading_counts (zone, rows) VALUES (?, ?) ON CONFLICT(zone) DO UPDATE SET rows = reading_counts.rows + excluded.rows"
 REJECTION_INSERT = chain.insert_sql("rejections", chain.REJECTION_FIELDS, zone_scoped=False)
 PAYLOAD_KEEP_BYTES = 512
 #: How far back per-bin sums are kept: the event analysis reads four days before each pass.

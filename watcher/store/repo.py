@@ -67,3 +67,16 @@ def text(s: str) -> str:
 def marks(n: int) -> str:
     """n comma-separated placeholders."""
     return ", ".join("?" * n)
+
+
+@functools.cache
+def upsert(table: str, columns: str, key: str) -> str:
+    """Insert a row, or replace the other columns of the row with the same key: standard SQL
+    (SQLite 3.24+, PostgreSQL) where SQLite's INSERT OR REPLACE is its own. columns and key are
+    comma-separated names; every column is given a value."""
+    names = [c.strip() for c in columns.split(",")]
+    keys = {k.strip() for k in key.split(",")}
+    sets = ", ".join(f"{c} = excluded.{c}" for c in names if c not in keys)
+    return (
+        f"INSERT INTO {table} ({', '.join(names)}) VALUES ({marks(len(names))}) ON CONFLICT({key}) DO UPDATE SET {sets}"
+    )

@@ -9,7 +9,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from watcher.store.repo import Repo, marks
+from watcher.store.repo import Repo, upsert
 
 
 @dataclass
@@ -47,7 +47,7 @@ class Zones(Repo):
     def save(self, row: ZoneRow) -> None:
         state = None if row.state is None else pack_state(row.state)
         self.conn.execute(
-            f"INSERT OR REPLACE INTO zone_state ({ZONE_COLUMNS}) VALUES ({marks(11)})",
+            upsert("zone_state", ZONE_COLUMNS, "zone"),
             (
                 row.zone,
                 row.spec_key,
@@ -81,7 +81,7 @@ class Zones(Repo):
 
     def anchor_save(self, zone: str, spec_key: str, fed_ts: float | None, state: dict | None, sensors: dict) -> None:
         self.conn.execute(
-            "INSERT OR REPLACE INTO zone_anchor (zone, spec_key, fed_ts, state, sensors) VALUES (?,?,?,?,?)",
+            upsert("zone_anchor", "zone, spec_key, fed_ts, state, sensors", "zone"),
             (zone, spec_key, fed_ts, None if state is None else pack_state(state), json.dumps(sensors)),
         )
 
@@ -89,7 +89,7 @@ class Zones(Repo):
         return {(z, m): v for z, m, v in self.conn.execute("SELECT zone, mark, value FROM zone_marks")}
 
     def mark_set(self, zone: str, mark: str, value: float) -> None:
-        self.conn.execute("INSERT OR REPLACE INTO zone_marks (zone, mark, value) VALUES (?,?,?)", (zone, mark, value))
+        self.conn.execute(upsert("zone_marks", "zone, mark, value", "zone, mark"), (zone, mark, value))
 
 
 class Gaps(Repo):
@@ -110,7 +110,7 @@ class Gaps(Repo):
 class Snapshots(Repo):
     def save(self, zone: str, time_ts: float, spec_key: str, blob: bytes) -> None:
         self.conn.execute(
-            "INSERT OR REPLACE INTO zone_snapshots (zone, time_ts, spec_key, state) VALUES (?,?,?,?)",
+            upsert("zone_snapshots", "zone, time_ts, spec_key, state", "zone, time_ts"),
             (zone, time_ts, spec_key, blob),
         )
 
@@ -147,10 +147,7 @@ class Daily(Repo):
     """Daily growth by cause, one row per zone and site day."""
 
     def save(self, row: dict) -> None:
-        cols = ", ".join(row)
-        self.conn.execute(
-            f"INSERT OR REPLACE INTO daily_growth ({cols}) VALUES ({marks(len(row))})", tuple(row.values())
-        )
+        self.conn.execute(upsert("daily_growth", ", ".join(row), "zone, day"), tuple(row.values()))
 
     def days(self, zone: str) -> set[str]:
         return {r[0] for r in self.conn.execute("SELECT day FROM daily_growth WHERE zone = ?", (zone,))}
