@@ -142,10 +142,24 @@ keyfile {self.tls["server_key"]}
         os.chmod(folder / "watcher-password", 0o600)
 
     def start(self) -> None:
-        self.proc = subprocess.Popen(
-            [MOSQUITTO, "-c", str(self.conf)], stdout=subprocess.DEVNULL, stderr=subprocess.PIPE
-        )
-        wait_listening(self.proc, self.port, self.log)
+        """Start mosquitto; if a port it was given was taken meanwhile (free_port only found it
+        free a moment before), move both listeners to fresh ports and try again."""
+        for attempt in range(3):
+            self.proc = subprocess.Popen(
+                [MOSQUITTO, "-c", str(self.conf)], stdout=subprocess.DEVNULL, stderr=subprocess.PIPE
+            )
+            try:
+                wait_listening(self.proc, self.port, self.log)
+                return
+            except RuntimeError as exc:
+                self._close()
+                if "Address already in use" not in str(exc) or attempt == 2:
+                    raise
+            text = self.conf.read_text()
+            text = text.replace(f"listener {self.port} 127.0.0.1", "listener @PLAIN@ 127.0.0.1")
+            text = text.replace(f"listener {self.tls_port} 127.0.0.1", "listener @TLS@ 127.0.0.1")
+            self.port, self.tls_port = free_port(), free_port()
+            self.conf.write_text(text.replace("@PLAIN@", str(self.port)).replace("@TLS@", str(self.tls_port)))
 
     def log(self) -> str:
         path = self.folder / "mosquitto.log"
