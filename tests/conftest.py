@@ -55,3 +55,26 @@ def broker(tmp_path):
             proc.wait(10)
     RUNNING.clear()
     b.stop()
+
+
+@pytest.fixture(scope="session")
+def pg_server():
+    """One real PostgreSQL server for the session (tests/pgserver.py); each test that needs a
+    record makes its own database on it."""
+    from tests.pgserver import PostgresServer
+
+    server = PostgresServer()
+    try:
+        server.start()
+        yield server
+    finally:
+        server.stop()
+
+
+_DATABASES = iter(range(1, 1 << 30))
+
+
+@pytest.fixture()
+def pg_record(pg_server):
+    """(url, password) of a new, empty database for a watcher record."""
+    return pg_server.new_database(f"record_{next(_DATABASES)}"), pg_server.password

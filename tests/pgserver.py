@@ -69,6 +69,11 @@ class PostgresServer:
             "--encoding=UTF8",
             "--no-instructions",
         )
+        self._launch()
+        self.sql(f"CREATE ROLE {self.role} LOGIN PASSWORD '{self.password}'")
+        self.sql(f"CREATE DATABASE {self.database} OWNER {self.role}")
+
+    def _launch(self) -> None:
         self.log = self.root / "server.log"
         log_fh = self.log.open("ab")
         self.proc = subprocess.Popen(
@@ -93,8 +98,6 @@ class PostgresServer:
         )
         log_fh.close()  # the server has its own copy
         self._wait_ready()
-        self.sql(f"CREATE ROLE {self.role} LOGIN PASSWORD '{self.password}'")
-        self.sql(f"CREATE DATABASE {self.database} OWNER {self.role}")
 
     def _wait_ready(self, timeout: float = 30.0) -> None:
         deadline = time.time() + timeout
@@ -132,7 +135,44 @@ class PostgresServer:
     @property
     def url(self) -> str:
         """Where watcher connects: no password in it (that comes from password_file)."""
-        return f"postgresql://{self.role}@127.0.0.1:{self.port}/{self.database}"
+        return self.url_of(self.database)
+
+    def url_of(self, database: str, role: str | None = None) -> str:
+        return f"postgresql://{role or self.role}@127.0.0.1:{self.port}/{database}"
+
+    def new_database(self, name: str) -> str:
+        """An empty database owned by watcher's role; its URL."""
+        self.sql(f"CREATE DATABASE {name} OWNER {self.role}")
+        return self.url_of(name)
+
+    def add_reader(self, database: str, role: str = "watcher_reader") -> tuple[str, Path]:
+        """A role that may only read the record's tables (granted by the owner, as docs/fleet.md
+        says); its URL and password file."""
+        password = "rd-" + os.urandom(8).hex()
+        if not self.sql(f"SELECT 1 FROM pg_roles WHERE rolname = '{role}'"):
+            self.sql(f"CREATE ROLE {role} LOGIN PASSWORD '{password}'")
+        else:
+            self.sql(f"ALTER ROLE {role} PASSWORD '{password}'")
+        self.sql(f"GRANT CONNECT ON DATABASE {database} TO {role}")
+        self.sql(f"SET ROLE {self.role}; GRANT SELECT ON ALL TABLES IN SCHEMA public TO {role}", database)
+        file = self.root / f"{role}-{database}-password"
+        file.write_text(password + "\n")
+        file.chmod(0o600)
+        return self.url_of(database, role), file
+
+    def pgpass(self) -> Path:
+        """A libpq password file for watcher's role (what `--db postgresql://...` reads through
+        PGPASSFILE)."""
+        file = self.root / "pgpass"
+        file.write_text(f"127.0.0.1:{self.port}:*:{self.role}:{self.password}\n")
+        file.chmod(0o600)
+        return file
+
+    def restart(self) -> None:
+        """Stop the server (fast: clients cut) and start it again on the same port and data."""
+        self.proc.send_signal(signal.SIGINT)
+        self.proc.wait(30)
+        self._launch()
 
     def stop(self) -> None:
         if self.proc is not None and self.proc.poll() is None:

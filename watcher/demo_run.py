@@ -108,7 +108,7 @@ def run(
         counts = _in_process(cfg, msgs, printer, progress)
     printer.poll()
 
-    store = Store(cfg.storage.path)
+    store = Store.configured(cfg.storage)
     try:
         paths = produce(store, cfg, cfg.sites[0], week, time.time(), cfg.reports.dir, cfg.reports.formats, False, False)
     finally:
@@ -191,7 +191,7 @@ def _wait_stored(db, lo, batch, printer, final=False) -> None:
 
 def _in_process(cfg, msgs, printer, progress) -> dict:
 
-    store = Store(cfg.storage.path)
+    store = Store.configured(cfg.storage)
     engine = Engine(cfg, store, checkpoint_s=DEMO_CHECKPOINT_S)
     counts = {}
     step = cfg.ingest.batch_max  # batches as small as the service's, so rules are judged as often

@@ -68,7 +68,7 @@ def feed(cfg: Config, items: Iterable[tuple[Reading, str]], label: str, progress
     counts: Counter = Counter()
     with Staging(cfg.storage.path) as stage:
         stage.add((r.zone, r.sensor, r.signal, r.ts, r.value, topic) for r, topic in items)
-        store = Store(cfg.storage.path)
+        store = Store.configured(cfg.storage)
         try:
             engine = Engine(cfg, store, checkpoint_s=math.inf)
             now = time.time()

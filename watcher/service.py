@@ -62,7 +62,7 @@ class Service:
             sd_notify("EXTEND_TIMEOUT_USEC=7200000000")
             sd_notify(f"STATUS=bringing the database up to date ({', '.join(pending)})")
             log.info("bringing %s up to date (%s): a big record takes minutes", config.storage.path, ", ".join(pending))
-        self.store = Store(config.storage.path)
+        self.store = Store.configured(config.storage)
         self.suspects = Suspects(config.storage.path + ".inhand")
         self.last_progress = time.monotonic()  # the writer's last commit, or its last idle moment
         self._clock_seen: tuple[float, float] | None = None
@@ -354,7 +354,7 @@ class Service:
     def _deliver_loop(self) -> None:
         """Send the outbox on its own database connection, apart from ingestion: a receiver
         that hangs delays only other notifications, never readings."""
-        store = Store(self.config.storage.path)
+        store = Store.configured(self.config.storage)
         with store.atomic():
             again = store.outbox.recover()
         if again:
@@ -380,7 +380,7 @@ class Service:
         """Produce each site's weekly summary once it is due ([reports] weekday and time, in the
         site's zone); recorded in the database, so a restart never produces a week twice."""
 
-        store = Store(self.config.storage.path)
+        store = Store.configured(self.config.storage)
         while not self.stopping.is_set():
             try:
                 due = due_weeks(store, self.config, time.time())
@@ -454,7 +454,7 @@ class Service:
             "started: %d zones, subscribing to %s, database %s",
             len(self.config.zones),
             ", ".join(topic_filters(self.config)),
-            self.config.storage.path,
+            self.config.storage.record,
         )
 
     def stop(self) -> None:

@@ -4,10 +4,9 @@ from __future__ import annotations
 
 import time
 
-from watcher.config import default_db_path, load_config
+from watcher.config import load_config, open_record
 from watcher.ranges import RANGE_KEYS
 from watcher.report.sites import site_lines
-from watcher.store.db import Store
 
 DEFAULT_MAX_GAP_S = 900.0
 
@@ -15,9 +14,8 @@ DEFAULT_MAX_GAP_S = 900.0
 def read_status(config_path: str | None, db_path: str | None, now: float | None = None) -> dict:
     now = time.time() if now is None else now
     cfg = load_config(config_path) if config_path else None
-    path = db_path or (cfg.storage.path if cfg else default_db_path())
     max_gap = cfg.ingest.max_gap_s if cfg else DEFAULT_MAX_GAP_S
-    store = Store(path, readonly=True)
+    store = open_record(config_path, db_path, readonly=True)
     try:
         rows = store.zones.rows()
         zone_ids = [z.id for z in cfg.zones] if cfg else sorted(rows)
@@ -54,7 +52,7 @@ def read_status(config_path: str | None, db_path: str | None, now: float | None 
             for a in store.alerts.list(open_only=True)
         ]
         return {
-            "database": path,
+            "database": store.where,
             "now_ts": now,
             "sites": site_lines(cfg, zones, alerts),
             "zones": zones,

@@ -46,13 +46,11 @@ def db_options(func):
     )(func)
 
 
-def database_of(config_path: str | None, db_path: str | None) -> str:
-    """The database a read-only command opens: --db, else the configuration's, else the default."""
-    from watcher.config import default_db_path, load_config
+def open_record(config_path: str | None, db_path: str | None, readonly: bool = False):
+    """The record a command opens: --db, else the configuration's, else the default."""
+    from watcher.config import open_record as opened
 
-    if db_path:
-        return db_path
-    return load_config(config_path).storage.path if config_path else default_db_path()
+    return opened(config_path, db_path, readonly)
 
 
 def stamp(time_ts: float, tz: str = "UTC", seconds: bool = False) -> str:

@@ -27,7 +27,7 @@ def _record(config_path: str, docs: list[tuple[dict, str]], source: str) -> int:
     from watcher.store.db import Store
 
     cfg = load_config(config_path)
-    store = Store(cfg.storage.path)
+    store = Store.configured(cfg.storage)
     try:
         with store.atomic():
             for doc, where in docs:
@@ -220,7 +220,7 @@ def _overview(config_path: str) -> tuple[list[dict], str]:
     from watcher.store.db import Store
 
     cfg = load_config(config_path)
-    store = Store(cfg.storage.path, readonly=True)
+    store = Store.configured(cfg.storage, readonly=True)
     try:
         return store.lots.overview(), site_tz(cfg)
     finally:

@@ -10,7 +10,7 @@ import time
 import click
 
 from watcher.cli.app import main
-from watcher.cli.common import config_option, database_of, db_options, site_tz, site_unit, stamp, table
+from watcher.cli.common import config_option, db_options, open_record, site_tz, site_unit, stamp, table
 from watcher.errors import InputError, StoreError
 
 
@@ -27,13 +27,12 @@ def ack(alert_id, by, note, wait_s, config_path, db_path) -> None:
     running, the acknowledgement waits in the database and is applied at its next start.
     """
     from watcher.engine.alert_keeper import MAX_NAME, MAX_NOTE
-    from watcher.store.db import Store
 
     if not by.strip() or len(by) > MAX_NAME:
         raise InputError("--by", by, f"a name of 1-{MAX_NAME} characters")
     if note is not None and len(note) > MAX_NOTE:
         raise InputError("--note", f"{len(note)} characters", f"at most {MAX_NOTE}")
-    store = Store(database_of(config_path, db_path))
+    store = open_record(config_path, db_path)
     try:
         alert = store.alerts.get(alert_id)
         if alert is None:
@@ -68,10 +67,9 @@ def alerts(open_only, as_json, config_path, db_path) -> None:
     """List alerts, newest first (read-only)."""
     from watcher.alerts.messages import fmt_value
     from watcher.config import load_config
-    from watcher.store.db import Store
 
     cfg = load_config(config_path) if config_path else None
-    store = Store(database_of(config_path, db_path), readonly=True)
+    store = open_record(config_path, db_path, readonly=True)
     try:
         rows = store.alerts.list(open_only)
         fired = {r["id"]: next((x[3] for x in store.alerts.log(r["id"]) if x[0] == "raise"), None) for r in rows}
@@ -143,16 +141,13 @@ def verify(since, config_path, db_path) -> None:
     """Recompute the record's hash chains and name the first row that no longer matches."""
     import datetime as dt
 
-    from watcher.store.db import Store
-
     since_ts = None
     if since:
         try:
             since_ts = dt.datetime.fromisoformat(since).replace(tzinfo=dt.UTC).timestamp()
         except ValueError:
             raise InputError("--since", since, "a date such as 2026-11-23") from None
-    path = database_of(config_path, db_path)
-    store = Store(path, readonly=True)
+    store = open_record(config_path, db_path, readonly=True)
     try:
         findings, counts = store.record.verify(since_ts)
         heads, mark = store.record.verified, store.record.since_mark
@@ -171,7 +166,7 @@ def verify(since, config_path, db_path) -> None:
             "Record intact: every chain recomputes to its stored hashes and nothing checked is missing"
             + (f" (from {since})." if since else ".")
         )
-        _record_mark(path, heads, since_ts)
+        _record_mark(config_path, db_path, heads, since_ts)
         return
     for f in findings:
         where = f" row {f.row_id}" if f.row_id else ""
@@ -179,14 +174,13 @@ def verify(since, config_path, db_path) -> None:
     sys.exit(1)
 
 
-def _record_mark(path: str, heads: dict, since_ts: float | None) -> None:
+def _record_mark(config_path: str | None, db_path: str | None, heads: dict, since_ts: float | None) -> None:
     """Record the intact verification as a mark (store/marks.py): the next `--since` and the
     daily check hash only what comes after it. Someone allowed to read the record but not to
     write it still gets the verification, without the mark."""
-    from watcher.store.db import Store
 
     try:
-        store = Store(path)
+        store = open_record(config_path, db_path)
         try:
             with store.atomic():
                 store.record.mark(heads, since_ts)
@@ -219,7 +213,7 @@ def report(config_path, week_label, site_id, out_dir, formats, send) -> None:
         sites = [s for s in sites if s.id == site_id]
         if not sites:
             raise InputError("--site", site_id, "one of " + ", ".join(s.id for s in cfg.sites))
-    store = Store(cfg.storage.path)
+    store = Store.configured(cfg.storage)
     try:
         for site in sites:
             week = week_of(week_label, site.timezone) if week_label else last_complete_week(time.time(), site.timezone)

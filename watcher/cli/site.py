@@ -61,7 +61,7 @@ def check_config(config_path) -> None:
         f"{' with TLS' if cfg.broker.tls else ''}{', user ' + cfg.broker.username if cfg.broker.username else ''}; "
         f"status on {cfg.broker.status_topic} (retained)"
     )
-    click.echo(f"Database {cfg.storage.path}; raw readings kept {cfg.storage.raw_retention_days} days")
+    click.echo(f"Database {cfg.storage.record}; raw readings kept {cfg.storage.raw_retention_days} days")
     click.echo("")
     click.echo("Subscriptions (QoS 1) and how each topic maps:")
     for s in cfg.sources:
@@ -201,7 +201,7 @@ def replay(config_path, readings_path) -> None:
     cfg = load_config(config_path)
     counts = replay_file(cfg, readings_path, progress=click.progressbar)
     click.echo(", ".join(f"{k}: {v}" for k, v in sorted(counts.items())) or "nothing to replay")
-    click.echo(f"Database {cfg.storage.path}; see `watcher status --config {config_path}`.")
+    click.echo(f"Database {cfg.storage.record}; see `watcher status --config {config_path}`.")
 
 
 @main.command("import")

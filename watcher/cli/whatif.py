@@ -76,7 +76,7 @@ def what_if(zone, start, end, setpoint_offset, defrosts_per_day, defrost_min, de
         setpoint_offset, defrosts_per_day, defrost_min, defrost_peak_c, door_factor, fewer_doors, tuple(drop)
     )
     spec = ZoneRunner(z, 0.0, cfg.ingest.max_gap_s).spec  # the zone's own model settings
-    store = Store(cfg.storage.path, readonly=True)
+    store = Store.configured(cfg.storage, readonly=True)
     try:
         t, air = air_samples(store, zone, t0, t1)
         if t.size < 60:

@@ -6,6 +6,7 @@ expected; the CLI turns it into exit code 2. Settings are declared once beside t
 """
 
 from watcher.config.load import config_from_dict, load_config
+from watcher.config.record import open_record
 from watcher.config.settings import (
     WEEKDAYS,
     Alerting,
@@ -36,4 +37,5 @@ __all__ = [
     "default_db_path",
     "default_reports_dir",
     "load_config",
+    "open_record",
 ]

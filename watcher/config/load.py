@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import tomllib
 from pathlib import Path
+from urllib.parse import urlsplit
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
 from watcher.config.reader import REQUIRED, Reader, read_secret
@@ -39,9 +40,7 @@ def load_config(path: str) -> Config:
 def config_from_dict(data: dict, path: str = "config") -> Config:
     root = Reader(path, data, "")
     broker_ = broker(root.sub("broker"))
-    s = root.sub("storage")
-    storage = Storage(**s.declared(Storage))
-    s.done()
+    storage = _storage(root.sub("storage"))
     ingest = _ingest(root.sub("ingest"))
     if ingest.limits.past_limit_s > storage.raw_retention_days * 86400.0:
         root.fail(
@@ -101,6 +100,27 @@ def broker(b: Reader) -> Broker:
     password = read_secret(b, "password_file", "password_credential", "the broker password")
     b.done()
     return Broker(**given, password=password, tls=tls)
+
+
+def _storage(s: Reader) -> Storage:
+    given = s.declared(Storage)
+    for key in ("url", "reader_url"):
+        url = given[key]
+        if url is None:
+            continue
+        parts = urlsplit(url)
+        if parts.scheme not in ("postgresql", "postgres") or not parts.hostname or not parts.path.strip("/"):
+            s.fail(key, url, "postgresql://user@host:port/database")
+        if parts.password is not None or "password=" in parts.query:
+            s.fail(
+                key, "postgresql://…(a password)…", "a URL without a password: its password_file or password_credential"
+            )
+    if given["reader_url"] is not None and given["url"] is None:
+        s.fail("reader_url", given["reader_url"], "a reader's URL only beside url (a PostgreSQL record)")
+    password = read_secret(s, "password_file", "password_credential", "the PostgreSQL password")
+    reader = read_secret(s, "reader_password_file", "reader_password_credential", "the read-only role's password")
+    s.done()
+    return Storage(**given, password=password, reader_password=reader)
 
 
 def _ingest(i: Reader) -> Ingest:

@@ -46,6 +46,23 @@ class Storage:
     raw_retention_days: int = setting(
         400, "at least 366: temperature records must be kept a year (Reg. (EC) 37/2005)", lo=366, hi=36500
     )
+    url: str | None = setting(
+        None,
+        "a PostgreSQL record instead of the file (a fleet's central record): postgresql://user@host:port/database, "
+        "no password in it; `path` then only names the local working files beside it",
+    )
+    reader_url: str | None = setting(
+        None,
+        "the same PostgreSQL record as a read-only role, for what only reads it (status, the site page, verify, "
+        "summaries shown again); default: url",
+    )
+    password: str | None = field(default=None, repr=False)  # from password_file or _credential, never the file
+    reader_password: str | None = field(default=None, repr=False)  # reader_password_file or _credential
+
+    @property
+    def record(self) -> str:
+        """Where the record is, for messages: the PostgreSQL URL (no password in it) or the file."""
+        return self.url or self.path
 
 
 @dataclass(frozen=True)

@@ -28,7 +28,7 @@ def _trial_main(config_path: str, items: list[tuple], conn) -> None:
     from watcher.store.db import Store
 
     cfg = load_config(config_path)
-    store = Store(cfg.storage.path)
+    store = Store.configured(cfg.storage)
     engine = Engine(cfg, store, checkpoint_s=3600.0)
     for i, (topic, payload, received_ts) in enumerate(items):
         conn.send(("start", i))

@@ -61,7 +61,7 @@ class SitePage:
 
 
 def render(cfg: Config, now_ts: float) -> str:
-    store = Store(cfg.storage.path, readonly=True)
+    store = Store.configured(cfg.storage, readonly=True)
     try:
         return _page(cfg, store, now_ts)
     finally:

@@ -8,8 +8,8 @@ import json
 from watcher.store import chain
 from watcher.store.repo import Repo, marks, upsert
 
-ALERT_LOG_INSERT = chain.insert_sql("alert_log", chain.ALERT_LOG_FIELDS, zone_scoped=False)
-EVENT_LOG_INSERT = chain.insert_sql("event_log", chain.EVENT_LOG_FIELDS, zone_scoped=False)
+ALERT_LOG_INSERT = chain.Append("alert_log", chain.ALERT_LOG_FIELDS)
+EVENT_LOG_INSERT = chain.Append("event_log", chain.EVENT_LOG_FIELDS)
 
 ALERT_COLUMNS = (
     "id",
@@ -117,16 +117,25 @@ EVENT_COLUMNS = "SELECT id, kind, start_ts, end_ts, detail FROM events"
 class Events(Repo):
     def upsert(self, zone: str, kind: str, start_ts: float, end_ts: float | None, detail: dict) -> None:
         """Insert or update an event; detail keys merge into what is stored (costs are kept)."""
-        self.conn.execute(
-            "INSERT INTO events (zone, kind, start_ts, end_ts, detail) VALUES (?,?,?,?,?) "
-            "ON CONFLICT(zone, kind, start_ts) DO UPDATE SET end_ts = excluded.end_ts, "
-            "detail = json_patch(events.detail, excluded.detail)",
-            (zone, kind, start_ts, end_ts, json.dumps(detail)),
-        )
+        key = (zone, kind, start_ts)
+        stored = self.conn.execute(
+            "SELECT detail FROM events WHERE zone = ? AND kind = ? AND start_ts = ?", key
+        ).fetchone()
+        if stored is None:
+            self.conn.execute(
+                "INSERT INTO events (zone, kind, start_ts, end_ts, detail) VALUES (?,?,?,?,?)",
+                (*key, end_ts, json.dumps(detail, separators=(",", ":"))),
+            )
+        else:
+            merged = json.dumps(merge_patch(json.loads(stored[0]), detail), separators=(",", ":"))
+            self.conn.execute(
+                "UPDATE events SET end_ts = ?, detail = ? WHERE zone = ? AND kind = ? AND start_ts = ?",
+                (end_ts, merged, *key),
+            )
         row = self.conn.execute(
             "SELECT id, end_ts, detail FROM events WHERE zone = ? AND kind = ? AND start_ts = ?", (zone, kind, start_ts)
         ).fetchone()
-        self.conn.execute(EVENT_LOG_INSERT, chain.params((row[0], "set", zone, kind, start_ts, row[1], row[2])))
+        EVENT_LOG_INSERT.run(self.conn, (row[0], "set", zone, kind, start_ts, row[1], row[2]))
 
     def of_zone(self, zone: str, since_ts: float, until_ts: float | None = None) -> list[dict]:
         """Events of a zone that end after since_ts (or are still open) and start before until_ts.
@@ -144,10 +153,25 @@ class Events(Repo):
             "SELECT zone, kind, start_ts, end_ts, detail FROM events WHERE id = ?", (event_id,)
         ).fetchone()
         if row is not None:
-            self.conn.execute(EVENT_LOG_INSERT, chain.params((event_id, "delete", *row)))
+            EVENT_LOG_INSERT.run(self.conn, (event_id, "delete", *row))
         self.conn.execute("DELETE FROM events WHERE id = ?", (event_id,))
+
+
+def merge_patch(target, patch):
+    """RFC 7396 JSON merge patch (as SQLite's json_patch, which this replaces so both engines
+    store the same text): objects merge key by key, a null removes a key, anything else
+    replaces."""
+    if not isinstance(patch, dict):
+        return patch
+    out = dict(target) if isinstance(target, dict) else {}
+    for key, value in patch.items():
+        if value is None:
+            out.pop(key, None)
+        else:
+            out[key] = merge_patch(out.get(key), value)
+    return out
 
 
 def log_step(conn, alert_id: int, step: str, at_ts: float, wall_ts: float, value=None, by=None, note=None) -> None:
     """One chained row of an alert's log (the outbox adds `sent` steps through this too)."""
-    conn.execute(ALERT_LOG_INSERT, chain.params((alert_id, step, at_ts, wall_ts, value, by, note)))
+    ALERT_LOG_INSERT.run(conn, (alert_id, step, at_ts, wall_ts, value, by, note))

@@ -65,6 +65,29 @@ def params(values: tuple, zone: str | None = None) -> tuple:
     return (*values, zone, *values) if zone is not None else (*values, *values)
 
 
+class Append:
+    """Adds a row to one of the logs' chains (every writer's rows, one chain per log).
+
+    On SQLite the hash is made inside the INSERT (`chain_hash`, registered on the connection),
+    so two connections extending one log (the writer, the deliverer) always chain onto the row
+    that is last when theirs goes in. PostgreSQL cannot call back into Python: there the log is
+    locked until the transaction ends (several central watchers may append to it), its last
+    hash read, the row's hashed here and inserted: the same hash, made by the same function."""
+
+    def __init__(self, table: str, fields: tuple[str, ...]):
+        self.table, self.fields = table, fields
+        self.sql = insert_sql(table, fields, zone_scoped=False)
+        self.plain = f"INSERT INTO {table} ({', '.join(fields)}, chain) VALUES ({', '.join('?' * (len(fields) + 1))})"
+
+    def run(self, conn, values: tuple):
+        """Insert the row; the cursor (its lastrowid is the row's id)."""
+        if getattr(conn, "dialect", "sqlite") != "postgresql":
+            return conn.execute(self.sql, params(values))
+        conn.lock(f"chain:{self.table}")
+        row = conn.execute(f"SELECT chain FROM {self.table} ORDER BY id DESC LIMIT 1").fetchone()
+        return conn.execute(self.plain, (*values, chain_hash(row[0] if row else None, *values)))
+
+
 def add_fold(
     conn, table: str, zone: str, links, folded: int, cutoff_ts: float, wall_ts: float | None, fields=FOLD_FIELDS
 ) -> None:

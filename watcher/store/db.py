@@ -17,10 +17,11 @@ import sqlite3
 from contextlib import contextmanager
 from pathlib import Path
 
+import psycopg
 import sqlite_utils
 
 from watcher.errors import StoreError
-from watcher.store import chain
+from watcher.store import chain, pg, pg_schema
 from watcher.store.alerts import Alerts, Commands, Events
 from watcher.store.aliases import Aliases
 from watcher.store.lots import Lots
@@ -66,8 +67,9 @@ def _check_schema(db: sqlite_utils.Database, path: str) -> None:
 
 def pending_migrations(path: str) -> list[str]:
     """The schema steps a writer would apply to this file now (none for a new file): a long
-    one (m016 on a big record takes minutes) lets the service tell systemd to wait."""
-    if not Path(path).is_file():
+    one (m016 on a big record takes minutes) lets the service tell systemd to wait. A
+    PostgreSQL record has none (it is made in its final shape)."""
+    if pg.is_url(path) or not Path(path).is_file():
         return []
     try:
         conn = _connect(path, readonly=True)
@@ -81,10 +83,59 @@ def pending_migrations(path: str) -> list[str]:
 
 
 class Store:
-    """The writer's handle (or, with readonly=True, a reader's): one connection, its repositories."""
+    """The writer's handle (or, with readonly=True, a reader's): one connection, its repositories.
 
-    def __init__(self, path: str, readonly: bool = False):
+    `path` is a SQLite file, or a PostgreSQL URL (postgresql://user@host:port/database, no
+    password in it: `password`, from the configuration's password file or credential, or
+    libpq's own ~/.pgpass and PGPASSFILE)."""
+
+    def __init__(self, path: str, readonly: bool = False, password: str | None = None):
         self.path = path
+        if pg.is_url(path):
+            self._open_pg(path, readonly, password)
+        else:
+            self._open_sqlite(path, readonly)
+        conn = self.conn
+        self.readings, self.rejections, self.held = Readings(conn), Rejections(conn), Held(conn)
+        self.zones, self.gaps, self.snapshots, self.daily = Zones(conn), Gaps(conn), Snapshots(conn), Daily(conn)
+        self.events, self.alerts, self.commands = Events(conn), Alerts(conn), Commands(conn)
+        self.outbox, self.lots, self.reports, self.record = Outbox(conn), Lots(conn), Reports(conn), Record(conn)
+        self.aliases = Aliases(conn)
+
+    @classmethod
+    def configured(cls, storage, readonly: bool = False) -> Store:
+        """The record a configuration's [storage] names (its url, else its file); a reader
+        connects as the read-only role when there is one."""
+        if readonly and storage.reader_url:
+            return cls(storage.reader_url, readonly=True, password=storage.reader_password)
+        if storage.url:
+            return cls(storage.url, readonly=readonly, password=storage.password)
+        return cls(storage.path, readonly=readonly)
+
+    @property
+    def where(self) -> str:
+        """The record's name fit for a message (a URL's password, should one be there, hidden)."""
+        return pg.redact(self.path)
+
+    def _open_pg(self, url: str, readonly: bool, password: str | None) -> None:
+        self.db = None
+        try:
+            self.conn = pg.PgConnection(url, password, readonly)
+        except psycopg.Error as exc:
+            raise StoreError(f"{pg.redact(url)}: cannot open the database ({str(exc).strip()})") from exc
+        try:
+            if readonly:
+                pg_schema.check(self.conn, pg.redact(url))
+            else:
+                pg_schema.apply(self.conn, pg.redact(url))
+        except psycopg.Error as exc:
+            self.conn.close()
+            raise StoreError(f"{pg.redact(url)}: cannot open the database ({str(exc).strip()})") from exc
+        except StoreError:
+            self.conn.close()
+            raise
+
+    def _open_sqlite(self, path: str, readonly: bool) -> None:
         try:
             if not readonly:
                 Path(path).parent.mkdir(parents=True, exist_ok=True)
@@ -103,12 +154,6 @@ class Store:
                 _check_schema(self.db, path)
         except (sqlite3.Error, OSError) as exc:
             raise StoreError(f"{path}: cannot open the database ({exc})") from exc
-        conn = self.conn
-        self.readings, self.rejections, self.held = Readings(conn), Rejections(conn), Held(conn)
-        self.zones, self.gaps, self.snapshots, self.daily = Zones(conn), Gaps(conn), Snapshots(conn), Daily(conn)
-        self.events, self.alerts, self.commands = Events(conn), Alerts(conn), Commands(conn)
-        self.outbox, self.lots, self.reports, self.record = Outbox(conn), Lots(conn), Reports(conn), Record(conn)
-        self.aliases = Aliases(conn)
 
     def close(self) -> None:
         self.conn.close()
@@ -121,11 +166,18 @@ class Store:
         the data (a constraint, a value it cannot bind) as RecordRefused; other errors pass
         through unchanged: they belong to the data being written, not to the storage."""
         try:
-            with self.db.atomic():
-                yield
+            if self.db is not None:
+                with self.db.atomic():
+                    yield
+            else:
+                if self.conn.broken:  # the server restarted or the link dropped: a new session
+                    self.readings.forget_heads()
+                    self.conn.reopen()
+                with self.conn.raw.transaction():
+                    yield
         except Exception as exc:
             self.readings.forget_heads()  # rolled back: cached chain heads may name lost rows
-            mine = translate(exc, self.path)
+            mine = translate(exc, self.where)
             if mine is None or mine is exc:
                 raise
             raise mine from exc

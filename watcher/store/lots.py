@@ -8,7 +8,7 @@ from watcher.lots.events import last_zone
 from watcher.store import chain
 from watcher.store.repo import Repo, upsert
 
-LOT_EVENT_INSERT = chain.insert_sql("lot_events", chain.LOT_EVENT_FIELDS, zone_scoped=False)
+LOT_EVENT_INSERT = chain.Append("lot_events", chain.LOT_EVENT_FIELDS)
 
 
 class Lots(Repo):
@@ -28,7 +28,7 @@ class Lots(Repo):
             )
             detail = json.dumps({"product": ev.product, "initial": ev.initial}, sort_keys=True)
         values = (ev.lot, ev.kind, ev.zone, ev.ts, source, sender, received_ts, ev.note, detail)
-        self.conn.execute(LOT_EVENT_INSERT, chain.params(values))
+        LOT_EVENT_INSERT.run(self.conn, values)
         self.conn.execute("DELETE FROM lot_state WHERE lot = ? AND time_ts > ?", (ev.lot, ev.ts))
 
     def info(self, lot: str) -> dict | None:

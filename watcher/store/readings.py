@@ -11,7 +11,7 @@ import numpy as np
 from watcher.store import chain, walk
 from watcher.store.bincache import BinArrays, BinWindow, as_arrays
 from watcher.store.hashing import ReadingHasher
-from watcher.store.repo import Repo, marks, text
+from watcher.store.repo import Repo, claim_zone, data_version, marks, text
 from watcher.store.schema import KEEP_EVERY
 
 ROW_INSERT = "INSERT OR IGNORE INTO reading_rows (series, ts, value, received_ts, topic, late, chain) VALUES (?, ?, ?, ?, ?, ?, ?)"
@@ -19,13 +19,13 @@ ROW_INSERT = "INSERT OR IGNORE INTO reading_rows (series, ts, value, received_ts
 #: would read every row of the zone).
 NEWEST = "SELECT max((SELECT max(ts) FROM reading_rows WHERE series = s.id)) FROM series s WHERE s.zone = ?"
 COUNT_ADD = "INSERT INTO reading_counts (zone, rows) VALUES (?, ?) ON CONFLICT(zone) DO UPDATE SET rows = reading_counts.rows + excluded.rows"
-REJECTION_INSERT = chain.insert_sql("rejections", chain.REJECTION_FIELDS, zone_scoped=False)
+REJECTION_INSERT = chain.Append("rejections", chain.REJECTION_FIELDS)
 PAYLOAD_KEEP_BYTES = 512
 #: How far back per-bin sums are kept: the event analysis reads four days before each pass.
 BIN_WINDOW_S = 5 * 86400.0
 BINS = (
-    "SELECT CAST(ts / ? AS INTEGER) AS k, sum(value), count(*) FROM readings "
-    "WHERE zone = ? AND signal = ? AND ts > ? AND ts <= ? GROUP BY k HAVING k >= ? AND k < ? ORDER BY k"
+    "SELECT k, sum(value), count(*) FROM (SELECT CAST(ts / ? AS INTEGER) AS k, value FROM readings "
+    "WHERE zone = ? AND signal = ? AND ts > ? AND ts <= ?) b WHERE k >= ? AND k < ? GROUP BY k ORDER BY k"
 )
 ALL_BINS = (-(2**62), 2**62)
 
@@ -65,7 +65,7 @@ class Readings(Repo):
     def _fresh_heads(self) -> None:
         """Forget the cached heads and bin sums if another connection has committed since (they
         may have moved)."""
-        version = self.conn.execute("PRAGMA data_version").fetchone()[0]
+        version = data_version(self.conn)
         if version != self._heads_version:
             self._heads, self._heads_version, self._windows = {}, version, {}
 
@@ -78,6 +78,7 @@ class Readings(Repo):
         """The zone's running hash: that of its newest row (whose hash is always kept); call
         _fresh_heads first, once for a batch."""
         if zone not in self._heads:
+            claim_zone(self.conn, zone)
             row = walk.head_row(self.conn, zone)
             self._heads[zone] = row[1] if row else None
         return self._heads[zone]
@@ -243,11 +244,15 @@ class Readings(Repo):
         """Per door/defrost sensor: (sensor, signal, last ts, last value, since) where since is
         the first reading after the last 'off' one (when the current 'on' began)."""
         out = []
-        for sensor, signal, ts, value in self.conn.execute(
-            "SELECT sensor, signal, max(ts), value FROM readings WHERE zone = ? AND signal IN ('door', 'defrost') "
+        for sensor, signal, ts in self.conn.execute(
+            "SELECT sensor, signal, max(ts) FROM readings WHERE zone = ? AND signal IN ('door', 'defrost') "
             f"AND ts >= ({NEWEST}) - 30 * 86400.0 GROUP BY sensor, signal",
             (zone, zone),
         ).fetchall():
+            value = self.conn.execute(
+                "SELECT value FROM readings WHERE zone = ? AND sensor = ? AND signal = ? AND ts = ?",
+                (zone, sensor, signal, ts),
+            ).fetchone()[0]
             since = self.conn.execute(
                 "SELECT min(ts) FROM readings WHERE zone = ? AND sensor = ? AND signal = ? AND ts > coalesce("
                 "(SELECT max(ts) FROM readings WHERE zone = ? AND sensor = ? AND signal = ? AND value < 0.5), -1e300)",
@@ -264,8 +269,10 @@ class Readings(Repo):
             "SELECT zone, sensor, signal, CAST(ts / 3600 AS INTEGER) * 3600.0, avg(value), min(value), max(value), count(*) "
             "FROM readings WHERE zone = ? AND ts <= ? GROUP BY zone, sensor, signal, CAST(ts / 3600 AS INTEGER) "
             "ON CONFLICT(zone, sensor, signal, hour_ts) DO UPDATE SET "
-            "mean = (mean * n + excluded.mean * excluded.n) / (n + excluded.n), min = min(min, excluded.min), "
-            "max = max(max, excluded.max), n = n + excluded.n",
+            "mean = (readings_hourly.mean * readings_hourly.n + excluded.mean * excluded.n) / (readings_hourly.n + excluded.n), "
+            "min = CASE WHEN excluded.min < readings_hourly.min THEN excluded.min ELSE readings_hourly.min END, "
+            "max = CASE WHEN excluded.max > readings_hourly.max THEN excluded.max ELSE readings_hourly.max END, "
+            "n = readings_hourly.n + excluded.n",
             (zone, upto_ts),
         )
         return _cut_zone(self.conn, zone, upto_ts, wall_ts)
@@ -274,9 +281,9 @@ class Readings(Repo):
 class Rejections(Repo):
     def add(self, received_ts: float, topic: str, reason: str, payload: bytes, n: int = 1) -> None:
         """One rejected message (or n like it, when a topic's rejections are rate-limited)."""
-        kept = payload[:PAYLOAD_KEEP_BYTES].decode("utf-8", errors="backslashreplace")
+        kept = text(payload[:PAYLOAD_KEEP_BYTES].decode("utf-8", errors="backslashreplace"))
         values = (received_ts, text(topic[:512]), text(reason), kept, n)
-        self.conn.execute(REJECTION_INSERT, chain.params(values))
+        REJECTION_INSERT.run(self.conn, values)
 
     def since(self, since_ts: float) -> int:
         """Messages rejected since then (a rate-limited row stands for n of them)."""
@@ -318,7 +325,7 @@ def _cut_zone(conn, zone: str, upto_ts: float, wall_ts: float) -> int:
         return 0
     pairs = conn.execute(
         f"SELECT id, prev_id FROM (SELECT id, ts AS t, lag(id) OVER (ORDER BY id) AS prev_id, "
-        f"lag(ts) OVER (ORDER BY id) AS prev_t FROM reading_rows WHERE {in_zone}) WHERE t > ? AND prev_t <= ?",
+        f"lag(ts) OVER (ORDER BY id) AS prev_t FROM reading_rows WHERE {in_zone}) w WHERE t > ? AND prev_t <= ?",
         (*series, upto_ts, upto_ts),
     ).fetchall()
     links = []
@@ -341,7 +348,7 @@ def cut(conn, table: str, zone: str, time_col: str, upto_ts: float, wall_ts: flo
         return 0
     links = conn.execute(
         f"SELECT id, prev FROM (SELECT id, {time_col} AS t, lag(chain) OVER (ORDER BY id) AS prev, "
-        f"lag({time_col}) OVER (ORDER BY id) AS prev_t FROM {table}) WHERE t > ? AND prev_t <= ?",
+        f"lag({time_col}) OVER (ORDER BY id) AS prev_t FROM {table}) w WHERE t > ? AND prev_t <= ?",
         (upto_ts, upto_ts),
     ).fetchall()
     chain.add_fold(conn, table, zone, links, n, upto_ts, wall_ts)

@@ -13,17 +13,27 @@ import functools
 import inspect
 import sqlite3
 
+import psycopg
+
 from watcher.errors import RecordRefused, StoreError, WatcherError
+
+#: The errors the two engines' drivers raise.
+DB_ERRORS = (sqlite3.Error, psycopg.Error)
 
 
 def is_storage_fault(exc: BaseException) -> bool:
     """sqlite3's operational errors and OS errors are the storage's; integrity, interface and
-    programming errors (a value that cannot be bound, a broken constraint) are the data's."""
+    programming errors (a value that cannot be bound, a broken constraint) are the data's.
+    On PostgreSQL the server's operational errors (gone, disk full, out of connections), a
+    broken or read-only session and a transaction the server aborted are the storage's; data,
+    integrity and programming errors are the data's."""
     if isinstance(exc, StoreError):
         return True
     if isinstance(exc, (sqlite3.OperationalError, OSError)):
         return True
-    return type(exc) in (sqlite3.DatabaseError, sqlite3.InternalError)
+    if isinstance(exc, (psycopg.OperationalError, psycopg.InterfaceError, psycopg.InternalError)):
+        return True
+    return type(exc) in (sqlite3.DatabaseError, sqlite3.InternalError, psycopg.DatabaseError)
 
 
 def translate(exc: Exception, where: str) -> WatcherError | None:
@@ -32,7 +42,7 @@ def translate(exc: Exception, where: str) -> WatcherError | None:
         return exc
     if is_storage_fault(exc):
         return StoreError(f"{where}: {type(exc).__name__}: {exc}")
-    if isinstance(exc, sqlite3.Error):
+    if isinstance(exc, DB_ERRORS):
         return RecordRefused(f"{where}: {type(exc).__name__}: {exc}")
     return None
 
@@ -42,7 +52,7 @@ def _translated(method):
     def call(self, *args, **kwargs):
         try:
             return method(self, *args, **kwargs)
-        except (sqlite3.Error, OSError) as exc:
+        except (*DB_ERRORS, OSError) as exc:
             raise translate(exc, f"{type(self).__name__.lower()}.{method.__name__}") from exc
 
     return call
@@ -60,8 +70,36 @@ class Repo:
 
 
 def text(s: str) -> str:
-    """Text SQLite can store as UTF-8: lone surrogates become backslash escapes."""
-    return s.encode("utf-8", "backslashreplace").decode("utf-8")
+    """Text both engines store as UTF-8: lone surrogates become backslash escapes, and so does
+    NUL (PostgreSQL's text cannot hold it)."""
+    return s.encode("utf-8", "backslashreplace").decode("utf-8").replace("\x00", "\\x00")
+
+
+def data_version(conn) -> int:
+    """Changes when another connection has committed to the record since (SQLite's
+    data_version). On PostgreSQL the cached chain heads and bin sums it guards belong to zones
+    this connection has claimed (`claim_zone`): no other connection writes them."""
+    if getattr(conn, "dialect", "sqlite") == "postgresql":
+        return 0
+    return conn.execute("PRAGMA data_version").fetchone()[0]
+
+
+def claim_zone(conn, zone: str) -> None:
+    """One writer a zone: its readings' chain is extended from the head this connection keeps.
+    SQLite has one writer a file; on PostgreSQL several central watchers share the record, so
+    the first to write a zone holds it until it disconnects, and another is refused, by name."""
+    if getattr(conn, "dialect", "sqlite") == "postgresql" and not conn.claim(f"zone:{zone}"):
+        raise StoreError(
+            f"zone {zone!r} is being written by another watcher on this record: each zone must be read by one "
+            "central watcher only (split the sites between them, docs/fleet.md)"
+        )
+
+
+def file_path(conn) -> str | None:
+    """The record's file (None: in memory, or on a server)."""
+    if getattr(conn, "dialect", "sqlite") == "postgresql":
+        return None
+    return conn.execute("PRAGMA database_list").fetchone()[2] or None
 
 
 def marks(n: int) -> str:

@@ -29,8 +29,8 @@ class Reports(Repo):
 
     def scheduled(self, site: str, week: str) -> bool:
         """True once the schedule (not a person) has produced that site's summary for the week."""
-        sql = "SELECT 1 FROM reports WHERE site = ? AND week = ? AND json_extract(files, '$.auto') = 1"
-        return self.conn.execute(sql, (site, week)).fetchone() is not None
+        rows = self.conn.execute("SELECT files FROM reports WHERE site = ? AND week = ?", (site, week))
+        return any(json.loads(files).get("auto") in (1, True) for (files,) in rows)
 
     def week_tables(
         self, zone_ids: tuple[str, ...], start_ts: float, end_ts: float, days: tuple[str, ...]

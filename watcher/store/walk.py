@@ -24,6 +24,7 @@ from hashlib import sha256
 from pathlib import Path
 
 from watcher.store.hashing import READING_FIELDS, Finding, ReadingHasher
+from watcher.store.repo import file_path
 
 #: Rows above which the walk runs in worker processes, one per core; below it, starting
 #: workers costs more than it saves.
@@ -189,7 +190,7 @@ def walk_readings(conn, firsts: dict[str, int], folds: dict, hashed_from: float)
     big and there is more than one core."""
     last = conn.execute("SELECT max(id) FROM reading_rows").fetchone()[0] or 0
     first_id = min(firsts.values(), default=last + 1)
-    path = conn.execute("PRAGMA database_list").fetchone()[2]
+    path = file_path(conn)
     workers = os.cpu_count() or 1
     starts = {z: kept_before(conn, z, f) for z, f in firsts.items()}
     if not path or workers < 2 or last - first_id < PARALLEL_ROWS:

@@ -1,0 +1,342 @@
+"""The store on both engines: a SQLite file (a site) and a real PostgreSQL server (a fleet's
+central record, tests/pgserver.py). The same repositories, the same statements: what one
+engine records, the other records the same, row for row and hash for hash, and `verify`
+finds the same edits on both."""
+
+from __future__ import annotations
+
+import json
+import os
+import re
+import subprocess
+import sys
+import threading
+
+import pytest
+
+from tests.test_engine import NOW, T0, make, msg
+from tests.test_integrity import an_alert
+from watcher.engine.batch import Engine, Message
+from watcher.engine.lots import record_event
+from watcher.errors import RecordRefused, StoreError
+from watcher.store import chain, pg_schema
+from watcher.store.db import Store
+
+ENGINES = ("sqlite", "postgresql")
+LATER = NOW + 400 * 86400.0
+
+
+def _location(engine: str, request, tmp_path) -> tuple[str, str | None]:
+    if engine == "sqlite":
+        return str(tmp_path / "record.db"), None
+    return request.getfixturevalue("pg_record")
+
+
+@pytest.fixture(params=ENGINES)
+def opener(request, tmp_path):
+    """Opens the test's record (a new file, or a new PostgreSQL database): opener(readonly)."""
+    location, password = _location(request.param, request, tmp_path)
+
+    def open_it(readonly: bool = False) -> Store:
+        return Store(location, readonly=readonly, password=password)
+
+    open_it.engine, open_it.location = request.param, location
+    return open_it
+
+
+def fill(tmp_path, store: Store, retention: bool = True) -> None:
+    """Normal work of every kind the store keeps: readings in batches and one by one, a late
+    reading, refused messages (one with NUL and a lone surrogate), alerts and their log, events
+    merged, lots, a retention pass over readings and rejections, held messages, the outbox,
+    commands, a summary's row, zone marks, aliases."""
+    (tmp_path / "cfg").mkdir()
+    cfg, scratch, _ = make(tmp_path / "cfg", reorder=0.0)  # the configuration; its own file is not used
+    scratch.close()
+    engine = Engine(cfg, store, checkpoint_s=0.0)
+    for k0 in range(0, 600, 60):
+        engine.process([msg(z, k) for k in range(k0, k0 + 60) for z in ("bulk-a", "dispatch")], now=NOW)
+    engine.process([msg("bulk-a", 5, value=-20.0, sensor="s2")], now=NOW)  # late: row by row
+    engine.process([msg("bulk-a", 7)], now=NOW)  # already stored: answered by the natural key
+    engine.process([Message("kp/bulk-a/s1/air", b'{"t": "warm"}', NOW, 1, 1)], now=NOW)
+    engine.process([Message("kp/bulk-a/s1/air", b'{"t": "\x00 nul"}', NOW, 2, 1)], now=NOW)
+    with store.atomic():
+        store.rejections.add(NOW, "kp/\udcff/bad", "a lone surrogate in the topic", b"\xff\x00")
+        an_alert(store, status="cleared", cleared_ts=5.0)
+        store.alerts.log_add(1, "raise", 1.0, 2.0, 3.5)
+        store.alerts.log_add(1, "clear", 5.0, 6.0, -0.0)
+        store.events.upsert("bulk-a", "door", T0 + 100.0, T0 + 160.0, {"source": "signal", "n": [1, 2]})
+        store.events.upsert("bulk-a", "door", T0 + 100.0, T0 + 170.0, {"cost": {"um": 0.25}, "n": None})
+        for doc in (
+            {"event": "arrive", "lot": "L-1", "zone": "bulk-a", "time": NOW - 3600, "initial": {"budget_used_pct": 30}},
+            {"event": "move", "lot": "L-1", "zone": "dispatch", "time": NOW - 1800},
+        ):
+            record_event(store, cfg, doc, "test", "cli", "qa", NOW)
+        store.held.add(NOW, "kp/bulk-a/s1/air", b'{"t": -25, "ts": 1}', "clock disagrees")
+        store.held.add(NOW, "kp/bulk-a/s1/air", b'{"t": -25, "ts": 2}', "clock disagrees")
+        store.held.remove([store.held.oldest(1)[0][0]])
+        store.outbox.add("title", "body", ["alerts", "zone:bulk-a"], NOW, ["qa"], dedupe="d-1", alert_id=1)
+        store.commands.add(1, "qa", "seen", "cli", None, NOW)
+        store.reports.add("kp", "2026-W48", NOW, store.record.heads(), "digest", {"paths": [], "auto": True})
+        store.zones.mark_set("bulk-a", "budget-50", 12.5)
+        store.aliases.replace("node-1", {1: "kp/bulk-a/s1/air"})
+    if retention:
+        with store.atomic():  # a retention pass, a year and more on
+            store.readings.fold("bulk-a", T0 + 100 * 60, LATER)
+            store.rejections.prune(NOW - 1.0, LATER)  # none that old: a pass that cuts nothing
+    engine.checkpoint_all(NOW)
+
+
+def dump(store: Store) -> dict[str, list[tuple]]:
+    """Every table's rows, in key order, columns named as on PostgreSQL (chain_folds' rowid too)."""
+    out = {}
+    for table in pg_schema.TABLES:
+        names = COLUMNS[table]
+        rows = store.conn.execute(f"SELECT {', '.join(names)} FROM {table}").fetchall()
+        out[table] = sorted((tuple(r) for r in rows), key=repr)
+    return out
+
+
+COLUMNS = {table: re.findall(r"(?:^|, )([a-z_]+) [A-Z]", columns) for table, columns in pg_schema.TABLES.items()}
+
+
+def test_the_same_work_makes_the_same_record_on_both_engines(tmp_path, pg_record):
+    """The same work on a SQLite file and on PostgreSQL leaves every table equal, row for row
+    and value for value (floats to the bit, bytes, JSON text), the same chain heads, and both
+    records verify intact: the fleet's central record is the site's record on another engine."""
+    url, password = pg_record
+    stores = {"sqlite": Store(str(tmp_path / "a.db")), "postgresql": Store(url, password=password)}
+    try:
+        for name, store in stores.items():
+            (tmp_path / name).mkdir()
+            fill(tmp_path / name, store)
+        dumps = {name: dump(store) for name, store in stores.items()}
+        for table in pg_schema.TABLES:
+            assert dumps["sqlite"][table] == dumps["postgresql"][table], table
+        assert sum(len(rows) for rows in dumps["sqlite"].values()) > 1000
+        assert stores["sqlite"].record.heads() == stores["postgresql"].record.heads()
+        for store in stores.values():
+            findings, counts = chain.verify(store.conn, now_ts=LATER)
+            assert findings == [] and counts["readings/bulk-a"] == 601 - 102 and counts["chain_folds"] >= 2
+    finally:
+        for store in stores.values():
+            store.close()
+
+
+def verify_cli(location: str, pgpass) -> subprocess.CompletedProcess:
+    """`watcher verify --db LOCATION`: a PostgreSQL URL's password from a libpq password file."""
+    env = {**os.environ, "PGPASSFILE": str(pgpass)}
+    return subprocess.run(
+        [sys.executable, "-m", "watcher", "verify", "--db", location],
+        capture_output=True,
+        text=True,
+        timeout=120,
+        env=env,
+    )
+
+
+EDITS = {
+    "reading-value": (
+        "UPDATE reading_rows SET value = value + 0.5 WHERE id = (SELECT min(r.id) + 40 FROM reading_rows r "
+        "JOIN series s ON s.id = r.series WHERE s.zone = 'dispatch')",
+        "readings/dispatch",
+    ),
+    "reading-deleted": (
+        "DELETE FROM reading_rows WHERE id = (SELECT min(r.id) + 100 FROM reading_rows r "
+        "JOIN series s ON s.id = r.series WHERE s.zone = 'bulk-a')",
+        "readings/bulk-a",
+    ),
+    "alert-log-by": ("UPDATE alert_log SET by = 'someone else'", "alert_log"),
+    "event-end": ("UPDATE event_log SET end_ts = 999 WHERE id = 1", "event_log"),
+    "lot-move-zone": ("UPDATE lot_events SET zone = 'bulk-a' WHERE kind = 'move'", "lot_events"),
+    "rejection-reason": ("UPDATE rejections SET reason = 'nothing wrong' WHERE id = 1", "rejections"),
+}
+
+
+@pytest.mark.parametrize("edit", sorted(EDITS))
+def test_verify_names_an_edit_on_either_engine(opener, tmp_path, pg_server, edit):
+    """An intact record verifies (exit 0) from the command line on either engine; after a value
+    is changed, a row deleted or a log rewritten behind watcher's back, verify exits 1 and names
+    the chain and row (derived: the chains' definition, store/chain.py)."""
+    store = opener()
+    fill(tmp_path, store, retention=False)
+    sql, chain_name = EDITS[edit]
+    pgpass = pg_server.pgpass()
+    store.close()
+    intact = verify_cli(opener.location, pgpass)
+    assert intact.returncode == 0 and "Record intact" in intact.stdout, intact.stdout + intact.stderr
+    store = opener()
+    with store.atomic():
+        store.conn.execute(sql)
+    store.close()
+    out = verify_cli(opener.location, pgpass)
+    assert out.returncode == 1, out.stdout + out.stderr
+    line = next(x for x in out.stdout.splitlines() if x.startswith("MISMATCH"))
+    assert line.startswith(f"MISMATCH {chain_name} row "), out.stdout
+
+
+def test_a_stored_reading_is_answered_by_its_key_on_either_engine(opener, tmp_path):
+    """A reading stored again is refused by its natural key, alone or in a batch (the batch
+    then inserts nothing, and the caller goes row by row); nothing is counted twice."""
+    store = opener()
+    (tmp_path / "cfg").mkdir()
+    cfg, scratch, _ = make(tmp_path / "cfg", reorder=0.0)
+    scratch.close()
+    engine = Engine(cfg, store, checkpoint_s=0.0)
+    engine.process([msg("bulk-a", k) for k in range(10)], now=NOW)
+    first = engine.store.readings.summary("bulk-a")[0]
+    from watcher.ingest.payload import Reading
+
+    again = Reading("bulk-a", "s1", "air_c", T0 + 60 * 3, -25.0)
+    fresh = Reading("bulk-a", "s1", "air_c", T0 + 60 * 30, -25.0)
+    with store.atomic():
+        assert store.readings.add(again, NOW, "kp/bulk-a/s1/air", False) is False
+        assert store.readings.add_all_new([(fresh, NOW, "kp/bulk-a/s1/air"), (again, NOW, "kp/bulk-a/s1/air")]) is False
+        assert store.readings.add_all_new([(fresh, NOW, "kp/bulk-a/s1/air")]) is True
+    assert store.readings.summary("bulk-a")[0] == first + 1 == 11
+    assert chain.verify(store.conn)[0] == []
+    store.close()
+
+
+# --- PostgreSQL only: what a shared server adds -------------------------------------------
+
+
+def test_two_connections_extending_one_log_keep_its_chain(pg_record):
+    """Two writers (central watchers, or a watcher's writer and its deliverer) appending to one
+    chained log at once: each append is locked, hashed in Python onto the row that is last when
+    it goes in, and the log verifies intact with every row (derived: the chain's definition)."""
+    url, password = pg_record
+    stores = [Store(url, password=password), Store(url, password=password)]
+    errors = []
+
+    def append(store: Store, who: str) -> None:
+        try:
+            for i in range(150):
+                with store.atomic():
+                    store.alerts.log_add(1, "note", float(i), float(i), None, who, f"{who} {i}")
+        except Exception as exc:  # reported below: a thread's failure must fail the test
+            errors.append(exc)
+
+    with stores[0].atomic():
+        an_alert(stores[0])
+        stores[0].alerts.log_add(1, "raise", 0.0, 0.0, 1.0)
+    threads = [threading.Thread(target=append, args=(s, f"w{n}")) for n, s in enumerate(stores)]
+    for t in threads:
+        t.start()
+    for t in threads:
+        t.join(120)
+    assert errors == []
+    findings, counts = chain.verify(stores[0].conn)
+    assert findings == [] and counts["alert_log"] == 1 + 2 * 150
+    for store in stores:
+        store.close()
+
+
+def test_a_zone_written_by_another_watcher_is_refused(pg_record):
+    """Several central watchers share one record but never one zone (its readings' chain is
+    extended from the head its writer keeps): a second writer of a zone is refused, by name,
+    until the first lets go; other zones are free (docs/fleet.md)."""
+    from watcher.ingest.payload import Reading
+
+    url, password = pg_record
+    first, second = Store(url, password=password), Store(url, password=password)
+    with first.atomic():
+        first.readings.add(Reading("kestrel-bulk-a", "s1", "air_c", T0, -25.0), NOW, "t", False)
+    with pytest.raises(StoreError, match="kestrel-bulk-a.*another watcher"):
+        with second.atomic():
+            second.readings.add(Reading("kestrel-bulk-a", "s1", "air_c", T0 + 60, -25.0), NOW, "t", False)
+    with second.atomic():
+        second.readings.add(Reading("harbour-store-1", "s1", "air_c", T0, -25.0), NOW, "t", False)
+    first.close()
+    with second.atomic():
+        second.readings.add(Reading("kestrel-bulk-a", "s1", "air_c", T0 + 60, -25.0), NOW, "t", False)
+    assert chain.verify(second.conn)[0] == []
+    second.close()
+
+
+def test_a_reader_role_reads_and_cannot_write(pg_server, pg_record, tmp_path):
+    """status, verify and the page read through a read-only role (storage.reader_url): the
+    record is read, any write is refused by the server, and the role's password comes from its
+    file, never the configuration."""
+    url, password = pg_record
+    store = Store(url, password=password)
+    fill(tmp_path, store, retention=False)
+    store.close()
+    database = url.rsplit("/", 1)[1]
+    reader_url, reader_pw = pg_server.add_reader(database)
+    reader = Store(reader_url, readonly=True, password=reader_pw.read_text().strip())
+    assert reader.readings.summary("bulk-a")[0] == 601
+    assert reader.record.verify()[0] == []
+    with pytest.raises((StoreError, RecordRefused)):
+        with reader.atomic():
+            reader.conn.execute("DELETE FROM alert_log")
+    reader.close()
+    with pytest.raises(StoreError, match="watcher_reader may read this record but not write it"):
+        Store(reader_url, password=reader_pw.read_text().strip())
+    cfg = tmp_path / "reader.toml"
+    (tmp_path / "pg-pw").write_text(password + "\n")
+    (tmp_path / "pg-pw").chmod(0o600)
+    cfg.write_text(
+        f'[broker]\npassword_file = "{tmp_path / "cfg" / "pw"}"\n'
+        f'[storage]\npath = "{tmp_path / "local.db"}"\nurl = "{url}"\npassword_file = "{tmp_path / "pg-pw"}"\n'
+        f'reader_url = "{reader_url}"\nreader_password_file = "{reader_pw}"\n'
+        '[[sites]]\nid = "kp"\n[[zones]]\nid = "bulk-a"\nsetpoint_c = -25.0\n[[zones]]\nid = "dispatch"\n'
+        'setpoint_c = -22.0\n[[sources]]\npattern = "kp/{zone}/{sensor}/air"\nsignal = "air_c"\nvalue = "t"\n'
+    )
+    out = subprocess.run(
+        [sys.executable, "-m", "watcher", "status", "--config", str(cfg), "--json"],
+        capture_output=True,
+        text=True,
+        timeout=60,
+    )
+    assert out.returncode == 0, out.stderr
+    doc = json.loads(out.stdout)
+    assert doc["database"] == reader_url and {z["id"]: z["readings_total"] for z in doc["zones"]} == {
+        "bulk-a": 601,
+        "dispatch": 600,
+    }
+    assert password not in out.stdout + out.stderr
+
+
+def test_a_record_of_another_version_or_none_is_refused_by_name(pg_server, pg_record):
+    """A database whose record another watcher version made, or none at all for a reader, is
+    refused before anything reads it, naming both versions; a wrong password is refused
+    without showing it."""
+    url, password = pg_record
+    with pytest.raises(StoreError, match="no watcher record in this database yet"):
+        Store(url, readonly=True, password=password)
+    Store(url, password=password).close()
+    pg_server.sql("UPDATE watcher_schema SET level = 'm099_from_the_future'", url.rsplit("/", 1)[1])
+    for readonly in (False, True):
+        with pytest.raises(StoreError, match=f"m099_from_the_future.*reads {pg_schema.SCHEMA_LEVEL}"):
+            Store(url, readonly=readonly, password=password)
+    with pytest.raises(StoreError, match="cannot open the database") as refused:
+        Store(url, password="not-the-password")
+    assert "not-the-password" not in str(refused.value)
+
+
+def test_the_writer_carries_on_when_the_server_restarts(tmp_path):
+    """The server restarts under the writer (an upgrade, a failover): the batch in flight fails
+    as a storage fault (the service keeps it and retries, unacknowledged), the next attempt
+    opens a new session, and the record holds every reading once with its chain intact."""
+    from tests.pgserver import PostgresServer
+
+    server = PostgresServer()
+    server.start()
+    try:
+        (tmp_path / "cfg").mkdir()
+        cfg, scratch, _ = make(tmp_path / "cfg", reorder=0.0)
+        scratch.close()
+        store = Store(server.url, password=server.password)
+        engine = Engine(cfg, store, checkpoint_s=0.0)
+        engine.process([msg("bulk-a", k) for k in range(60)], now=NOW)
+        server.restart()
+        batch = [msg("bulk-a", k) for k in range(60, 120)]
+        with pytest.raises(StoreError):
+            engine.process(batch, now=NOW)
+        engine.process(batch, now=NOW)  # the writer's retry of the same batch
+        engine.process([msg("bulk-a", k) for k in range(120, 180)], now=NOW)
+        assert store.readings.summary("bulk-a")[0] == 180
+        assert chain.verify(store.conn)[0] == []
+        store.close()
+    finally:
+        server.stop()
