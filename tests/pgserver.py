@@ -146,15 +146,19 @@ class PostgresServer:
         return self.url_of(name)
 
     def add_reader(self, database: str, role: str = "watcher_reader") -> tuple[str, Path]:
-        """A role that may only read the record's tables (granted by the owner, as docs/fleet.md
-        says); its URL and password file."""
+        """A role that may only read the record's tables, those there now and those watcher
+        makes later (as docs/fleet.md says); its URL and password file."""
         password = "rd-" + os.urandom(8).hex()
         if not self.sql(f"SELECT 1 FROM pg_roles WHERE rolname = '{role}'"):
             self.sql(f"CREATE ROLE {role} LOGIN PASSWORD '{password}'")
         else:
             self.sql(f"ALTER ROLE {role} PASSWORD '{password}'")
         self.sql(f"GRANT CONNECT ON DATABASE {database} TO {role}")
-        self.sql(f"SET ROLE {self.role}; GRANT SELECT ON ALL TABLES IN SCHEMA public TO {role}", database)
+        self.sql(f"GRANT SELECT ON ALL TABLES IN SCHEMA public TO {role}", database)
+        # and every table watcher makes later (the record may not exist yet)
+        self.sql(
+            f"ALTER DEFAULT PRIVILEGES FOR ROLE {self.role} IN SCHEMA public GRANT SELECT ON TABLES TO {role}", database
+        )
         file = self.root / f"{role}-{database}-password"
         file.write_text(password + "\n")
         file.chmod(0o600)

@@ -1,12 +1,12 @@
 """A fleet end to end, with the shipped files of deploy/fleet/: two sites, each with its own
 mosquitto and watcher, bridged over a WAN link (a TCP proxy the test cuts) to a central
 mosquitto read by a central watcher. Real brokers, real watcher processes, real TLS with
-client certificates on the bridges; the central watcher's record on SQLite."""
+client certificates on the bridges; the central watcher's record on a real PostgreSQL, read
+through a read-only role by status, verify and the page."""
 
 from __future__ import annotations
 
 import html
-import sqlite3
 import subprocess
 import sys
 import time
@@ -18,6 +18,8 @@ import paho.mqtt.client as mqtt
 from tests.broker import MOSQUITTO, MOSQUITTO_PASSWD, Broker, free_port, make_ca, wait_listening
 from tests.proxy import Proxy
 from tests.service_harness import Publisher, WatcherProcess, messages, wait_for, write_config, write_secret
+from watcher.errors import StoreError
+from watcher.store.db import Store
 
 FLEET = Path(__file__).resolve().parent.parent / "deploy" / "fleet"
 SITES = {"kestrel": ("bulk-a", "dispatch"), "harbour": ("store-1",)}
@@ -79,8 +81,11 @@ def site_broker(folder: Path, site: str, certs: dict, wan_port: int) -> Broker:
     return broker
 
 
-def central_config(folder: Path, certs: dict, port: int) -> Path:
+def central_config(folder: Path, certs: dict, port: int, record: tuple[str, str], reader: tuple[str, Path]) -> Path:
+    """The shipped central configuration on this test's brokers and PostgreSQL record (record:
+    the writer's URL and password; reader: the read-only role's URL and password file)."""
     write_secret(folder / "pw", CENTRAL_PASSWORD + "\n")
+    write_secret(folder / "pg-pw", record[1] + "\n")
     write_secret(folder / "qa.url", f"json://127.0.0.1:{free_port()}/\n")
     text = adapted(
         (FLEET / "central-watcher.toml").read_text(),
@@ -90,6 +95,10 @@ def central_config(folder: Path, certs: dict, port: int) -> Path:
             ('password_credential = "broker-password"', f'password_file = "{folder / "pw"}"'),
             ("/etc/watcher/fleet-ca.pem", str(certs["ca"])),
             ("/var/lib/watcher/central.db", str(folder / "central.db")),
+            ("postgresql://watcher@db.fleet.example:5432/central", record[0]),
+            ('password_credential = "pg-password"', f'password_file = "{folder / "pg-pw"}"'),
+            ("postgresql://watcher_reader@db.fleet.example:5432/central", reader[0]),
+            ('reader_password_credential = "pg-reader-password"', f'reader_password_file = "{reader[1]}"'),
             ("enabled = true ", "enabled = false "),
             ('url_credential = "qa-team"', f'url_file = "{folder / "qa.url"}"'),
             # The test's sensors send epoch seconds in "temp_c" (the harness's payloads).
@@ -102,24 +111,33 @@ def central_config(folder: Path, certs: dict, port: int) -> Path:
     return path
 
 
-def counts(db: Path) -> dict[str, int]:
-    if not db.exists():
-        return {}
-    conn = sqlite3.connect(f"file:{db}?mode=ro", uri=True)
-    try:
-        return dict(conn.execute("SELECT zone, count(*) FROM readings GROUP BY zone").fetchall())
-    except sqlite3.OperationalError:  # not created yet
-        return {}
-    finally:
-        conn.close()
+def opened(record) -> Store:
+    """A reader's handle on a record: a SQLite file, or a PostgreSQL (url, password)."""
+    if isinstance(record, tuple):
+        return Store(record[0], readonly=True, password=record[1])
+    return Store(str(record), readonly=True)
 
 
-def rows(db: Path, rename=lambda z: z) -> set[tuple]:
-    conn = sqlite3.connect(f"file:{db}?mode=ro", uri=True)
+def counts(record) -> dict[str, int]:
+    """Readings per zone in a record (a SQLite file, or a PostgreSQL (url, password)); none yet: {}."""
     try:
-        return {(rename(z), s, t, v) for z, s, t, v in conn.execute("SELECT zone, sensor, ts, value FROM readings")}
+        store = opened(record)
+    except StoreError:  # not made yet
+        return {}
+    try:
+        return dict(store.conn.execute("SELECT zone, count(*) FROM readings GROUP BY zone").fetchall())
     finally:
-        conn.close()
+        store.close()
+
+
+def rows(record, rename=lambda z: z) -> set[tuple]:
+    store = opened(record)
+    try:
+        return {
+            (rename(z), s, t, v) for z, s, t, v in store.conn.execute("SELECT zone, sensor, ts, value FROM readings")
+        }
+    finally:
+        store.close()
 
 
 def bridge_states(port: int, certs: dict) -> dict[str, bytes]:
@@ -146,7 +164,7 @@ def verify(config: Path) -> subprocess.CompletedProcess:
     )
 
 
-def test_two_sites_reach_the_central_record_once_through_a_cut_wan(tmp_path):
+def test_two_sites_reach_the_central_record_once_through_a_cut_wan(tmp_path, pg_server, pg_record):
     """Readings published at two sites are stored by each site's watcher and, bridged, once by
     the central watcher under the site's zone names ("kestrel-bulk-a"), with kestrel's WAN link
     stalled mid-stream (half-open: the bridge must notice and reconnect) and then restored:
@@ -167,11 +185,13 @@ def test_two_sites_reach_the_central_record_once_through_a_cut_wan(tmp_path):
             brokers[site].start()
             configs[site] = write_config(folder, brokers[site], zones=zones, site=site)
             watchers[site] = WatcherProcess(configs[site])
-        configs["central"] = central_config(tmp_path / "central", certs, watcher_port)
+        central_db = (pg_record[0], pg_record[1])  # the central record, on PostgreSQL
+        database = pg_record[0].rsplit("/", 1)[1]
+        reader = pg_server.add_reader(database, "fleet_reader")
+        configs["central"] = central_config(tmp_path / "central", certs, watcher_port, pg_record, reader)
         watchers["central"] = WatcherProcess(configs["central"])
         for w in watchers.values():
             w.wait_ready()
-        central_db = tmp_path / "central" / "central.db"
         for site, zones in SITES.items():
             publishers[site] = Publisher(brokers[site], client_id=f"sensors-{site}")
             publishers[site].send(messages(zones, 0, 30, site=site))
