@@ -11,7 +11,13 @@ is. Sites carried = 60 s over the cost of one site's minute, from the largest S 
 checked to grow linearly). The MQTT edge runs in its own process on the other core
 (bench/service_ingest.py measures it) and is left out; so is the WAN.
 
-Usage: python bench/fleet.py [--sites 1,10,40] [--sensors 200] [--minutes 30]
+With --engines sqlite,postgresql each S runs on both engines in the same run, the central
+record on a SQLite file and on a PostgreSQL server this script starts on loopback in a
+temporary folder (tests/pgserver.py: synchronous commit, fsync on, the same disk), and the
+ratio of their ingest rates is printed. The watcher's own work (the model, the chain's
+hashing) runs in this process in both cases; PostgreSQL's runs in its server's processes.
+
+Usage: python bench/fleet.py [--sites 1,10,40] [--sensors 200] [--minutes 30] [--engines sqlite,postgresql]
 """
 
 from __future__ import annotations
@@ -65,11 +71,15 @@ signal = "air_c"
     return path
 
 
-def minute_cost(sites: int, sensors: int, minutes: int) -> tuple[float, float]:
-    """(readings a second, seconds of work a minute of data) for S sites on an empty record."""
+def minute_cost(sites: int, sensors: int, minutes: int, pg=None) -> tuple[float, float]:
+    """(readings a second, seconds of work a minute of data) for S sites on an empty record (on
+    the PostgreSQL server pg, when given)."""
     folder = Path(tempfile.mkdtemp(prefix="watcher-fleet-"))
     cfg = load_config(str(central_config(folder, sites, sensors)))
-    store = Store(cfg.storage.path)
+    if pg is None:
+        store = Store(cfg.storage.path)
+    else:
+        store = Store(pg.new_database(f"bench_{sites}_{int(time.time() * 1000)}"), password=pg.password)
     try:
         engine = Engine(cfg, store)
         rng = np.random.default_rng(sites)
@@ -95,20 +105,44 @@ def main() -> None:
     ap.add_argument("--sites", default="1,10,40", help="site counts to measure, ascending")
     ap.add_argument("--sensors", type=int, default=200, help="air sensors a site (ten a zone)")
     ap.add_argument("--minutes", type=int, default=30, help="minutes of data timed at each site count")
+    ap.add_argument("--engines", default="sqlite", help="sqlite, postgresql or both (comma-separated)")
     a = ap.parse_args()
-    print(f"central watcher on SQLite, {a.sensors} sensors a site at one reading a minute; {a.minutes} minutes timed")
-    print(f"{'sites':>5} {'zones':>6} {'readings/s':>10} {'s per data minute':>18} {'one core':>9} {'per site':>9}")
-    per_site = None
-    for sites in [int(s) for s in a.sites.split(",")]:
-        rate, cost = minute_cost(sites, a.sensors, a.minutes)
-        per_site = cost / sites
-        print(
-            f"{sites:5d} {sites * a.sensors // PER_ZONE:6d} {rate:10,.0f} {cost:18.2f} {cost / 60:9.1%} {per_site * 1000:7.1f} ms",
-            flush=True,
-        )
+    engines = [e.strip() for e in a.engines.split(",")]
+    pg = None
+    if "postgresql" in engines:
+        from tests.pgserver import PostgresServer
+
+        pg = PostgresServer()
+        pg.start()
+    try:
+        run(a, engines, pg)
+    finally:
+        if pg is not None:
+            pg.stop()
+
+
+def run(a, engines: list[str], pg) -> None:
+    print(f"central watcher, {a.sensors} sensors a site at one reading a minute; {a.minutes} minutes timed")
     print(
-        f"sites carried by one core at the largest count: about {60.0 / per_site:,.0f} (60 s / cost of a site's minute)"
+        f"{'engine':<10} {'sites':>5} {'zones':>6} {'readings/s':>10} {'s per data minute':>18} {'one core':>9} {'per site':>9}"
     )
+    per_site: dict[str, float] = {}
+    for sites in [int(s) for s in a.sites.split(",")]:
+        rates = {}
+        for engine in engines:
+            rate, cost = minute_cost(sites, a.sensors, a.minutes, pg if engine == "postgresql" else None)
+            rates[engine], per_site[engine] = rate, cost / sites
+            print(
+                f"{engine:<10} {sites:5d} {sites * a.sensors // PER_ZONE:6d} {rate:10,.0f} {cost:18.2f} "
+                f"{cost / 60:9.1%} {per_site[engine] * 1000:7.1f} ms",
+                flush=True,
+            )
+        if len(rates) == 2:
+            print(f"{'':<10} {sites:5d} PostgreSQL / SQLite ingest rate: {rates['postgresql'] / rates['sqlite']:.2f}")
+    for engine, cost in per_site.items():
+        print(
+            f"{engine}: sites carried by one core at the largest count: about {60.0 / cost:,.0f} (60 s / a site's minute)"
+        )
 
 
 if __name__ == "__main__":

@@ -76,11 +76,18 @@ def bulk_air(t: float, start: float, fault: tuple[float, float]) -> float:
 
 
 def play_site(
-    folder: Path, start: float, days: float, fault: tuple[float, float], outage: tuple[float, float], tz="Europe/London"
+    folder: Path,
+    start: float,
+    days: float,
+    fault: tuple[float, float],
+    outage: tuple[float, float],
+    tz="Europe/London",
+    store: Store | None = None,
 ):
-    """Returns (config, store). Readings a minute apart; received 'now' (the test's clock)."""
+    """Returns (config, store). Readings a minute apart; received 'now' (the test's clock).
+    The record is the configuration's file unless a store is given (another engine)."""
     cfg = site_config(folder, tz)
-    store = Store(cfg.storage.path)
+    store = store or Store(cfg.storage.path)
     engine = Engine(cfg, store, checkpoint_s=0.0)
     received = start + days * 86400.0 + 3600.0
     batch: list[Message] = []

@@ -9,7 +9,7 @@ import psycopg
 import pytest
 
 from tests.pgserver import PostgresServer
-from watcher.store import pg_schema
+from watcher.store import partitions, pg_schema
 from watcher.store.db import Store
 from watcher.store.schema import migrations
 
@@ -122,6 +122,10 @@ def test_the_readings_view_reads_and_changes_as_on_sqlite(pg, lite):
         assert got == want
         conn.execute("INSERT INTO series (zone, sensor, signal) VALUES ('bulk-a', 's1', 'air_c')")
         conn.execute("INSERT INTO topics (topic) VALUES ('kestrel/bulk-a/s1/air')")
+        lo, hi = partitions.bounds(1970, 1)  # raw readings live in monthly partitions
+        conn.execute(
+            f"CREATE TABLE {partitions.name(1970, 1)} PARTITION OF reading_rows FOR VALUES FROM ({lo}) TO ({hi})"
+        )
         for k in range(3):
             conn.execute(
                 "INSERT INTO reading_rows (series, ts, value, received_ts, topic) VALUES (1, %s, -25.0, %s, 1)",

@@ -429,6 +429,10 @@ class Engine:
             )
             now = newest + CLOCK_TRUST_S
         cutoff = now - self.config.storage.raw_retention_days * 86400.0
+        with self.store.retention_pass():
+            return self._fold_all(cutoff, now)
+
+    def _fold_all(self, cutoff: float, now: float) -> int:
         folded = 0
         for zid in self.runners:
             runner, after = self._from_anchor(zid)

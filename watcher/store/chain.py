@@ -30,6 +30,7 @@ import time
 
 from watcher.store import marks, walk
 from watcher.store.hashing import READING_FIELDS, Finding, chain_hash, register
+from watcher.store.repo import hold, is_pg
 
 __all__ = ["READING_FIELDS", "Finding", "chain_hash", "register"]
 
@@ -81,9 +82,9 @@ class Append:
 
     def run(self, conn, values: tuple):
         """Insert the row; the cursor (its lastrowid is the row's id)."""
-        if getattr(conn, "dialect", "sqlite") != "postgresql":
+        if not is_pg(conn):
             return conn.execute(self.sql, params(values))
-        conn.lock(f"chain:{self.table}")
+        hold(conn, f"chain:{self.table}")
         row = conn.execute(f"SELECT chain FROM {self.table} ORDER BY id DESC LIMIT 1").fetchone()
         return conn.execute(self.plain, (*values, chain_hash(row[0] if row else None, *values)))
 
@@ -93,6 +94,7 @@ def add_fold(
 ) -> None:
     """Record one retention pass (and its links) in the chained fold record (fields: the
     columns' names, which an old migration gives as they were then)."""
+    hold(conn, "chain:chain_folds")
     row = conn.execute("SELECT chain FROM chain_folds ORDER BY rowid DESC LIMIT 1").fetchone()
     prev = row[0] if row else None
     rows = [(table, zone, 0, None, cutoff_ts, folded, wall_ts)]

@@ -21,7 +21,7 @@ import psycopg
 import sqlite_utils
 
 from watcher.errors import StoreError
-from watcher.store import chain, pg, pg_schema
+from watcher.store import chain, partitions, pg, pg_schema
 from watcher.store.alerts import Alerts, Commands, Events
 from watcher.store.aliases import Aliases
 from watcher.store.lots import Lots
@@ -159,6 +159,24 @@ class Store:
         self.conn.close()
 
     # --- writing -------------------------------------------------------------------------
+    @contextmanager
+    def retention_pass(self):
+        """Around one retention pass (the engine's apply_retention). On SQLite nothing: each
+        zone's fold commits on its own. On PostgreSQL the pass is one transaction (each zone's
+        fold a savepoint in it) that ends by dropping the months of raw readings it folded
+        whole (store/partitions.py)."""
+        if self.db is not None:
+            yield
+            return
+        with self.atomic():
+            self.conn.lock("retention")  # one pass at a time on a shared record: no two wait on each other
+            self.readings.retention = partitions.Pass()
+            try:
+                yield
+                self.readings.retention.settle(self.conn)
+            finally:
+                self.readings.retention = None
+
     @contextmanager
     def atomic(self):
         """One transaction. A storage fault inside it (disk full, locked past the busy timeout,

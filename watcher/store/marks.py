@@ -13,6 +13,7 @@ from __future__ import annotations
 import json
 
 from watcher.store.hashing import Finding, chain_hash
+from watcher.store.repo import hold
 
 MARK_FIELDS = ("wall_ts", "since_ts", "heads")
 
@@ -27,6 +28,7 @@ def newest(conn) -> dict | None:
 
 def add(conn, heads: dict[str, list], since_ts: float | None, wall_ts: float) -> None:
     """Record one intact verification (heads: what chain.heads gave before the walk)."""
+    hold(conn, "chain:verify_marks")
     row = conn.execute("SELECT chain FROM verify_marks ORDER BY id DESC LIMIT 1").fetchone()
     values = (wall_ts, since_ts, json.dumps(heads, sort_keys=True))
     conn.execute(

@@ -82,6 +82,10 @@ class Cursor:
         return self._cur.rowcount
 
     @property
+    def description(self):
+        return self._cur.description
+
+    @property
     def lastrowid(self) -> int:
         if self._serial != self._conn.serial:
             raise RuntimeError("lastrowid read after another statement ran on the connection")
@@ -175,10 +179,6 @@ class PgConnection:
 def _key(name: str) -> int:
     """A stable 63-bit advisory lock key for a name."""
     return (zlib.crc32(name.encode()) << 31) ^ zlib.adler32(name.encode())
-
-
-def is_pg(conn) -> bool:
-    return getattr(conn, "dialect", "sqlite") == "postgresql"
 
 
 def is_url(location: str) -> bool:

@@ -8,10 +8,10 @@ from collections.abc import Iterator
 
 import numpy as np
 
-from watcher.store import chain, walk
+from watcher.store import chain, partitions, walk
 from watcher.store.bincache import BinArrays, BinWindow, as_arrays
 from watcher.store.hashing import ReadingHasher
-from watcher.store.repo import Repo, claim_zone, data_version, marks, text
+from watcher.store.repo import Repo, claim_zone, data_version, is_pg, marks, text
 from watcher.store.schema import KEEP_EVERY
 
 ROW_INSERT = "INSERT OR IGNORE INTO reading_rows (series, ts, value, received_ts, topic, late, chain) VALUES (?, ?, ?, ?, ?, ?, ?)"
@@ -42,6 +42,8 @@ class Readings(Repo):
         self._topics: dict[str, int] = {}
         self._windows: dict[tuple[str, str], dict[float, BinWindow]] = {}  # per-bin sums, same validity
         self._hash = ReadingHasher()  # chain_hash, with the text of names and recent numbers kept
+        self._months = partitions.Months() if is_pg(conn) else None  # PostgreSQL's monthly partitions
+        self.retention: partitions.Pass | None = None  # set during a retention pass on PostgreSQL
 
     def _series_id(self, zone: str, sensor: str, signal: str) -> int:
         key = (zone, sensor, signal)
@@ -99,6 +101,8 @@ class Readings(Repo):
         head = self._hash(self._head(reading.zone), *values)
         row = (self._series_id(*values[:3]), *values[3:6], self._topic_id(topic), int(late), head)
         self._touch(reading.zone, reading.signal, reading.ts)
+        if self._months is not None:
+            self._months.ensure(self.conn, (reading.ts,))
         if self.conn.execute(ROW_INSERT, row).rowcount != 1:
             return False
         self._heads[reading.zone] = head
@@ -129,6 +133,8 @@ class Readings(Repo):
             keep = heads[r.zone] if i == last[r.zone] or n % KEEP_EVERY == 0 else None
             rows.append((ids[i][0], r.ts, r.value, rts, ids[i][1], 0, keep))
             self._touch(r.zone, r.signal, r.ts)
+        if self._months is not None:
+            self._months.ensure(self.conn, {r.ts for r, _, _ in items})
         before = self.conn.total_changes
         self.conn.executemany(ROW_INSERT, rows)
         if self.conn.total_changes - before == len(items):
@@ -145,6 +151,8 @@ class Readings(Repo):
         name rows rolled back or deleted."""
         self._heads, self._heads_version = {}, None
         self._series, self._topics, self._windows = {}, {}, {}
+        if self._months is not None:
+            self._months.forget()  # a rolled-back batch may have made a partition
 
     def value_of(self, reading) -> float | None:
         """The stored value under the reading's natural key, if any."""
@@ -275,7 +283,7 @@ class Readings(Repo):
             "n = readings_hourly.n + excluded.n",
             (zone, upto_ts),
         )
-        return _cut_zone(self.conn, zone, upto_ts, wall_ts)
+        return _cut_zone(self.conn, zone, upto_ts, wall_ts, self.retention)
 
 
 class Rejections(Repo):
@@ -314,10 +322,12 @@ class Held(Repo):
         self.conn.executemany("DELETE FROM held WHERE id = ?", [(i,) for i in ids])
 
 
-def _cut_zone(conn, zone: str, upto_ts: float, wall_ts: float) -> int:
+def _cut_zone(conn, zone: str, upto_ts: float, wall_ts: float, retention: partitions.Pass | None = None) -> int:
     """Delete a zone's readings at or before the cut-off, keeping its chain verifiable: for
     each surviving row whose row before it is deleted, that row's running hash (recomputed,
-    as most rows keep none) goes into the chained fold record with the pass itself."""
+    as most rows keep none) goes into the chained fold record with the pass itself. In a
+    retention pass on PostgreSQL the rows of months wholly before the cut-off are left for the
+    pass's end, which drops those months (store/partitions.py)."""
     series = walk.zone_series(conn, zone)
     in_zone = f"series IN ({marks(len(series))})"
     n = conn.execute(f"SELECT count(*) FROM reading_rows WHERE {in_zone} AND ts <= ?", (*series, upto_ts)).fetchone()[0]
@@ -335,7 +345,12 @@ def _cut_zone(conn, zone: str, upto_ts: float, wall_ts: float) -> int:
         hashes = walk.running(conn, zone, max(p for _, p in pairs), folds, meta.get("chained_from:readings", 0.0))
         links = [(row_id, hashes.get(prev_id)) for row_id, prev_id in pairs]
     chain.add_fold(conn, "readings", zone, links, n, upto_ts, wall_ts)
-    conn.execute(f"DELETE FROM reading_rows WHERE {in_zone} AND ts <= ?", (*series, upto_ts))
+    if retention is None:
+        conn.execute(f"DELETE FROM reading_rows WHERE {in_zone} AND ts <= ?", (*series, upto_ts))
+        return n
+    split_ts = partitions.split(upto_ts)
+    conn.execute(f"DELETE FROM reading_rows WHERE {in_zone} AND ts >= ? AND ts <= ?", (*series, split_ts, upto_ts))
+    retention.defer(series, split_ts)
     return n
 
 

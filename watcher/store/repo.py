@@ -75,11 +75,23 @@ def text(s: str) -> str:
     return s.encode("utf-8", "backslashreplace").decode("utf-8").replace("\x00", "\\x00")
 
 
+def is_pg(conn) -> bool:
+    """The record is on PostgreSQL (store/pg.py), not a SQLite file."""
+    return getattr(conn, "dialect", "sqlite") == "postgresql"
+
+
+def hold(conn, name: str) -> None:
+    """Lock name until the transaction ends, where several writers share the record
+    (PostgreSQL); SQLite has one writer a file, whose transaction already excludes the rest."""
+    if is_pg(conn):
+        conn.lock(name)
+
+
 def data_version(conn) -> int:
     """Changes when another connection has committed to the record since (SQLite's
     data_version). On PostgreSQL the cached chain heads and bin sums it guards belong to zones
     this connection has claimed (`claim_zone`): no other connection writes them."""
-    if getattr(conn, "dialect", "sqlite") == "postgresql":
+    if is_pg(conn):
         return 0
     return conn.execute("PRAGMA data_version").fetchone()[0]
 
@@ -88,7 +100,7 @@ def claim_zone(conn, zone: str) -> None:
     """One writer a zone: its readings' chain is extended from the head this connection keeps.
     SQLite has one writer a file; on PostgreSQL several central watchers share the record, so
     the first to write a zone holds it until it disconnects, and another is refused, by name."""
-    if getattr(conn, "dialect", "sqlite") == "postgresql" and not conn.claim(f"zone:{zone}"):
+    if is_pg(conn) and not conn.claim(f"zone:{zone}"):
         raise StoreError(
             f"zone {zone!r} is being written by another watcher on this record: each zone must be read by one "
             "central watcher only (split the sites between them, docs/fleet.md)"
@@ -97,7 +109,7 @@ def claim_zone(conn, zone: str) -> None:
 
 def file_path(conn) -> str | None:
     """The record's file (None: in memory, or on a server)."""
-    if getattr(conn, "dialect", "sqlite") == "postgresql":
+    if is_pg(conn):
         return None
     return conn.execute("PRAGMA database_list").fetchone()[2] or None
 
