@@ -7,6 +7,7 @@ through a read-only role by status, verify and the page."""
 from __future__ import annotations
 
 import html
+import json
 import subprocess
 import sys
 import time
@@ -288,3 +289,68 @@ def fleet_view(config: Path) -> None:
     for zone in ("kestrel-bulk-a", "kestrel-dispatch", "harbour-store-1"):
         (row,) = [line.split() for line in out.splitlines() if line.startswith(zone)]
         assert "90" in row, row  # its readings, all of them
+
+
+def shared_record_config(folder: Path, broker: Broker, site: str, zones, record: tuple[str, str]) -> Path:
+    """A central watcher's configuration for one site's share of the fleet, on the shared
+    PostgreSQL record."""
+    folder.mkdir()
+    path = write_config(folder, broker, zones=zones, site=site)
+    write_secret(folder / "pg-pw", record[1] + "\n")
+    text = path.read_text().replace(
+        "[storage]\n", f'[storage]\nurl = "{record[0]}"\npassword_file = "{folder / "pg-pw"}"\n', 1
+    )
+    path.write_text(text.replace(f'client_id = "watcher-test-{folder.name[-12:]}"', f'client_id = "central-{site}"'))
+    return path
+
+
+def test_two_central_watchers_share_one_postgresql_record(tmp_path, pg_record, broker):
+    """Two central watchers split the sites (each subscribes to its own sites' topics) and keep
+    one PostgreSQL record between them: every reading of both sites is there once, one of them
+    killed (SIGKILL) and restarted mid-stream loses nothing, the shared logs' chains stay whole
+    (`verify` from either passes), and a view of every site reads both watchers' zones."""
+    shares = {"kestrel": ("bulk-a", "dispatch"), "harbour": ("store-1",)}
+    configs = {
+        site: shared_record_config(tmp_path / site, broker, site, zones, pg_record) for site, zones in shares.items()
+    }
+    watchers = {site: WatcherProcess(config) for site, config in configs.items()}
+    publisher = Publisher(broker)
+    try:
+        for w in watchers.values():
+            w.wait_ready()
+        for site, zones in shares.items():
+            publisher.send(messages(zones, 0, 30, site=site))
+        wait_for(lambda: sum(counts(pg_record).values()) == 90, 60, "both sites' first half hour")
+        watchers["kestrel"].kill()
+        for site, zones in shares.items():
+            publisher.send(messages(zones, 30, 30, site=site))
+        wait_for(lambda: counts(pg_record).get("store-1") == 60, 60, "harbour's second half hour")
+        watchers["kestrel"] = WatcherProcess(configs["kestrel"])
+        watchers["kestrel"].wait_ready()
+        wait_for(lambda: sum(counts(pg_record).values()) == 180, 90, "kestrel's readings kept for it by the broker")
+        time.sleep(2)
+        assert counts(pg_record) == {"bulk-a": 60, "dispatch": 60, "store-1": 60}
+    finally:
+        publisher.close()
+        for site, w in watchers.items():
+            if w.proc.poll() is None:
+                assert w.stop() == 0, site
+    for config in configs.values():
+        done = verify(config)
+        assert done.returncode == 0 and "Record intact" in done.stdout, (done.stdout[-2000:], done.stderr[-2000:])
+    view = tmp_path / "view.toml"
+    kestrel = configs["kestrel"].read_text().replace('[[zones]]\nid = "', '[[zones]]\nsite = "kestrel"\nid = "')
+    harbour_zone = '\n[[zones]]\nid = "store-1"\nsite = "harbour"\nsetpoint_c = -25.0\n'
+    view.write_text(
+        kestrel.replace(
+            "[[sources]]", f'[[sites]]\nid = "harbour"\nname = "Harbour Row"\n{harbour_zone}\n[[sources]]', 1
+        )
+    )
+    done = subprocess.run(
+        [sys.executable, "-m", "watcher", "status", "--all-sites", "--json", "--config", str(view)],
+        capture_output=True,
+        text=True,
+    )
+    assert done.returncode == 0, done.stderr
+    zones = {z["id"]: z["readings_total"] for z in json.loads(done.stdout)["zones"]}
+    assert zones == {"bulk-a": 60, "dispatch": 60, "store-1": 60}

@@ -7,7 +7,9 @@ which. Dropping it would lose a correct reading whenever the service clock is th
 hour slow after a bad NTP step, a year ahead after a dead RTC battery), and it has already been
 acknowledged. So it is stored in `held` with its reason and tried again every minute with the
 clock of that moment: once the clocks agree it goes through the normal path (as a late reading
-if its zone has moved on); a reading that never fits becomes a rejection that says so.
+if its zone has moved on); a reading that never fits becomes a rejection that says so. On a
+record several central watchers share, a held message none of this watcher's subscriptions
+match is another watcher's to decide, until its hold has run out.
 """
 
 from __future__ import annotations
@@ -15,6 +17,7 @@ from __future__ import annotations
 import logging
 
 from watcher.engine.batch import BatchResult, Engine
+from watcher.engine.route import filter_matches, topic_filters
 from watcher.ingest.message import Message
 from watcher.ingest.payload import OutOfClock, Rejected
 
@@ -29,7 +32,11 @@ def readmit(engine: Engine, now_ts: float) -> BatchResult:
     admit: list[Message] = []
     done: list[int] = []
     expired: list[tuple] = []
+    filters = topic_filters(engine.config)
     for row_id, received_ts, topic, payload, reason in engine.store.held.oldest(READMIT_BATCH):
+        within = abs(now_ts - received_ts) < hold_s
+        if within and not any(filter_matches(f, topic) for f in filters):
+            continue  # another watcher's, on a record several share (docs/fleet.md): it decides
         msg = Message(topic, bytes(payload), now_ts)
         try:
             engine.parse(msg)
