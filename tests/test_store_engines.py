@@ -441,3 +441,54 @@ def test_a_weekly_summary_reads_the_same_from_both_engines(tmp_path, pg_record):
     assert set(out["sqlite"]) == set(out["postgresql"]) and len(out["sqlite"]) >= 3
     for file_name, content in out["sqlite"].items():
         assert content == out["postgresql"][file_name], file_name
+
+
+# --- the statement translation, without a server ------------------------------------------
+
+
+@pytest.mark.parametrize(
+    ("sqlite", "postgresql"),
+    [
+        ("SELECT a FROM t WHERE b = ? AND c = ?", "SELECT a FROM t WHERE b = %s AND c = %s"),
+        ("SELECT a FROM t WHERE z = :zone AND s >= :since", "SELECT a FROM t WHERE z = %(zone)s AND s >= %(since)s"),
+        ("SELECT '?', ':x', 'it''s ?' FROM t WHERE a = ?", "SELECT '?', ':x', 'it''s ?' FROM t WHERE a = %s"),
+        ("SELECT a FROM t WHERE b LIKE 'x%' AND c = ?", "SELECT a FROM t WHERE b LIKE 'x%%' AND c = %s"),
+        ("SELECT a % 2, b::text FROM t", "SELECT a %% 2, b::text FROM t"),
+        ("INSERT OR IGNORE INTO t (a) VALUES (?)", "INSERT INTO t (a) VALUES (%s) ON CONFLICT DO NOTHING"),
+        ("SELECT CAST(ts / ? AS INTEGER) AS k FROM t", "SELECT CAST(trunc(ts / %s) AS BIGINT) AS k FROM t"),
+        ("SELECT CAST(max(ts) / 60 AS INTEGER) FROM t", "SELECT CAST(trunc(max(ts) / 60) AS BIGINT) FROM t"),
+    ],
+)
+def test_statements_are_translated_outside_literals_only(sqlite, postgresql):
+    """Placeholders become psycopg's, a literal % is doubled, quoted text and casts are left as
+    they are, INSERT OR IGNORE and SQLite's truncating CAST get PostgreSQL's forms (derived:
+    the two engines' documented syntax)."""
+    from watcher.store.pg import statement
+
+    assert statement(sqlite) == postgresql
+
+
+def test_a_sqlite_site_never_imports_the_postgresql_driver(tmp_path):
+    """Opening, writing and reading a SQLite record leaves psycopg unimported (85 ms a command
+    saved on every site)."""
+    code = (
+        "import sys\nfrom watcher.store.db import Store\nimport watcher.cli, watcher.status, watcher.service\n"
+        f"s = Store({str(tmp_path / 'w.db')!r})\n"
+        "with s.atomic():\n    s.rejections.add(1.0, 't', 'r', b'p')\n"
+        "s.close()\nprint('psycopg' in sys.modules)\n"
+    )
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=60)
+    assert out.returncode == 0 and out.stdout.strip() == "False", out.stdout + out.stderr
+
+
+def test_percent_signs_and_question_marks_reach_postgresql_as_written(pg_record):
+    """A % in a literal or an operator, and a ? or :name inside quotes, mean on the server what
+    they mean in SQLite, with parameters and without."""
+    url, password = pg_record
+    store = Store(url, password=password)
+    try:
+        assert store.conn.execute("SELECT 'x%', 7 % 2, '?', ':a'").fetchone() == ("x%", 1, "?", ":a")
+        assert store.conn.execute("SELECT 'x%', 7 % 2, '?', ?", (5,)).fetchone() == ("x%", 1, "?", 5)
+        assert store.conn.execute("SELECT 'x%', :n", {"n": 2}).fetchone() == ("x%", 2)
+    finally:
+        store.close()

@@ -17,18 +17,17 @@ import sqlite3
 from contextlib import contextmanager
 from pathlib import Path
 
-import psycopg
 import sqlite_utils
 
 from watcher.errors import StoreError
-from watcher.store import chain, partitions, pg, pg_schema
+from watcher.store import chain, partitions
 from watcher.store.alerts import Alerts, Commands, Events
 from watcher.store.aliases import Aliases
 from watcher.store.lots import Lots
 from watcher.store.outbox import Outbox
 from watcher.store.readings import Held, Readings, Rejections
 from watcher.store.record import Record
-from watcher.store.repo import translate
+from watcher.store.repo import is_url, redact, translate
 from watcher.store.reports import Reports
 from watcher.store.schema import migrations
 from watcher.store.zones import Daily, Gaps, Snapshots, Zones
@@ -69,7 +68,7 @@ def pending_migrations(path: str) -> list[str]:
     """The schema steps a writer would apply to this file now (none for a new file): a long
     one (m016 on a big record takes minutes) lets the service tell systemd to wait. A
     PostgreSQL record has none (it is made in its final shape)."""
-    if pg.is_url(path) or not Path(path).is_file():
+    if is_url(path) or not Path(path).is_file():
         return []
     try:
         conn = _connect(path, readonly=True)
@@ -91,7 +90,7 @@ class Store:
 
     def __init__(self, path: str, readonly: bool = False, password: str | None = None):
         self.path = path
-        if pg.is_url(path):
+        if is_url(path):
             self._open_pg(path, readonly, password)
         else:
             self._open_sqlite(path, readonly)
@@ -115,22 +114,26 @@ class Store:
     @property
     def where(self) -> str:
         """The record's name fit for a message (a URL's password, should one be there, hidden)."""
-        return pg.redact(self.path)
+        return redact(self.path)
 
     def _open_pg(self, url: str, readonly: bool, password: str | None) -> None:
+        import psycopg  # only a PostgreSQL record pays for the driver
+
+        from watcher.store import pg, pg_schema
+
         self.db = None
         try:
             self.conn = pg.PgConnection(url, password, readonly)
         except psycopg.Error as exc:
-            raise StoreError(f"{pg.redact(url)}: cannot open the database ({str(exc).strip()})") from exc
+            raise StoreError(f"{redact(url)}: cannot open the database ({str(exc).strip()})") from exc
         try:
             if readonly:
-                pg_schema.check(self.conn, pg.redact(url))
+                pg_schema.check(self.conn, redact(url))
             else:
-                pg_schema.apply(self.conn, pg.redact(url))
+                pg_schema.apply(self.conn, redact(url))
         except psycopg.Error as exc:
             self.conn.close()
-            raise StoreError(f"{pg.redact(url)}: cannot open the database ({str(exc).strip()})") from exc
+            raise StoreError(f"{redact(url)}: cannot open the database ({str(exc).strip()})") from exc
         except StoreError:
             self.conn.close()
             raise

@@ -33,11 +33,9 @@ def _token(m: re.Match) -> str:
     t = m.group()
     if t == "?":
         return "%s"
-    if t == "%":
-        return "%%"
     if t.startswith(":") and t != "::":
         return f"%({t[1:]})s"
-    return t  # a literal, a quoted name, a cast
+    return t.replace("%", "%%")  # psycopg reads % everywhere, in literals too
 
 
 @functools.lru_cache(maxsize=2048)
@@ -149,7 +147,7 @@ class PgConnection:
         if self.readonly and sql.strip().upper() == "BEGIN":
             sql = "BEGIN ISOLATION LEVEL REPEATABLE READ"
         cur = self.raw.cursor()
-        cur.execute(statement(sql), params or None, prepare=None)
+        cur.execute(statement(sql), params if params is not None else ())  # () too: %% is read as %
         self.serial += 1
         if cur.rowcount > 0 and cur.description is None:
             self.total_changes += cur.rowcount
@@ -179,13 +177,3 @@ class PgConnection:
 def _key(name: str) -> int:
     """A stable 63-bit advisory lock key for a name."""
     return (zlib.crc32(name.encode()) << 31) ^ zlib.adler32(name.encode())
-
-
-def is_url(location: str) -> bool:
-    """A PostgreSQL URL (the record is on a server), not a file path."""
-    return location.startswith(("postgresql://", "postgres://"))
-
-
-def redact(url: str) -> str:
-    """A URL fit for a message: any password in it replaced (there should be none)."""
-    return re.sub(r"(://[^:/@]+):[^@/]*@", r"\1:***@", url)

@@ -11,14 +11,23 @@ from __future__ import annotations
 
 import functools
 import inspect
+import re
 import sqlite3
-
-import psycopg
+import sys
 
 from watcher.errors import RecordRefused, StoreError, WatcherError
 
-#: The errors the two engines' drivers raise.
-DB_ERRORS = (sqlite3.Error, psycopg.Error)
+
+def _psycopg():
+    """The PostgreSQL driver if a record on PostgreSQL has been opened (none of its errors can
+    arise otherwise; a SQLite site never pays for importing it)."""
+    return sys.modules.get("psycopg")
+
+
+def is_db_error(exc: BaseException) -> bool:
+    """An error raised by either engine's driver."""
+    pg = _psycopg()
+    return isinstance(exc, sqlite3.Error) or (pg is not None and isinstance(exc, pg.Error))
 
 
 def is_storage_fault(exc: BaseException) -> bool:
@@ -31,9 +40,13 @@ def is_storage_fault(exc: BaseException) -> bool:
         return True
     if isinstance(exc, (sqlite3.OperationalError, OSError)):
         return True
-    if isinstance(exc, (psycopg.OperationalError, psycopg.InterfaceError, psycopg.InternalError)):
-        return True
-    return type(exc) in (sqlite3.DatabaseError, sqlite3.InternalError, psycopg.DatabaseError)
+    pg = _psycopg()
+    if pg is not None:
+        if isinstance(exc, (pg.OperationalError, pg.InterfaceError, pg.InternalError)):
+            return True
+        if type(exc) is pg.DatabaseError:
+            return True
+    return type(exc) in (sqlite3.DatabaseError, sqlite3.InternalError)
 
 
 def translate(exc: Exception, where: str) -> WatcherError | None:
@@ -42,7 +55,7 @@ def translate(exc: Exception, where: str) -> WatcherError | None:
         return exc
     if is_storage_fault(exc):
         return StoreError(f"{where}: {type(exc).__name__}: {exc}")
-    if isinstance(exc, DB_ERRORS):
+    if is_db_error(exc):
         return RecordRefused(f"{where}: {type(exc).__name__}: {exc}")
     return None
 
@@ -52,7 +65,9 @@ def _translated(method):
     def call(self, *args, **kwargs):
         try:
             return method(self, *args, **kwargs)
-        except (*DB_ERRORS, OSError) as exc:
+        except Exception as exc:
+            if not (isinstance(exc, OSError) or is_db_error(exc)):
+                raise
             raise translate(exc, f"{type(self).__name__.lower()}.{method.__name__}") from exc
 
     return call
@@ -73,6 +88,16 @@ def text(s: str) -> str:
     """Text both engines store as UTF-8: lone surrogates become backslash escapes, and so does
     NUL (PostgreSQL's text cannot hold it)."""
     return s.encode("utf-8", "backslashreplace").decode("utf-8").replace("\x00", "\\x00")
+
+
+def is_url(location: str) -> bool:
+    """A PostgreSQL URL (the record is on a server), not a file path."""
+    return location.startswith(("postgresql://", "postgres://"))
+
+
+def redact(location: str) -> str:
+    """A record's location fit for a message: any password in a URL replaced (there should be none)."""
+    return re.sub(r"(://[^:/@]+):[^@/]*@", r"\1:***@", location)
 
 
 def is_pg(conn) -> bool:
