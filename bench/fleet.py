@@ -14,7 +14,8 @@ checked to grow linearly). The MQTT edge runs in its own process on the other co
 With --engines sqlite,postgresql each S runs on both engines in the same run, the central
 record on a SQLite file and on a PostgreSQL server this script starts on loopback in a
 temporary folder (tests/pgserver.py: synchronous commit, fsync on, the same disk), and the
-ratio of their ingest rates is printed. The watcher's own work (the model, the chain's
+ratio of their ingest rates is printed. Then a full `verify` of each record is timed (rows
+checked a second; on SQLite the walk splits over worker processes once a record is big). The watcher's own work (the model, the chain's
 hashing) runs in this process in both cases; PostgreSQL's runs in its server's processes.
 
 Usage: python bench/fleet.py [--sites 1,10,40] [--sensors 200] [--minutes 30] [--engines sqlite,postgresql]
@@ -71,9 +72,9 @@ signal = "air_c"
     return path
 
 
-def minute_cost(sites: int, sensors: int, minutes: int, pg=None) -> tuple[float, float]:
-    """(readings a second, seconds of work a minute of data) for S sites on an empty record (on
-    the PostgreSQL server pg, when given)."""
+def minute_cost(sites: int, sensors: int, minutes: int, pg=None) -> tuple[float, float, float]:
+    """(readings a second, seconds of work a minute of data, rows a second a full verify then
+    checks) for S sites on an empty record (on the PostgreSQL server pg, when given)."""
     folder = Path(tempfile.mkdtemp(prefix="watcher-fleet-"))
     cfg = load_config(str(central_config(folder, sites, sensors)))
     if pg is None:
@@ -95,7 +96,11 @@ def minute_cost(sites: int, sensors: int, minutes: int, pg=None) -> tuple[float,
             engine.process(batch, now=ts)
             if m >= WARM_MINUTES:
                 taken += time.perf_counter() - t
-        return minutes * len(names) / taken, taken / minutes
+        t = time.perf_counter()
+        findings, counts = store.record.verify()
+        verify_rate = sum(counts.values()) / (time.perf_counter() - t)
+        assert not findings, findings
+        return minutes * len(names) / taken, taken / minutes, verify_rate
     finally:
         store.close()
 
@@ -124,17 +129,18 @@ def main() -> None:
 def run(a, engines: list[str], pg) -> None:
     print(f"central watcher, {a.sensors} sensors a site at one reading a minute; {a.minutes} minutes timed")
     print(
-        f"{'engine':<10} {'sites':>5} {'zones':>6} {'readings/s':>10} {'s per data minute':>18} {'one core':>9} {'per site':>9}"
+        f"{'engine':<10} {'sites':>5} {'zones':>6} {'readings/s':>10} {'s per data minute':>18} {'one core':>9} "
+        f"{'per site':>9} {'verify rows/s':>14}"
     )
     per_site: dict[str, float] = {}
     for sites in [int(s) for s in a.sites.split(",")]:
         rates = {}
         for engine in engines:
-            rate, cost = minute_cost(sites, a.sensors, a.minutes, pg if engine == "postgresql" else None)
+            rate, cost, verify_rate = minute_cost(sites, a.sensors, a.minutes, pg if engine == "postgresql" else None)
             rates[engine], per_site[engine] = rate, cost / sites
             print(
                 f"{engine:<10} {sites:5d} {sites * a.sensors // PER_ZONE:6d} {rate:10,.0f} {cost:18.2f} "
-                f"{cost / 60:9.1%} {per_site[engine] * 1000:7.1f} ms",
+                f"{cost / 60:9.1%} {per_site[engine] * 1000:7.1f} ms {verify_rate:14,.0f}",
                 flush=True,
             )
         if len(rates) == 2:

@@ -492,3 +492,36 @@ def test_percent_signs_and_question_marks_reach_postgresql_as_written(pg_record)
         assert store.conn.execute("SELECT 'x%', :n", {"n": 2}).fetchone() == ("x%", 2)
     finally:
         store.close()
+
+
+def test_replay_status_and_alerts_commands_on_postgresql(tmp_path, pg_record):
+    """`watcher replay` writes a recorded file into a PostgreSQL record (a second replay finds
+    only duplicates), and `status`, `alerts` and `verify` read it, from the configuration."""
+    from click.testing import CliRunner
+
+    from tests.test_replay import T0 as R0
+    from tests.test_replay import write_config
+    from watcher.cli import main
+
+    url, password = pg_record
+    cfg = write_config(tmp_path)
+    (tmp_path / "pg-pw").write_text(password + "\n")
+    (tmp_path / "pg-pw").chmod(0o600)
+    cfg.write_text(
+        cfg.read_text().replace("[storage]\n", f'[storage]\nurl = "{url}"\npassword_file = "{tmp_path / "pg-pw"}"\n')
+    )
+    rows = ["time,zone,signal,value,sensor"]
+    rows += [f"{R0 + 60 * k},bulk-a,air_c,{-25.0 + (5.0 if k % 360 < 30 else 0.0)},s1" for k in range(2 * 1440)]
+    (tmp_path / "r.csv").write_text("\n".join(rows) + "\n")
+    first = CliRunner().invoke(main, ["replay", "--config", str(cfg), str(tmp_path / "r.csv")])
+    assert first.exit_code == 0 and "accepted: 2880" in first.output, first.output
+    assert url in first.output  # where it went
+    again = CliRunner().invoke(main, ["replay", "--config", str(cfg), str(tmp_path / "r.csv")])
+    assert "duplicate: 2880" in again.output, again.output
+    status = json.loads(CliRunner().invoke(main, ["status", "--config", str(cfg), "--json"]).output)
+    assert status["zones"][0]["readings_total"] == 2880 and status["zones"][0]["budget_used_pct"] > 0
+    listed = CliRunner().invoke(main, ["alerts", "--config", str(cfg), "--json"])
+    assert listed.exit_code == 0, listed.output
+    checked = CliRunner().invoke(main, ["verify", "--config", str(cfg)])
+    assert checked.exit_code == 0 and "Record intact" in checked.output, checked.output
+    assert not (tmp_path / "w.db").exists()  # nothing went to the file
