@@ -208,3 +208,22 @@ def test_an_upgrade_moves_the_older_credential_layout_and_its_names_still_resolv
     (handed / "notify_notify-qa-mail").write_text("mailtos://old\n")
     assert credential_path(handed, "notify-qa-mail").read_text() == "mailtos://old\n"
     assert credential_path(handed, "missing") == handed / "missing"  # and a missing one is named as written
+
+
+def test_the_central_drop_in_loads_the_credentials_the_central_config_names(tmp_path):
+    """deploy/fleet/central.conf beside the unit passes `systemd-analyze verify`, and every
+    credential the shipped central configuration names is one the unit and drop-in load."""
+    unit = unit_here(tmp_path)
+    drop_in = tmp_path / "watcher.service.d"
+    drop_in.mkdir()
+    shutil.copy(ROOT / "deploy" / "fleet" / "central.conf", drop_in / "central.conf")
+    out = subprocess.run([analyze(), "verify", str(unit)], capture_output=True, text=True, timeout=60)
+    assert out.returncode == 0 and "central.conf" not in out.stderr, out.stderr  # read, and no line ignored
+    loaded = set(
+        re.findall(r"^LoadCredential=([^:]+):", UNIT.read_text() + (drop_in / "central.conf").read_text(), re.M)
+    )
+    named = set(
+        re.findall(r'_credential = "([^"]+)"', (ROOT / "deploy" / "fleet" / "central-watcher.toml").read_text())
+    )
+    named = {"notify" if n == "qa-team" else n for n in named}  # notify URLs come as the notify/ folder
+    assert named and named <= loaded, named - loaded
