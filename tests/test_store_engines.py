@@ -315,9 +315,10 @@ def test_a_record_of_another_version_or_none_is_refused_by_name(pg_server, pg_re
 
 
 def test_the_writer_carries_on_when_the_server_restarts(tmp_path):
-    """The server restarts under the writer (an upgrade, a failover): the batch in flight fails
-    as a storage fault (the service keeps it and retries, unacknowledged), the next attempt
-    opens a new session, and the record holds every reading once with its chain intact."""
+    """The server restarts under the writer (an upgrade, a failover): the read or the batch in
+    flight fails as a storage fault (the service keeps the batch and retries, unacknowledged),
+    the next attempt opens a new session, and the record holds every reading once with its
+    chain intact."""
     from tests.pgserver import PostgresServer
 
     server = PostgresServer()
@@ -329,7 +330,11 @@ def test_the_writer_carries_on_when_the_server_restarts(tmp_path):
         store = Store(server.url, password=server.password)
         engine = Engine(cfg, store, checkpoint_s=0.0)
         engine.process([msg("bulk-a", k) for k in range(60)], now=NOW)
-        server.restart()
+        server.restart()  # between batches: the next read notices, the one after has a new session
+        with pytest.raises(StoreError):
+            store.readings.summary("bulk-a")
+        assert store.readings.summary("bulk-a")[0] == 60
+        server.restart()  # under the next batch
         batch = [msg("bulk-a", k) for k in range(60, 120)]
         with pytest.raises(StoreError):
             engine.process(batch, now=NOW)

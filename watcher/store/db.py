@@ -96,6 +96,8 @@ class Store:
             self._open_sqlite(path, readonly)
         conn = self.conn
         self.readings, self.rejections, self.held = Readings(conn), Rejections(conn), Held(conn)
+        if self.db is None:  # a new session after the server dropped one: cached heads name nothing held
+            conn.on_reopen.append(self.readings.forget_heads)
         self.zones, self.gaps, self.snapshots, self.daily = Zones(conn), Gaps(conn), Snapshots(conn), Daily(conn)
         self.events, self.alerts, self.commands = Events(conn), Alerts(conn), Commands(conn)
         self.outbox, self.lots, self.reports, self.record = Outbox(conn), Lots(conn), Reports(conn), Record(conn)
@@ -191,10 +193,7 @@ class Store:
                 with self.db.atomic():
                     yield
             else:
-                if self.conn.broken:  # the server restarted or the link dropped: a new session
-                    self.readings.forget_heads()
-                    self.conn.reopen()
-                with self.conn.raw.transaction():
+                with self.conn.transaction():
                     yield
         except Exception as exc:
             self.readings.forget_heads()  # rolled back: cached chain heads may name lost rows

@@ -9,9 +9,12 @@ read snapshot, as a SQLite read transaction is). Everything else the repositorie
 standard SQL both engines take; tests/test_store_engines.py runs the repositories on both.
 
 The connection commits each statement unless a transaction is open (`Store.atomic` opens one
-with BEGIN, nested ones are savepoints), and synchronous_commit is on for the writer: a batch
-is on the server's disk before its MQTT acknowledgement goes out. A reader's session is
-read-only (default_transaction_read_only) whatever its role may do.
+through `transaction()`, nested ones are savepoints), and synchronous_commit is on for the
+writer: a batch is on the server's disk before its MQTT acknowledgement goes out. A reader's
+session is read-only (default_transaction_read_only) whatever its role may do. A session the
+server dropped (a restart, a failover, the network) is opened again at the next statement
+outside a transaction, or the next transaction: never in the middle of one, whose statements
+would otherwise commit one by one.
 """
 
 from __future__ import annotations
@@ -19,7 +22,9 @@ from __future__ import annotations
 import functools
 import re
 import zlib
+from contextlib import contextmanager
 
+import numpy as np
 import psycopg
 from psycopg.adapt import Dumper, Loader
 from psycopg.pq import TransactionStatus
@@ -112,6 +117,8 @@ class PgConnection:
         self._password = password
         self.serial = 0
         self.total_changes = 0
+        self.depth = 0  # transactions open through transaction()
+        self.on_reopen: list = []  # called after a new session replaced a dropped one
         self.raw = self._open()
 
     def _open(self) -> psycopg.Connection:
@@ -119,13 +126,8 @@ class PgConnection:
         kwargs = {"password": self._password} if self._password else {}
         raw = psycopg.connect(self.url, autocommit=True, application_name="watcher", options=options, **kwargs)
         raw.adapters.register_dumper(bool, _IntFromBool)
+        raw.adapters.register_dumper(np.bool_, _IntFromBool)
         raw.adapters.register_loader("numeric", _NumericAsNumber)
-        try:
-            import numpy as np
-
-            raw.adapters.register_dumper(np.bool_, _IntFromBool)
-        except ImportError:  # pragma: no cover - numpy is a core dependency
-            pass
         return raw
 
     @property
@@ -134,16 +136,36 @@ class PgConnection:
         return self.raw.closed or self.raw.broken
 
     def reopen(self) -> None:
+        """A new session for a dropped one; what was kept about the old one (chain heads, zones
+        held, partitions seen) is forgotten through on_reopen."""
         try:
             self.raw.close()
         finally:
             self.raw = self._open()
+        for forget in self.on_reopen:
+            forget()
+
+    def _alive(self) -> None:
+        if self.depth == 0 and self.broken:
+            self.reopen()
+
+    @contextmanager
+    def transaction(self):
+        """One transaction (a savepoint inside another)."""
+        self._alive()
+        self.depth += 1
+        try:
+            with self.raw.transaction():
+                yield
+        finally:
+            self.depth -= 1
 
     @property
     def in_transaction(self) -> bool:
         return self.raw.info.transaction_status != TransactionStatus.IDLE
 
     def execute(self, sql: str, params=()) -> Cursor:
+        self._alive()
         if self.readonly and sql.strip().upper() == "BEGIN":
             sql = "BEGIN ISOLATION LEVEL REPEATABLE READ"
         cur = self.raw.cursor()
@@ -154,6 +176,7 @@ class PgConnection:
         return Cursor(self, cur, self.serial)
 
     def executemany(self, sql: str, rows) -> Cursor:
+        self._alive()
         cur = self.raw.cursor()
         cur.executemany(statement(sql), list(rows))
         self.serial += 1
