@@ -10,7 +10,6 @@ import sqlite3
 import psycopg
 import pytest
 
-from tests.pgserver import PostgresServer
 from watcher.store.hashing import ReadingHasher, chain_hash
 
 #: Awkward floats a reading can carry: signed zero, the smallest and largest doubles, a sum
@@ -20,13 +19,9 @@ TIMES = [1795000000.123456, 1795000000.000001, 1795000060.0, 1.7950000001e9]
 
 
 @pytest.fixture(scope="module")
-def pg():
-    server = PostgresServer()
-    try:
-        server.start()
-        yield server
-    finally:
-        server.stop()
+def pg(pg_server):
+    """The session's server, through a database of this module's own."""
+    return pg_server.new_database("chain_round_trips"), pg_server.password
 
 
 def rows():
@@ -50,7 +45,7 @@ def test_a_reading_hashes_the_same_read_back_from_postgresql_and_sqlite(pg):
         "CREATE TABLE r (id {id}, zone TEXT NOT NULL, sensor TEXT NOT NULL, signal TEXT NOT NULL, "
         "ts {real} NOT NULL, value {real} NOT NULL, received_ts {real} NOT NULL, topic TEXT NOT NULL, late INTEGER NOT NULL)"
     )
-    with psycopg.connect(pg.url, password=pg.password_file.read_text().strip()) as conn:
+    with psycopg.connect(pg[0], password=pg[1]) as conn:
         conn.execute(create.format(id="BIGINT GENERATED ALWAYS AS IDENTITY PRIMARY KEY", real="DOUBLE PRECISION"))
         with conn.cursor() as cur:
             cur.executemany(
@@ -84,7 +79,7 @@ def test_a_log_detail_reads_back_as_written_from_text_not_from_jsonb(pg):
     jsonb gives back its own form (keys reordered, spaces changed), which would break every
     log's chain: the PostgreSQL schema keeps details as text and merges them in Python."""
     detail = json.dumps({"source": "inferred", "cost": "final", "excess_um": 0.0123, "b": [1, 2]})
-    with psycopg.connect(pg.url, password=pg.password_file.read_text().strip()) as conn:
+    with psycopg.connect(pg[0], password=pg[1]) as conn:
         as_text = conn.execute("SELECT %s::text", (detail,)).fetchone()[0]
         as_jsonb = conn.execute("SELECT (%s::jsonb)::text", (detail,)).fetchone()[0]
     assert chain_hash(None, 1, "set", as_text) == chain_hash(None, 1, "set", detail)

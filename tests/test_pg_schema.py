@@ -8,7 +8,6 @@ from __future__ import annotations
 import psycopg
 import pytest
 
-from tests.pgserver import PostgresServer
 from watcher.store import partitions, pg_schema
 from watcher.store.db import Store
 from watcher.store.schema import migrations
@@ -17,21 +16,19 @@ TYPES = {"INTEGER": "bigint", "REAL": "double precision", "TEXT": "text", "BLOB"
 
 
 @pytest.fixture(scope="module")
-def pg():
-    server = PostgresServer()
-    try:
-        server.start()
-        with psycopg.connect(server.url, password=server.password_file.read_text().strip()) as conn:
-            with conn.transaction():
-                for sql in pg_schema.statements():
-                    conn.execute(sql)
-        yield server
-    finally:
-        server.stop()
+def pg(pg_server):
+    """(url, password) of a database of this module's own on the session's server, holding
+    the PostgreSQL shape as pg_schema makes it."""
+    url = pg_server.new_database("schema_parity")
+    with psycopg.connect(url, password=pg_server.password) as conn:
+        with conn.transaction():
+            for sql in pg_schema.statements():
+                conn.execute(sql)
+    return url, pg_server.password
 
 
 def connect(pg):
-    return psycopg.connect(pg.url, password=pg.password_file.read_text().strip())
+    return psycopg.connect(pg[0], password=pg[1])
 
 
 @pytest.fixture(scope="module")

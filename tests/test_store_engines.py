@@ -16,6 +16,7 @@ import pytest
 
 from tests.test_engine import NOW, T0, make, msg
 from tests.test_integrity import an_alert
+from tests.test_service import status_json
 from watcher.engine.batch import Engine, Message
 from watcher.engine.lots import record_event
 from watcher.errors import RecordRefused, StoreError
@@ -282,19 +283,12 @@ def test_a_reader_role_reads_and_cannot_write(pg_server, pg_record, tmp_path):
         '[[sites]]\nid = "kp"\n[[zones]]\nid = "bulk-a"\nsetpoint_c = -25.0\n[[zones]]\nid = "dispatch"\n'
         'setpoint_c = -22.0\n[[sources]]\npattern = "kp/{zone}/{sensor}/air"\nsignal = "air_c"\nvalue = "t"\n'
     )
-    out = subprocess.run(
-        [sys.executable, "-m", "watcher", "status", "--config", str(cfg), "--json"],
-        capture_output=True,
-        text=True,
-        timeout=60,
-    )
-    assert out.returncode == 0, out.stderr
-    doc = json.loads(out.stdout)
+    doc = status_json(cfg)
     assert doc["database"] == reader_url and {z["id"]: z["readings_total"] for z in doc["zones"]} == {
         "bulk-a": 601,
         "dispatch": 600,
     }
-    assert password not in out.stdout + out.stderr
+    assert password not in json.dumps(doc)
 
 
 def test_a_record_of_another_version_or_none_is_refused_by_name(pg_server, pg_record):
