@@ -524,3 +524,27 @@ def test_replay_status_and_alerts_commands_on_postgresql(tmp_path, pg_record):
     checked = CliRunner().invoke(main, ["verify", "--config", str(cfg)])
     assert checked.exit_code == 0 and "Record intact" in checked.output, checked.output
     assert not (tmp_path / "w.db").exists()  # nothing went to the file
+
+
+def test_big_reads_come_through_a_server_side_cursor_a_batch_at_a_time(pg_record, tmp_path, monkeypatch):
+    """verify's walks and a zone's readings stream from PostgreSQL a batch at a time (a client
+    cursor would hold a year of readings in memory): with batches of seven rows the answers
+    are the same, and a server-side cursor was used."""
+    from watcher.store import pg
+
+    url, password = pg_record
+    store = Store(url, password=password)
+    fill(tmp_path, store, retention=False)
+    whole = (chain.verify(store.conn), list(store.readings.of_zone("bulk-a")))
+    opened = []
+    real = pg.PgConnection.stream
+
+    def counted(self, sql, params=()):
+        opened.append(sql)
+        return real(self, sql, params)
+
+    monkeypatch.setattr(pg, "STREAM_ROWS", 7)
+    monkeypatch.setattr(pg.PgConnection, "stream", counted)
+    assert (chain.verify(store.conn), list(store.readings.of_zone("bulk-a"))) == whole
+    assert len(whole[1]) == 601 and any("FROM reading_rows WHERE id >=" in s for s in opened)
+    store.close()

@@ -30,7 +30,7 @@ import time
 
 from watcher.store import marks, walk
 from watcher.store.hashing import READING_FIELDS, Finding, chain_hash, register
-from watcher.store.repo import hold, is_pg
+from watcher.store.repo import hold, is_pg, stream
 
 __all__ = ["READING_FIELDS", "Finding", "chain_hash", "register"]
 
@@ -132,7 +132,7 @@ def _walk_log(conn, name: str, fields: tuple[str, ...], first: int, folds: dict,
     prev = prev[0] if prev else None
     n = 0
     sql = f"SELECT id, chain, {', '.join(fields)} FROM {name} WHERE id >= ? ORDER BY id"
-    for row_id, stored, *values in conn.execute(sql, (first,)):
+    for row_id, stored, *values in stream(conn, sql, (first,)):
         n += 1
         if stored is None:
             if row_id < hashed_from:  # written before this chain was hashed (an older database)

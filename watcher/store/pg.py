@@ -19,6 +19,7 @@ would otherwise commit one by one.
 
 from __future__ import annotations
 
+import contextlib
 import functools
 import re
 import zlib
@@ -29,6 +30,7 @@ import psycopg
 from psycopg.adapt import Dumper, Loader
 from psycopg.pq import TransactionStatus
 
+STREAM_ROWS = 20_000  # rows a round trip when streaming
 _TOKENS = re.compile(r"'(?:[^']|'')*'|\"(?:[^\"]|\"\")*\"|\$\$.*?\$\$|::|\?|:[A-Za-z_]\w*|%", re.S)
 _CAST_INT = re.compile(r"CAST\(((?:[^()]|\([^()]*\))*?) AS INTEGER\)", re.I)
 _OR_IGNORE = re.compile(r"^\s*INSERT\s+OR\s+IGNORE\s+INTO\b", re.I)
@@ -183,6 +185,21 @@ class PgConnection:
         if cur.rowcount > 0:
             self.total_changes += cur.rowcount
         return Cursor(self, cur, self.serial)
+
+    def stream(self, sql: str, params=()):
+        """The rows of a big query, a batch at a time through a server-side cursor (a client
+        cursor holds the whole answer in memory: a verify of a year's readings would not fit).
+        Inside the caller's transaction if one is open, else in one of its own."""
+        self._alive()
+        self.serial += 1
+        name = f"watcher_stream_{self.serial}"
+        with contextlib.ExitStack() as stack:
+            if not self.in_transaction:
+                stack.enter_context(self.transaction())
+            cur = stack.enter_context(self.raw.cursor(name=name))
+            cur.itersize = STREAM_ROWS
+            cur.execute(statement(sql), params if params is not None else ())
+            yield from cur
 
     def lock(self, name: str) -> None:
         """Hold a lock called name until the transaction ends (appends to a shared chain)."""

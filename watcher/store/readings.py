@@ -11,7 +11,7 @@ import numpy as np
 from watcher.store import chain, partitions, walk
 from watcher.store.bincache import BinArrays, BinWindow, as_arrays
 from watcher.store.hashing import ReadingHasher
-from watcher.store.repo import Repo, claim_zone, data_version, is_pg, marks, text
+from watcher.store.repo import Repo, claim_zone, data_version, is_pg, marks, stream, text
 from watcher.store.schema import KEEP_EVERY
 
 ROW_INSERT = "INSERT OR IGNORE INTO reading_rows (series, ts, value, received_ts, topic, late, chain) VALUES (?, ?, ?, ?, ?, ?, ?)"
@@ -183,7 +183,7 @@ class Readings(Repo):
         if upto_ts is not None:
             sql += " AND ts <= ?"
             args.append(upto_ts)
-        yield from self.conn.execute(sql + " ORDER BY ts, sensor, signal", args)
+        yield from stream(self.conn, sql + " ORDER BY ts, sensor, signal", args)
 
     def signals(self, zone: str, signals: tuple[str, ...], after_ts: float, upto_ts: float) -> list[tuple]:
         """(sensor, signal, ts, value) of the given signals in (after_ts, upto_ts], in time order."""

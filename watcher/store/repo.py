@@ -1,9 +1,9 @@
 """The base of every repository: one kind of record's SQL, on the store's connection.
 
 A repository never opens, commits or rolls back: `Store.atomic` owns the transaction, so any
-mix of repository calls inside it commits together or not at all. Every public method
-translates sqlite3's errors into the error tree as they leave it (`translate`), so no caller
-ever sees a library error: a storage fault is `StoreError` (the writer retries it), the
+mix of repository calls inside it commits together or not at all. Every public method (a
+generator as its rows come) translates the drivers' errors into the error tree as they leave it
+(`translate`), so no caller ever sees a library error: a storage fault is `StoreError` (the writer retries it), the
 database refusing the data is `RecordRefused` (the writer sets the message aside).
 """
 
@@ -60,15 +60,36 @@ def translate(exc: Exception, where: str) -> WatcherError | None:
     return None
 
 
+def _mine(exc: Exception, self, method) -> Exception:
+    if not (isinstance(exc, OSError) or is_db_error(exc)):
+        return exc
+    return translate(exc, f"{type(self).__name__.lower()}.{method.__name__}")
+
+
 def _translated(method):
+    if inspect.isgeneratorfunction(method):  # the rows come while the caller iterates
+
+        @functools.wraps(method)
+        def rows(self, *args, **kwargs):
+            try:
+                yield from method(self, *args, **kwargs)
+            except Exception as exc:
+                mine = _mine(exc, self, method)
+                if mine is exc:
+                    raise
+                raise mine from exc
+
+        return rows
+
     @functools.wraps(method)
     def call(self, *args, **kwargs):
         try:
             return method(self, *args, **kwargs)
         except Exception as exc:
-            if not (isinstance(exc, OSError) or is_db_error(exc)):
+            mine = _mine(exc, self, method)
+            if mine is exc:
                 raise
-            raise translate(exc, f"{type(self).__name__.lower()}.{method.__name__}") from exc
+            raise mine from exc
 
     return call
 
@@ -80,7 +101,7 @@ class Repo:
     def __init_subclass__(cls, **kwargs):
         super().__init_subclass__(**kwargs)
         for name, member in list(vars(cls).items()):
-            if inspect.isfunction(member) and not name.startswith("_") and not inspect.isgeneratorfunction(member):
+            if inspect.isfunction(member) and not name.startswith("_"):
                 setattr(cls, name, _translated(member))
 
 
@@ -103,6 +124,14 @@ def redact(location: str) -> str:
 def is_pg(conn) -> bool:
     """The record is on PostgreSQL (store/pg.py), not a SQLite file."""
     return getattr(conn, "dialect", "sqlite") == "postgresql"
+
+
+def stream(conn, sql: str, params=()):
+    """Iterate over a big query's rows without holding them all: SQLite's cursor steps through
+    them already; PostgreSQL's answer comes through a server-side cursor (store/pg.py)."""
+    if is_pg(conn):
+        return conn.stream(sql, params)
+    return conn.execute(sql, params)
 
 
 def hold(conn, name: str) -> None:

@@ -5,11 +5,10 @@
 from __future__ import annotations
 
 import json
-import sqlite3
 
 from watcher.store.bincache import BinArrays, as_arrays
 from watcher.store.readings import ALL_BINS, BINS
-from watcher.store.repo import Repo, marks, translate
+from watcher.store.repo import Repo, marks
 from watcher.store.subjects import LOT_PREFIX, SERVICE_KEY
 
 Table = tuple[list[str], list[tuple]]
@@ -83,10 +82,7 @@ class Reports(Repo):
         """Per sensor and signal of the zones in [start_ts, end_ts): (zone, sensor, signal, the
         reading times in order, how many were late), one sensor at a time, so memory holds one
         sensor's week, never the site's."""
-        try:
-            yield from self._sensor_weeks(zone_ids, start_ts, end_ts)
-        except (sqlite3.Error, OSError) as exc:  # a generator is not wrapped by Repo: translate here
-            raise translate(exc, "reports.sensor_weeks") from exc
+        yield from self._sensor_weeks(zone_ids, start_ts, end_ts)
 
     def _sensor_weeks(self, zone_ids: tuple[str, ...], start_ts: float, end_ts: float):
         for zone in zone_ids:

@@ -24,7 +24,7 @@ from hashlib import sha256
 from pathlib import Path
 
 from watcher.store.hashing import READING_FIELDS, Finding, ReadingHasher
-from watcher.store.repo import file_path
+from watcher.store.repo import file_path, stream
 
 #: Rows above which the walk runs in worker processes, one per core; below it, starting
 #: workers costs more than it saves.
@@ -98,7 +98,8 @@ def walk_range(conn, lo: int, hi: int, starts: dict, folds: dict, hashed_from: f
     hasher = ReadingHasher()
     zones = {z: _Zone(s[0], s[1], folds.get(f"readings/{z}", {})) for z, s in starts.items()}
     first = min([z.begin + 1 for z in zones.values()] + [lo])
-    cur = conn.execute(
+    cur = stream(
+        conn,
         f"SELECT id, {PACKED}, ts, value, received_ts, chain FROM reading_rows WHERE id >= ? AND id < ? ORDER BY id",
         (first, hi),
     )
@@ -233,8 +234,8 @@ def running(conn, zone: str, upto_id: int, folds: dict, hashed_from: float) -> d
     links = folds.get(f"readings/{zone}", {})
     prev, out = None, {}
     cols = ", ".join(READING_FIELDS)
-    for row_id, stored, *values in conn.execute(
-        f"SELECT id, chain, {cols} FROM readings WHERE zone = ? AND id <= ? ORDER BY id", (zone, upto_id)
+    for row_id, stored, *values in stream(
+        conn, f"SELECT id, chain, {cols} FROM readings WHERE zone = ? AND id <= ? ORDER BY id", (zone, upto_id)
     ):
         if row_id < hashed_from:
             continue
