@@ -9,6 +9,7 @@ database refusing the data is `RecordRefused` (the writer sets the message aside
 
 from __future__ import annotations
 
+import contextlib
 import functools
 import inspect
 import re
@@ -60,10 +61,15 @@ def translate(exc: Exception, where: str) -> WatcherError | None:
     return None
 
 
-def _mine(exc: Exception, self, method) -> Exception:
-    if not (isinstance(exc, OSError) or is_db_error(exc)):
-        return exc
-    return translate(exc, f"{type(self).__name__.lower()}.{method.__name__}")
+@contextlib.contextmanager
+def _translating(self, method):
+    """A driver's or the OS's error leaving a repository method, as the error tree's."""
+    try:
+        yield
+    except Exception as exc:
+        if not (isinstance(exc, OSError) or is_db_error(exc)):
+            raise
+        raise translate(exc, f"{type(self).__name__.lower()}.{method.__name__}") from exc
 
 
 def _translated(method):
@@ -71,25 +77,15 @@ def _translated(method):
 
         @functools.wraps(method)
         def rows(self, *args, **kwargs):
-            try:
+            with _translating(self, method):
                 yield from method(self, *args, **kwargs)
-            except Exception as exc:
-                mine = _mine(exc, self, method)
-                if mine is exc:
-                    raise
-                raise mine from exc
 
         return rows
 
     @functools.wraps(method)
     def call(self, *args, **kwargs):
-        try:
+        with _translating(self, method):
             return method(self, *args, **kwargs)
-        except Exception as exc:
-            mine = _mine(exc, self, method)
-            if mine is exc:
-                raise
-            raise mine from exc
 
     return call
 
