@@ -177,7 +177,8 @@ def test_verify_names_an_edit_on_either_engine(opener, tmp_path, pg_server, edit
 
 def test_a_stored_reading_is_answered_by_its_key_on_either_engine(opener, tmp_path):
     """A reading stored again is refused by its natural key, alone or in a batch (the batch
-    then inserts nothing, and the caller goes row by row); nothing is counted twice."""
+    then inserts nothing, and the caller goes row by row); nothing is counted twice, and a
+    batch undone that way keeps the month it opened (PostgreSQL's partitions)."""
     store = opener()
     (tmp_path / "cfg").mkdir()
     cfg, scratch, _ = make(tmp_path / "cfg", reorder=0.0)
@@ -189,11 +190,14 @@ def test_a_stored_reading_is_answered_by_its_key_on_either_engine(opener, tmp_pa
 
     again = Reading("bulk-a", "s1", "air_c", T0 + 60 * 3, -25.0)
     fresh = Reading("bulk-a", "s1", "air_c", T0 + 60 * 30, -25.0)
+    next_month = Reading("bulk-a", "s1", "air_c", T0 + 40 * 86400.0, -25.0)  # a month not seen yet
     with store.atomic():
         assert store.readings.add(again, NOW, "kp/bulk-a/s1/air", False) is False
         assert store.readings.add_all_new([(fresh, NOW, "kp/bulk-a/s1/air"), (again, NOW, "kp/bulk-a/s1/air")]) is False
+        assert store.readings.add_all_new([(next_month, NOW, "kp/bulk-a/s1/air"), (again, NOW, "t")]) is False
         assert store.readings.add_all_new([(fresh, NOW, "kp/bulk-a/s1/air")]) is True
-    assert store.readings.summary("bulk-a")[0] == first + 1 == 11
+        assert store.readings.add(next_month, NOW, "kp/bulk-a/s1/air", False) is True  # its month still there
+    assert store.readings.summary("bulk-a")[0] == first + 2 == 12
     assert chain.verify(store.conn)[0] == []
     store.close()
 

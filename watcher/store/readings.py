@@ -120,6 +120,8 @@ class Readings(Repo):
         # Names interned before the savepoint: a rollback to it must not leave cached ids of
         # series or topics it undid.
         ids = [(self._series_id(r.zone, r.sensor, r.signal), self._topic_id(topic)) for r, _, topic in items]
+        if self._months is not None:  # before the savepoint: a rollback to it must not undo a month
+            self._months.ensure(self.conn, {r.ts for r, _, _ in items})
         self.conn.execute("SAVEPOINT bulk")
         self._fresh_heads()
         heads = {zone: self._head(zone) for zone in {r.zone for r, _, _ in items}}
@@ -133,8 +135,6 @@ class Readings(Repo):
             keep = heads[r.zone] if i == last[r.zone] or n % KEEP_EVERY == 0 else None
             rows.append((ids[i][0], r.ts, r.value, rts, ids[i][1], 0, keep))
             self._touch(r.zone, r.signal, r.ts)
-        if self._months is not None:
-            self._months.ensure(self.conn, {r.ts for r, _, _ in items})
         before = self.conn.total_changes
         self.conn.executemany(ROW_INSERT, rows)
         if self.conn.total_changes - before == len(items):
