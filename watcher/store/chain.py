@@ -76,7 +76,7 @@ class Append:
     hash read, the row's hashed here and inserted: the same hash, made by the same function."""
 
     def __init__(self, table: str, fields: tuple[str, ...]):
-        self.table, self.fields = table, fields
+        self.table = table
         self.sql = insert_sql(table, fields, zone_scoped=False)
         self.plain = f"INSERT INTO {table} ({', '.join(fields)}, chain) VALUES ({', '.join('?' * (len(fields) + 1))})"
 

@@ -102,9 +102,6 @@ class Cursor:
     def fetchall(self) -> list:
         return self._cur.fetchall() if self._cur.description else []
 
-    def fetchmany(self, size: int) -> list:
-        return self._cur.fetchmany(size) if self._cur.description else []
-
     def __iter__(self):
         return iter(self._cur) if self._cur.description else iter(())
 
